@@ -1,0 +1,386 @@
+"""Private numba kernels: arrays in, arrays out, no validation.
+
+Every kernel here has a slow, obvious twin in ``tests/reference/`` that it is
+checked against.  Units: Hz for frequencies, ppm for shift tensors, the EFG
+principal values in units of V_zz.
+
+Geometry shared by the producers
+--------------------------------
+An orientation is a unit vector ``n`` in the crystallite frame (the EFG
+principal frame, or the shift frame when there is no quadrupole coupling).
+Static: ``n`` is the direction of B0.  Spinning: ``n`` is the rotor axis and
+B0, seen from the crystallite, precesses about it at the rotor angle:
+``b(phi) = cos(theta_R) n + sin(theta_R) (cos(phi) u + sin(phi) v)`` with
+``u, v`` an orthonormal pair perpendicular to ``n`` and ``phi`` the rotor
+phase.  Only B0's direction ``b`` in the crystallite frame enters the
+high-field frequencies, so one sampling routine serves static, spinning and
+infinite-rate cases.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit, prange
+
+__all__: list[str] = []
+
+
+# ---------------------------------------------------------------------------
+# geometry
+
+
+@njit(cache=True)
+def _perp_pair(n):
+    """An orthonormal pair (u, v) perpendicular to unit vector n, v = n x u."""
+    ax, ay, az = abs(n[0]), abs(n[1]), abs(n[2])
+    # cross n with the coordinate axis least aligned with it
+    if ax <= ay and ax <= az:
+        e = np.array([1.0, 0.0, 0.0])
+    elif ay <= az:
+        e = np.array([0.0, 1.0, 0.0])
+    else:
+        e = np.array([0.0, 0.0, 1.0])
+    u = np.empty(3)
+    u[0] = n[1] * e[2] - n[2] * e[1]
+    u[1] = n[2] * e[0] - n[0] * e[2]
+    u[2] = n[0] * e[1] - n[1] * e[0]
+    s = math.sqrt(u[0] * u[0] + u[1] * u[1] + u[2] * u[2])
+    u /= s
+    v = np.empty(3)
+    v[0] = n[1] * u[2] - n[2] * u[1]
+    v[1] = n[2] * u[0] - n[0] * u[2]
+    v[2] = n[0] * u[1] - n[1] * u[0]
+    return u, v
+
+
+@njit(cache=True)
+def _field_direction(n, u, v, cos_r, sin_r, phi, b):
+    c = math.cos(phi)
+    s = math.sin(phi)
+    for k in range(3):
+        b[k] = cos_r * n[k] + sin_r * (c * u[k] + s * v[k])
+
+
+# ---------------------------------------------------------------------------
+# perturbative producer
+
+
+@njit(parallel=True, cache=True)
+def _perturbative_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz, ms, spin, second_order):
+    """Offsets (Hz) of transitions m -> m-1 for every orientation and rotor phase.
+
+    Returns an array (n_orient, n_trans, nphase).  First-order shift (all of
+    the tensor's lab zz part), first-order quadrupolar and second-order
+    quadrupolar terms (design.md section 2 formulas, written with the
+    rotation invariants of the EFG so only b = B0 direction is needed).
+    """
+    n_or = axes.shape[0]
+    nt = ms.shape[0]
+    out = np.empty((n_or, nt, nphase))
+    x = spin * (spin + 1.0)
+    t2 = vdiag[0] ** 2 + vdiag[1] ** 2 + vdiag[2] ** 2
+    c2 = -(k_hz * k_hz) / (2.0 * nu0_hz) if second_order else 0.0
+    # per-transition constants
+    c1 = np.empty(nt)
+    ca = np.empty(nt)
+    cb = np.empty(nt)
+    for t in range(nt):
+        m = ms[t]
+        mm = m - 1.0
+        c1[t] = 1.5 * k_hz * (2.0 * m - 1.0)
+        # E2(m) - E2(m-1) = c2 * ( ca * A - cb * B / 4 )
+        ca[t] = m * (4 * x - 8 * m * m - 1) - mm * (4 * x - 8 * mm * mm - 1)
+        cb[t] = m * (2 * x - 2 * m * m - 1) - mm * (2 * x - 2 * mm * mm - 1)
+    dphi = 2.0 * math.pi / nphase
+    scale_cs = nu0_hz * 1e-6
+    for i in prange(n_or):
+        n = axes[i]
+        u, v = _perp_pair(n)
+        b = np.empty(3)
+        for p in range(nphase):
+            _field_direction(n, u, v, cos_r, sin_r, p * dphi, b)
+            b0s = b[0] * b[0]
+            b1s = b[1] * b[1]
+            b2s = b[2] * b[2]
+            vzz = vdiag[0] * b0s + vdiag[1] * b1s + vdiag[2] * b2s
+            vb2 = vdiag[0] ** 2 * b0s + vdiag[1] ** 2 * b1s + vdiag[2] ** 2 * b2s
+            a = vb2 - vzz * vzz
+            bq = 2.0 * t2 - 3.0 * vzz * vzz - 4.0 * a
+            dzz = 0.0
+            for r in range(3):
+                for s in range(3):
+                    dzz += b[r] * delta[r, s] * b[s]
+            cs = scale_cs * dzz
+            for t in range(nt):
+                out[i, t, p] = cs + c1[t] * vzz + c2 * (ca[t] * a - cb[t] * 0.25 * bq)
+    return out
+
+
+# ---------------------------------------------------------------------------
+# exact producer
+
+
+@njit(parallel=True, cache=True)
+def _exact_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz, ops, iz_diag, iplus, upper_idx):
+    """Exact transition offsets (Hz) and intensities |<m|I+|m-1>|^2.
+
+    Diagonalises H = nu0 (1 + 1e-6 d_zz) Iz + K sum_ab V_ab I_a I_b at every
+    orientation and rotor phase, labels the eigenstates by <Iz> (descending)
+    and returns offsets E(m) - E(m-1) - nu0 for the levels ``upper_idx`` (the
+    index of level m in that order) and the matching intensities.
+
+    ``ops`` holds IxIx, IyIy, IzIz, {Ix,Iy}, {Ix,Iz}, {Iy,Iz} (complex).
+    """
+    n_or = axes.shape[0]
+    nt = upper_idx.shape[0]
+    dim = iz_diag.shape[0]
+    off = np.empty((n_or, nt, nphase))
+    inten = np.empty((n_or, nt, nphase))
+    dphi = 2.0 * math.pi / nphase
+    for i in prange(n_or):
+        n = axes[i]
+        u, v = _perp_pair(n)
+        b = np.empty(3)
+        h = np.empty((dim, dim), dtype=np.complex128)
+        mz = np.empty(dim)
+        for p in range(nphase):
+            _field_direction(n, u, v, cos_r, sin_r, p * dphi, b)
+            ex, ey = _perp_pair(b)
+            # lab-frame EFG components, lab axes (ex, ey, b)
+            vxx = 0.0
+            vyy = 0.0
+            vzz = 0.0
+            vxy = 0.0
+            vxz = 0.0
+            vyz = 0.0
+            for k in range(3):
+                vxx += vdiag[k] * ex[k] * ex[k]
+                vyy += vdiag[k] * ey[k] * ey[k]
+                vzz += vdiag[k] * b[k] * b[k]
+                vxy += vdiag[k] * ex[k] * ey[k]
+                vxz += vdiag[k] * ex[k] * b[k]
+                vyz += vdiag[k] * ey[k] * b[k]
+            dzz = 0.0
+            for r in range(3):
+                for s in range(3):
+                    dzz += b[r] * delta[r, s] * b[s]
+            zee = nu0_hz * (1.0 + 1e-6 * dzz)
+            for r in range(dim):
+                for s in range(dim):
+                    h[r, s] = k_hz * (
+                        vxx * ops[0, r, s]
+                        + vyy * ops[1, r, s]
+                        + vzz * ops[2, r, s]
+                        + vxy * ops[3, r, s]
+                        + vxz * ops[4, r, s]
+                        + vyz * ops[5, r, s]
+                    )
+                h[r, r] += zee * iz_diag[r]
+            w, vec = np.linalg.eigh(h)
+            for j in range(dim):
+                acc = 0.0
+                for r in range(dim):
+                    acc += (vec[r, j].real ** 2 + vec[r, j].imag ** 2) * iz_diag[r]
+                mz[j] = acc
+            order = np.argsort(-mz)
+            for t in range(nt):
+                jh = order[upper_idx[t]]
+                jl = order[upper_idx[t] + 1]
+                off[i, t, p] = w[jh] - w[jl] - nu0_hz
+                # <psi_hi| I+ |psi_lo>
+                amp = 0.0 + 0.0j
+                for r in range(dim):
+                    for s in range(dim):
+                        amp += np.conj(vec[r, jh]) * iplus[r, s] * vec[s, jl]
+                inten[i, t, p] = amp.real ** 2 + amp.imag ** 2
+    return off, inten
+
+
+# ---------------------------------------------------------------------------
+# consumer: rotor average and sideband amplitudes
+
+
+@njit(cache=True)
+def _fft_inplace(a, inverse):
+    """Iterative radix-2 FFT (length a power of 2), unnormalised.
+
+    Forward: A_k = sum_j a_j exp(-2 pi i j k / n); inverse uses +i.
+    """
+    n = a.shape[0]
+    j = 0
+    for i in range(1, n):
+        bit = n >> 1
+        while j & bit:
+            j ^= bit
+            bit >>= 1
+        j |= bit
+        if i < j:
+            tmp = a[i]
+            a[i] = a[j]
+            a[j] = tmp
+    length = 2
+    sign = 1.0 if inverse else -1.0
+    while length <= n:
+        ang = sign * 2.0 * math.pi / length
+        wl = complex(math.cos(ang), math.sin(ang))
+        half = length // 2
+        for start in range(0, n, length):
+            w = 1.0 + 0.0j
+            for k in range(half):
+                x = a[start + k]
+                y = a[start + k + half] * w
+                a[start + k] = x + y
+                a[start + k + half] = x - y
+                w *= wl
+        length <<= 1
+
+
+@njit(parallel=True, cache=True)
+def _sideband_amplitudes(traj, rate_hz):
+    """Rotor averages and gamma-averaged sideband intensities |F_n|^2.
+
+    ``traj`` (n_orient, n_trans, P) holds offsets (Hz) at P equally spaced
+    rotor phases over one period (P a power of 2).  With
+    ``nu(t) - mean = sum_k c_k exp(i k w_r t)`` the phase is
+    ``xi(t) = sum_k c_k / (i k nu_r) exp(i k w_r t)``; F_n are the Fourier
+    coefficients of exp(i xi(t)).  Band n sits at mean + n nu_r and is stored at
+    index n mod P (the FFT order).
+    """
+    n_or, nt, p = traj.shape
+    mean = np.empty((n_or, nt))
+    amp = np.empty((n_or, nt, p))
+    for i in prange(n_or):
+        buf = np.empty(p, dtype=np.complex128)
+        for t in range(nt):
+            for j in range(p):
+                buf[j] = traj[i, t, j]
+            _fft_inplace(buf, False)
+            mean[i, t] = buf[0].real / p
+            buf[0] = 0.0
+            if p >= 2:
+                buf[p // 2] = 0.0
+            for k in range(1, p // 2):
+                g = buf[k] / p / (1j * k * rate_hz)
+                buf[k] = g
+                buf[p - k] = np.conj(g)
+            _fft_inplace(buf, True)  # xi at the phases
+            for j in range(p):
+                xi = buf[j].real
+                buf[j] = complex(math.cos(xi), math.sin(xi))
+            _fft_inplace(buf, False)
+            inv = 1.0 / (p * p)
+            for j in range(p):
+                amp[i, t, j] = (buf[j].real ** 2 + buf[j].imag ** 2) * inv
+    return mean, amp
+
+
+# ---------------------------------------------------------------------------
+# binning
+
+
+@njit(cache=True)
+def _tent_cdf(u, u1, u2, u3):
+    if u <= u1:
+        return 0.0
+    if u >= u3:
+        return 1.0
+    if u < u2:
+        return (u - u1) * (u - u1) / ((u3 - u1) * (u2 - u1))
+    return 1.0 - (u3 - u) * (u3 - u) / ((u3 - u1) * (u3 - u2))
+
+
+@njit(cache=True)
+def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
+    # sort
+    if f1 > f2:
+        f1, f2 = f2, f1
+    if f2 > f3:
+        f2, f3 = f3, f2
+    if f1 > f2:
+        f1, f2 = f2, f1
+    u1 = (f1 - x0) / dx
+    u2 = (f2 - x0) / dx
+    u3 = (f3 - x0) / dx
+    if u3 < 0.0 or u1 >= nb:
+        return
+    if u3 - u1 < 1e-9:
+        k = int(math.floor(u1))
+        if 0 <= k < nb:
+            buf[k] += w
+        return
+    k0 = int(math.floor(u1))
+    k1 = int(math.floor(u3))
+    if k0 < 0:
+        k0 = 0
+    if k1 > nb - 1:
+        k1 = nb - 1
+    prev = _tent_cdf(float(k0), u1, u2, u3)
+    for k in range(k0, k1 + 1):
+        cur = _tent_cdf(float(k + 1), u1, u2, u3)
+        buf[k] += w * (cur - prev)
+        prev = cur
+
+
+@njit(parallel=True, cache=True)
+def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cutoff):
+    """Triangle ("tent") interpolation of every line onto bins.
+
+    mean (n_v, n_t): line centres (Hz) per vertex and transition; amp
+    (n_v, n_t, P): sideband intensities (P = 1 for static / infinite rate);
+    weights_t (n_v, n_t): transition weights per vertex.  Each triangle
+    contributes, for each line, a triangular density between its three
+    vertex frequencies with area tri_w * mean vertex intensity; bins have
+    left edge x0 + k dx.  Returns (nb,) summed intensities.
+    """
+    m = tris.shape[0]
+    nt = mean.shape[1]
+    p = amp.shape[2]
+    bufs = np.zeros((nchunk, nb))
+    step = (m + nchunk - 1) // nchunk
+    for c in prange(nchunk):
+        lo = c * step
+        hi = min(m, lo + step)
+        buf = bufs[c]
+        for q in range(lo, hi):
+            a = tris[q, 0]
+            b = tris[q, 1]
+            d = tris[q, 2]
+            for t in range(nt):
+                for s in range(p):
+                    w = (
+                        amp[a, t, s] * weights_t[a, t]
+                        + amp[b, t, s] * weights_t[b, t]
+                        + amp[d, t, s] * weights_t[d, t]
+                    ) * (tri_w[q] / 3.0)
+                    if w <= cutoff:
+                        continue
+                    n = s if s < (p + 1) // 2 else s - p
+                    off = n * rate_hz if p > 1 else 0.0
+                    _add_tent(buf, mean[a, t] + off, mean[b, t] + off, mean[d, t] + off, w, x0, dx, nb)
+    out = np.zeros(nb)
+    for c in range(nchunk):
+        for k in range(nb):
+            out[k] += bufs[c, k]
+    return out
+
+
+@njit(cache=True)
+def _bin_histogram(mean, amp, weights_t, vert_w, rate_hz, x0, dx, nb):
+    """Plain histogram: each vertex's lines drop into the bin they fall in."""
+    nv, nt = mean.shape
+    p = amp.shape[2]
+    out = np.zeros(nb)
+    for i in range(nv):
+        for t in range(nt):
+            for s in range(p):
+                w = amp[i, t, s] * weights_t[i, t] * vert_w[i]
+                if w == 0.0:
+                    continue
+                n = s if s < (p + 1) // 2 else s - p
+                off = n * rate_hz if p > 1 else 0.0
+                k = int(math.floor((mean[i, t] + off - x0) / dx))
+                if 0 <= k < nb:
+                    out[k] += w
+    return out

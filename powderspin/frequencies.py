@@ -1,0 +1,267 @@
+"""Transition frequencies per crystallite orientation: the two producers.
+
+Both producers give, for each orientation and rotor phase, the offset (Hz,
+from the reference frequency nu_ref) of each selected transition m -> m-1:
+
+* :func:`perturbative_offsets`: first-order shift (full secular part of the
+  tensor), first-order quadrupolar and second-order quadrupolar terms;
+* :func:`exact_offsets`: diagonalisation of the full Zeeman + quadrupolar +
+  secular shift Hamiltonian (adiabatic levels labelled by <Iz>).
+
+The Hamiltonian (frequency units) is ``H = nu0 (1 + 1e-6 d_zz) Iz + K sum_ab
+V_ab I_a I_b`` with ``K = C_Q / (2I(2I-1))`` and the EFG in units of V_zz.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import _kernels as _k
+from typing import TYPE_CHECKING
+if TYPE_CHECKING:  # pragma: no cover
+    from .model import Site
+    from .nuclides import Nuclide
+
+from .spin import spin_operators
+from .tensors import efg_principal, is_axis_permutation, rotation_matrix
+
+__all__ = [
+    "SiteFrame",
+    "site_frame",
+    "perturbative_offsets",
+    "exact_offsets",
+    "transition_intensity",
+    "needs_exact",
+]
+
+
+@dataclass(frozen=True)
+class SiteFrame:
+    """A site's interactions written in its crystallite frame, ready for the kernels.
+
+    Attributes
+    ----------
+    spin : float
+        Nuclear spin I.
+    nu0_hz : float
+        Reference (Larmor) frequency at the field (Hz).
+    k_hz : float
+        C_Q / (2I(2I-1)) in Hz (0 for spin 1/2 or C_Q = 0).
+    vdiag : ndarray
+        EFG principal values in units of V_zz.
+    delta_ppm : ndarray
+        3x3 shift tensor (ppm, isotropic part included) in the crystallite frame.
+    symmetry : str
+        "octant" when every tensor is diagonal in the crystallite frame,
+        otherwise "hemisphere" (all terms are of even rank).
+    """
+
+    spin: float
+    nu0_hz: float
+    k_hz: float
+    vdiag: np.ndarray
+    delta_ppm: np.ndarray
+    symmetry: str
+
+    @property
+    def nu_q_hz(self) -> float:
+        """nu_Q = 3 C_Q / (2I(2I-1)) in Hz."""
+        return 3.0 * self.k_hz
+
+
+def site_frame(site: Site, nucleus: Nuclide, field_tesla: float) -> SiteFrame:
+    """Express a site's tensors in its crystallite frame.
+
+    The crystallite frame is the EFG principal frame; the shift tensor is
+    rotated into it with the site's Euler angles (see
+    :mod:`powderspin.tensors`).
+
+    Examples
+    --------
+    >>> from powderspin.model import Site
+    >>> from powderspin.nuclides import get_nuclide
+    >>> f = site_frame(Site(cq_mhz=3.0), get_nuclide("27Al"), 14.1)
+    >>> round(f.k_hz)
+    150000
+    """
+    spin = nucleus.spin
+    nu0 = nucleus.larmor_hz(field_tesla)
+    k = site.cq_hz / (2 * spin * (2 * spin - 1)) if spin > 0.5 else 0.0
+    r = rotation_matrix(*site.euler_rad)
+    delta = r @ np.diag(site.shift.principal_haeberlen) @ r.T
+    coaxial = is_axis_permutation(r) or k == 0.0 or site.shift.is_isotropic
+    return SiteFrame(spin, nu0, k, efg_principal(site.eta_q), delta, "octant" if coaxial else "hemisphere")
+
+
+def _axes(directions) -> np.ndarray:
+    d = np.ascontiguousarray(np.asarray(directions, dtype=float).reshape(-1, 3))
+    nrm = np.linalg.norm(d, axis=1)
+    if np.any(nrm == 0) or not np.all(np.isfinite(nrm)):
+        raise ValueError("directions must be non-zero finite 3-vectors")
+    return d / nrm[:, None]
+
+
+def perturbative_offsets(
+    frame: SiteFrame,
+    directions,
+    ms,
+    *,
+    rotor_angle_rad: float = 0.0,
+    phases: int = 1,
+    second_order: bool = True,
+) -> np.ndarray:
+    """Transition offsets (Hz) from perturbation theory.
+
+    Parameters
+    ----------
+    frame : SiteFrame
+        Site interactions (:func:`site_frame`).
+    directions : array_like, shape (N, 3)
+        Static: B0 directions in the crystallite frame.  Spinning: rotor-axis
+        directions.
+    ms : sequence of float
+        Upper level m of each transition m -> m-1.
+    rotor_angle_rad : float
+        Angle between rotor axis and B0; 0 (with ``phases=1``) is static.
+    phases : int
+        Number of equally spaced rotor phases per period.
+    second_order : bool
+        Include the second-order quadrupolar term.
+
+    Returns
+    -------
+    ndarray, shape (N, len(ms), phases)
+
+    References
+    ----------
+    A. Abragam, *The Principles of Nuclear Magnetism* (1961), ch. VII;
+    P. P. Man, in *Encyclopedia of Analytical Chemistry* (2000), "Quadrupolar
+    interactions" (second-order level shifts).
+
+    Examples
+    --------
+    >>> from powderspin.model import Site
+    >>> from powderspin.nuclides import get_nuclide
+    >>> f = site_frame(Site(cq_mhz=3.0), get_nuclide("27Al"), 14.1)
+    >>> perturbative_offsets(f, [[0, 0, 1]], [1.5]).round(1).tolist()  # nu_Q at theta = 0
+    [[[450000.0]]]
+    """
+    ax = _axes(directions)
+    ms_a = np.asarray(ms, dtype=float)
+    return _k._perturbative_offsets(
+        ax,
+        math.cos(rotor_angle_rad),
+        math.sin(rotor_angle_rad),
+        int(phases),
+        np.ascontiguousarray(frame.vdiag),
+        np.ascontiguousarray(frame.delta_ppm),
+        float(frame.k_hz),
+        float(frame.nu0_hz),
+        ms_a,
+        float(frame.spin),
+        bool(second_order),
+    )
+
+
+def _operator_products(spin: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    o = spin_operators(spin)
+    x, y, z = o.x, o.y, o.z
+    ops = np.array([x @ x, y @ y, z @ z, x @ y + y @ x, x @ z + z @ x, y @ z + z @ y], dtype=complex)
+    return ops, np.real(np.diag(z)).copy(), np.array(o.plus, dtype=complex)
+
+
+def exact_offsets(
+    frame: SiteFrame,
+    directions,
+    ms,
+    *,
+    rotor_angle_rad: float = 0.0,
+    phases: int = 1,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Transition offsets (Hz) and intensities from exact diagonalisation.
+
+    Parameters
+    ----------
+    frame, directions, ms, rotor_angle_rad, phases
+        As in :func:`perturbative_offsets`.
+
+    Returns
+    -------
+    offsets : ndarray, shape (N, len(ms), phases)
+        E(m) - E(m-1) - nu0 with levels labelled by <Iz>.
+    intensities : ndarray, same shape
+        |<m|I+|m-1>|^2 between the eigenstates (I(I+1) - m(m-1) in high field).
+
+    References
+    ----------
+    J. A. Weil, J. R. Bolton, *Electron Paramagnetic Resonance* (2007), ch. 5
+    (exact spin-Hamiltonian diagonalisation).
+
+    Examples
+    --------
+    >>> from powderspin.model import Site
+    >>> from powderspin.nuclides import get_nuclide
+    >>> f = site_frame(Site(cq_mhz=3.0), get_nuclide("27Al"), 14.1)
+    >>> off, inten = exact_offsets(f, [[0, 0, 1]], [0.5])
+    >>> round(float(inten[0, 0, 0]), 6)
+    9.0
+    """
+    ax = _axes(directions)
+    spin = frame.spin
+    ops, iz, ip = _operator_products(spin)
+    upper = np.array([int(round(spin - m)) for m in ms], dtype=np.int64)
+    if np.any(upper < 0) or np.any(upper >= int(round(2 * spin))):
+        raise ValueError(f"transition upper levels {list(ms)} not available for spin {spin}")
+    return _k._exact_offsets(
+        ax,
+        math.cos(rotor_angle_rad),
+        math.sin(rotor_angle_rad),
+        int(phases),
+        np.ascontiguousarray(frame.vdiag),
+        np.ascontiguousarray(frame.delta_ppm),
+        float(frame.k_hz),
+        float(frame.nu0_hz),
+        ops,
+        iz,
+        ip,
+        upper,
+    )
+
+
+def transition_intensity(spin: float, m: float) -> float:
+    """Small-tip intensity of m -> m-1: |<m|I+|m-1>|^2 = I(I+1) - m(m-1).
+
+    References
+    ----------
+    A. Abragam, *The Principles of Nuclear Magnetism* (1961), ch. II
+    (matrix elements of I+); common practice for non-selective small-tip
+    excitation.
+    """
+    return spin * (spin + 1.0) - m * (m - 1.0)
+
+
+def _probe_directions(count: int = 96) -> np.ndarray:
+    """Quasi-uniform directions (a golden-angle spiral) for quick checks."""
+    i = np.arange(count) + 0.5
+    z = 1.0 - i / count  # upper hemisphere suffices (even-rank terms)
+    phi = i * math.pi * (3.0 - math.sqrt(5.0))
+    r = np.sqrt(1.0 - z * z)
+    return np.column_stack([r * np.cos(phi), r * np.sin(phi), z])
+
+
+def needs_exact(frame: SiteFrame, ms, *, rotor_angle_rad: float = 0.0, phases: int = 1) -> float:
+    """Largest perturbative error (Hz) over probe orientations, by exact diagonalisation.
+
+    ``method = "auto"`` uses this: when the returned error exceeds the
+    requested resolution, the exact producer is used.  Returns 0.0 for
+    spin 1/2 or C_Q = 0 (first-order shift is exact at high field).
+    """
+    if frame.k_hz == 0.0:
+        return 0.0
+    d = _probe_directions()
+    a = perturbative_offsets(frame, d, ms, rotor_angle_rad=rotor_angle_rad, phases=phases)
+    b, _ = exact_offsets(frame, d, ms, rotor_angle_rad=rotor_angle_rad, phases=phases)
+    return float(np.max(np.abs(a - b)))

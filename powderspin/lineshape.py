@@ -1,0 +1,185 @@
+"""From per-orientation lines to a spectrum: axis, binning and broadening.
+
+Binning
+-------
+``"interpolate"``: each triangle of the orientation mesh, with vertex
+frequencies f1 <= f2 <= f3 and weight w (its solid-angle fraction times the
+mean vertex intensity), contributes a triangular density rising from f1 to a
+peak at f2 and falling to f3 with area w; its exact integral over each bin is
+added, so a few thousand orientations give a pattern free of orientation
+noise (D. W. Alderman, M. S. Solum, D. M. Grant, J. Chem. Phys. 84 (1986)
+3717).  ``"histogram"``: each orientation's line falls into one bin.
+
+Broadening
+----------
+Lorentzian (FWHM L) and Gaussian (FWHM G) line shapes are applied together
+as a Voigt profile by multiplying the time-domain signal by
+``exp(-pi L |t|) exp(-(pi G t)^2 / (4 ln 2))`` (the Fourier transforms of the
+unit-area Lorentzian and Gaussian), with zero padding so the convolution does
+not wrap around.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import _kernels as _k
+
+__all__ = ["Axis", "make_axis", "bin_lines", "broaden"]
+
+
+@dataclass(frozen=True)
+class Axis:
+    """A uniform spectral axis: ``points`` bins of ``width_hz / points``.
+
+    Attributes
+    ----------
+    center_hz, width_hz : float
+        Centre and full width (Hz offsets from nu_ref).
+    points : int
+        Number of bins; intensity i belongs to the bin centred at ``hz[i]``.
+    nu_ref_hz : float
+        Reference frequency used for the ppm scale.
+    """
+
+    center_hz: float
+    width_hz: float
+    points: int
+    nu_ref_hz: float
+
+    @property
+    def dx_hz(self) -> float:
+        return self.width_hz / self.points
+
+    @property
+    def left_edge_hz(self) -> float:
+        return self.center_hz - self.width_hz / 2.0
+
+    @property
+    def hz(self) -> np.ndarray:
+        return self.left_edge_hz + (np.arange(self.points) + 0.5) * self.dx_hz
+
+    @property
+    def ppm(self) -> np.ndarray:
+        return self.hz / self.nu_ref_hz * 1e6
+
+    @property
+    def dx_ppm(self) -> float:
+        return self.dx_hz / self.nu_ref_hz * 1e6
+
+
+def make_axis(points: int, nu_ref_hz: float, center_ppm=None, width_ppm=None, span_hz=None) -> Axis:
+    """Build an axis from explicit ppm values or from the range the lines cover.
+
+    Parameters
+    ----------
+    points : int
+        Number of points.
+    nu_ref_hz : float
+        Reference frequency (Hz).
+    center_ppm, width_ppm : float or None
+        Explicit centre / full width (ppm).
+    span_hz : (float, float) or None
+        Lowest and highest frequency that must be on the axis when the
+        centre or width is not given (a 10 % margin is added each side).
+    """
+    if span_hz is not None:
+        lo, hi = float(span_hz[0]), float(span_hz[1])
+    else:
+        lo = hi = 0.0
+    auto_w = max(hi - lo, 1e-9) * 1.2
+    auto_w = max(auto_w, 20.0 * points / 2048.0, 1e-3 * nu_ref_hz * 1e-6 * 100)
+    w = width_ppm * nu_ref_hz * 1e-6 if width_ppm is not None else auto_w
+    if center_ppm is not None:
+        c = center_ppm * nu_ref_hz * 1e-6
+        if width_ppm is None and span_hz is not None:
+            w = max(2.0 * max(abs(hi - c), abs(c - lo)) * 1.1, auto_w)
+    else:
+        c = 0.5 * (lo + hi)
+    return Axis(c, w, int(points), nu_ref_hz)
+
+
+def bin_lines(axis: Axis, mean, amp, weights_t, orientation_set, binning: str, rate_hz: float = 0.0,
+              cutoff: float = 0.0) -> np.ndarray:
+    """Bin lines onto the axis; returns the intensity fraction per bin.
+
+    Parameters
+    ----------
+    axis : Axis
+    mean : ndarray (n_v, n_t)
+        Line centres (Hz) for each orientation and transition.
+    amp : ndarray (n_v, n_t, P)
+        Sideband intensities (P = 1 without sidebands), summing to ~1 over P.
+    weights_t : ndarray (n_v, n_t)
+        Transition weights (sum over transitions ~1).
+    orientation_set : OrientationSet
+        Vectors, weights and (for ``"interpolate"``) triangles.
+    binning : {"interpolate", "histogram"}
+    rate_hz : float
+        Spinning rate; sideband n sits at ``mean + n * rate_hz``.
+    cutoff : float
+        Triangle-line contributions at or below this weight are skipped.
+
+    References
+    ----------
+    D. W. Alderman, M. S. Solum, D. M. Grant, J. Chem. Phys. 84 (1986) 3717.
+    """
+    mean = np.ascontiguousarray(mean, dtype=float)
+    amp = np.ascontiguousarray(amp, dtype=float)
+    wt = np.ascontiguousarray(weights_t, dtype=float)
+    if binning == "interpolate":
+        if not orientation_set.has_triangles:
+            raise ValueError(
+                f"binning = 'interpolate' needs a triangulated orientation set; "
+                f"'{orientation_set.name}' has none (use binning = 'histogram')"
+            )
+        tris = np.ascontiguousarray(orientation_set.triangles, dtype=np.int64)
+        tw = np.ascontiguousarray(orientation_set.triangle_weights, dtype=float)
+        nchunk = 8 if tris.shape[0] > 4096 else 1
+        return _k._bin_tent(mean, amp, wt, tris, tw, float(rate_hz), axis.left_edge_hz, axis.dx_hz,
+                            axis.points, nchunk, float(cutoff))
+    if binning == "histogram":
+        vw = np.ascontiguousarray(orientation_set.weights, dtype=float)
+        return _k._bin_histogram(mean, amp, wt, vw, float(rate_hz), axis.left_edge_hz, axis.dx_hz, axis.points)
+    raise ValueError(f"binning = {binning!r} is not one of 'interpolate', 'histogram'")
+
+
+def broaden(y: np.ndarray, dx_hz: float, lorentz_hz: float = 0.0, gauss_hz: float = 0.0) -> np.ndarray:
+    """Convolve a spectrum with a unit-area Voigt profile (FWHM in Hz).
+
+    Parameters
+    ----------
+    y : ndarray
+        Spectrum on a uniform axis of spacing ``dx_hz``.
+    lorentz_hz, gauss_hz : float
+        Full widths at half maximum (Hz), >= 0.
+
+    References
+    ----------
+    R. R. Ernst, G. Bodenhausen, A. Wokaun, *Principles of NMR in One and Two
+    Dimensions* (1987), sec. 4.2 (line shapes and their Fourier transforms).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> y = np.zeros(256); y[128] = 1.0
+    >>> round(float(broaden(y, 1.0, lorentz_hz=4.0).sum()), 3)
+    0.99
+    """
+    if lorentz_hz < 0 or gauss_hz < 0:
+        raise ValueError(f"broadening FWHM must be >= 0 Hz, got lorentz_hz={lorentz_hz}, gauss_hz={gauss_hz}")
+    if lorentz_hz == 0 and gauss_hz == 0:
+        return np.array(y, dtype=float)
+    n = y.shape[-1]
+    pad = 1 << int(math.ceil(math.log2(4 * n)))
+    f = np.fft.rfft(y, n=pad)
+    t = np.fft.rfftfreq(pad, d=dx_hz)  # "time" conjugate to the frequency axis
+    env = np.exp(-math.pi * lorentz_hz * t) * np.exp(-((math.pi * gauss_hz * t) ** 2) / (4.0 * math.log(2.0)))
+    full = np.fft.irfft(f * env, n=pad)
+    # circular convolution with a kernel centred at index 0; with pad >= 4n the
+    # first n points are the linear convolution on the axis (intensity pushed
+    # beyond the axis edges is lost, as for lines outside the axis)
+    return full[:n].copy()
