@@ -97,11 +97,30 @@ def site_frame(site: Site, nucleus: Nuclide, field_tesla: float) -> SiteFrame:
 
 
 def _axes(directions) -> np.ndarray:
-    d = np.ascontiguousarray(np.asarray(directions, dtype=float).reshape(-1, 3))
+    d = np.asarray(directions, dtype=float)
+    if d.size == 0:
+        return np.empty((0, 3))
+    if d.ndim not in (1, 2) or d.shape[-1] != 3:
+        raise ValueError(f"directions must have shape (N, 3) or (3,), got shape {d.shape}")
+    d = np.ascontiguousarray(d.reshape(-1, 3))
     nrm = np.linalg.norm(d, axis=1)
-    if np.any(nrm == 0) or not np.all(np.isfinite(nrm)):
-        raise ValueError("directions must be non-zero finite 3-vectors")
+    bad = (nrm == 0) | ~np.isfinite(nrm)
+    if np.any(bad):
+        i = int(np.argmax(bad))
+        raise ValueError(f"directions[{i}] = {d[i].tolist()} must be a non-zero finite 3-vector")
     return d / nrm[:, None]
+
+
+def _upper_levels(spin: float, ms) -> np.ndarray:
+    """Index (m = I first) of the upper level of each transition m -> m-1; validates ms."""
+    ms_a = np.asarray(ms, dtype=float).reshape(-1)
+    idx = spin - ms_a
+    ok = np.isfinite(idx) & (np.abs(idx - np.round(idx)) < 1e-9) & (idx > -0.5) & (idx < 2 * spin - 0.5)
+    if not np.all(ok):
+        allowed = [spin - i for i in range(int(round(2 * spin)))]
+        raise ValueError(f"transition upper levels ms = {ms_a.tolist()} not available for spin {spin}; "
+                         f"allowed values are {allowed}")
+    return np.round(idx).astype(np.int64)
 
 
 def perturbative_offsets(
@@ -150,7 +169,8 @@ def perturbative_offsets(
     [[[450000.0]]]
     """
     ax = _axes(directions)
-    ms_a = np.asarray(ms, dtype=float)
+    _upper_levels(frame.spin, ms)
+    ms_a = np.asarray(ms, dtype=float).reshape(-1)
     return _k._perturbative_offsets(
         ax,
         math.cos(rotor_angle_rad),
@@ -212,9 +232,7 @@ def exact_offsets(
     ax = _axes(directions)
     spin = frame.spin
     ops, iz, ip = _operator_products(spin)
-    upper = np.array([int(round(spin - m)) for m in ms], dtype=np.int64)
-    if np.any(upper < 0) or np.any(upper >= int(round(2 * spin))):
-        raise ValueError(f"transition upper levels {list(ms)} not available for spin {spin}")
+    upper = _upper_levels(spin, ms)
     return _k._exact_offsets(
         ax,
         math.cos(rotor_angle_rad),

@@ -432,6 +432,26 @@ def _parse_site(i, t, free) -> Site:
     )
 
 
+def _parse_measurement(meas_t, free) -> Measurement:
+    if not isinstance(meas_t, dict):
+        raise ModelError("model: [measurement] must be a table")
+    _unknown(meas_t.keys(), _MEAS_KEYS, "measurement")
+    kw: dict[str, Any] = {}
+    for k, v in meas_t.items():
+        if k in ("transitions", "method", "orientations", "binning", "rotor_phases"):
+            kw[k] = tuple(v) if isinstance(v, list) else v
+        elif k == "points":
+            kw[k] = v
+        elif k == "spinning_hz" and isinstance(v, str):
+            if v.strip().lower() not in ("inf", "infinite", "infinity"):
+                raise ModelError(f"measurement.spinning_hz = {v!r}: give a number of Hz or \"inf\"")
+            kw[k] = math.inf
+        else:
+            kw[k] = _number(meas_t, k, "measurement", free)
+    meas = Measurement(**kw)
+    return meas
+
+
 def parse_model(data: dict, source: str = "") -> Model:
     """Build a :class:`Model` from a parsed TOML mapping, validating every key.
 
@@ -447,23 +467,8 @@ def parse_model(data: dict, source: str = "") -> Model:
         raise ModelError("model: 'nucleus' is required, e.g. nucleus = \"27Al\"")
     nuc = get_nuclide(str(data["nucleus"]))
     meas_t = data.get("measurement", {})
-    if not isinstance(meas_t, dict):
-        raise ModelError("model: [measurement] must be a table")
-    _unknown(meas_t.keys(), _MEAS_KEYS, "measurement")
     free: list[FreeParameter] = []
-    kw: dict[str, Any] = {}
-    for k, v in meas_t.items():
-        if k in ("transitions", "method", "orientations", "binning", "rotor_phases"):
-            kw[k] = tuple(v) if isinstance(v, list) else v
-        elif k == "points":
-            kw[k] = v
-        elif k == "spinning_hz" and isinstance(v, str):
-            if v.strip().lower() not in ("inf", "infinite", "infinity"):
-                raise ModelError(f"measurement.spinning_hz = {v!r}: give a number of Hz or \"inf\"")
-            kw[k] = math.inf
-        else:
-            kw[k] = _number(meas_t, k, "measurement", free)
-    meas = Measurement(**kw)
+    meas = _parse_measurement(meas_t, free)
     sites_t = data.get("site", [])
     if isinstance(sites_t, dict):
         sites_t = [sites_t]
@@ -494,3 +499,50 @@ def load_model(path) -> Model:
     except tomllib.TOMLDecodeError as e:
         raise ModelError(f"model file {str(p)!r} is not valid TOML: {e}") from None
     return parse_model(data, str(p))
+
+
+def make_site(**keys) -> Site:
+    """Build a :class:`Site` from the model-file keys (same names, same checks).
+
+    Examples
+    --------
+    >>> s = make_site(label="AlO6", shift_ppm=8.0, cq_mhz=5.5, eta_q=0.6, span_ppm=20.0, skew=0.1)
+    >>> round(s.shift.span_ppm, 6)
+    20.0
+    """
+    return _parse_site(0, dict(keys), [])
+
+
+def make_model(nucleus, measurement=None, sites=()) -> Model:
+    """Build a :class:`Model` from a nucleus name, measurement keys and site key dicts.
+
+    Parameters
+    ----------
+    nucleus : str or Nuclide
+        e.g. ``"27Al"``.
+    measurement : dict or Measurement, optional
+        ``[measurement]`` keys (see the module docstring).
+    sites : sequence of dict or Site
+        Site keys as in a model file, or ready :class:`Site` values.
+
+    Examples
+    --------
+    >>> m = make_model("23Na", {"field_tesla": 11.7}, [{"cq_mhz": 2.0}])
+    >>> m.measurement.field_tesla
+    11.7
+    """
+    nuc = nucleus if isinstance(nucleus, Nuclide) else get_nuclide(str(nucleus))
+    free: list[FreeParameter] = []
+    if isinstance(measurement, Measurement):
+        meas = measurement
+    else:
+        meas = _parse_measurement(dict(measurement or {}), free)
+    built = []
+    for i, s in enumerate(sites):
+        if isinstance(s, Site):
+            built.append(s)
+        elif isinstance(s, dict):
+            built.append(_parse_site(i, s, free))
+        else:
+            raise ModelError(f"sites[{i}] must be a dict of site keys or a Site, got {type(s).__name__}")
+    return Model(nuc, meas, tuple(built), tuple(free))

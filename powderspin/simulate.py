@@ -32,7 +32,13 @@ from .lineshape import Axis, bin_lines, broaden, make_axis
 from .model import Model, ModelError, selected_transitions
 from .orientations import OrientationSet, orientation_set_by_name, select_orientations
 from .spectrum import SidebandRow, Spectrum
-from .spinning import MAX_AUTO_PHASES, choose_rotor_phases, outer_band_fraction, rotor_lines
+from .spinning import (
+    MAX_AUTO_PHASES,
+    choose_rotor_phases,
+    outer_band_fraction,
+    perturbative_sidebands,
+    rotor_lines,
+)
 
 __all__ = ["simulate", "SiteLines", "site_lines"]
 
@@ -158,6 +164,15 @@ def site_lines(
         off = perturbative_offsets(frame, dirs, ms, rotor_angle_rad=angle, phases=phases)
         return off, np.broadcast_to(ideal, off.shape[:2]).copy()
 
+    def spin_lines(phases: int):
+        if exact:
+            off, w = produce(phases, theta)
+            mean, amp = rotor_lines(off, rate)
+        else:
+            mean, amp = perturbative_sidebands(frame, dirs, ms, rotor_angle_rad=theta, phases=phases, rate_hz=rate)
+            w = np.broadcast_to(ideal, mean.shape).copy()
+        return mean, amp, w
+
     if rate == 0.0:
         off, w = produce(1, 0.0)
         mean, amp, phases = off[:, :, 0].copy(), np.ones(off.shape[:2] + (1,)), 1
@@ -171,15 +186,13 @@ def site_lines(
             spread = float(np.max(np.abs(probe - probe.mean(axis=2, keepdims=True)))) if probe.size else 0.0
             phases = choose_rotor_phases(spread, rate)
             while True:
-                off, w = produce(phases, theta)
-                mean, amp = rotor_lines(off, rate)
+                mean, amp, w = spin_lines(phases)
                 if outer_band_fraction(amp) <= ALIAS_TOLERANCE or phases >= MAX_AUTO_PHASES:
                     break
                 phases *= 2
         else:
             phases = int(meas.rotor_phases)
-            off, w = produce(phases, theta)
-            mean, amp = rotor_lines(off, rate)
+            mean, amp, w = spin_lines(phases)
     # normalise so that the site's lines sum to 1 over the orientation set
     total = float(np.sum(oset.weights[:, None] * w * amp.sum(axis=2)))
     if total > 0:

@@ -5,6 +5,7 @@ Basis order: |I, m> with m = I, I-1, ..., -I (index 0 is m = +I).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -17,8 +18,9 @@ def check_spin(spin: float, name: str = "spin") -> float:
     try:
         s = float(spin)
     except (TypeError, ValueError):
-        raise ValueError(f"{name} must be a number, got {spin!r}") from None
-    if not (s > 0 and abs(2 * s - round(2 * s)) < 1e-12 and s <= 20):
+        s = math.nan
+    # isfinite first: round(inf) would raise OverflowError, not ValueError
+    if not (math.isfinite(s) and s > 0 and abs(2 * s - round(2 * s)) < 1e-12 and s <= 20):
         raise ValueError(f"{name} = {spin!r} must be a positive multiple of 1/2 (1/2 ... 20)")
     return round(2 * s) / 2.0
 

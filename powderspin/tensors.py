@@ -55,13 +55,18 @@ class TensorError(ValueError):
     """A tensor parameter is outside its allowed range."""
 
 
-def _finite(name: str, value: float) -> float:
+def _finite(name: str, value: float, allowed: str = "(-inf, inf), finite") -> float:
+    """``float(value)``, or a TensorError naming the field, the value and ``allowed``."""
     try:
         v = float(value)
     except (TypeError, ValueError):
-        raise TensorError(f"{name} must be a number, got {value!r}") from None
+        raise TensorError(
+            f"{name} = {value!r} is not a number; the allowed range is {allowed}"
+        ) from None
     if not math.isfinite(v):
-        raise TensorError(f"{name} must be finite, got {value!r}")
+        raise TensorError(
+            f"{name} = {value!r} is not finite; the allowed range is {allowed}"
+        )
     return v
 
 
@@ -102,7 +107,7 @@ class ShiftTensor:
     def __post_init__(self):
         iso = _finite("shift_ppm", self.iso_ppm)
         an = _finite("aniso_ppm", self.aniso_ppm)
-        eta = _finite("eta_cs", self.eta)
+        eta = _finite("eta_cs", self.eta, "[0, 1]")
         if not (-_TOL <= eta <= 1 + _TOL):
             raise TensorError(f"eta_cs = {self.eta!r} is outside the allowed range [0, 1]")
         eta = min(max(eta, 0.0), 1.0)
@@ -116,8 +121,8 @@ class ShiftTensor:
     @classmethod
     def from_span_skew(cls, iso_ppm: float, span_ppm: float, skew: float) -> "ShiftTensor":
         """Build from Herzfeld-Berger span (ppm, >= 0) and skew in [-1, 1]."""
-        span = _finite("span_ppm", span_ppm)
-        kappa = _finite("skew", skew)
+        span = _finite("span_ppm", span_ppm, "[0, inf)")
+        kappa = _finite("skew", skew, "[-1, 1]")
         if span < 0:
             raise TensorError(f"span_ppm = {span_ppm!r} is outside the allowed range [0, inf)")
         if not (-1 - _TOL <= kappa <= 1 + _TOL):
@@ -132,12 +137,26 @@ class ShiftTensor:
     @classmethod
     def from_principal(cls, principal_ppm) -> "ShiftTensor":
         """Build from three principal values (ppm, any order; sorted to IUPAC)."""
-        vals = [_finite(f"principal_ppm[{i}]", v) for i, v in enumerate(principal_ppm)]
-        if len(vals) != 3:
-            raise TensorError(f"principal_ppm needs exactly 3 values, got {len(vals)}")
+        try:
+            raw = list(principal_ppm)
+        except TypeError:
+            raise TensorError(
+                f"principal_ppm = {principal_ppm!r} must be a sequence of exactly 3 values (ppm)"
+            ) from None
+        if len(raw) != 3:
+            raise TensorError(
+                f"principal_ppm = {principal_ppm!r} needs exactly 3 values, got {len(raw)}"
+            )
+        vals = [_finite(f"principal_ppm[{i}]", v) for i, v in enumerate(raw)]
         d11, d22, d33 = sorted(vals, reverse=True)
         iso = (d11 + d22 + d33) / 3.0
-        if (d11 - iso) > (iso - d33):
+        # d11 is the Haeberlen z value when it lies further from d22 than d33
+        # does (equivalently |d11 - iso| > |d33 - iso|).  Differences of the
+        # sorted values are free of the rounding in ``iso``; a tie within a
+        # few ulps of the values (skew 0) puts z along d33, as documented.
+        gap_hi, gap_lo = d11 - d22, d22 - d33
+        tie_tol = 16.0 * np.finfo(float).eps * max(abs(d11), abs(d22), abs(d33))
+        if gap_hi - gap_lo > tie_tol:
             zz, xx, yy = d11, d33, d22
         else:
             zz, xx, yy = d33, d11, d22
@@ -213,7 +232,7 @@ def efg_principal(eta_q: float) -> np.ndarray:
     >>> efg_principal(0.0).tolist()
     [-0.5, -0.5, 1.0]
     """
-    eta = _finite("eta_q", eta_q)
+    eta = _finite("eta_q", eta_q, "[0, 1]")
     if not (-_TOL <= eta <= 1 + _TOL):
         raise TensorError(f"eta_q = {eta_q!r} is outside the allowed range [0, 1]")
     eta = min(max(eta, 0.0), 1.0)
@@ -258,9 +277,24 @@ def spherical_components(t: np.ndarray) -> dict[int, np.ndarray]:
     Returns a dict ``{0: array([T00]), 2: array([T2,-2 ... T2,2])}`` with
     ``T00 = Tr(t)/3`` and the rank-2 part normalised so that
     ``T20 = sqrt(3/2) (t_zz - Tr/3)``, ``T2,+-1 = -+(t_xz +- i t_yz)`` and
-    ``T2,+-2 = (t_xx - t_yy +- 2 i t_xy)/2`` for a symmetric tensor.  Under an
-    active rotation R the rank-2 part transforms as
-    ``T'_{2m} = sum_k D^2_{m k}(R) T_{2k}`` with :func:`powderspin.wigner.wigner_D`.
+    ``T2,+-2 = (t_xx - t_yy +- 2 i t_xy)/2`` for a symmetric tensor (the
+    components of ``r r^T`` are proportional to ``r^2 Y_2m(r)``, Condon-Shortley
+    phase).  The antisymmetric (rank-1) part of ``t`` is discarded.
+
+    Rotations, with ``R = rotation_matrix(alpha, beta, gamma)`` and
+    ``D = powderspin.wigner.wigner_D(2, alpha, beta, gamma)``: if ``T`` are the
+    components of ``t`` and ``T'`` those of ``R t R^T`` (the tensor carried
+    actively by R; e.g. ``t`` in its principal frame and ``R t R^T`` the same
+    tensor in the reference frame whose axes R carries onto the principal
+    axes), then
+
+    * ``T'_{2m} = sum_k conj(D_{m k}) T_{2k}`` (``= sum_k D_{k m}(R^-1) T_{2k}``),
+    * equivalently ``T_{2k} = sum_m T'_{2m} D_{m k}``: components in the
+      rotated (principal) frame follow from those in the reference frame
+      through ``D(alpha, beta, gamma)`` -- the usual frame-to-frame rule.
+
+    Note that ``T'_{2m} = sum_k D_{m k} T_{2k}`` (without the conjugate) does
+    *not* hold for these components.
 
     References
     ----------
@@ -270,8 +304,8 @@ def spherical_components(t: np.ndarray) -> dict[int, np.ndarray]:
     --------
     >>> import numpy as np
     >>> c = spherical_components(np.diag([-0.5, -0.5, 1.0]))
-    >>> round(c[2][2].real, 12), round(abs(c[2][0]), 12)
-    (1.224744871391, 0.0)
+    >>> round(float(c[2][2].real), 12), round(float(abs(c[2][0])), 12)
+    (1.224744871392, 0.0)
     """
     t = np.asarray(t, dtype=float)
     if t.shape != (3, 3):

@@ -1,0 +1,402 @@
+"""The consumer kernels (FFT, sidebands, binning) and broadening against slow twins and analytic results.
+
+Check sources (named again beside each test):
+
+* numpy.fft (an outside reference FFT);
+* brute-force sideband evaluation and the explicitly gamma-averaged FID
+  (``tests/reference/sidebands_numpy.py``; M. M. Maricq, J. S. Waugh, J. Chem.
+  Phys. 70 (1979) 3300; M. H. Levitt, J. Magn. Reson. 82 (1989) 427);
+* the Jacobi-Anger expansion exp(i b sin x) = sum_n J_n(b) exp(i n x) (standard
+  result of frequency modulation), Bessel functions from scipy.special.jv;
+* triangle interpolation from its definition (frequency linear over the
+  triangle, intensity uniform in area; D. W. Alderman, M. S. Solum, D. M.
+  Grant, J. Chem. Phys. 84 (1986) 3717) by exact polygon clipping and by
+  random sampling (``tests/reference/binning_numpy.py``), and numpy.histogram;
+* unit-area Lorentzian, Gaussian and Voigt profiles (scipy.special.voigt_profile,
+  scipy.special.ndtr).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy.special import jv, ndtr, voigt_profile
+
+from powderspin import _kernels as _k
+from powderspin.frequencies import SiteFrame, perturbative_offsets
+from powderspin.lineshape import broaden
+from powderspin.spinning import rotor_lines
+from powderspin.tensors import efg_principal
+
+from tests.reference.binning_numpy import bin_triangles, histogram_lines, triangle_fractions_clipped
+from tests.reference.perturbative_numpy import perturbative_transitions
+from tests.reference.sidebands_numpy import gamma_averaged_fid, sideband_intensities, trig_interpolant
+
+MAGIC = math.acos(1.0 / math.sqrt(3.0))
+
+
+# ---------------------------------------------------------------------------
+# FFT
+
+
+@pytest.mark.parametrize("n", [2 ** k for k in range(11)])
+def test_fft_matches_numpy(n):
+    # Source: numpy.fft (unnormalised forward transform; numpy's ifft carries 1/n).
+    rng = np.random.default_rng(n)
+    x = rng.normal(size=n) + 1j * rng.normal(size=n)
+    a = x.copy()
+    _k._fft_inplace(a, False)
+    np.testing.assert_allclose(a, np.fft.fft(x), rtol=0, atol=1e-12 * n)
+    b = x.copy()
+    _k._fft_inplace(b, True)
+    np.testing.assert_allclose(b, np.fft.ifft(x) * n, rtol=0, atol=1e-12 * n)
+
+
+# ---------------------------------------------------------------------------
+# sidebands
+
+
+@pytest.mark.parametrize("beta", [0.3, 1.0, 2.5, 6.0])
+def test_sidebands_of_cosine_modulation_are_bessel(beta):
+    # Source: Jacobi-Anger expansion (standard result of frequency modulation): nu(t) =
+    # A cos(w_r t) gives xi = (A/nu_r) sin(w_r t) and |F_n|^2 = J_n(A/nu_r)^2 (scipy.special.jv).
+    rate, p = 2000.0, 64
+    phi = 2 * np.pi * np.arange(p) / p
+    traj = (beta * rate * np.cos(phi) + 150.0)[None, None, :]
+    mean, amp = rotor_lines(traj, rate)
+    n = np.rint(np.fft.fftfreq(p, 1.0 / p))
+    assert mean[0, 0] == pytest.approx(150.0, rel=1e-12)
+    np.testing.assert_allclose(amp[0, 0], jv(n, beta) ** 2, rtol=0, atol=1e-12)
+    assert amp[0, 0].sum() == pytest.approx(1.0, abs=1e-12)
+
+
+def _csa_like(phi):
+    # first-order shift anisotropy under spinning: harmonics 1 and 2 only (Maricq and Waugh)
+    return 420.0 + 5200.0 * np.cos(phi + 0.4) - 3100.0 * np.cos(2 * phi - 1.1)
+
+
+def _degree_four(phi):
+    # second-order quadrupolar central transition under spinning: harmonics up to 4
+    return (-900.0 + 2600.0 * np.cos(phi + 0.2) + 1800.0 * np.sin(2 * phi) - 1500.0 * np.cos(3 * phi - 0.7)
+            + 1100.0 * np.cos(4 * phi + 2.0))
+
+
+@pytest.mark.parametrize("traj_fn, rate", [(_csa_like, 2500.0), (_degree_four, 1700.0)])
+def test_rotor_lines_match_brute_force_sidebands(traj_fn, rate):
+    # Source: tests/reference/sidebands_numpy.py, (1) |F_n|^2 of exp(i xi) with xi from a
+    # fine cumulative Simpson integration, (2) the explicit gamma average of the FID.
+    p = 128
+    phi = 2 * np.pi * np.arange(p) / p
+    mean, amp = rotor_lines(traj_fn(phi)[None, None, :], rate)
+    ref_mean, ref_amp = sideband_intensities(traj_fn, rate)
+    assert mean[0, 0] == pytest.approx(ref_mean, abs=1e-9)
+    bands = np.arange(-p // 2 + 1, p // 2)
+    np.testing.assert_allclose(amp[0, 0, bands % p], ref_amp[bands % ref_amp.size], rtol=0, atol=1e-9)
+    assert ref_amp[bands % ref_amp.size].sum() == pytest.approx(1.0, abs=1e-9)  # nothing beyond
+    assert amp[0, 0].sum() == pytest.approx(1.0, abs=1e-12)
+    # (2) explicit gamma average over 64 initial rotor phases and 4 rotor periods
+    fid_mean, fid, off_band = gamma_averaged_fid(traj_fn, rate, bands=20)
+    assert fid_mean == pytest.approx(ref_mean, abs=1e-9)
+    assert off_band < 1e-9  # the gamma average leaves only the bands (Levitt 1989)
+    for n, val in fid.items():
+        assert abs(val.imag) < 1e-9
+        assert amp[0, 0, n % p] == pytest.approx(val.real, abs=1e-6), n
+
+
+def _perp(n):
+    u = np.cross(n, [0.3, -0.8, 0.52])
+    u /= np.linalg.norm(u)
+    return u, np.cross(n, u)
+
+
+@pytest.mark.parametrize("spin, cq_hz, rate", [(0.5, 0.0, 3000.0), (1.5, 3.0e6, 1500.0)])
+def test_rotor_lines_on_producer_trajectories(spin, cq_hz, rate):
+    # Source: end to end against the twins: perturbative kernel + rotor_lines versus
+    # tests/reference/perturbative_numpy.py along our own rotor cone (different phase
+    # origin; band intensities do not depend on it) + tests/reference/sidebands_numpy.py.
+    nu0 = 1.0e8
+    delta = np.array([[30.0, 12.0, -5.0], [12.0, -20.0, 8.0], [-5.0, 8.0, 45.0]])
+    k = cq_hz / (2 * spin * (2 * spin - 1)) if spin > 0.5 else 0.0
+    frame = SiteFrame(spin, nu0, k, efg_principal(0.3), delta, "hemisphere")
+    rng = np.random.default_rng(1)
+    p = 128
+    for n in rng.normal(size=(2, 3)):
+        n = n / np.linalg.norm(n)
+        traj = perturbative_offsets(frame, n[None, :], [0.5], rotor_angle_rad=MAGIC, phases=p)
+        mean, amp = rotor_lines(traj, rate)
+        u, v = _perp(n)
+        ph = 2 * np.pi * np.arange(32) / 32
+        b = math.cos(MAGIC) * n + math.sin(MAGIC) * (np.cos(ph)[:, None] * u + np.sin(ph)[:, None] * v)
+        samples = perturbative_transitions(spin, nu0, cq_hz, 0.3, delta, b, [0.5])[:, 0]
+        ref_mean, ref_amp = sideband_intensities(trig_interpolant(samples), rate)
+        assert mean[0, 0] == pytest.approx(ref_mean, abs=1e-7)
+        bands = np.arange(-p // 2 + 1, p // 2)
+        np.testing.assert_allclose(amp[0, 0, bands % p], ref_amp[bands % ref_amp.size], rtol=0, atol=1e-8)
+
+
+@pytest.mark.parametrize("p, rate", [(12, 1000.0), (64, 0.0), (64, -5.0), (64, math.inf), (64, math.nan)])
+def test_rotor_lines_rejects_bad_input(p, rate):
+    with pytest.raises(ValueError):
+        rotor_lines(np.zeros((1, 1, p)), rate)
+
+
+# ---------------------------------------------------------------------------
+# binning
+
+
+def _edges(x0, dx, nb):
+    return x0 + dx * np.arange(nb + 1)
+
+
+def _tent(mean, amp, wt, tris, tw, rate, x0, dx, nb, nchunk=1, cutoff=0.0):
+    return _k._bin_tent(np.ascontiguousarray(mean, float), np.ascontiguousarray(amp, float),
+                        np.ascontiguousarray(wt, float), np.ascontiguousarray(tris, np.int64),
+                        np.ascontiguousarray(tw, float), float(rate), float(x0), float(dx), int(nb),
+                        int(nchunk), float(cutoff))
+
+
+def _octahedron_mesh(order):
+    """Unit-sphere mesh: each octahedron face cut into order^2 triangles, projected outwards.
+
+    Triangle weights are spherical solid angles / 4 pi (A. van Oosterom, J. Strackee,
+    IEEE Trans. Biomed. Eng. 30 (1983) 125), so they sum to 1.
+    """
+    corners = np.array([[1, 0, 0], [0, 1, 0], [0, 0, 1], [-1, 0, 0], [0, -1, 0], [0, 0, -1]], float)
+    faces = [(0, 1, 2), (1, 3, 2), (3, 4, 2), (4, 0, 2), (1, 0, 5), (3, 1, 5), (4, 3, 5), (0, 4, 5)]
+    verts, index, tris = [], {}, []
+
+    def vid(p):
+        key = tuple(np.round(p / np.linalg.norm(p), 12))
+        if key not in index:
+            index[key] = len(verts)
+            verts.append(np.array(key))
+        return index[key]
+
+    for a, b, c in faces:
+        pa, pb, pc = corners[a], corners[b], corners[c]
+
+        def pt(i, j):
+            return pa + (pb - pa) * i / order + (pc - pa) * j / order
+
+        for i in range(order):
+            for j in range(order - i):
+                tris.append((vid(pt(i, j)), vid(pt(i + 1, j)), vid(pt(i, j + 1))))
+                if i + j < order - 1:
+                    tris.append((vid(pt(i + 1, j)), vid(pt(i + 1, j + 1)), vid(pt(i, j + 1))))
+    v = np.array(verts)
+    t = np.array(tris)
+    a, b, c = v[t[:, 0]], v[t[:, 1]], v[t[:, 2]]
+    num = np.abs(np.einsum("ij,ij->i", a, np.cross(b, c)))
+    den = 1 + np.einsum("ij,ij->i", a, b) + np.einsum("ij,ij->i", b, c) + np.einsum("ij,ij->i", c, a)
+    omega = 2 * np.arctan2(num, den)
+    return v, t, omega / (4 * np.pi)
+
+
+def test_tent_binning_of_a_static_shift_pattern_on_a_sphere_mesh():
+    # Source: triangle interpolation from its definition, exact polygon clipping
+    # (tests/reference/binning_numpy.py); mesh built here with numpy.
+    v, tris, tw = _octahedron_mesh(3)
+    assert tw.sum() == pytest.approx(1.0, abs=1e-12)  # solid angles tile the sphere
+    delta = np.array([[-40.0, 10.0, 0.0], [10.0, 15.0, 5.0], [0.0, 5.0, 60.0]])  # Hz here
+    freq = np.einsum("ij,jk,ik->i", v, delta, v)[:, None]
+    amp = np.ones((len(v), 1, 1))
+    wt = np.ones((len(v), 1))
+    x0, dx, nb = -80.0, 1.7, 100
+    got = _tent(freq, amp, wt, tris, tw, 0.0, x0, dx, nb)
+    ref = bin_triangles(freq, amp, wt, tris, tw, 0.0, _edges(x0, dx, nb))
+    np.testing.assert_allclose(got, ref, rtol=0, atol=1e-12)
+    assert got.sum() == pytest.approx(1.0, abs=1e-12)
+
+
+def test_tent_binning_random_triangles_with_sidebands_and_chunks():
+    # Source: exact polygon clipping (tests/reference/binning_numpy.py); band n of a line
+    # sits at mean + n nu_r, bands in FFT order; intensity = triangle weight times the mean
+    # vertex intensity.
+    rng = np.random.default_rng(2)
+    nv, nt, p, ntri = 25, 2, 8, 30
+    mean = rng.uniform(-30, 30, size=(nv, nt))
+    amp = rng.random((nv, nt, p))
+    amp /= amp.sum(axis=2, keepdims=True)
+    wt = rng.uniform(0.2, 1.0, size=(nv, nt))
+    tris = np.array([rng.choice(nv, 3, replace=False) for _ in range(ntri)])
+    tw = rng.random(ntri)
+    rate, x0, dx, nb = 11.3, -70.0, 1.3, 110
+    got = _tent(mean, amp, wt, tris, tw, rate, x0, dx, nb)
+    ref = bin_triangles(mean, amp, wt, tris, tw, rate, _edges(x0, dx, nb))
+    np.testing.assert_allclose(got, ref, rtol=0, atol=1e-12)
+    for nchunk in (3, 8):
+        np.testing.assert_allclose(_tent(mean, amp, wt, tris, tw, rate, x0, dx, nb, nchunk), got, rtol=0, atol=1e-12)
+    # cutoff: contributions at or below it are left out
+    cut = float(np.median(tw) * 0.08)
+    got_c = _tent(mean, amp, wt, tris, tw, rate, x0, dx, nb, 1, cut)
+    ref_c = bin_triangles(mean, amp, wt, tris, tw, rate, _edges(x0, dx, nb), cutoff=cut)
+    np.testing.assert_allclose(got_c, ref_c, rtol=0, atol=1e-12)
+    assert got_c.sum() < got.sum()
+
+
+def test_tent_binning_matches_random_sampling():
+    # Source: the definition sampled directly: uniform random points in each triangle,
+    # frequency interpolated linearly, histogrammed (tests/reference/binning_numpy.py).
+    # Tolerance: 5 binomial standard deviations per bin for 2e5 samples per triangle.
+    rng = np.random.default_rng(3)
+    mean = np.array([[1.0], [7.5], [3.2], [-2.1], [12.0]])
+    amp = np.ones((5, 1, 1))
+    wt = np.ones((5, 1))
+    tris = np.array([[0, 1, 2], [1, 3, 4], [0, 3, 4]])
+    tw = np.array([0.5, 0.3, 0.2])
+    x0, dx, nb = -4.0, 0.8, 22
+    samples = 200_000
+    got = _tent(mean, amp, wt, tris, tw, 0.0, x0, dx, nb)
+    ref = bin_triangles(mean, amp, wt, tris, tw, 0.0, _edges(x0, dx, nb), method="sampled",
+                        samples=samples, rng=rng)
+    sigma = np.sqrt(sum(w ** 2 for w in tw) * np.maximum(got, 1e-3) / samples)
+    assert np.all(np.abs(got - ref) < 5 * sigma + 1e-12)
+
+
+def test_tent_binning_degenerate_triangles():
+    # Source: design.md section 5 (degenerate triangles f1 = f3 fall into one bin) and exact
+    # polygon clipping for two equal frequencies (tests/reference/binning_numpy.py).
+    x0, dx, nb = 0.0, 1.0, 20
+    amp = np.ones((3, 1, 1))
+    wt = np.ones((3, 1))
+    tris = np.array([[0, 1, 2]])
+    tw = np.array([0.7])
+    # all three equal -> one bin, whole weight
+    got = _tent(np.array([[5.3], [5.3], [5.3]]), amp, wt, tris, tw, 0.0, x0, dx, nb)
+    expected = np.zeros(nb)
+    expected[5] = 0.7
+    np.testing.assert_allclose(got, expected, rtol=0, atol=1e-15)
+    # equal to within rounding -> still one bin
+    got = _tent(np.array([[9.6], [9.6 + 1e-13], [9.6 - 1e-13]]), amp, wt, tris, tw, 0.0, x0, dx, nb)
+    assert got[9] == pytest.approx(0.7, abs=1e-15) and got.sum() == pytest.approx(0.7, abs=1e-15)
+    # two equal (lower pair, upper pair), in every vertex order
+    for f in ([2.2, 2.2, 8.9], [2.2, 8.9, 8.9], [8.9, 2.2, 2.2], [8.9, 2.2, 8.9]):
+        mean = np.array(f)[:, None]
+        got = _tent(mean, amp, wt, tris, tw, 0.0, x0, dx, nb)
+        ref = 0.7 * triangle_fractions_clipped(f, _edges(x0, dx, nb))
+        np.testing.assert_allclose(got, ref, rtol=0, atol=1e-14)
+        assert got.sum() == pytest.approx(0.7, abs=1e-14)
+
+
+def test_tent_binning_lines_partly_off_the_axis():
+    # Source: exact polygon clipping on the axis bins only (tests/reference/binning_numpy.py);
+    # the part of a triangle beyond either end of the axis is dropped, not piled at the edge.
+    x0, dx, nb = 0.0, 0.5, 30  # axis [0, 15]
+    amp = np.ones((3, 1, 1))
+    wt = np.ones((3, 1))
+    tris = np.array([[0, 1, 2]])
+    tw = np.array([1.0])
+    for f in ([-4.0, 3.0, 9.0], [6.0, 13.0, 21.0], [-5.0, 7.0, 20.0], [-9.0, -5.0, -1.0], [16.0, 18.0, 30.0]):
+        mean = np.array(f)[:, None]
+        got = _tent(mean, amp, wt, tris, tw, 0.0, x0, dx, nb)
+        edges = _edges(x0, dx, nb)
+        ref = triangle_fractions_clipped(f, edges)
+        np.testing.assert_allclose(got, ref, rtol=0, atol=1e-14)
+        wide = triangle_fractions_clipped(f, np.linspace(-20.0, 40.0, 121))
+        inside = wide[(np.linspace(-20.0, 40.0, 121)[:-1] >= 0.0) & (np.linspace(-20.0, 40.0, 121)[1:] <= 15.0)]
+        assert got.sum() == pytest.approx(inside.sum(), abs=1e-13)
+
+
+def test_histogram_binning_matches_numpy_histogram():
+    # Source: numpy.histogram with weights (tests/reference/binning_numpy.py), bands at
+    # mean + n nu_r; lines off the axis are dropped.
+    rng = np.random.default_rng(4)
+    nv, nt, p = 200, 3, 8
+    mean = rng.uniform(-60, 60, size=(nv, nt))
+    amp = rng.random((nv, nt, p))
+    amp /= amp.sum(axis=2, keepdims=True)
+    wt = rng.random((nv, nt))
+    vw = rng.random(nv)
+    rate, x0, dx, nb = 7.7, -50.0, 0.9, 100
+    got = _k._bin_histogram(mean, amp, wt, vw, rate, x0, dx, nb)
+    ref = histogram_lines(mean, amp, wt, vw, rate, _edges(x0, dx, nb))
+    np.testing.assert_allclose(got, ref, rtol=0, atol=1e-12)
+    # static (one band)
+    got1 = _k._bin_histogram(mean, amp[:, :, :1].copy(), wt, vw, rate, x0, dx, nb)
+    ref1 = histogram_lines(mean, amp[:, :, :1], wt, vw, rate, _edges(x0, dx, nb))
+    np.testing.assert_allclose(got1, ref1, rtol=0, atol=1e-12)
+
+
+# ---------------------------------------------------------------------------
+# broadening
+
+
+def _delta(n, i0):
+    y = np.zeros(n)
+    y[i0] = 1.0
+    return y
+
+
+def test_lorentzian_broadening_of_a_delta():
+    # Source: unit-area Lorentzian (L/2pi) / (x^2 + (L/2)^2), FWHM L (Ernst, Bodenhausen,
+    # Wokaun, Principles of NMR in One and Two Dimensions, sec. 4.2); area on the axis
+    # = (1/pi) [atan(2 (b - x0)/L) - atan(2 (a - x0)/L)].
+    n, dx, lw, i0 = 1024, 0.5, 12.0, 512
+    y = broaden(_delta(n, i0), dx, lorentz_hz=lw)
+    x = (np.arange(n) - i0) * dx
+    g = (lw / (2 * np.pi)) / (x ** 2 + (lw / 2) ** 2)
+    peak = g.max()
+    np.testing.assert_allclose(y / dx, g, rtol=0, atol=2e-4 * peak)
+    assert np.argmax(y) == i0
+    a, b = x[0] - dx / 2, x[-1] + dx / 2
+    area = (math.atan(2 * b / lw) - math.atan(2 * a / lw)) / math.pi
+    # broaden() multiplies by the Lorentzian's Fourier transform on a grid padded to >= 4
+    # axis widths W, i.e. it convolves with the Lorentzian periodised over >= 4 W; the
+    # neighbouring images sit >= 3 W away and add back at most ~ 2 (L/2pi) W / (3W)^2
+    # (plus farther images) of area: bound it by L / (4 pi W).
+    width = n * dx
+    assert abs(y.sum() - area) <= lw / (4 * math.pi * width)
+    assert y.sum() < 1.0
+
+
+def test_gaussian_broadening_of_a_delta_and_no_wraparound():
+    # Source: unit-area Gaussian sqrt(4 ln2 / pi) / G exp(-4 ln2 x^2 / G^2), FWHM G;
+    # area on the axis from scipy.special.ndtr.
+    n, dx, gw = 512, 1.0, 9.0
+    sigma = gw / (2 * math.sqrt(2 * math.log(2)))
+    for i0 in (256, 4):
+        y = broaden(_delta(n, i0), dx, gauss_hz=gw)
+        x = (np.arange(n) - i0) * dx
+        g = math.sqrt(4 * math.log(2) / math.pi) / gw * np.exp(-4 * math.log(2) * x ** 2 / gw ** 2)
+        np.testing.assert_allclose(y / dx, g, rtol=0, atol=1e-10 * g.max())
+        a, b = x[0] - dx / 2, x[-1] + dx / 2
+        assert y.sum() == pytest.approx(ndtr(b / sigma) - ndtr(a / sigma), abs=1e-9)
+    # the half lost past the left edge does not reappear at the right edge
+    assert np.abs(y[-50:]).max() < 1e-12
+
+
+def test_voigt_broadening_of_a_delta():
+    # Source: scipy.special.voigt_profile(x, sigma, gamma), sigma = G / (2 sqrt(2 ln 2)),
+    # gamma = L / 2 (half width of the Lorentzian).
+    n, dx, lw, gw, i0 = 2048, 0.25, 3.0, 5.0, 1000
+    y = broaden(_delta(n, i0), dx, lorentz_hz=lw, gauss_hz=gw)
+    x = (np.arange(n) - i0) * dx
+    ref = voigt_profile(x, gw / (2 * math.sqrt(2 * math.log(2))), lw / 2)
+    np.testing.assert_allclose(y / dx, ref, rtol=0, atol=2e-4 * ref.max())
+
+
+def test_broadening_conserves_area_away_from_edges():
+    # Source: a unit-area kernel conserves the integral of a spectrum whose lines stay
+    # far from the axis ends (convolution theorem).
+    rng = np.random.default_rng(5)
+    y = np.zeros(4096)
+    y[1500:2600] = rng.random(1100)
+    for lw, gw in ((0.0, 6.0), (0.0, 20.0), (4.0, 0.0), (4.0, 6.0)):
+        out = broaden(y, 0.5, lorentz_hz=lw, gauss_hz=gw)
+        # Lorentzian tails past the ends hold about (2/pi) (L/2) / distance of the area
+        tail = (2 / math.pi) * (lw / 2) / (1500 * 0.5) if lw else 1e-12
+        assert out.sum() == pytest.approx(y.sum(), rel=tail + 1e-12)
+        assert out.sum() <= y.sum() * (1 + 1e-12)
+
+
+def test_broadening_input_checks():
+    y = np.arange(8.0)
+    out = broaden(y, 1.0)
+    np.testing.assert_array_equal(out, y)
+    assert out is not y
+    with pytest.raises(ValueError, match="lorentz_hz"):
+        broaden(y, 1.0, lorentz_hz=-1.0)
+    with pytest.raises(ValueError, match="gauss_hz"):
+        broaden(y, 1.0, gauss_hz=-0.5)
