@@ -32,27 +32,31 @@ __all__: list[str] = []
 
 
 @njit(cache=True)
-def _perp_pair(n):
-    """An orthonormal pair (u, v) perpendicular to unit vector n, v = n x u."""
-    ax, ay, az = abs(n[0]), abs(n[1]), abs(n[2])
+def _perp3(n0, n1, n2):
+    """An orthonormal pair (u, v) perpendicular to the unit vector n, v = n x u (scalars)."""
+    ax, ay, az = abs(n0), abs(n1), abs(n2)
     # cross n with the coordinate axis least aligned with it
     if ax <= ay and ax <= az:
-        e = np.array([1.0, 0.0, 0.0])
+        u0, u1, u2 = 0.0, n2, -n1
     elif ay <= az:
-        e = np.array([0.0, 1.0, 0.0])
+        u0, u1, u2 = -n2, 0.0, n0
     else:
-        e = np.array([0.0, 0.0, 1.0])
-    u = np.empty(3)
-    u[0] = n[1] * e[2] - n[2] * e[1]
-    u[1] = n[2] * e[0] - n[0] * e[2]
-    u[2] = n[0] * e[1] - n[1] * e[0]
-    s = math.sqrt(u[0] * u[0] + u[1] * u[1] + u[2] * u[2])
-    u /= s
-    v = np.empty(3)
-    v[0] = n[1] * u[2] - n[2] * u[1]
-    v[1] = n[2] * u[0] - n[0] * u[2]
-    v[2] = n[0] * u[1] - n[1] * u[0]
-    return u, v
+        u0, u1, u2 = n1, -n0, 0.0
+    s = 1.0 / math.sqrt(u0 * u0 + u1 * u1 + u2 * u2)
+    u0 *= s
+    u1 *= s
+    u2 *= s
+    v0 = n1 * u2 - n2 * u1
+    v1 = n2 * u0 - n0 * u2
+    v2 = n0 * u1 - n1 * u0
+    return u0, u1, u2, v0, v1, v2
+
+
+@njit(cache=True)
+def _perp_pair(n):
+    """Array form of :func:`_perp3`."""
+    u0, u1, u2, v0, v1, v2 = _perp3(n[0], n[1], n[2])
+    return np.array([u0, u1, u2]), np.array([v0, v1, v2])
 
 
 @njit(cache=True)
@@ -93,25 +97,32 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz
         # E2(m) - E2(m-1) = c2 * ( ca * A - cb * B / 4 )
         ca[t] = m * (4 * x - 8 * m * m - 1) - mm * (4 * x - 8 * mm * mm - 1)
         cb[t] = m * (2 * x - 2 * m * m - 1) - mm * (2 * x - 2 * mm * mm - 1)
-    dphi = 2.0 * math.pi / nphase
     scale_cs = nu0_hz * 1e-6
+    cph = np.empty(nphase)
+    sph = np.empty(nphase)
+    for p in range(nphase):
+        cph[p] = math.cos(2.0 * math.pi * p / nphase)
+        sph[p] = math.sin(2.0 * math.pi * p / nphase)
+    v0, v1, v2 = vdiag[0], vdiag[1], vdiag[2]
+    d00, d11, d22 = delta[0, 0], delta[1, 1], delta[2, 2]
+    d01, d02, d12 = delta[0, 1] + delta[1, 0], delta[0, 2] + delta[2, 0], delta[1, 2] + delta[2, 1]
     for i in prange(n_or):
-        n = axes[i]
-        u, v = _perp_pair(n)
-        b = np.empty(3)
+        n0, n1, n2 = axes[i, 0], axes[i, 1], axes[i, 2]
+        u0, u1, u2, w0, w1, w2 = _perp3(n0, n1, n2)
         for p in range(nphase):
-            _field_direction(n, u, v, cos_r, sin_r, p * dphi, b)
-            b0s = b[0] * b[0]
-            b1s = b[1] * b[1]
-            b2s = b[2] * b[2]
-            vzz = vdiag[0] * b0s + vdiag[1] * b1s + vdiag[2] * b2s
-            vb2 = vdiag[0] ** 2 * b0s + vdiag[1] ** 2 * b1s + vdiag[2] ** 2 * b2s
+            c = sin_r * cph[p]
+            sn = sin_r * sph[p]
+            b0 = cos_r * n0 + c * u0 + sn * w0
+            b1 = cos_r * n1 + c * u1 + sn * w1
+            b2 = cos_r * n2 + c * u2 + sn * w2
+            b0s = b0 * b0
+            b1s = b1 * b1
+            b2s = b2 * b2
+            vzz = v0 * b0s + v1 * b1s + v2 * b2s
+            vb2 = v0 * v0 * b0s + v1 * v1 * b1s + v2 * v2 * b2s
             a = vb2 - vzz * vzz
             bq = 2.0 * t2 - 3.0 * vzz * vzz - 4.0 * a
-            dzz = 0.0
-            for r in range(3):
-                for s in range(3):
-                    dzz += b[r] * delta[r, s] * b[s]
+            dzz = d00 * b0s + d11 * b1s + d22 * b2s + d01 * b0 * b1 + d02 * b0 * b2 + d12 * b1 * b2
             cs = scale_cs * dzz
             for t in range(nt):
                 out[i, t, p] = cs + c1[t] * vzz + c2 * (ca[t] * a - cb[t] * 0.25 * bq)
@@ -293,34 +304,54 @@ def _tent_cdf(u, u1, u2, u3):
 
 @njit(cache=True)
 def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
-    # sort
+    """Add the exact bin integrals of one triangular density (area w) to buf.
+
+    The cumulative weight is (u - u1)^2 w / (D A) on the rising side and
+    w - (u3 - u)^2 w / (D B) on the falling side (u in bin units, D = u3 - u1,
+    A = u2 - u1, B = u3 - u2); each bin gets the difference at its edges.
+    """
     if f1 > f2:
         f1, f2 = f2, f1
     if f2 > f3:
         f2, f3 = f3, f2
     if f1 > f2:
         f1, f2 = f2, f1
-    u1 = (f1 - x0) / dx
-    u2 = (f2 - x0) / dx
-    u3 = (f3 - x0) / dx
+    inv = 1.0 / dx
+    u1 = (f1 - x0) * inv
+    u2 = (f2 - x0) * inv
+    u3 = (f3 - x0) * inv
     if u3 < 0.0 or u1 >= nb:
-        return
-    if u3 - u1 < 1e-9:
-        k = int(math.floor(u1))
-        if 0 <= k < nb:
-            buf[k] += w
         return
     k0 = int(math.floor(u1))
     k1 = int(math.floor(u3))
+    if k1 == k0 or u3 - u1 < 1e-9:
+        if 0 <= k0 < nb:
+            buf[k0] += w
+        return
+    d = u3 - u1
+    ra = w / (d * (u2 - u1)) if u2 > u1 else 0.0
+    rb = w / (d * (u3 - u2)) if u3 > u2 else 0.0
+    prev = 0.0
+    kstart = k0
     if k0 < 0:
-        k0 = 0
-    if k1 > nb - 1:
-        k1 = nb - 1
-    prev = _tent_cdf(float(k0), u1, u2, u3)
-    for k in range(k0, k1 + 1):
-        cur = _tent_cdf(float(k + 1), u1, u2, u3)
-        buf[k] += w * (cur - prev)
-        prev = cur
+        kstart = 0
+        e = 0.0
+        prev = ra * (e - u1) * (e - u1) if e < u2 else w - rb * (u3 - e) * (u3 - e)
+    kend = k1 if k1 < nb else nb - 1
+    for k in range(kstart, kend):
+        e = k + 1.0
+        if e < u2:
+            c = ra * (e - u1) * (e - u1)
+        else:
+            c = w - rb * (u3 - e) * (u3 - e)
+        buf[k] += c - prev
+        prev = c
+    if kend == k1:
+        buf[kend] += w - prev
+    else:
+        e = kend + 1.0
+        c = ra * (e - u1) * (e - u1) if e < u2 else w - rb * (u3 - e) * (u3 - e)
+        buf[kend] += c - prev
 
 
 @njit(parallel=True, cache=True)
@@ -482,66 +513,69 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_
     mean = np.empty((n_or, nt))
     amp = np.empty((n_or, nt, p))
     inv = 1.0 / (p * p)
-    for i in prange(n_or):
-        n = axes[i]
-        u, v = _perp_pair(n)
+    v0, v1, v2 = vdiag[0], vdiag[1], vdiag[2]
+    d00, d11, d22 = delta[0, 0], delta[1, 1], delta[2, 2]
+    d01, d02, d12 = delta[0, 1] + delta[1, 0], delta[0, 2] + delta[2, 0], delta[1, 2] + delta[2, 1]
+    nchunk = min(n_or, 64)
+    step = (n_or + nchunk - 1) // nchunk if nchunk > 0 else 0
+    for c in prange(nchunk):
+        # per-chunk work buffers (no allocation per orientation, no sharing)
         f = np.empty((4, ns))
-        b = np.empty(3)
-        for j in range(ns):
-            for q in range(3):
-                b[q] = cos_r * n[q] + sin_r * (cs16[j] * u[q] + sn16[j] * v[q])
-            b0s = b[0] * b[0]
-            b1s = b[1] * b[1]
-            b2s = b[2] * b[2]
-            vzz = vdiag[0] * b0s + vdiag[1] * b1s + vdiag[2] * b2s
-            vb2 = vdiag[0] ** 2 * b0s + vdiag[1] ** 2 * b1s + vdiag[2] ** 2 * b2s
-            a = vb2 - vzz * vzz
-            f[0, j] = vzz
-            f[1, j] = a
-            f[2, j] = 2.0 * t2 - 3.0 * vzz * vzz - 4.0 * a
-            dzz = 0.0
-            for r in range(3):
-                for s in range(3):
-                    dzz += b[r] * delta[r, s] * b[s]
-            f[3, j] = dzz
-        # Fourier coefficients k = 0..4 of the four functions
-        fr = np.zeros((4, 5))
-        fi = np.zeros((4, 5))
-        for q in range(4):
-            for k in range(5):
-                sr = 0.0
-                si = 0.0
-                for j in range(ns):
-                    jk = (j * k) % ns
-                    sr += f[q, j] * cs16[jk]
-                    si -= f[q, j] * sn16[jk]
-                fr[q, k] = sr / ns
-                fi[q, k] = si / ns
+        fr = np.empty((4, 5))
+        fi = np.empty((4, 5))
         src = np.empty(p, dtype=np.complex128)
         dst = np.empty(p, dtype=np.complex128)
-        for t in range(nt):
-            m0 = 0.0
+        gr = np.empty(4)
+        gi = np.empty(4)
+        for i in range(c * step, min(n_or, (c + 1) * step)):
+            n0, n1, n2 = axes[i, 0], axes[i, 1], axes[i, 2]
+            u0, u1, u2, w0, w1, w2 = _perp3(n0, n1, n2)
+            for j in range(ns):
+                cc = sin_r * cs16[j]
+                sn = sin_r * sn16[j]
+                b0 = cos_r * n0 + cc * u0 + sn * w0
+                b1 = cos_r * n1 + cc * u1 + sn * w1
+                b2 = cos_r * n2 + cc * u2 + sn * w2
+                b0s = b0 * b0
+                b1s = b1 * b1
+                b2s = b2 * b2
+                vzz = v0 * b0s + v1 * b1s + v2 * b2s
+                a = v0 * v0 * b0s + v1 * v1 * b1s + v2 * v2 * b2s - vzz * vzz
+                f[0, j] = vzz
+                f[1, j] = a
+                f[2, j] = 2.0 * t2 - 3.0 * vzz * vzz - 4.0 * a
+                f[3, j] = d00 * b0s + d11 * b1s + d22 * b2s + d01 * b0 * b1 + d02 * b0 * b2 + d12 * b1 * b2
+            # Fourier coefficients k = 0..4 of the four functions
             for q in range(4):
-                m0 += coef[t, q] * fr[q, 0]
-            mean[i, t] = m0
-            # g_k = c_k / (i k nu_r); xi_j = sum_k 2 Re(g_k e^{i k phi_j})
-            gr = np.empty(4)
-            gi = np.empty(4)
-            for k in range(1, 5):
-                cr = 0.0
-                ci = 0.0
+                for k in range(5):
+                    sr = 0.0
+                    si = 0.0
+                    for j in range(ns):
+                        jk = (j * k) % ns
+                        sr += f[q, j] * cs16[jk]
+                        si -= f[q, j] * sn16[jk]
+                    fr[q, k] = sr / ns
+                    fi[q, k] = si / ns
+            for t in range(nt):
+                m0 = 0.0
                 for q in range(4):
-                    cr += coef[t, q] * fr[q, k]
-                    ci += coef[t, q] * fi[q, k]
-                # (cr + i ci) / (i k nu) = (ci - i cr) / (k nu)
-                gr[k - 1] = 2.0 * ci / (k * rate_hz)
-                gi[k - 1] = -2.0 * cr / (k * rate_hz)
-            for j in range(p):
-                xi = 0.0
-                for k in range(4):
-                    xi += gr[k] * hre[k, j] - gi[k] * him[k, j]
-                src[j] = complex(math.cos(xi), math.sin(xi))
-            _fft_with_tables(src, dst, rev, tw)
-            for j in range(p):
-                amp[i, t, j] = (dst[j].real ** 2 + dst[j].imag ** 2) * inv
+                    m0 += coef[t, q] * fr[q, 0]
+                mean[i, t] = m0
+                # g_k = c_k / (i k nu_r); xi_j = sum_k 2 Re(g_k e^{i k phi_j})
+                for k in range(1, 5):
+                    cr = 0.0
+                    ci = 0.0
+                    for q in range(4):
+                        cr += coef[t, q] * fr[q, k]
+                        ci += coef[t, q] * fi[q, k]
+                    # (cr + i ci) / (i k nu) = (ci - i cr) / (k nu)
+                    gr[k - 1] = 2.0 * ci / (k * rate_hz)
+                    gi[k - 1] = -2.0 * cr / (k * rate_hz)
+                for j in range(p):
+                    xi = (gr[0] * hre[0, j] - gi[0] * him[0, j] + gr[1] * hre[1, j] - gi[1] * him[1, j]
+                          + gr[2] * hre[2, j] - gi[2] * him[2, j] + gr[3] * hre[3, j] - gi[3] * him[3, j])
+                    src[j] = complex(math.cos(xi), math.sin(xi))
+                _fft_with_tables(src, dst, rev, tw)
+                for j in range(p):
+                    amp[i, t, j] = (dst[j].real ** 2 + dst[j].imag ** 2) * inv
     return mean, amp

@@ -182,4 +182,4 @@ def broaden(y: np.ndarray, dx_hz: float, lorentz_hz: float = 0.0, gauss_hz: floa
     # circular convolution with a kernel centred at index 0; with pad >= 4n the
     # first n points are the linear convolution on the axis (intensity pushed
     # beyond the axis edges is lost, as for lines outside the axis)
-    return full[:n].copy()
+    return full[..., :n].copy()

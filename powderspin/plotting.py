@@ -47,11 +47,11 @@ def plot_spectrum(spectrum, ax=None, *, show_sites: bool = True, mark_sidebands:
         _, ax = plt.subplots(figsize=(7.0, 4.0), layout="constrained")
     ppm = spectrum.ppm
     n_sites = len(spectrum.site_labels)
-    if show_sites and n_sites > 1:
-        for label, y in zip(spectrum.site_labels, spectrum.site_intensities):
-            ax.plot(ppm, y, lw=0.9, ls="--", label=label)
     ax.plot(ppm, spectrum.intensity, lw=1.3, color="black",
             label="sum" if n_sites > 1 else spectrum.site_labels[0])
+    if show_sites and n_sites > 1:
+        for label, y in zip(spectrum.site_labels, spectrum.site_intensities):
+            ax.plot(ppm, y, lw=1.0, ls="--", label=label)
     if mark_sidebands and spectrum.sidebands:
         top = float(np.max(spectrum.intensity)) if spectrum.intensity.size else 1.0
         marks = [r.offset_ppm for r in spectrum.sidebands if r.index != 0]

@@ -12,6 +12,10 @@ Check sources (named again beside each test):
   shift of the centre of gravity: design.md section 5 ("standard result") and
   A. Samoson, Chem. Phys. Lett. 119 (1985) 29;
 * magic-angle averaging of rank-2 terms: P2(cos theta_m) = 0 (common practice).
+
+Chapter numbers of the textbooks are given from memory; the formulas themselves are
+re-derived or cross-checked numerically here (exact diagonalisation, the
+Rayleigh-Schroedinger sum), so no test rests on a remembered number alone.
 """
 
 from __future__ import annotations

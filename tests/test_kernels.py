@@ -12,8 +12,10 @@ Check sources (named again beside each test):
   triangle, intensity uniform in area; D. W. Alderman, M. S. Solum, D. M.
   Grant, J. Chem. Phys. 84 (1986) 3717) by exact polygon clipping and by
   random sampling (``tests/reference/binning_numpy.py``), and numpy.histogram;
-* unit-area Lorentzian, Gaussian and Voigt profiles (scipy.special.voigt_profile,
-  scipy.special.ndtr).
+* unit-area Lorentzian, Gaussian and Voigt profiles (scipy.special.voigt_profile).
+
+Section numbers of textbooks are given from memory; every check here is against a
+formula evaluated in the test or a library, never against a remembered number.
 """
 
 from __future__ import annotations
@@ -22,7 +24,7 @@ import math
 
 import numpy as np
 import pytest
-from scipy.special import jv, ndtr, voigt_profile
+from scipy.special import jv, voigt_profile
 
 from powderspin import _kernels as _k
 from powderspin.frequencies import SiteFrame, perturbative_offsets
@@ -102,7 +104,7 @@ def test_rotor_lines_match_brute_force_sidebands(traj_fn, rate):
     assert off_band < 1e-9  # the gamma average leaves only the bands (Levitt 1989)
     for n, val in fid.items():
         assert abs(val.imag) < 1e-9
-        assert amp[0, 0, n % p] == pytest.approx(val.real, abs=1e-6), n
+        assert amp[0, 0, n % p] == pytest.approx(val.real, abs=1e-9), n
 
 
 def _perp(n):
@@ -215,7 +217,7 @@ def test_tent_binning_random_triangles_with_sidebands_and_chunks():
     # sits at mean + n nu_r, bands in FFT order; intensity = triangle weight times the mean
     # vertex intensity.
     rng = np.random.default_rng(2)
-    nv, nt, p, ntri = 25, 2, 8, 30
+    nv, nt, p, ntri = 20, 2, 8, 16
     mean = rng.uniform(-30, 30, size=(nv, nt))
     amp = rng.random((nv, nt, p))
     amp /= amp.sum(axis=2, keepdims=True)
@@ -239,7 +241,8 @@ def test_tent_binning_random_triangles_with_sidebands_and_chunks():
 def test_tent_binning_matches_random_sampling():
     # Source: the definition sampled directly: uniform random points in each triangle,
     # frequency interpolated linearly, histogrammed (tests/reference/binning_numpy.py).
-    # Tolerance: 5 binomial standard deviations per bin for 2e5 samples per triangle.
+    # Tolerance: 5 binomial standard deviations per bin for 2e5 samples per triangle
+    # (variance sum_q w_q^2 p_q (1 - p_q) / N <= max(w) * expected / N).
     rng = np.random.default_rng(3)
     mean = np.array([[1.0], [7.5], [3.2], [-2.1], [12.0]])
     amp = np.ones((5, 1, 1))
@@ -251,7 +254,7 @@ def test_tent_binning_matches_random_sampling():
     got = _tent(mean, amp, wt, tris, tw, 0.0, x0, dx, nb)
     ref = bin_triangles(mean, amp, wt, tris, tw, 0.0, _edges(x0, dx, nb), method="sampled",
                         samples=samples, rng=rng)
-    sigma = np.sqrt(sum(w ** 2 for w in tw) * np.maximum(got, 1e-3) / samples)
+    sigma = np.sqrt(tw.max() * np.maximum(got, 1e-4) / samples)
     assert np.all(np.abs(got - ref) < 5 * sigma + 1e-12)
 
 
@@ -338,7 +341,7 @@ def test_lorentzian_broadening_of_a_delta():
     x = (np.arange(n) - i0) * dx
     g = (lw / (2 * np.pi)) / (x ** 2 + (lw / 2) ** 2)
     peak = g.max()
-    np.testing.assert_allclose(y / dx, g, rtol=0, atol=2e-4 * peak)
+    np.testing.assert_allclose(y / dx, g, rtol=0, atol=1e-4 * peak)
     assert np.argmax(y) == i0
     a, b = x[0] - dx / 2, x[-1] + dx / 2
     area = (math.atan(2 * b / lw) - math.atan(2 * a / lw)) / math.pi
@@ -352,18 +355,18 @@ def test_lorentzian_broadening_of_a_delta():
 
 
 def test_gaussian_broadening_of_a_delta_and_no_wraparound():
-    # Source: unit-area Gaussian sqrt(4 ln2 / pi) / G exp(-4 ln2 x^2 / G^2), FWHM G;
-    # area on the axis from scipy.special.ndtr.
+    # Source: unit-area Gaussian sqrt(4 ln2 / pi) / G exp(-4 ln2 x^2 / G^2), FWHM G.  Its
+    # samples at spacing dx << G sum to 1/dx (Poisson summation: the aliases are ~exp(-30)).
     n, dx, gw = 512, 1.0, 9.0
-    sigma = gw / (2 * math.sqrt(2 * math.log(2)))
     for i0 in (256, 4):
         y = broaden(_delta(n, i0), dx, gauss_hz=gw)
         x = (np.arange(n) - i0) * dx
         g = math.sqrt(4 * math.log(2) / math.pi) / gw * np.exp(-4 * math.log(2) * x ** 2 / gw ** 2)
         np.testing.assert_allclose(y / dx, g, rtol=0, atol=1e-10 * g.max())
-        a, b = x[0] - dx / 2, x[-1] + dx / 2
-        assert y.sum() == pytest.approx(ndtr(b / sigma) - ndtr(a / sigma), abs=1e-9)
-    # the half lost past the left edge does not reappear at the right edge
+        if i0 == 256:
+            assert y.sum() == pytest.approx(1.0, abs=1e-12)
+    # near the left edge: the part lost past it does not reappear at the right edge
+    assert y.sum() < 0.9
     assert np.abs(y[-50:]).max() < 1e-12
 
 
@@ -374,7 +377,7 @@ def test_voigt_broadening_of_a_delta():
     y = broaden(_delta(n, i0), dx, lorentz_hz=lw, gauss_hz=gw)
     x = (np.arange(n) - i0) * dx
     ref = voigt_profile(x, gw / (2 * math.sqrt(2 * math.log(2))), lw / 2)
-    np.testing.assert_allclose(y / dx, ref, rtol=0, atol=2e-4 * ref.max())
+    np.testing.assert_allclose(y / dx, ref, rtol=0, atol=5e-5 * ref.max())
 
 
 def test_broadening_conserves_area_away_from_edges():
@@ -389,6 +392,15 @@ def test_broadening_conserves_area_away_from_edges():
         tail = (2 / math.pi) * (lw / 2) / (1500 * 0.5) if lw else 1e-12
         assert out.sum() == pytest.approx(y.sum(), rel=tail + 1e-12)
         assert out.sum() <= y.sum() * (1 + 1e-12)
+
+
+def test_broadening_works_along_the_last_axis():
+    # Several spectra in one array are broadened row by row, like one at a time.
+    rng = np.random.default_rng(6)
+    ys = rng.random((3, 256))
+    out = broaden(ys, 0.7, lorentz_hz=2.0, gauss_hz=3.0)
+    for row, y in zip(out, ys):
+        np.testing.assert_allclose(row, broaden(y, 0.7, lorentz_hz=2.0, gauss_hz=3.0), rtol=0, atol=1e-14)
 
 
 def test_broadening_input_checks():

@@ -45,7 +45,7 @@ import numpy as np
 from scipy.integrate import cumulative_simpson
 from scipy.special import roots_legendre
 
-__all__ = ["powder_grid", "lab_tensors", "transition_offsets_hz", "fid", "spectrum"]
+__all__ = ["powder_grid", "lab_rotations", "lab_tensors", "transition_offsets_hz", "fid", "spectrum"]
 
 
 def _rz(angle):
@@ -84,15 +84,40 @@ def powder_grid(n_beta: int, n_alpha: int, region: str = "sphere"):
     return bb.ravel(), aa.ravel(), w
 
 
-def lab_tensors(tensor, beta, alpha, tau, rotor_angle_rad):
-    """Laboratory-frame components of a crystallite-frame tensor.
+def lab_rotations(beta, alpha, tau, rotor_angle_rad):
+    """Rotations ``M = Ry(theta_R) Rz(tau) Ry(-b) Rz(-a)`` taking crystallite-frame components to the lab frame.
 
-    Returns an array (n_orientations, n_tau, 3, 3).
+    Returns an array (3, 3, n_orientations, n_tau): ``M[i, k, o, t]``.
     """
     a = _ry(-np.asarray(beta)) @ _rz(-np.asarray(alpha))  # (n_o, 3, 3)
     c = _ry(rotor_angle_rad)[None] @ _rz(np.asarray(tau))  # (n_t, 3, 3)
-    m = np.einsum("tij,ojk->otik", c, a)
-    return np.einsum("otik,kl,otjl->otij", m, np.asarray(tensor, dtype=float), m)
+    m = np.zeros((3, 3, a.shape[0], c.shape[0]))
+    for i in range(3):
+        for k in range(3):
+            for j in range(3):
+                m[i, k] += a[:, j, k][:, None] * c[:, i, j][None, :]
+    return m
+
+
+def lab_tensors(tensor, beta, alpha, tau, rotor_angle_rad, rotations=None):
+    """Laboratory-frame components ``M T M^T`` of a crystallite-frame tensor T.
+
+    Returns an array (3, 3, n_orientations, n_tau).
+    """
+    m = lab_rotations(beta, alpha, tau, rotor_angle_rad) if rotations is None else rotations
+    t = np.asarray(tensor, dtype=float)
+    w = np.zeros(m.shape)
+    for i in range(3):
+        for l in range(3):
+            for k in range(3):
+                if t[k, l] != 0.0:
+                    w[i, l] += m[i, k] * t[k, l]
+    out = np.empty(m.shape)
+    for i in range(3):
+        for j in range(i, 3):
+            out[i, j] = w[i, 0] * m[j, 0] + w[i, 1] * m[j, 1] + w[i, 2] * m[j, 2]
+            out[j, i] = out[i, j]
+    return out
 
 
 def _e1(spin, cq_hz, vzz, m):
@@ -102,8 +127,8 @@ def _e1(spin, cq_hz, vzz, m):
 def _e2(spin, cq_hz, nu0_hz, v, m):
     x = spin * (spin + 1)
     k = cq_hz / (2 * spin * (2 * spin - 1))
-    vxx, vyy, vxy = v[..., 0, 0], v[..., 1, 1], v[..., 0, 1]
-    vxz, vyz = v[..., 0, 2], v[..., 1, 2]
+    vxx, vyy, vxy = v[0, 0], v[1, 1], v[0, 1]
+    vxz, vyz = v[0, 2], v[1, 2]
     return -(k * k / (2 * nu0_hz)) * m * (
         (4 * x - 8 * m * m - 1) * (vxz ** 2 + vyz ** 2)
         - (2 * x - 2 * m * m - 1) * ((vxx - vyy) ** 2 + 4 * vxy ** 2) / 4
@@ -117,11 +142,14 @@ def transition_offsets_hz(spin, m, nu0_hz, cq_hz, efg, shift_ppm, beta, alpha, t
     included) are crystallite-frame tensors.  Spin 1/2 (or C_Q = 0) keeps the
     shift term only.
     """
-    d = lab_tensors(shift_ppm, beta, alpha, tau, rotor_angle_rad)
-    out = nu0_hz * 1e-6 * d[..., 2, 2]
+    rot = lab_rotations(beta, alpha, tau, rotor_angle_rad)
+    if np.any(np.asarray(shift_ppm) != 0.0):
+        out = nu0_hz * 1e-6 * lab_tensors(shift_ppm, beta, alpha, tau, rotor_angle_rad, rot)[2, 2]
+    else:
+        out = np.zeros(rot.shape[2:])
     if spin > 0.5 and cq_hz != 0.0:
-        v = lab_tensors(efg, beta, alpha, tau, rotor_angle_rad)
-        out = out + _e1(spin, cq_hz, v[..., 2, 2], m) - _e1(spin, cq_hz, v[..., 2, 2], m - 1)
+        v = lab_tensors(efg, beta, alpha, tau, rotor_angle_rad, rot)
+        out = out + _e1(spin, cq_hz, v[2, 2], m) - _e1(spin, cq_hz, v[2, 2], m - 1)
         out = out + _e2(spin, cq_hz, nu0_hz, v, m) - _e2(spin, cq_hz, nu0_hz, v, m - 1)
     return out
 
@@ -151,6 +179,7 @@ def fid(spin, ms, nu0_hz, cq_hz, efg, shift_ppm, rate_hz, rotor_angle_rad, point
     tw = tw / tw.sum()
     k = np.arange(points)
     t = k * period / samples_per_period
+    n_periods = -(-points // samples_per_period)
     r_idx = (k % samples_per_period) * substeps  # fine-grid index of t_k within its period
     g0 = np.arange(n_gamma) * (n_fine // n_gamma)  # fine-grid index of each gamma
     sig = np.zeros(points, dtype=complex)
@@ -167,8 +196,11 @@ def fid(spin, ms, nu0_hz, cq_hz, efg, shift_ppm, rate_hz, rotor_angle_rad, point
             # exp(i [xi(gamma + w t_k) - xi(gamma)]) averaged over gamma, for t_k within one period
             idx = (g0[:, None] + r_idx[None, :samples_per_period]) % n_fine  # (n_gamma, M)
             g = np.exp(1j * (xi[:, idx] - xi[:, g0][:, :, None])).mean(axis=1)  # (n_o, M)
-            osc = np.exp(2j * np.pi * nubar[:, None] * t[None, :])  # (n_o, points)
-            sig += wt * np.einsum("o,ok,ok->k", w[sl], osc, g[:, k % samples_per_period])
+            # exp(2 pi i nubar t_k) with t_k = (q M + r) dt factorises into a (period q) x (sample r) product
+            q = np.arange(n_periods)
+            per = np.exp(2j * np.pi * nubar[:, None] * (q[None, :] * period))  # (n_o, n_periods)
+            within = np.exp(2j * np.pi * nubar[:, None] * t[None, :samples_per_period]) * g  # (n_o, M)
+            sig += wt * ((w[sl][:, None] * per).T @ within).ravel()[:points]
     return t, sig, closure
 
 

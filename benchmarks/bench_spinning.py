@@ -1,0 +1,147 @@
+"""Spinning samples: warm timings and ratios to plain numpy and a time-domain reference.
+
+Targets (design notes, section 6): MAS CT + shift anisotropy with sidebands,
+>= 4000 orientations x 64 rotor phases <= 10 ms; a satellite-transition
+manifold at 10 kHz for C_Q = 3 MHz <= 0.5 s; exact route for I = 9/2 under
+MAS <= 2 s.
+
+Run:  python benchmarks/bench_spinning.py
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+sys.path.insert(0, str(ROOT))
+from _common import best_time, numpy_tent  # noqa: E402
+
+from powderspin.frequencies import site_frame  # noqa: E402
+from powderspin.lineshape import bin_lines, make_axis  # noqa: E402
+from powderspin.model import make_model  # noqa: E402
+from powderspin.orientations import triangulated  # noqa: E402
+from powderspin.simulate import site_lines, simulate  # noqa: E402
+
+
+def numpy_mas(frame, vecs, m, theta, p, rate):
+    """Plain numpy version of the same steps: trajectories, FFTs, |F_n|^2."""
+    spin, k, nu0 = frame.spin, frame.k_hz, frame.nu0_hz
+    x = spin * (spin + 1)
+    n = vecs
+    e = np.where(np.abs(n[:, :1]) <= np.min(np.abs(n[:, 1:]), axis=1, keepdims=True),
+                 np.array([[1.0, 0, 0]]), np.where(np.abs(n[:, 1:2]) <= np.abs(n[:, 2:3]),
+                                                   np.array([[0, 1.0, 0]]), np.array([[0, 0, 1.0]])))
+    u = np.cross(n, e)
+    u /= np.linalg.norm(u, axis=1)[:, None]
+    v = np.cross(n, u)
+    ph = 2 * np.pi * np.arange(p) / p
+    b = (math.cos(theta) * n[:, None, :] + math.sin(theta) * (np.cos(ph)[None, :, None] * u[:, None, :]
+                                                               + np.sin(ph)[None, :, None] * v[:, None, :]))
+    vd = frame.vdiag
+    vzz = (b**2) @ vd
+    a = (b**2) @ (vd**2) - vzz**2
+    bq = 2 * np.sum(vd**2) - 3 * vzz**2 - 4 * a
+    dzz = np.einsum("npi,ij,npj->np", b, frame.delta_ppm, b)
+
+    def e2(mm):
+        return -(k * k / (2 * nu0)) * mm * ((4 * x - 8 * mm * mm - 1) * a - (2 * x - 2 * mm * mm - 1) * bq / 4)
+
+    traj = 1.5 * k * (2 * m - 1) * vzz + e2(m) - e2(m - 1) + nu0 * 1e-6 * dzz
+    c = np.fft.fft(traj, axis=1) / p
+    mean = c[:, 0].real
+    kk = np.fft.fftfreq(p, 1.0 / p)
+    g = np.zeros_like(c)
+    nz = (kk != 0) & (np.abs(kk) < p / 2)
+    g[:, nz] = c[:, nz] / (1j * kk[nz] * rate)
+    xi = np.fft.ifft(g, axis=1).real * p
+    f = np.fft.fft(np.exp(1j * xi), axis=1) / p
+    return mean, np.abs(f) ** 2
+
+
+def case_mas_ct_csa():
+    site = {"shift_ppm": 60.0, "cq_mhz": 3.0, "eta_q": 0.4, "span_ppm": 80.0, "skew": 0.3,
+            "euler_deg": [20.0, 50.0, 10.0]}
+    rate, p = 12500.0, 64
+    model = make_model("27Al", {"field_tesla": 14.1, "spinning_hz": rate, "points": 4096, "rotor_phases": p,
+                                "method": "perturbation", "orientations": 45}, [site])
+    fr = site_frame(model.sites[0], model.nucleus, 14.1)
+    oset = triangulated(45, fr.symmetry)
+    sl = site_lines(fr, (0.5,), model.measurement, "perturbation", oset)
+    axis = make_axis(4096, fr.nu0_hz, None, None, sl.frequency_range())
+
+    def engine():
+        s = site_lines(fr, (0.5,), model.measurement, "perturbation", oset)
+        return bin_lines(axis, s.mean, s.amp, s.weights, oset, "interpolate", rate, 1e-12)
+
+    def plain():
+        mean, amp = numpy_mas(fr, np.asarray(oset.vectors), 0.5, math.radians(model.measurement.rotor_angle_deg),
+                              p, rate)
+        n = np.fft.fftfreq(p, 1.0 / p)
+        freqs = mean[:, None] + n[None, :] * rate
+        return numpy_tent(freqs, np.asarray(oset.triangles), np.asarray(oset.triangle_weights), amp,
+                          axis.left_edge_hz, axis.dx_hz, axis.points)
+
+    a, b = engine(), plain()
+    t_e = best_time(engine, repeat=15)
+    t_n = best_time(plain, repeat=3)
+    t_full = best_time(lambda: simulate(model), repeat=5)
+    print(f"MAS 27Al CT + CSA, {oset.size} orientations x {p} phases, 4096 points: core {t_e * 1e3:.2f} ms "
+          f"(target 10 ms) | full simulate() {t_full * 1e3:.1f} ms | plain numpy {t_n * 1e3:.1f} ms "
+          f"| ratio numpy/core {t_n / t_e:.1f} | max diff {np.abs(a - b).max() / b.max():.1e} (relative)")
+    try:
+        from tests.reference import time_domain as td  # noqa: F401
+        _time_domain_ratio(t_e)
+    except Exception as exc:  # the reference is optional for this script
+        print(f"  (time-domain reference not measured: {exc})")
+
+
+def _time_domain_ratio(t_engine):
+    from tests.reference import time_domain as td
+
+    fn = getattr(td, "benchmark_case", None)
+    if fn is None:
+        raise RuntimeError("tests/reference/time_domain.py has no benchmark_case()")
+    t0 = time.perf_counter()
+    desc = fn()
+    t_td = time.perf_counter() - t0
+    print(f"  brute-force time-domain reference ({desc}): {t_td:.2f} s | ratio reference/core {t_td / t_engine:.0f}")
+
+
+def case_satellites():
+    model = make_model("27Al", {"field_tesla": 14.1, "spinning_hz": 10000.0, "transitions": "all",
+                                "points": 8192, "method": "perturbation"},
+                       [{"cq_mhz": 3.0, "eta_q": 0.2}])
+    t = best_time(lambda: simulate(model), repeat=3)
+    spec = simulate(model)
+    print(f"27Al all transitions, 10 kHz MAS, C_Q 3 MHz: {t * 1e3:.0f} ms (target 500 ms); "
+          f"{spec.metadata['rotor_phases']['site 1']} phases, {spec.metadata['orientations']['site 1']}, "
+          f"{len(spec.sidebands)} bands in the table")
+
+
+def case_exact_92():
+    model = make_model("93Nb", {"field_tesla": 9.4, "spinning_hz": 20000.0, "transitions": "central",
+                                "points": 4096, "method": "exact"},
+                       [{"cq_mhz": 25.0, "eta_q": 0.3}])
+    t = best_time(lambda: simulate(model), repeat=3)
+    spec = simulate(model)
+    print(f"93Nb (I = 9/2) exact route, 20 kHz MAS, C_Q 25 MHz: {t * 1e3:.0f} ms (target 2000 ms); "
+          f"{spec.metadata['rotor_phases']['site 1']} phases, {spec.metadata['orientations']['site 1']}")
+
+
+def main():
+    import numba
+
+    print(f"numba threads: {numba.get_num_threads()}")
+    case_mas_ct_csa()
+    case_satellites()
+    case_exact_92()
+
+
+if __name__ == "__main__":
+    main()
