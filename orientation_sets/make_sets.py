@@ -87,54 +87,78 @@ def _unique_rows(points: np.ndarray) -> np.ndarray:
     return points[np.sort(index)]
 
 
-def orbit_points(kind: str, params: tuple[float, ...] = ()) -> np.ndarray:
+_C_POSITIONS = ((0, 1), (1, 0), (0, 2), (2, 0), (1, 2), (2, 1))
+
+
+def _orbit_map(kind: str, vals) -> np.ndarray:
+    """Images of a generator under O_h; linear in ``vals``.
+
+    'b': vals (l, m) -> the 24 points (+-l, +-l, +-m) and permutations;
+    'c': vals (p, q) -> the 24 points with entries +-p, +-q, 0;
+    'd': vals (r, s, t) -> the 48 points with entries +-r, +-s, +-t.
+    """
+    if kind == "b":
+        l_, m_ = vals
+        base = np.array([[l_, l_, m_], [l_, m_, l_], [m_, l_, l_]])
+        return (base[:, None, :] * _SIGNS[None, :, :]).reshape(-1, 3)
+    if kind == "c":
+        p, q = vals
+        out = np.zeros((24, 3))
+        row = 0
+        for i, j in _C_POSITIONS:
+            for s1 in (1.0, -1.0):
+                for s2 in (1.0, -1.0):
+                    out[row, i] = s1 * p
+                    out[row, j] = s2 * q
+                    row += 1
+        return out
+    if kind == "d":
+        gen = np.asarray(vals, dtype=float)
+        return (gen[_PERMS][:, None, :] * _SIGNS[None, :, :]).reshape(-1, 3)
+    raise ValueError(f"unknown orbit kind {kind!r}")
+
+
+def orbit_points(kind: str, params: tuple[float, ...] = (), derivatives: bool = False):
     """Points of one O_h orbit, always ORBIT_SIZE[kind] of them.
 
     kind 'a1', 'a2', 'a3' take no parameter; 'b' takes theta (generator
     (sin theta / sqrt 2, sin theta / sqrt 2, cos theta)); 'c' takes phi
     (generator (cos phi, sin phi, 0)); 'd' takes (theta, phi) (generator
     (sin theta cos phi, sin theta sin phi, cos theta)).  For parameters on
-    a symmetry element the listed points repeat (see expand_rule).
+    a symmetry element the listed points repeat (see expand_rule).  With
+    ``derivatives`` also return the derivatives of the points with respect
+    to each parameter, shape (n_params, n_points, 3).
     """
     if kind == "a1":
-        return np.vstack([np.eye(3), -np.eye(3)])
-    if kind == "a2":
+        pts = np.vstack([np.eye(3), -np.eye(3)])
+    elif kind == "a2":
         s = 1.0 / math.sqrt(2.0)
-        base = np.array([[s, s, 0.0], [s, 0.0, s], [0.0, s, s]])
-        return _signed(base)
-    if kind == "a3":
-        return _SIGNS / math.sqrt(3.0)
+        pts = np.array([[0.0, a, b] for a in (s, -s) for b in (s, -s)]
+                       + [[a, 0.0, b] for a in (s, -s) for b in (s, -s)]
+                       + [[a, b, 0.0] for a in (s, -s) for b in (s, -s)])
+    elif kind == "a3":
+        pts = _SIGNS / math.sqrt(3.0)
+    if kind[0] == "a":
+        return (pts, np.zeros((0,) + pts.shape)) if derivatives else pts
     if kind == "b":
         (theta,) = params
-        l_, m_ = math.sin(theta) / math.sqrt(2.0), math.cos(theta)
-        base = np.array([[l_, l_, m_], [l_, m_, l_], [m_, l_, l_]])
-        return (base[:, None, :] * _SIGNS[None, :, :]).reshape(-1, 3)
-    if kind == "c":
+        st, ct = math.sin(theta), math.cos(theta)
+        r2 = math.sqrt(2.0)
+        pts = _orbit_map("b", (st / r2, ct))
+        der = [_orbit_map("b", (ct / r2, -st))]
+    elif kind == "c":
         (phi,) = params
-        p, q = math.cos(phi), math.sin(phi)
-        base = np.array([[p, q, 0.0], [q, p, 0.0], [p, 0.0, q], [q, 0.0, p], [0.0, p, q],
-                         [0.0, q, p]])
-        return _signed(base)
-    if kind == "d":
+        sp, cp = math.sin(phi), math.cos(phi)
+        pts = _orbit_map("c", (cp, sp))
+        der = [_orbit_map("c", (-sp, cp))]
+    elif kind == "d":
         theta, phi = params
-        gen = np.array([math.sin(theta) * math.cos(phi), math.sin(theta) * math.sin(phi),
-                        math.cos(theta)])
-        return (gen[_PERMS][:, None, :] * _SIGNS[None, :, :]).reshape(-1, 3)
-    raise ValueError(f"unknown orbit kind {kind!r}")
-
-
-def _signed(base: np.ndarray) -> np.ndarray:
-    """All sign changes of the non-zero entries of rows with one zero entry."""
-    out = []
-    for row in base:
-        nz = np.nonzero(row)[0]
-        for s1 in (1.0, -1.0):
-            for s2 in (1.0, -1.0):
-                v = row.copy()
-                v[nz[0]] *= s1
-                v[nz[1]] *= s2
-                out.append(v)
-    return np.array(out)
+        st, ct, sp, cp = math.sin(theta), math.cos(theta), math.sin(phi), math.cos(phi)
+        pts = _orbit_map("d", (st * cp, st * sp, ct))
+        der = [_orbit_map("d", (ct * cp, ct * sp, -st)), _orbit_map("d", (-st * sp, st * cp, 0.0))]
+    else:
+        raise ValueError(f"unknown orbit kind {kind!r}")
+    return (pts, np.array(der)) if derivatives else pts
 
 
 ORBIT_SIZE = {"a1": 6, "a2": 12, "a3": 8, "b": 24, "c": 24, "d": 48}
@@ -177,7 +201,7 @@ def orbit_structure(degree: int, n_b: int | None = None) -> list[str]:
 
 
 class MomentProblem:
-    """Residuals of the moment equations for an orbit structure."""
+    """Residuals of the moment equations for an orbit structure, with Jacobian."""
 
     def __init__(self, degree: int, kinds: list[str], n_probe: int = 16, seed: int = 12345):
         self.degree = degree
@@ -186,21 +210,12 @@ class MomentProblem:
         u = rng.normal(size=(n_probe, 3))
         self.probes = u / np.linalg.norm(u, axis=1)[:, None]
         self.n_points = sum(ORBIT_SIZE[k] for k in kinds)
-        self.fixed_sums = {k: self.orbit_sum(orbit_points(k)) for k in kinds if k[0] == "a"}
+        self.starts = np.cumsum([0] + [ORBIT_SIZE[k] for k in kinds])[:-1]
+        self._cache_x = None
 
-    def n_params(self, kind: str) -> int:
+    @staticmethod
+    def n_params(kind: str) -> int:
         return {"b": 1, "c": 1, "d": 2}.get(kind, 0)
-
-    def orbit_sum(self, points: np.ndarray) -> np.ndarray:
-        x = points @ self.probes.T
-        p_prev, p_cur = np.ones_like(x), x.copy()
-        out = [np.array([float(points.shape[0])])]
-        for k in range(1, self.degree - 1):
-            p_prev, p_cur = p_cur, ((2 * k + 1) * x * p_cur - k * p_prev) / (k + 1)
-            l_ = k + 1
-            if l_ % 2 == 0 and l_ >= 4:
-                out.append(math.sqrt(2 * l_ + 1) * p_cur.sum(axis=0))
-        return np.concatenate(out)
 
     def unpack(self, x: np.ndarray):
         i = 0
@@ -209,29 +224,97 @@ class MomentProblem:
             yield kind, x[i], tuple(x[i + 1:i + 1 + n])
             i += 1 + n
 
-    def residual(self, x: np.ndarray) -> np.ndarray:
-        r = None
+    def _evaluate(self, x: np.ndarray):
+        if self._cache_x is not None and np.array_equal(x, self._cache_x):
+            return self._cache
+        pts, ders, wts = [], [[], []], []
         for kind, w, par in self.unpack(x):
-            s = self.fixed_sums[kind] if kind[0] == "a" else self.orbit_sum(orbit_points(kind, par))
-            r = w * s if r is None else r + w * s
-        r = r.copy()
-        r[0] -= 1.0
-        return r
+            p, d = orbit_points(kind, par, derivatives=True)
+            pts.append(p)
+            wts.append(np.full(p.shape[0], w))
+            for j in range(2):
+                ders[j].append(d[j] if j < d.shape[0] else np.zeros_like(p))
+        pts = np.vstack(pts)
+        w = np.concatenate(wts)
+        proj = pts @ self.probes.T                    # n . u
+        dproj = [np.vstack(ders[j]) @ self.probes.T for j in range(2)]
+        # Legendre recurrences for P_l(n.u) and P_l'(n.u).
+        p_prev, p_cur = np.ones_like(proj), proj.copy()
+        dp_prev, dp_cur = np.zeros_like(proj), np.ones_like(proj)
+        rows_p, rows_d0, rows_d1 = [np.ones((len(self.kinds), 1))], [], []
+        segs = self.starts
+        for k in range(1, self.degree - 1):
+            p_next = ((2 * k + 1) * proj * p_cur - k * p_prev) / (k + 1)
+            dp_next = dp_prev + (2 * k + 1) * p_cur
+            p_prev, p_cur, dp_prev, dp_cur = p_cur, p_next, dp_cur, dp_next
+            l_ = k + 1
+            if l_ % 2 == 0 and l_ >= 4:
+                scale = math.sqrt(2 * l_ + 1)
+                rows_p.append(scale * np.add.reduceat(p_cur, segs, axis=0))
+                rows_d0.append(scale * np.add.reduceat(dp_cur * dproj[0], segs, axis=0))
+                rows_d1.append(scale * np.add.reduceat(dp_cur * dproj[1], segs, axis=0))
+        sizes = np.array([[ORBIT_SIZE[k]] for k in self.kinds], dtype=float)
+        orbit_sums = np.hstack([sizes] + rows_p[1:])            # (orbits, equations)
+        d0 = np.hstack([np.zeros_like(sizes)] + rows_d0)
+        d1 = np.hstack([np.zeros_like(sizes)] + rows_d1)
+        orbit_w = np.array([w_ for _, w_, _ in self.unpack(x)])
+        residual = orbit_w @ orbit_sums
+        residual[0] -= 1.0
+        cols = []
+        for i, kind in enumerate(self.kinds):
+            cols.append(orbit_sums[i])
+            if self.n_params(kind) >= 1:
+                cols.append(orbit_w[i] * d0[i])
+            if self.n_params(kind) == 2:
+                cols.append(orbit_w[i] * d1[i])
+        self._cache_x = x.copy()
+        self._cache = (residual, np.array(cols).T)
+        return self._cache
+
+    # Variable projection: the weights enter linearly, so for given orbit
+    # parameters they are the linear least-squares solution; the search then
+    # runs over the parameters only (G. H. Golub, V. Pereyra, SIAM J. Numer.
+    # Anal. 10 (1973) 413; Jacobian approximation of L. Kaufman, BIT 15
+    # (1975) 49).
+    def full_vector(self, params: np.ndarray, weights: np.ndarray) -> np.ndarray:
+        x, i = [], 0
+        for kind, w in zip(self.kinds, weights):
+            n = self.n_params(kind)
+            x += [w] + list(params[i:i + n])
+            i += n
+        return np.array(x)
+
+    def _projected(self, params: np.ndarray):
+        x = self.full_vector(params, np.ones(len(self.kinds)))
+        _, jac = self._evaluate(x)
+        weight_cols = [c for c, (kind, _, _) in zip(self._column_owner(), self.unpack(x))]
+        owners = self._column_owner()
+        a_cols = [j for j, (i, is_w) in enumerate(owners) if is_w]
+        p_cols = [j for j, (i, is_w) in enumerate(owners) if not is_w]
+        a_mat = jac[:, a_cols]
+        rhs = np.zeros(a_mat.shape[0]); rhs[0] = 1.0
+        w, *_ = np.linalg.lstsq(a_mat, rhs, rcond=None)
+        r = a_mat @ w - rhs
+        q, _ = np.linalg.qr(a_mat)
+        dcols = jac[:, p_cols] * np.array([w[owners[j][0]] for j in p_cols])[None, :]
+        jv = dcols - q @ (q.T @ dcols)
+        return r, jv, w
+
+    def _column_owner(self):
+        owners = []
+        for i, kind in enumerate(self.kinds):
+            owners.append((i, True))
+            owners += [(i, False)] * self.n_params(kind)
+        return owners
+
+    def params_of(self, x: np.ndarray) -> np.ndarray:
+        return np.array([p for _, _, par in self.unpack(x) for p in par])
+
+    def residual(self, x: np.ndarray) -> np.ndarray:
+        return self._evaluate(x)[0]
 
     def jacobian(self, x: np.ndarray) -> np.ndarray:
-        cols = []
-        h = 1e-6
-        for kind, w, par in self.unpack(x):
-            if kind[0] == "a":
-                cols.append(self.fixed_sums[kind])
-                continue
-            cols.append(self.orbit_sum(orbit_points(kind, par)))
-            for j in range(len(par)):
-                up = list(par); up[j] += h
-                dn = list(par); dn[j] -= h
-                cols.append(w * (self.orbit_sum(orbit_points(kind, tuple(up)))
-                                 - self.orbit_sum(orbit_points(kind, tuple(dn)))) / (2 * h))
-        return np.array(cols).T
+        return self._evaluate(x)[1]
 
     def start(self, rng: np.random.Generator) -> np.ndarray:
         x = []

@@ -72,8 +72,12 @@ def _field_direction(n, u, v, cos_r, sin_r, phi, b):
 
 
 @njit(parallel=True, cache=True)
-def _perturbative_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz, ms, spin, second_order):
-    """Offsets (Hz) of transitions m -> m-1 for every orientation and rotor phase.
+def _perturbative_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz, mhi, mlo, spin, second_order):
+    """Offsets (Hz) of transitions m_hi <-> m_lo for every orientation and rotor phase.
+
+    The offset is E(m_hi) - E(m_lo) - (m_hi - m_lo) nu0: single-quantum
+    transitions have m_lo = m_hi - 1, symmetric multiple-quantum ones
+    m_lo = -m_hi.
 
     Returns an array (n_orient, n_trans, nphase).  First-order shift (all of
     the tensor's lab zz part), first-order quadrupolar and second-order
@@ -81,22 +85,25 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz
     rotation invariants of the EFG so only b = B0 direction is needed).
     """
     n_or = axes.shape[0]
-    nt = ms.shape[0]
+    nt = mhi.shape[0]
     out = np.empty((n_or, nt, nphase))
     x = spin * (spin + 1.0)
     t2 = vdiag[0] ** 2 + vdiag[1] ** 2 + vdiag[2] ** 2
     c2 = -(k_hz * k_hz) / (2.0 * nu0_hz) if second_order else 0.0
-    # per-transition constants
+    # per-transition constants for the pair of levels (m_hi, m_lo)
     c1 = np.empty(nt)
     ca = np.empty(nt)
     cb = np.empty(nt)
+    dm = np.empty(nt)
     for t in range(nt):
-        m = ms[t]
-        mm = m - 1.0
-        c1[t] = 1.5 * k_hz * (2.0 * m - 1.0)
-        # E2(m) - E2(m-1) = c2 * ( ca * A - cb * B / 4 )
+        m = mhi[t]
+        mm = mlo[t]
+        # E1(m) - E1(mm) = (3 K / 2) V_zz (m^2 - mm^2)
+        c1[t] = 1.5 * k_hz * (m * m - mm * mm)
+        # E2(m) - E2(mm) = c2 * ( ca * A - cb * B / 4 )
         ca[t] = m * (4 * x - 8 * m * m - 1) - mm * (4 * x - 8 * mm * mm - 1)
         cb[t] = m * (2 * x - 2 * m * m - 1) - mm * (2 * x - 2 * mm * mm - 1)
+        dm[t] = m - mm
     scale_cs = nu0_hz * 1e-6
     cph = np.empty(nphase)
     sph = np.empty(nphase)
@@ -125,7 +132,7 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz
             dzz = d00 * b0s + d11 * b1s + d22 * b2s + d01 * b0 * b1 + d02 * b0 * b2 + d12 * b1 * b2
             cs = scale_cs * dzz
             for t in range(nt):
-                out[i, t, p] = cs + c1[t] * vzz + c2 * (ca[t] * a - cb[t] * 0.25 * bq)
+                out[i, t, p] = dm[t] * cs + c1[t] * vzz + c2 * (ca[t] * a - cb[t] * 0.25 * bq)
     return out
 
 
@@ -134,13 +141,15 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz
 
 
 @njit(parallel=True, cache=True)
-def _exact_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz, ops, iz_diag, iplus, upper_idx):
+def _exact_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz, ops, iz_diag, iplus, upper_idx,
+                  lower_idx):
     """Exact transition offsets (Hz) and intensities |<m|I+|m-1>|^2.
 
     Diagonalises H = nu0 (1 + 1e-6 d_zz) Iz + K sum_ab V_ab I_a I_b at every
     orientation and rotor phase, labels the eigenstates by <Iz> (descending)
-    and returns offsets E(m) - E(m-1) - nu0 for the levels ``upper_idx`` (the
-    index of level m in that order) and the matching intensities.
+    and returns offsets E(m_hi) - E(m_lo) - (m_hi - m_lo) nu0 for the level
+    indices ``upper_idx`` / ``lower_idx`` in that order (m = I first) and the
+    intensities |<m_hi|I+|m_lo>|^2 (zero unless single-quantum).
 
     ``ops`` holds IxIx, IyIy, IzIz, {Ix,Iy}, {Ix,Iz}, {Iy,Iz} (complex).
     """
@@ -198,8 +207,8 @@ def _exact_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz, ops, 
             order = np.argsort(-mz)
             for t in range(nt):
                 jh = order[upper_idx[t]]
-                jl = order[upper_idx[t] + 1]
-                off[i, t, p] = w[jh] - w[jl] - nu0_hz
+                jl = order[lower_idx[t]]
+                off[i, t, p] = w[jh] - w[jl] - (lower_idx[t] - upper_idx[t]) * nu0_hz
                 # <psi_hi| I+ |psi_lo>
                 amp = 0.0 + 0.0j
                 for r in range(dim):

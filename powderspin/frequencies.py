@@ -33,6 +33,7 @@ __all__ = [
     "site_frame",
     "perturbative_offsets",
     "exact_offsets",
+    "multiple_quantum_offsets",
     "transition_intensity",
     "needs_exact",
 ]
@@ -171,6 +172,10 @@ def perturbative_offsets(
     ax = _axes(directions)
     _upper_levels(frame.spin, ms)
     ms_a = np.asarray(ms, dtype=float).reshape(-1)
+    return _perturbative_pairs(frame, ax, ms_a, ms_a - 1.0, rotor_angle_rad, phases, second_order)
+
+
+def _perturbative_pairs(frame, ax, mhi, mlo, rotor_angle_rad, phases, second_order):
     return _k._perturbative_offsets(
         ax,
         math.cos(rotor_angle_rad),
@@ -180,7 +185,8 @@ def perturbative_offsets(
         np.ascontiguousarray(frame.delta_ppm),
         float(frame.k_hz),
         float(frame.nu0_hz),
-        ms_a,
+        np.ascontiguousarray(mhi, dtype=float),
+        np.ascontiguousarray(mlo, dtype=float),
         float(frame.spin),
         bool(second_order),
     )
@@ -231,8 +237,12 @@ def exact_offsets(
     """
     ax = _axes(directions)
     spin = frame.spin
-    ops, iz, ip = _operator_products(spin)
     upper = _upper_levels(spin, ms)
+    return _exact_pairs(frame, ax, upper, upper + 1, rotor_angle_rad, phases)
+
+
+def _exact_pairs(frame, ax, upper, lower, rotor_angle_rad, phases):
+    ops, iz, ip = _operator_products(frame.spin)
     return _k._exact_offsets(
         ax,
         math.cos(rotor_angle_rad),
@@ -245,8 +255,65 @@ def exact_offsets(
         ops,
         iz,
         ip,
-        upper,
+        np.ascontiguousarray(upper, dtype=np.int64),
+        np.ascontiguousarray(lower, dtype=np.int64),
     )
+
+
+def multiple_quantum_offsets(
+    frame: SiteFrame,
+    directions,
+    m: float,
+    *,
+    method: str = "perturbation",
+    rotor_angle_rad: float = 0.0,
+    phases: int = 1,
+) -> np.ndarray:
+    """Offsets (Hz) of the symmetric multiple-quantum transition m <-> -m.
+
+    The offset is E(m) - E(-m) - 2 m nu0.  To first order the quadrupolar part
+    cancels; to second order it is 2 E2(m), and the shift contributes
+    2 m nu0 1e-6 d_zz.
+
+    Parameters
+    ----------
+    frame : SiteFrame
+    directions : array_like (N, 3)
+    m : float
+        Positive m (e.g. 1.5 for the triple-quantum transition of I = 3/2).
+    method : {"perturbation", "exact"}
+    rotor_angle_rad, phases
+        As in :func:`perturbative_offsets`.
+
+    Returns
+    -------
+    ndarray (N, 1, phases)
+
+    References
+    ----------
+    L. Frydman, J. S. Harwood, J. Am. Chem. Soc. 117 (1995) 5367 (multiple-quantum
+    transitions of half-integer quadrupolar nuclei).
+
+    Examples
+    --------
+    >>> from powderspin.model import Site
+    >>> from powderspin.nuclides import get_nuclide
+    >>> f = site_frame(Site(cq_mhz=3.0), get_nuclide("23Na"), 9.4)
+    >>> abs(float(multiple_quantum_offsets(f, [[0, 0, 1]], 1.5)[0, 0, 0])) < 1e-6  # theta = 0: no shift
+    True
+    """
+    ax = _axes(directions)
+    spin = frame.spin
+    mm = float(m)
+    if not (0 < mm <= spin and abs(2 * mm - round(2 * mm)) < 1e-12) or abs(mm - round(mm)) < 1e-12:
+        raise ValueError(f"m = {m!r} must be a positive half-integer <= I = {spin} for a symmetric m <-> -m transition")
+    if method == "perturbation":
+        return _perturbative_pairs(frame, ax, np.array([mm]), np.array([-mm]), rotor_angle_rad, phases, True)
+    if method == "exact":
+        up = np.array([int(round(spin - mm))])
+        lo = np.array([int(round(spin + mm))])
+        return _exact_pairs(frame, ax, up, lo, rotor_angle_rad, phases)[0]
+    raise ValueError(f"method = {method!r} is not one of 'perturbation', 'exact'")
 
 
 def transition_intensity(spin: float, m: float) -> float:
