@@ -26,7 +26,7 @@ from powderspin.frequencies import site_frame  # noqa: E402
 from powderspin.lineshape import bin_lines, make_axis  # noqa: E402
 from powderspin.model import make_model  # noqa: E402
 from powderspin.orientations import triangulated  # noqa: E402
-from powderspin.simulate import site_lines, simulate  # noqa: E402
+from powderspin.simulation import site_lines, simulate  # noqa: E402
 
 
 def numpy_mas(frame, vecs, m, theta, p, rate):

@@ -21,7 +21,7 @@ from powderspin.frequencies import perturbative_offsets, site_frame  # noqa: E40
 from powderspin.lineshape import bin_lines, make_axis  # noqa: E402
 from powderspin.model import make_model, selected_transitions  # noqa: E402
 from powderspin.orientations import triangulated  # noqa: E402
-from powderspin.simulate import site_lines, simulate  # noqa: E402
+from powderspin.simulation import site_lines, simulate  # noqa: E402
 
 
 def numpy_frequencies(frame, vecs, m):

@@ -27,10 +27,14 @@ degree l once it integrates the O_h-invariant ones.  The moment equations
 
 (P_l Legendre polynomials; by the addition theorem the left side is
 (4 pi / (2l + 1)) sum_m Q(Y_lm)* Y_lm(u), which vanishes for all u exactly
-when the rule Q integrates every Y_lm of degree l) are solved by
-Levenberg-Marquardt (scipy.optimize.least_squares) from stratified random
-starts: b and c parameters spread evenly along their arcs, d generators by
-randomised farthest-point sampling of the fundamental triangle.
+when the rule Q integrates every Y_lm of degree l; 16 random probe
+directions u over-determine the system) are solved by Levenberg-Marquardt
+(scipy.optimize.least_squares) with variable projection (the weights,
+which enter linearly, are eliminated by linear least squares) from
+stratified random starts: b and c parameters spread evenly along their
+arcs, d generators by randomised farthest-point sampling of the
+fundamental triangle.  A few Gauss-Newton steps on all unknowns polish
+the converged solution.
 
 The orbit structure of each degree comes from the published point count N
 (V. I. Lebedev, D. N. Laikov, Doklady Mathematics 59 (1999) 477): N mod 24
@@ -38,10 +42,11 @@ decides whether a2 is present (a1 and a3 always are, except for the 6-point
 rule), equating the number of unknowns with the number of O_h-invariant
 harmonics of even degree < L (generating function 1/((1 - t^4)(1 - t^6)))
 fixes the number of d orbits, and the split of the remaining 24-point orbits
-between b and c types is the one for which the equations have a real
-solution (found by trying the splits).  Where several solutions exist the
-one with all weights positive is kept; rules 13, 25 and 27 have a unique
-solution in our searches and it has a negative weight.
+between b and c types is one for which the equations have a real solution
+(found by trying the splits; for degrees 31 and 41 two splits work and the
+one whose rule has the larger smallest weight is kept, see B_ORBITS).
+Where several solutions exist the one with all weights positive is kept;
+for degrees 13, 25 and 27 every solution found has a negative weight.
 
 Accuracy tables
 ---------------
@@ -170,7 +175,12 @@ PUBLISHED_POINTS = {3: 6, 5: 14, 7: 26, 9: 38, 11: 50, 13: 74, 15: 86, 17: 110, 
                     47: 770, 53: 974, 59: 1202}
 
 # Number of b orbits chosen for each degree (the rest of the 24-point orbits
-# are c orbits); found by trying the splits, see the module docstring.
+# are c orbits); found by trying the splits, see the module docstring.  For
+# degrees 31 and 41 two splits gave rules with positive weights (31: 5 or 6
+# b orbits, smallest weight * N 0.562 and 0.567; 41: 8 or 9, 0.060 and
+# 0.183); the split with the larger smallest weight is kept, and it is the
+# one that reproduces the published rule (tests compare with
+# scipy.integrate.lebedev_rule).
 B_ORBITS = {3: 0, 5: 0, 7: 0, 9: 0, 11: 1, 13: 1, 15: 2, 17: 3, 19: 3, 21: 3, 23: 4,
             25: 5, 27: 5, 29: 6, 31: 6, 35: 7, 41: 9}
 
@@ -287,7 +297,6 @@ class MomentProblem:
     def _projected(self, params: np.ndarray):
         x = self.full_vector(params, np.ones(len(self.kinds)))
         _, jac = self._evaluate(x)
-        weight_cols = [c for c, (kind, _, _) in zip(self._column_owner(), self.unpack(x))]
         owners = self._column_owner()
         a_cols = [j for j, (i, is_w) in enumerate(owners) if is_w]
         p_cols = [j for j, (i, is_w) in enumerate(owners) if not is_w]
@@ -297,6 +306,7 @@ class MomentProblem:
         r = a_mat @ w - rhs
         q, _ = np.linalg.qr(a_mat)
         dcols = jac[:, p_cols] * np.array([w[owners[j][0]] for j in p_cols])[None, :]
+        # (jac holds the parameter columns for unit weights; scale by w.)
         jv = dcols - q @ (q.T @ dcols)
         return r, jv, w
 
@@ -316,7 +326,10 @@ class MomentProblem:
     def jacobian(self, x: np.ndarray) -> np.ndarray:
         return self._evaluate(x)[1]
 
-    def start(self, rng: np.random.Generator) -> np.ndarray:
+    def start(self, rng: np.random.Generator, uniform: bool = False) -> np.ndarray:
+        """Random start: b and c parameters stratified along their arcs, or
+        (``uniform``) drawn uniformly; d generators spread over the
+        fundamental triangle."""
         x = []
         n_b, n_c, n_d = (self.kinds.count(k) for k in "bcd")
         ib = ic = 0
@@ -327,10 +340,16 @@ class MomentProblem:
             if kind[0] == "a":
                 x.append(w0)
             elif kind == "b":
-                x += [w0, (ib + 0.5 + rng.uniform(-0.35, 0.35)) / n_b * math.pi / 2]
+                if uniform:
+                    x += [w0, rng.uniform(0.02, math.pi / 2 - 0.005)]
+                else:
+                    x += [w0, (ib + 0.5 + rng.uniform(-0.35, 0.35)) / n_b * math.pi / 2]
                 ib += 1
             elif kind == "c":
-                x += [w0, (ic + 0.5 + rng.uniform(-0.35, 0.35)) / n_c * math.pi / 4]
+                if uniform:
+                    x += [w0, rng.uniform(0.02, math.pi / 4 - 0.005)]
+                else:
+                    x += [w0, (ic + 0.5 + rng.uniform(-0.35, 0.35)) / n_c * math.pi / 4]
                 ic += 1
             else:
                 p = d_gens[idd]
@@ -386,15 +405,18 @@ def solve_lebedev(degree: int, max_tries: int = 400, verbose: bool = True):
     negative = None
     t0 = time.time()
     for attempt in range(max_tries):
-        x0 = problem.start(rng)
-        if len(problem.residual(x0)) < x0.size:
-            raise RuntimeError("underdetermined system; check the probes")
-        fit = least_squares(problem.residual, x0, jac=problem.jacobian, method="lm",
-                            xtol=1e-15, ftol=1e-15, gtol=1e-15, max_nfev=80)
-        if np.max(np.abs(fit.fun)) > 1e-12:
+        # Alternate stratified and uniform starts.
+        params = problem.params_of(problem.start(rng, uniform=bool(attempt % 2)))
+        if params.size:
+            fit = least_squares(lambda p: problem._projected(p)[0], params,
+                                jac=lambda p: problem._projected(p)[1], method="lm",
+                                xtol=1e-15, ftol=1e-15, gtol=1e-15, max_nfev=150)
+            params = fit.x
+        residual, _, weights = problem._projected(params)
+        if np.max(np.abs(residual)) > 1e-12:
             continue
-        # Polish with a few Gauss-Newton steps.
-        x = fit.x
+        # Polish all unknowns with a few Gauss-Newton steps.
+        x = problem.full_vector(params, weights)
         for _ in range(3):
             step = np.linalg.lstsq(problem.jacobian(x), -problem.residual(x), rcond=None)[0]
             x = x + step
@@ -502,8 +524,21 @@ def error_profile_sets() -> list[str]:
 PROFILE_DEGREES = (1, 2, 3, 4, 5, 6, 7, 8)
 
 
+def lebedev_listing() -> list[str]:
+    out = ["Shipped Lebedev rules (smallest weight times N; a negative value marks a "
+           "negative weight):", "", "| degree | N | orbits | smallest weight x N |",
+           "|---|---|---|---|"]
+    for degree in ori.lebedev_degrees():
+        s = ori.lebedev(degree)
+        header = (HERE / f"lebedev_{degree:03d}.csv").read_text().splitlines()
+        orbits = next(line.split(":", 1)[1].strip() for line in header
+                      if line.startswith("# orbits:"))
+        out.append(f"| {degree} | {s.size} | {orbits} | {s.weights.min() * s.size:.4f} |")
+    return out + [""]
+
+
 def accuracy_tables() -> str:
-    out = ["Exactness: L is the largest degree such that every symmetric Y_l^m with "
+    out = lebedev_listing() + ["Exactness: L is the largest degree such that every symmetric Y_l^m with "
            "l <= L is integrated to 1e-10; l1 = L + 1 and l2 are the next two degrees "
            "that carry symmetric harmonics, with the largest error there.", "",
            "| set | symmetry | N | degree field | L | l1 | error at l1 | l2 | error at l2 |",

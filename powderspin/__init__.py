@@ -15,7 +15,7 @@ __version__ = "0.1.0"
 from .model import Measurement, Model, ModelError, Site, load_model, make_model, make_site, parse_model  # noqa: E402
 from .nuclides import Nuclide, get_nuclide, list_nuclides  # noqa: E402
 from .plotting import plot_spectrum, save_plot  # noqa: E402
-from .simulate import simulate  # noqa: E402
+from .simulation import simulate  # noqa: E402
 from .spectrum import Spectrum  # noqa: E402
 from .tensors import ShiftTensor  # noqa: E402
 

@@ -27,7 +27,7 @@ def _demo_model_path() -> Path:
 
 def _cmd_simulate(args) -> int:
     from .model import load_model
-    from .simulate import simulate
+    from .simulation import simulate
     from .spectrum import write_text_safely
 
     model = load_model(args.model)
@@ -65,7 +65,7 @@ def _cmd_nuclide(args) -> int:
 def _cmd_demo(args) -> int:
     from .model import load_model
     from .plotting import save_plot
-    from .simulate import simulate
+    from .simulation import simulate
     from .spectrum import write_text_safely
 
     outdir = Path(args.out)

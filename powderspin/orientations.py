@@ -648,7 +648,10 @@ def _solid_angles(a: np.ndarray, b: np.ndarray, c: np.ndarray) -> np.ndarray:
     (1 + a.b + b.c + c.a); the triple product is taken as
     a.((b - a) x (c - a)) to avoid cancellation for small triangles.
     """
-    triple = np.einsum("ij,ij->i", a, np.cross(b - a, c - a))
+    d1, d2 = b - a, c - a
+    triple = (a[:, 0] * (d1[:, 1] * d2[:, 2] - d1[:, 2] * d2[:, 1])
+              + a[:, 1] * (d1[:, 2] * d2[:, 0] - d1[:, 0] * d2[:, 2])
+              + a[:, 2] * (d1[:, 0] * d2[:, 1] - d1[:, 1] * d2[:, 0]))
     denominator = 1.0 + np.einsum("ij,ij->i", a, b) + np.einsum("ij,ij->i", b, c) \
         + np.einsum("ij,ij->i", c, a)
     return 2.0 * np.arctan2(np.abs(triple), denominator)

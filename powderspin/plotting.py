@@ -34,7 +34,7 @@ def plot_spectrum(spectrum, ax=None, *, show_sites: bool = True, mark_sidebands:
     >>> import matplotlib
     >>> matplotlib.use("Agg")
     >>> from powderspin.model import parse_model
-    >>> from powderspin.simulate import simulate
+    >>> from powderspin.simulation import simulate
     >>> spec = simulate(parse_model({"nucleus": "31P", "measurement": {"points": 256},
     ...                              "site": [{"span_ppm": 100.0, "skew": 0.3}]}))
     >>> ax = plot_spectrum(spec)

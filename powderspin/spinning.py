@@ -167,3 +167,58 @@ def perturbative_sidebands(frame, directions, ms, *, rotor_angle_rad: float, pha
         np.ascontiguousarray(frame.vdiag, dtype=float), np.ascontiguousarray(frame.delta_ppm, dtype=float),
         float(frame.k_hz), float(frame.nu0_hz), np.asarray(ms, dtype=float), float(frame.spin),
         bool(second_order), float(rate_hz))
+
+
+def rotor_fourier_components(frame, directions, ms, *, rotor_angle_rad: float) -> np.ndarray:
+    """Fourier components k = -4..4 of each transition's offset over one rotor period.
+
+    The offset of a crystallite whose rotor axis is ``n`` is, at rotor phase
+    phi, ``nu(phi) = sum_k c_k exp(i k phi)`` with ``|k| <= 2`` for the
+    first-order (rank-2) terms and ``|k| <= 4`` once the second-order
+    quadrupolar (rank-0, 2 and 4) terms are included.  The engine evaluates the
+    offset at 16 equally spaced phases (``b(phi)`` on the cone about ``n``;
+    see :mod:`powderspin._kernels`), which gives these components exactly;
+    ``tests/test_spinning_fourier.py`` checks them against an independent
+    spherical-tensor route with Wigner rotations principal frame -> rotor
+    frame -> laboratory.
+
+    Parameters
+    ----------
+    frame : powderspin.frequencies.SiteFrame
+    directions : array_like (N, 3)
+        Rotor-axis directions in the crystallite frame.
+    ms : sequence of float
+        Upper levels m of the transitions m -> m-1.
+    rotor_angle_rad : float
+        Angle between rotor axis and B0.
+
+    Returns
+    -------
+    ndarray, complex, shape (N, T, 9)
+        ``c[..., k + 4]`` for k = -4..4 (Hz).  The phase origin is the
+        direction ``u`` of :func:`powderspin._kernels._perp3`.
+
+    References
+    ----------
+    M. Mehring, *Principles of High Resolution NMR in Solids* (1983), ch. 2 and
+    app. B; A. Samoson, E. Lippmaa, A. Pines, Mol. Phys. 65 (1988) 1013 (rank-4
+    terms under sample rotation).
+
+    Examples
+    --------
+    >>> import math
+    >>> from powderspin.frequencies import site_frame
+    >>> from powderspin.model import Site
+    >>> from powderspin.nuclides import get_nuclide
+    >>> from powderspin.tensors import ShiftTensor
+    >>> f = site_frame(Site(shift=ShiftTensor(0.0, 50.0, 0.0)), get_nuclide("31P"), 9.4)
+    >>> c = rotor_fourier_components(f, [[0, 0, 1]], [0.5], rotor_angle_rad=math.acos(3 ** -0.5))
+    >>> bool(abs(c[0, 0, 4]) < 1e-9)   # rotor axis along the unique axis: MAS average is zero
+    True
+    """
+    from .frequencies import perturbative_offsets
+
+    traj = perturbative_offsets(frame, directions, ms, rotor_angle_rad=rotor_angle_rad, phases=16)
+    c = np.fft.fft(traj, axis=2) / 16.0  # c_k exp(i k phi) convention: numpy's forward DFT
+    k = np.arange(-4, 5)
+    return c[..., k % 16]

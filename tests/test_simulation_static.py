@@ -9,7 +9,7 @@ import pytest
 
 from powderspin.lineshape import broaden
 from powderspin.model import parse_model
-from powderspin.simulate import simulate
+from powderspin.simulation import simulate
 from tests.reference import bloembergen_rowland as br
 
 
