@@ -424,18 +424,21 @@ def solve_lebedev(degree: int, max_tries: int = 400, verbose: bool = True):
         if rule is None:
             continue
         pts, wts, desc = rule
+        final = float(np.max(np.abs(problem.residual(x))))
         if verbose:
             print(f"  degree {degree}: attempt {attempt} converged, residual "
-                  f"{np.max(np.abs(problem.residual(x))):.1e}, min weight * N "
+                  f"{final:.1e}, min weight * N "
                   f"{wts.min() * wts.size:.4f} ({time.time() - t0:.0f} s)", flush=True)
         if wts.min() > 0:
             return pts, wts, desc, kinds
-        if negative is None:
-            negative = (pts, wts, desc, kinds)
-        elif attempt > 40:
+        # Keep the most accurate solution with a negative weight while
+        # looking for one without.
+        if negative is None or final < negative[0]:
+            negative = (final, (pts, wts, desc, kinds))
+        if attempt > 40:
             break
     if negative is not None:
-        return negative
+        return negative[1]
     raise RuntimeError(f"no solution found for degree {degree} in {max_tries} attempts")
 
 

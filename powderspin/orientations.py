@@ -4,8 +4,9 @@ A powder average is an average over crystallite orientations.  For the
 frequencies computed by powderspin only the direction ``n`` of the
 laboratory axis that matters (the static field B0, or the rotor axis under
 spinning) expressed in the crystallite's reference frame is needed: the
-remaining angle is either irrelevant (static) or averaged analytically over
-the rotor phase.  An :class:`OrientationSet` therefore holds unit vectors
+remaining Euler angle either leaves a static frequency unchanged or, under
+spinning, amounts to a shift of the rotor phase, over which the consumer
+averages.  An :class:`OrientationSet` therefore holds unit vectors
 ``n`` (``vectors``, shape ``(N, 3)``) with weights summing to 1, so that
 
     mean over the sphere of f(n)  ~=  sum_i weights[i] * f(vectors[i]).
@@ -75,7 +76,6 @@ __all__ = [
     "triangulated",
     "select_orientations",
     "orientation_set_by_name",
-    "orientation_set_dir",
 ]
 
 #: The allowed values of ``symmetry``.
@@ -126,19 +126,8 @@ class OrientationSetFileMissing(OrientationSetError, FileNotFoundError):
     """A shipped orientation-set data file is not where it should be."""
 
 
-def orientation_set_dir() -> Path:
-    """Directory holding the shipped orientation-set files.
-
-    Returns
-    -------
-    pathlib.Path
-        ``<repository>/orientation_sets``.
-
-    Examples
-    --------
-    >>> orientation_set_dir().name
-    'orientation_sets'
-    """
+def _orientation_set_dir() -> Path:
+    """Directory of the shipped orientation-set files, ``<repository>/orientation_sets``."""
     return Path(__file__).resolve().parent.parent / "orientation_sets"
 
 
@@ -439,7 +428,7 @@ def zcw(count_index: int, symmetry: str = "sphere") -> OrientationSet:
        constants c1, c2, c3 are quoted from memory of that paper).
     .. [2] S. K. Zaremba, Ann. Mat. Pura Appl. 73 (1966) 293; H. Conroy,
        J. Chem. Phys. 47 (1967) 5307; V. B. Cheng, H. H. Suzukawa,
-       M. Wolfsberg, J. Chem. Phys. 59 (1973) 3992.
+       M. Wolfsberg, J. Chem. Phys. 59 (1973) 3992 (citations from memory).
 
     Examples
     --------
@@ -458,7 +447,7 @@ def zcw(count_index: int, symmetry: str = "sphere") -> OrientationSet:
 
 
 def _lebedev_path(degree: int) -> Path:
-    return orientation_set_dir() / f"lebedev_{degree:03d}.csv"
+    return _orientation_set_dir() / f"lebedev_{degree:03d}.csv"
 
 
 def lebedev_degrees() -> tuple[int, ...]:
@@ -479,7 +468,7 @@ def lebedev_degrees() -> tuple[int, ...]:
     True
     """
     found = []
-    for path in orientation_set_dir().glob("lebedev_*.csv"):
+    for path in _orientation_set_dir().glob("lebedev_*.csv"):
         match = re.fullmatch(r"lebedev_(\d{3})\.csv", path.name)
         if match:
             found.append(int(match.group(1)))
@@ -532,7 +521,8 @@ def lebedev(degree: int) -> OrientationSet:
 
     References
     ----------
-    .. [1] V. I. Lebedev, Zh. Vychisl. Mat. Mat. Fiz. 16 (1976) 293.
+    .. [1] V. I. Lebedev, Zh. Vychisl. Mat. Mat. Fiz. 16 (1976) 293
+       (citation from memory).
     .. [2] V. I. Lebedev, D. N. Laikov, Doklady Mathematics 59 (1999) 477.
 
     Examples
@@ -613,7 +603,8 @@ def gauss_legendre_grid(n_beta: int, n_alpha: int, symmetry: str = "sphere") -> 
     References
     ----------
     .. [1] M. Abramowitz, I. A. Stegun, Handbook of Mathematical Functions
-       (1964), 25.4.29 (Gauss-Legendre quadrature).
+       (1964), 25.4.29 (Gauss-Legendre quadrature; section number from
+       memory).
     .. [2] M. Edén, M. H. Levitt, J. Magn. Reson. 132 (1998) 220 (product
        grids compared with other powder schemes).
 

@@ -27,7 +27,20 @@ import numpy as np
 
 from . import _kernels as _k
 
-__all__ = ["rotor_lines", "choose_rotor_phases", "outer_band_fraction"]
+__all__ = [
+    "rotor_lines",
+    "choose_rotor_phases",
+    "outer_band_fraction",
+    "perturbative_sidebands",
+    "rotor_fourier_components",
+]
+
+
+def _check_rotor_angle(rotor_angle_rad: float) -> float:
+    a = float(rotor_angle_rad)
+    if not (0.0 <= a <= math.pi / 2 + 1e-12):
+        raise ValueError(f"rotor_angle_rad = {rotor_angle_rad!r} is outside the allowed range [0, pi/2]")
+    return a
 
 #: largest number of rotor phases the automatic choice goes to
 MAX_AUTO_PHASES = 4096
@@ -160,8 +173,11 @@ def perturbative_sidebands(frame, directions, ms, *, rotor_angle_rad: float, pha
         raise ValueError(f"rotor phases = {p} must be a power of 2 >= 16")
     if not (rate_hz > 0 and math.isfinite(rate_hz)):
         raise ValueError(f"spinning_hz = {rate_hz!r} must be finite and > 0 here")
-    d = np.ascontiguousarray(np.asarray(directions, dtype=float).reshape(-1, 3))
-    d = d / np.linalg.norm(d, axis=1)[:, None]
+    rotor_angle_rad = _check_rotor_angle(rotor_angle_rad)
+    from .frequencies import _axes, _upper_levels
+
+    d = _axes(directions)
+    _upper_levels(frame.spin, ms)
     return _k._perturbative_sidebands(
         d, math.cos(rotor_angle_rad), math.sin(rotor_angle_rad), p,
         np.ascontiguousarray(frame.vdiag, dtype=float), np.ascontiguousarray(frame.delta_ppm, dtype=float),
@@ -218,6 +234,7 @@ def rotor_fourier_components(frame, directions, ms, *, rotor_angle_rad: float) -
     """
     from .frequencies import perturbative_offsets
 
+    rotor_angle_rad = _check_rotor_angle(rotor_angle_rad)
     traj = perturbative_offsets(frame, directions, ms, rotor_angle_rad=rotor_angle_rad, phases=16)
     c = np.fft.fft(traj, axis=2) / 16.0  # c_k exp(i k phi) convention: numpy's forward DFT
     k = np.arange(-4, 5)

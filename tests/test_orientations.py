@@ -9,14 +9,15 @@ Outside checks used here, each named again beside its test:
   int |Y_l^m|^2 dOmega = 1;
 * the sphere average of a monomial, <x^2a y^2b z^2c> =
   (2a-1)!! (2b-1)!! (2c-1)!! / (2(a+b+c)+1)!!, odd powers averaging to zero
-  (standard result, e.g. G. B. Folland, Amer. Math. Monthly 108 (2001) 446);
+  (standard result, e.g. G. B. Folland, Amer. Math. Monthly 108 (2001) 446,
+  citation from memory);
 * solid angles: sphere 4 pi, hemisphere 2 pi, octant pi/2 (geometry), and
   Girard's theorem (solid angle of a spherical triangle = angle sum - pi) as
   an independent formula for each triangle;
 * Euler's polyhedron formula V - E + F = 2 for a mesh of the sphere and 1
   for a mesh of a disc (octant, hemisphere);
 * Fibonacci numbers: N is Fibonacci iff 5 N^2 + 4 or 5 N^2 - 4 is a square
-  (I. Gessel, Fibonacci Quarterly 10 (1972) 417).
+  (I. Gessel, Fibonacci Quarterly 10 (1972) 417, citation from memory).
 """
 
 from __future__ import annotations
@@ -256,7 +257,7 @@ def test_lebedev_integrates_harmonics_to_its_degree(degree):
 
 def test_missing_lebedev_file_names_file_and_script(monkeypatch, tmp_path):
     ori._lebedev_cached.cache_clear()
-    monkeypatch.setattr(ori, "orientation_set_dir", lambda: tmp_path)
+    monkeypatch.setattr(ori, "_orientation_set_dir", lambda: tmp_path)
     try:
         with pytest.raises(ori.OrientationSetFileMissing) as err:
             lebedev(17)
