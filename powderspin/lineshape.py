@@ -166,7 +166,7 @@ def broaden(y: np.ndarray, dx_hz: float, lorentz_hz: float = 0.0, gauss_hz: floa
     --------
     >>> import numpy as np
     >>> y = np.zeros(256); y[128] = 1.0
-    >>> round(float(broaden(y, 1.0, lorentz_hz=4.0).sum()), 3)
+    >>> round(float(broaden(y, 1.0, lorentz_hz=4.0).sum()), 2)  # a little of the tails lies off the axis
     0.99
     """
     if lorentz_hz < 0 or gauss_hz < 0:

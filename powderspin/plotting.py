@@ -38,7 +38,7 @@ def plot_spectrum(spectrum, ax=None, *, show_sites: bool = True, mark_sidebands:
     >>> spec = simulate(parse_model({"nucleus": "31P", "measurement": {"points": 256},
     ...                              "site": [{"span_ppm": 100.0, "skew": 0.3}]}))
     >>> ax = plot_spectrum(spec)
-    >>> ax.get_xlim()[0] > ax.get_xlim()[1]
+    >>> bool(ax.get_xlim()[0] > ax.get_xlim()[1])
     True
     """
     import matplotlib.pyplot as plt

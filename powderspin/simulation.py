@@ -48,7 +48,8 @@ __all__ = ["simulate", "SiteLines", "site_lines"]
 INFINITE_RATE_PHASES = 8
 #: phases for the exact route at infinite rate (not a finite polynomial)
 INFINITE_RATE_PHASES_EXACT = 32
-#: tolerated intensity in the outer quarter of the sideband bands
+#: tolerated fraction of a site's intensity in the outer quarter of the
+#: sideband bands (where aliasing would first misplace intensity)
 ALIAS_TOLERANCE = 1e-6
 #: triangle-band contributions below this fraction of a site's area are skipped
 #: (at most ~1e-6 of the area in all, far below any plotted feature)
@@ -189,7 +190,8 @@ def site_lines(
             phases = choose_rotor_phases(spread, rate)
             while True:
                 mean, amp, w = spin_lines(phases)
-                if outer_band_fraction(amp) <= ALIAS_TOLERANCE or phases >= MAX_AUTO_PHASES:
+                aliased = outer_band_fraction(amp, oset.weights[:, None] * w)
+                if aliased <= ALIAS_TOLERANCE or phases >= MAX_AUTO_PHASES:
                     break
                 phases *= 2
         else:

@@ -74,7 +74,7 @@ def rotor_lines(traj: np.ndarray, rate_hz: float) -> tuple[np.ndarray, np.ndarra
     >>> traj = (1000.0 * np.cos(2 * np.pi * t))[None, None, :]
     >>> mean, amp = rotor_lines(traj, 1000.0)   # modulation index 1
     >>> round(float(amp[0, 0, 0]), 4)           # J0(1)^2
-    0.5856
+    0.5855
     """
     p = traj.shape[-1]
     if p & (p - 1):
@@ -84,18 +84,30 @@ def rotor_lines(traj: np.ndarray, rate_hz: float) -> tuple[np.ndarray, np.ndarra
     return _k._sideband_amplitudes(np.ascontiguousarray(traj, dtype=float), float(rate_hz))
 
 
-def outer_band_fraction(amp: np.ndarray) -> float:
-    """Largest intensity (over crystallites) in the outer quarter of the bands.
+def outer_band_fraction(amp: np.ndarray, weights: np.ndarray | None = None) -> float:
+    """Intensity in the outer quarter of the bands (|n| > 3P/8).
 
-    Bands with |n| > 3P/8 hold what aliasing would corrupt first; a small
-    value means P phases resolve the sideband manifold.
+    Those bands hold what aliasing would corrupt first; a small value means P
+    phases resolve the sideband manifold.
+
+    Parameters
+    ----------
+    amp : ndarray (N, T, P)
+        Sideband intensities, each (N, T) row summing to 1.
+    weights : ndarray (N, T), optional
+        Powder and transition weights.  Given, the result is the fraction of
+        the total (weighted) intensity in the outer bands; omitted, it is the
+        largest fraction over all crystallites and transitions.
     """
     p = amp.shape[-1]
     if p < 8:
         return 0.0
     n = np.fft.fftfreq(p, 1.0 / p)
-    outer = np.abs(n) > 3 * p / 8
-    return float(amp[..., outer].sum(axis=-1).max())
+    outer = amp[..., np.abs(n) > 3 * p / 8].sum(axis=-1)
+    if weights is None:
+        return float(outer.max())
+    w = np.asarray(weights, dtype=float)
+    return float((w * outer).sum() / w.sum())
 
 
 def choose_rotor_phases(spread_hz: float, rate_hz: float) -> int:
