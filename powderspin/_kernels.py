@@ -562,7 +562,57 @@ def _fft_soa_bitreversed(re, im, twr, twi):
         h *= 2
 
 
-@njit(parallel=True, cache=True)
+#: orientations processed side by side in the fused kernel (SIMD lanes)
+_LANES = 8
+
+
+@njit(cache=True, fastmath=True)
+def _fft_lanes_bitreversed(re, im, twr, twi):
+    """In-place forward radix-2 FFTs of ``_LANES`` signals at once.
+
+    ``re`` and ``im`` have shape (P, _LANES) with the P samples of each lane in
+    bit-reversed order; every butterfly runs over the lanes, which vectorises.
+    """
+    n = re.shape[0]
+    h = 1
+    if n >= 4:
+        for a in range(0, n, 4):
+            for l in range(_LANES):
+                r0 = re[a, l] + re[a + 1, l]
+                i0 = im[a, l] + im[a + 1, l]
+                r1 = re[a, l] - re[a + 1, l]
+                i1 = im[a, l] - im[a + 1, l]
+                r2 = re[a + 2, l] + re[a + 3, l]
+                i2 = im[a + 2, l] + im[a + 3, l]
+                r3 = re[a + 2, l] - re[a + 3, l]
+                i3 = im[a + 2, l] - im[a + 3, l]
+                re[a, l] = r0 + r2
+                im[a, l] = i0 + i2
+                re[a + 2, l] = r0 - r2
+                im[a + 2, l] = i0 - i2
+                re[a + 1, l] = r1 + i3
+                im[a + 1, l] = i1 - r3
+                re[a + 3, l] = r1 - i3
+                im[a + 3, l] = i1 + r3
+        h = 4
+    while 2 * h <= n:
+        for start in range(0, n, 2 * h):
+            for k in range(h):
+                wr = twr[h - 1 + k]
+                wi = twi[h - 1 + k]
+                a = start + k
+                b = a + h
+                for l in range(_LANES):
+                    xr = re[b, l] * wr - im[b, l] * wi
+                    xi = re[b, l] * wi + im[b, l] * wr
+                    re[b, l] = re[a, l] - xr
+                    im[b, l] = im[a, l] - xi
+                    re[a, l] += xr
+                    im[a, l] += xi
+        h *= 2
+
+
+@njit(parallel=True, cache=True, fastmath=True)
 def _perturbative_sidebands(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz, ms, spin, second_order,
                             rate_hz):
     """Rotor averages and sideband intensities straight from the perturbative terms.
@@ -601,6 +651,13 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_
     for j in range(ns):
         cs16[j] = math.cos(2.0 * math.pi * j / ns)
         sn16[j] = math.sin(2.0 * math.pi * j / ns)
+    # DFT tables for k = 0..4 on the 16 samples (1/16 included)
+    dft_c = np.empty((5, ns))
+    dft_s = np.empty((5, ns))
+    for k in range(5):
+        for j in range(ns):
+            dft_c[k, j] = cs16[(j * k) % ns] / ns
+            dft_s[k, j] = sn16[(j * k) % ns] / ns
     rev, _ = _fft_tables(p)
     # harmonic tables at the P output phases, stored in bit-reversed order so the
     # exponentials land where the in-place FFT wants them
@@ -623,65 +680,113 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_
     for c in prange(nchunk):
         # per-chunk work buffers (no allocation per orientation, no sharing)
         f = np.empty((4, ns))
-        fr = np.empty((4, 5))
-        fi = np.empty((4, 5))
-        re = np.empty(p)
-        im = np.empty(p)
-        gr = np.empty(4)
-        gi = np.empty(4)
-        for i in range(c * step, min(n_or, (c + 1) * step)):
-            n0, n1, n2 = axes[i, 0], axes[i, 1], axes[i, 2]
-            u0, u1, u2, w0, w1, w2 = _perp3(n0, n1, n2)
-            for j in range(ns):
-                cc = sin_r * cs16[j]
-                sn = sin_r * sn16[j]
-                b0 = cos_r * n0 + cc * u0 + sn * w0
-                b1 = cos_r * n1 + cc * u1 + sn * w1
-                b2 = cos_r * n2 + cc * u2 + sn * w2
-                b0s = b0 * b0
-                b1s = b1 * b1
-                b2s = b2 * b2
-                vzz = v0 * b0s + v1 * b1s + v2 * b2s
-                a = v0 * v0 * b0s + v1 * v1 * b1s + v2 * v2 * b2s - vzz * vzz
-                f[0, j] = vzz
-                f[1, j] = a
-                f[2, j] = 2.0 * t2 - 3.0 * vzz * vzz - 4.0 * a
-                f[3, j] = d00 * b0s + d11 * b1s + d22 * b2s + d01 * b0 * b1 + d02 * b0 * b2 + d12 * b1 * b2
-            # Fourier coefficients k = 0..4 of the four functions
-            for q in range(4):
-                for k in range(5):
-                    sr = 0.0
-                    si = 0.0
-                    for j in range(ns):
-                        jk = (j * k) % ns
-                        sr += f[q, j] * cs16[jk]
-                        si -= f[q, j] * sn16[jk]
-                    fr[q, k] = sr / ns
-                    fi[q, k] = si / ns
-            for t in range(nt):
-                m0 = 0.0
+        fr = np.empty((_LANES, 4, 5))
+        fi = np.empty((_LANES, 4, 5))
+        re = np.empty((p, _LANES))
+        im = np.empty((p, _LANES))
+        gr = np.zeros((4, _LANES))
+        gi = np.zeros((4, _LANES))
+        i_end = min(n_or, (c + 1) * step)
+        for blk in range(c * step, i_end, _LANES):
+            nb = min(_LANES, i_end - blk)
+            for l in range(nb):
+                i = blk + l
+                n0, n1, n2 = axes[i, 0], axes[i, 1], axes[i, 2]
+                u0, u1, u2, w0, w1, w2 = _perp3(n0, n1, n2)
+                for j in range(ns):
+                    cc = sin_r * cs16[j]
+                    sn = sin_r * sn16[j]
+                    b0 = cos_r * n0 + cc * u0 + sn * w0
+                    b1 = cos_r * n1 + cc * u1 + sn * w1
+                    b2 = cos_r * n2 + cc * u2 + sn * w2
+                    b0s = b0 * b0
+                    b1s = b1 * b1
+                    b2s = b2 * b2
+                    vzz = v0 * b0s + v1 * b1s + v2 * b2s
+                    a = v0 * v0 * b0s + v1 * v1 * b1s + v2 * v2 * b2s - vzz * vzz
+                    f[0, j] = vzz
+                    f[1, j] = a
+                    f[2, j] = 2.0 * t2 - 3.0 * vzz * vzz - 4.0 * a
+                    f[3, j] = d00 * b0s + d11 * b1s + d22 * b2s + d01 * b0 * b1 + d02 * b0 * b2 + d12 * b1 * b2
+                # Fourier coefficients k = 0..4 of the four functions
                 for q in range(4):
-                    m0 += coef[t, q] * fr[q, 0]
-                mean[i, t] = m0
-                # g_k = c_k / (i k nu_r); xi_j = sum_k 2 Re(g_k e^{i k phi_j})
-                for k in range(1, 5):
-                    cr = 0.0
-                    ci = 0.0
+                    for k in range(5):
+                        sr = 0.0
+                        si = 0.0
+                        for j in range(ns):
+                            sr += f[q, j] * dft_c[k, j]
+                            si -= f[q, j] * dft_s[k, j]
+                        fr[l, q, k] = sr
+                        fi[l, q, k] = si
+            for t in range(nt):
+                for l in range(_LANES):
+                    if l >= nb:
+                        for k in range(4):
+                            gr[k, l] = 0.0
+                            gi[k, l] = 0.0
+                        continue
+                    m0 = 0.0
                     for q in range(4):
-                        cr += coef[t, q] * fr[q, k]
-                        ci += coef[t, q] * fi[q, k]
-                    # (cr + i ci) / (i k nu) = (ci - i cr) / (k nu)
-                    gr[k - 1] = 2.0 * ci / (k * rate_hz)
-                    gi[k - 1] = -2.0 * cr / (k * rate_hz)
-                g0r, g1r, g2r, g3r = gr[0], gr[1], gr[2], gr[3]
-                g0i, g1i, g2i, g3i = gi[0], gi[1], gi[2], gi[3]
+                        m0 += coef[t, q] * fr[l, q, 0]
+                    mean[blk + l, t] = m0
+                    # g_k = c_k / (i k nu_r); xi_j = sum_k 2 Re(g_k e^{i k phi_j})
+                    for k in range(1, 5):
+                        cr = 0.0
+                        ci = 0.0
+                        for q in range(4):
+                            cr += coef[t, q] * fr[l, q, k]
+                            ci += coef[t, q] * fi[l, q, k]
+                        # (cr + i ci) / (i k nu) = (ci - i cr) / (k nu)
+                        gr[k - 1, l] = 2.0 * ci / (k * rate_hz)
+                        gi[k - 1, l] = -2.0 * cr / (k * rate_hz)
                 for j in range(p):
-                    xi = (g0r * hre[0, j] - g0i * him[0, j] + g1r * hre[1, j] - g1i * him[1, j]
-                          + g2r * hre[2, j] - g2i * him[2, j] + g3r * hre[3, j] - g3i * him[3, j])
-                    cx, sx = _sincos(xi)
-                    re[j] = cx
-                    im[j] = sx
-                _fft_soa_bitreversed(re, im, twr, twi)
-                for j in range(p):
-                    amp[i, t, j] = (re[j] * re[j] + im[j] * im[j]) * inv
+                    h0r, h1r, h2r, h3r = hre[0, j], hre[1, j], hre[2, j], hre[3, j]
+                    h0i, h1i, h2i, h3i = him[0, j], him[1, j], him[2, j], him[3, j]
+                    for l in range(_LANES):
+                        xi = (gr[0, l] * h0r - gi[0, l] * h0i + gr[1, l] * h1r - gi[1, l] * h1i
+                              + gr[2, l] * h2r - gi[2, l] * h2i + gr[3, l] * h3r - gi[3, l] * h3i)
+                        cx, sx = _sincos(xi)
+                        re[j, l] = cx
+                        im[j, l] = sx
+                _fft_lanes_bitreversed(re, im, twr, twi)
+                for l in range(nb):
+                    for j in range(p):
+                        amp[blk + l, t, j] = (re[j, l] * re[j, l] + im[j, l] * im[j, l]) * inv
     return mean, amp
+
+
+@njit(parallel=True, cache=True)
+def _band_summary(amp, weights, mean):
+    """Per-band totals in one pass over the sideband intensities.
+
+    amp (N, T, P), weights (N, T) (powder x transition weights), mean (N, T).
+    Returns, for each band index p: the weighted intensity sum_v,t w amp,
+    its weighted position sum w amp mean, and the largest amp over (v, t).
+    """
+    n, nt, p = amp.shape
+    nchunk = min(max(n, 1), 32)
+    step = (n + nchunk - 1) // nchunk
+    inten = np.zeros((nchunk, p))
+    pos = np.zeros((nchunk, p))
+    amax = np.zeros((nchunk, p))
+    for c in prange(nchunk):
+        for i in range(c * step, min(n, (c + 1) * step)):
+            for t in range(nt):
+                w = weights[i, t]
+                mu = mean[i, t]
+                for j in range(p):
+                    a = amp[i, t, j]
+                    inten[c, j] += w * a
+                    pos[c, j] += w * a * mu
+                    if a > amax[c, j]:
+                        amax[c, j] = a
+    out_i = np.zeros(p)
+    out_p = np.zeros(p)
+    out_m = np.zeros(p)
+    for c in range(nchunk):
+        for j in range(p):
+            out_i[j] += inten[c, j]
+            out_p[j] += pos[c, j]
+            if amax[c, j] > out_m[j]:
+                out_m[j] = amax[c, j]
+    return out_i, out_p, out_m

@@ -20,6 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import __version__
+from . import _kernels as _k
 from .frequencies import (
     SiteFrame,
     exact_offsets,
@@ -35,7 +36,6 @@ from .spectrum import SidebandRow, Spectrum
 from .spinning import (
     MAX_AUTO_PHASES,
     choose_rotor_phases,
-    outer_band_fraction,
     perturbative_sidebands,
     rotor_lines,
 )
@@ -88,6 +88,9 @@ class SiteLines:
     rate_hz: float
     method: str
     phases: int
+    band_intensity: np.ndarray | None = None
+    band_position_hz: np.ndarray | None = None
+    band_max: np.ndarray | None = None
 
     def band_offsets(self) -> np.ndarray:
         p = self.amp.shape[2]
@@ -98,7 +101,12 @@ class SiteLines:
     def frequency_range(self, cutoff: float = 1e-6) -> tuple[float, float]:
         """Lowest and highest frequency carrying intensity above ``cutoff``."""
         off = self.band_offsets()
-        keep = self.amp.max(axis=(0, 1)) > cutoff if self.amp.shape[2] > 1 else np.array([True])
+        if self.amp.shape[2] == 1:
+            keep = np.array([True])
+        elif self.band_max is not None:
+            keep = self.band_max > cutoff
+        else:
+            keep = self.amp.max(axis=(0, 1)) > cutoff
         lo = self.mean.min() + off[keep].min()
         hi = self.mean.max() + off[keep].max()
         return float(lo), float(hi)
@@ -190,7 +198,9 @@ def site_lines(
             phases = choose_rotor_phases(spread, rate)
             while True:
                 mean, amp, w = spin_lines(phases)
-                aliased = outer_band_fraction(amp, oset.weights[:, None] * w)
+                summary = _k._band_summary(amp, np.ascontiguousarray(oset.weights[:, None] * w), mean)
+                nb = np.fft.fftfreq(phases, 1.0 / phases)
+                aliased = summary[0][np.abs(nb) > 3 * phases / 8].sum() / summary[0].sum()
                 if aliased <= ALIAS_TOLERANCE or phases >= MAX_AUTO_PHASES:
                     break
                 phases *= 2
@@ -198,10 +208,14 @@ def site_lines(
             phases = int(meas.rotor_phases)
             mean, amp, w = spin_lines(phases)
     # normalise so that the site's lines sum to 1 over the orientation set
-    total = float(np.sum(oset.weights[:, None] * w * amp.sum(axis=2)))
+    wv = np.ascontiguousarray(oset.weights[:, None] * w)
+    inten, pos, amax = _k._band_summary(np.ascontiguousarray(amp), wv, np.ascontiguousarray(mean))
+    total = float(inten.sum())
     if total > 0:
         w = w / total
-    return SiteLines(oset, ms, mean, amp, w, rate, method, phases)
+        inten = inten / total
+        pos = pos / total
+    return SiteLines(oset, ms, mean, amp, w, rate, method, phases, inten, pos, amax)
 
 
 def _resolution_hz(axis: Axis) -> float:
@@ -330,16 +344,13 @@ def _frac(m: float) -> str:
 
 
 def _sideband_rows(label: str, weight: float, sl: SiteLines, nu_ref: float, min_intensity: float = 1e-4):
+    """Sideband table rows: integrated intensity per band and its intensity-weighted position."""
     p = sl.amp.shape[2]
     n = np.fft.fftfreq(p, 1.0 / p).astype(int)
-    vw = sl.orientations.weights
-    # integrated intensity per band and its intensity-weighted position
-    wa = vw[:, None, None] * sl.weights[:, :, None] * sl.amp  # (v, t, p)
-    inten = wa.sum(axis=(0, 1))
-    pos = (wa * sl.mean[:, :, None]).sum(axis=(0, 1))
+    inten, pos = sl.band_intensity, sl.band_position_hz
     rows = []
     for k in np.argsort(n):
-        if inten[k] * weight < min_intensity * weight or inten[k] <= 0:
+        if inten[k] < min_intensity or inten[k] <= 0:
             continue
         hz = pos[k] / inten[k] + n[k] * sl.rate_hz
         rows.append(SidebandRow(label, int(n[k]), float(hz), float(hz / nu_ref * 1e6), float(inten[k] * weight)))

@@ -412,3 +412,15 @@ def test_broadening_input_checks():
         broaden(y, 1.0, lorentz_hz=-1.0)
     with pytest.raises(ValueError, match="gauss_hz"):
         broaden(y, 1.0, gauss_hz=-0.5)
+
+
+def test_band_summary_matches_numpy():
+    """_band_summary vs a plain numpy reduction (its slow, obvious twin)."""
+    rng = np.random.default_rng(11)
+    amp = rng.random((37, 3, 16))
+    w = rng.random((37, 3))
+    mean = rng.normal(size=(37, 3)) * 1e3
+    inten, pos, amax = _k._band_summary(amp, w, mean)
+    assert np.allclose(inten, np.einsum("vt,vtp->p", w, amp), rtol=1e-13)
+    assert np.allclose(pos, np.einsum("vt,vt,vtp->p", w, mean, amp), rtol=1e-12)
+    assert np.array_equal(amax, amp.max(axis=(0, 1)))
