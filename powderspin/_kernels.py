@@ -490,10 +490,14 @@ def _sincos(x):
     c = 1.0 + r2 * (-0.5 + r2 * (4.1666666666666664e-02 + r2 * (-1.3888888888888889e-03 + r2 * (
         2.4801587301587302e-05 + r2 * (-2.7557319223985888e-07 + r2 * (2.0876756987868100e-09 + r2 * (
             -1.1470745597729725e-11 + r2 * 4.7794773323873853e-14)))))))
-    q = np.int64(n) & 3
-    sw = np.float64(q & 1)
-    sgn_s = 1.0 - 2.0 * np.float64((q >> 1) & 1)
-    sgn_c = 1.0 - 2.0 * np.float64(((q + 1) >> 1) & 1)
+    # quadrant q = n mod 4 and its bits, in floating point (no float -> int
+    # conversion, which AVX2 cannot do on packed doubles)
+    q = n - 4.0 * np.floor(n * 0.25)
+    hq = np.floor(q * 0.5)
+    sw = q - 2.0 * hq
+    h1 = np.floor((q + 1.0) * 0.5)
+    sgn_s = 1.0 - 2.0 * hq
+    sgn_c = 1.0 - 2.0 * (h1 - 2.0 * np.floor(h1 * 0.5))
     return (c + sw * (s - c)) * sgn_c, (s + sw * (c - s)) * sgn_s
 
 
@@ -574,10 +578,11 @@ def _fft_lanes_bitreversed(re, im, twr, twi):
     bit-reversed order; every butterfly runs over the lanes, which vectorises.
     """
     n = re.shape[0]
+    nl = re.shape[1]  # a run-time trip count lets LLVM vectorise the lane loops
     h = 1
     if n >= 4:
         for a in range(0, n, 4):
-            for l in range(_LANES):
+            for l in range(nl):
                 r0 = re[a, l] + re[a + 1, l]
                 i0 = im[a, l] + im[a + 1, l]
                 r1 = re[a, l] - re[a + 1, l]
@@ -602,7 +607,7 @@ def _fft_lanes_bitreversed(re, im, twr, twi):
                 wi = twi[h - 1 + k]
                 a = start + k
                 b = a + h
-                for l in range(_LANES):
+                for l in range(nl):
                     xr = re[b, l] * wr - im[b, l] * wi
                     xi = re[b, l] * wi + im[b, l] * wr
                     re[b, l] = re[a, l] - xr
@@ -739,10 +744,11 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_
                         # (cr + i ci) / (i k nu) = (ci - i cr) / (k nu)
                         gr[k - 1, l] = 2.0 * ci / (k * rate_hz)
                         gi[k - 1, l] = -2.0 * cr / (k * rate_hz)
+                nl = re.shape[1]
                 for j in range(p):
                     h0r, h1r, h2r, h3r = hre[0, j], hre[1, j], hre[2, j], hre[3, j]
                     h0i, h1i, h2i, h3i = him[0, j], him[1, j], him[2, j], him[3, j]
-                    for l in range(_LANES):
+                    for l in range(nl):
                         xi = (gr[0, l] * h0r - gi[0, l] * h0i + gr[1, l] * h1r - gi[1, l] * h1i
                               + gr[2, l] * h2r - gi[2, l] * h2i + gr[3, l] * h3r - gi[3, l] * h3i)
                         cx, sx = _sincos(xi)
