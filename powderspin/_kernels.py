@@ -67,6 +67,34 @@ def _field_direction(n, u, v, cos_r, sin_r, phi, b):
         b[k] = cos_r * n[k] + sin_r * (c * u[k] + s * v[k])
 
 
+@njit(cache=True, inline="always")
+def _cone_functions(n0, n1, n2, u0, u1, u2, w0, w1, w2, cos_r, cc, sn, v0, v1, v2, t2, dd):
+    """The four orientation functions the perturbative offsets are linear in.
+
+    B0 direction b = cos_r n + cc u + sn w (cc, sn already include sin_r);
+    returns V_zz, A = V_xz^2 + V_yz^2 = |V b|^2 - V_zz^2,
+    B = (V_xx - V_yy)^2 + 4 V_xy^2 = 2 Tr V^2 - 3 V_zz^2 - 4 A and d_zz, with
+    dd = (d00, d11, d22, d01 + d10, d02 + d20, d12 + d21) of the shift tensor.
+    """
+    b0 = cos_r * n0 + cc * u0 + sn * w0
+    b1 = cos_r * n1 + cc * u1 + sn * w1
+    b2 = cos_r * n2 + cc * u2 + sn * w2
+    b0s = b0 * b0
+    b1s = b1 * b1
+    b2s = b2 * b2
+    vzz = v0 * b0s + v1 * b1s + v2 * b2s
+    a = v0 * v0 * b0s + v1 * v1 * b1s + v2 * v2 * b2s - vzz * vzz
+    bq = 2.0 * t2 - 3.0 * vzz * vzz - 4.0 * a
+    dzz = dd[0] * b0s + dd[1] * b1s + dd[2] * b2s + dd[3] * b0 * b1 + dd[4] * b0 * b2 + dd[5] * b1 * b2
+    return vzz, a, bq, dzz
+
+
+@njit(cache=True)
+def _shift_terms(delta):
+    return (delta[0, 0], delta[1, 1], delta[2, 2], delta[0, 1] + delta[1, 0], delta[0, 2] + delta[2, 0],
+            delta[1, 2] + delta[2, 1])
+
+
 # ---------------------------------------------------------------------------
 # perturbative producer
 
@@ -111,25 +139,13 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz
         cph[p] = math.cos(2.0 * math.pi * p / nphase)
         sph[p] = math.sin(2.0 * math.pi * p / nphase)
     v0, v1, v2 = vdiag[0], vdiag[1], vdiag[2]
-    d00, d11, d22 = delta[0, 0], delta[1, 1], delta[2, 2]
-    d01, d02, d12 = delta[0, 1] + delta[1, 0], delta[0, 2] + delta[2, 0], delta[1, 2] + delta[2, 1]
+    dd = _shift_terms(delta)
     for i in prange(n_or):
         n0, n1, n2 = axes[i, 0], axes[i, 1], axes[i, 2]
         u0, u1, u2, w0, w1, w2 = _perp3(n0, n1, n2)
         for p in range(nphase):
-            c = sin_r * cph[p]
-            sn = sin_r * sph[p]
-            b0 = cos_r * n0 + c * u0 + sn * w0
-            b1 = cos_r * n1 + c * u1 + sn * w1
-            b2 = cos_r * n2 + c * u2 + sn * w2
-            b0s = b0 * b0
-            b1s = b1 * b1
-            b2s = b2 * b2
-            vzz = v0 * b0s + v1 * b1s + v2 * b2s
-            vb2 = v0 * v0 * b0s + v1 * v1 * b1s + v2 * v2 * b2s
-            a = vb2 - vzz * vzz
-            bq = 2.0 * t2 - 3.0 * vzz * vzz - 4.0 * a
-            dzz = d00 * b0s + d11 * b1s + d22 * b2s + d01 * b0 * b1 + d02 * b0 * b2 + d12 * b1 * b2
+            vzz, a, bq, dzz = _cone_functions(n0, n1, n2, u0, u1, u2, w0, w1, w2, cos_r, sin_r * cph[p],
+                                              sin_r * sph[p], v0, v1, v2, t2, dd)
             cs = scale_cs * dzz
             for t in range(nt):
                 out[i, t, p] = dm[t] * cs + c1[t] * vzz + c2 * (ca[t] * a - cb[t] * 0.25 * bq)
@@ -678,8 +694,7 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_
     amp = np.empty((n_or, nt, p))
     inv = 1.0 / (p * p)
     v0, v1, v2 = vdiag[0], vdiag[1], vdiag[2]
-    d00, d11, d22 = delta[0, 0], delta[1, 1], delta[2, 2]
-    d01, d02, d12 = delta[0, 1] + delta[1, 0], delta[0, 2] + delta[2, 0], delta[1, 2] + delta[2, 1]
+    dd = _shift_terms(delta)
     nchunk = min(n_or, 64)
     step = (n_or + nchunk - 1) // nchunk if nchunk > 0 else 0
     for c in prange(nchunk):
@@ -699,20 +714,12 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_
                 n0, n1, n2 = axes[i, 0], axes[i, 1], axes[i, 2]
                 u0, u1, u2, w0, w1, w2 = _perp3(n0, n1, n2)
                 for j in range(ns):
-                    cc = sin_r * cs16[j]
-                    sn = sin_r * sn16[j]
-                    b0 = cos_r * n0 + cc * u0 + sn * w0
-                    b1 = cos_r * n1 + cc * u1 + sn * w1
-                    b2 = cos_r * n2 + cc * u2 + sn * w2
-                    b0s = b0 * b0
-                    b1s = b1 * b1
-                    b2s = b2 * b2
-                    vzz = v0 * b0s + v1 * b1s + v2 * b2s
-                    a = v0 * v0 * b0s + v1 * v1 * b1s + v2 * v2 * b2s - vzz * vzz
+                    vzz, a, bq, dzz = _cone_functions(n0, n1, n2, u0, u1, u2, w0, w1, w2, cos_r,
+                                                      sin_r * cs16[j], sin_r * sn16[j], v0, v1, v2, t2, dd)
                     f[0, j] = vzz
                     f[1, j] = a
-                    f[2, j] = 2.0 * t2 - 3.0 * vzz * vzz - 4.0 * a
-                    f[3, j] = d00 * b0s + d11 * b1s + d22 * b2s + d01 * b0 * b1 + d02 * b0 * b2 + d12 * b1 * b2
+                    f[2, j] = bq
+                    f[3, j] = dzz
                 # Fourier coefficients k = 0..4 of the four functions
                 for q in range(4):
                     for k in range(5):

@@ -175,16 +175,23 @@ def perturbative_offsets(
     return _perturbative_pairs(frame, ax, ms_a, ms_a - 1.0, rotor_angle_rad, phases, second_order)
 
 
-def _perturbative_pairs(frame, ax, mhi, mlo, rotor_angle_rad, phases, second_order):
-    return _k._perturbative_offsets(
+def _kernel_geometry(frame, ax, rotor_angle_rad, phases):
+    """The leading kernel arguments shared by both producers."""
+    return (
         ax,
         math.cos(rotor_angle_rad),
         math.sin(rotor_angle_rad),
         int(phases),
-        np.ascontiguousarray(frame.vdiag),
-        np.ascontiguousarray(frame.delta_ppm),
+        np.ascontiguousarray(frame.vdiag, dtype=float),
+        np.ascontiguousarray(frame.delta_ppm, dtype=float),
         float(frame.k_hz),
         float(frame.nu0_hz),
+    )
+
+
+def _perturbative_pairs(frame, ax, mhi, mlo, rotor_angle_rad, phases, second_order):
+    return _k._perturbative_offsets(
+        *_kernel_geometry(frame, ax, rotor_angle_rad, phases),
         np.ascontiguousarray(mhi, dtype=float),
         np.ascontiguousarray(mlo, dtype=float),
         float(frame.spin),
@@ -244,14 +251,7 @@ def exact_offsets(
 def _exact_pairs(frame, ax, upper, lower, rotor_angle_rad, phases):
     ops, iz, ip = _operator_products(frame.spin)
     return _k._exact_offsets(
-        ax,
-        math.cos(rotor_angle_rad),
-        math.sin(rotor_angle_rad),
-        int(phases),
-        np.ascontiguousarray(frame.vdiag),
-        np.ascontiguousarray(frame.delta_ppm),
-        float(frame.k_hz),
-        float(frame.nu0_hz),
+        *_kernel_geometry(frame, ax, rotor_angle_rad, phases),
         ops,
         iz,
         ip,
