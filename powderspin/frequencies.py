@@ -91,9 +91,14 @@ def site_frame(site: Site, nucleus: Nuclide, field_tesla: float) -> SiteFrame:
     spin = nucleus.spin
     nu0 = nucleus.larmor_hz(field_tesla)
     k = site.cq_hz / (2 * spin * (2 * spin - 1)) if spin > 0.5 else 0.0
-    r = rotation_matrix(*site.euler_rad)
+    if k == 0.0:
+        # no EFG to orient against: the shift principal frame is the crystallite
+        # frame (the relative Euler angles have no effect on a powder)
+        r = np.eye(3)
+    else:
+        r = rotation_matrix(*site.euler_rad)
     delta = r @ np.diag(site.shift.principal_haeberlen) @ r.T
-    coaxial = is_axis_permutation(r) or k == 0.0 or site.shift.is_isotropic
+    coaxial = is_axis_permutation(r) or site.shift.is_isotropic
     return SiteFrame(spin, nu0, k, efg_principal(site.eta_q), delta, "octant" if coaxial else "hemisphere")
 
 

@@ -197,3 +197,30 @@ def test_histogram_and_interpolation_agree_after_broadening():
     a = simulate(_model("31P", dict(meas, binning="interpolate", orientations="fine"), site)).intensity
     b = simulate(_model("31P", dict(meas, binning="histogram", orientations="zcw-octant-6765"), site)).intensity
     assert np.sqrt(np.mean((a / a.sum() - b / b.sum()) ** 2)) / (a / a.sum()).max() < 0.02
+
+
+def test_relative_orientation_is_irrelevant_without_quadrupole_coupling():
+    """A powder average cannot depend on the orientation of a lone tensor (common practice):
+    euler_deg on a spin-1/2 site must not change its pattern."""
+    meas = {"field_tesla": 9.4, "points": 1024, "center_ppm": 0.0, "width_ppm": 400.0, "lorentz_hz": 300.0}
+    a = simulate(_model("31P", meas, [{"span_ppm": 150.0, "skew": 0.2}]))
+    b = simulate(_model("31P", meas, [{"span_ppm": 150.0, "skew": 0.2, "euler_deg": [30.0, 50.0, 70.0]}]))
+    assert np.allclose(a.intensity, b.intensity, rtol=1e-9, atol=1e-12)
+
+
+def test_octant_reduction_matches_full_sphere_for_coaxial_tensors():
+    """Symmetry reduction (design.md section 5 orientation sets): the octant set used for coaxial
+    tensors gives the same spectrum as an explicit full-sphere triangulation."""
+    from powderspin.orientations import triangulated
+
+    meas = {"field_tesla": 9.4, "points": 1024, "lorentz_hz": 500.0, "method": "perturbation"}
+    site = [{"shift_ppm": 10.0, "cq_mhz": 3.0, "eta_q": 0.4, "span_ppm": 60.0, "skew": -0.3,
+             "euler_deg": [0.0, 90.0, 0.0]}]
+    m = _model("23Na", meas, site)
+    a = simulate(m)
+    assert "octant" in a.metadata["orientations"]["site 1"]
+    meas.update(center_ppm=float(a.ppm.mean()), width_ppm=float(a.ppm[-1] - a.ppm[0] + a.dx_ppm))
+    m = _model("23Na", meas, site)
+    a = simulate(m)
+    b = simulate(m, orientations=triangulated(60, "sphere"))
+    assert np.sqrt(np.mean((a.intensity - b.intensity) ** 2)) / b.intensity.max() < 5e-3
