@@ -75,6 +75,8 @@ def _cmd_demo(args) -> int:
         if p.exists() and not args.force:
             raise SystemExit(f"error: output {str(p)!r} exists; pass --force to overwrite it")
     model = load_model(_demo_model_path())
+    print("note: the first run compiles the numerical kernels (up to a minute); later runs reuse them",
+          file=sys.stderr)
     print(f"demo: {model.nucleus.name}, {len(model.sites)} sites, {model.measurement.field_tesla} T, "
           f"{model.measurement.spinning_hz / 1e3:g} kHz MAS (model: {_demo_model_path()})")
     spec = simulate(model)

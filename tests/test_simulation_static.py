@@ -85,7 +85,8 @@ def test_static_ct_eta0_singularities(nuc):
     assert abs(hz[k_lo] - lo) <= 1.01 * dx
 
 
-@pytest.mark.parametrize("nuc,cq_mhz,eta", [("23Na", 4.0, 0.3), ("27Al", 5.0, 0.0), ("27Al", 5.0, 1.0)])
+@pytest.mark.parametrize("eta", [0.0, 0.5, 1.0])
+@pytest.mark.parametrize("nuc,cq_mhz", [("23Na", 4.0), ("27Al", 5.0)])
 def test_static_ct_perturbative_matches_exact_at_small_ratio(nuc, cq_mhz, eta):
     """Second-order theory vs exact diagonalisation (design.md section 5) for C_Q/nu0 < 0.05."""
     base = {"field_tesla": 9.4, "points": 2048, "lorentz_hz": 200.0}
