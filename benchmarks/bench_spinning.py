@@ -106,7 +106,7 @@ def _time_domain_ratio(t_engine):
     dx = spp * rate / points
     site = {"shift_ppm": 60.0, "cq_mhz": 3.0, "eta_q": 0.4, "span_ppm": 80.0, "skew": 0.3}
     meas = {"field_tesla": 14.1, "spinning_hz": rate, "points": points, "center_ppm": (0.5 * dx) / nu0 * 1e6,
-            "width_ppm": points * dx / nu0 * 1e6, "lorentz_hz": 3 * dx, "method": "perturbation",
+            "width_ppm": points * dx / nu0 * 1e6, "lorentz_hz": 10 * dx, "method": "perturbation",
             "rotor_phases": 64}
     model = make_model("27Al", meas, [site])
     s = model.sites[0]
@@ -114,7 +114,7 @@ def _time_domain_ratio(t_engine):
     shift = np.diag(s.shift.principal_haeberlen)
     spec = simulate(model)
     t0 = time.perf_counter()
-    ref = td.spectrum(spec.hz, 2.5, (0.5,), nu0, s.cq_hz, efg, shift, rate, math.radians(54.7356103), 3 * dx, spp,
+    ref = td.spectrum(spec.hz, 2.5, (0.5,), nu0, s.cq_hz, efg, shift, rate, math.radians(54.7356103), 10 * dx, spp,
                       n_beta=48, n_alpha=48, n_gamma=32, region="octant")
     t_td = time.perf_counter() - t0
     t_sim = best_time(lambda: simulate(model), repeat=5)
