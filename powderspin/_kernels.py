@@ -317,17 +317,6 @@ def _sideband_amplitudes(traj, rate_hz):
 
 
 @njit(cache=True)
-def _tent_cdf(u, u1, u2, u3):
-    if u <= u1:
-        return 0.0
-    if u >= u3:
-        return 1.0
-    if u < u2:
-        return (u - u1) * (u - u1) / ((u3 - u1) * (u2 - u1))
-    return 1.0 - (u3 - u) * (u3 - u) / ((u3 - u1) * (u3 - u2))
-
-
-@njit(cache=True)
 def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
     """Add the exact bin integrals of one triangular density (area w) to buf.
 
@@ -468,26 +457,6 @@ def _fft_tables(p):
     return rev, tw
 
 
-@njit(cache=True)
-def _fft_with_tables(src, dst, rev, tw):
-    """Forward radix-2 FFT of src into dst using precomputed tables (unnormalised)."""
-    n = src.shape[0]
-    for i in range(n):
-        dst[rev[i]] = src[i]
-    length = 2
-    while length <= n:
-        half = length // 2
-        stride = n // length
-        for start in range(0, n, length):
-            for k in range(half):
-                w = tw[k * stride]
-                x = dst[start + k]
-                y = dst[start + k + half] * w
-                dst[start + k] = x + y
-                dst[start + k + half] = x - y
-        length <<= 1
-
-
 @njit(cache=True, fastmath=True, inline="always")
 def _sincos(x):
     """(cos x, sin x) to ~1e-15 absolute for |x| < 1e6, branch-free so loops vectorise.
@@ -533,57 +502,6 @@ def _stage_twiddles(p):
             twi[h - 1 + k] = math.sin(ang)
         h *= 2
     return twr, twi
-
-
-@njit(cache=True, fastmath=True)
-def _fft_soa_bitreversed(re, im, twr, twi):
-    """In-place forward radix-2 FFT of data already in bit-reversed order (split re/im).
-
-    The first two stages (twiddles 1 and -i) are done together without
-    multiplications; the remaining stages have inner loops of length >= 4.
-    """
-    n = re.shape[0]
-    if n >= 4:
-        for a in range(0, n, 4):
-            # stage h = 1
-            r0 = re[a] + re[a + 1]
-            i0 = im[a] + im[a + 1]
-            r1 = re[a] - re[a + 1]
-            i1 = im[a] - im[a + 1]
-            r2 = re[a + 2] + re[a + 3]
-            i2 = im[a + 2] + im[a + 3]
-            r3 = re[a + 2] - re[a + 3]
-            i3 = im[a + 2] - im[a + 3]
-            # stage h = 2: twiddles 1 and -i
-            re[a] = r0 + r2
-            im[a] = i0 + i2
-            re[a + 2] = r0 - r2
-            im[a + 2] = i0 - i2
-            re[a + 1] = r1 + i3
-            im[a + 1] = i1 - r3
-            re[a + 3] = r1 - i3
-            im[a + 3] = i1 + r3
-        h = 4
-    else:
-        h = 1
-    while 2 * h <= n:
-        for start in range(0, n, 2 * h):
-            for k in range(h):
-                wr = twr[h - 1 + k]
-                wi = twi[h - 1 + k]
-                a = start + k
-                b = a + h
-                xr = re[b] * wr - im[b] * wi
-                xi = re[b] * wi + im[b] * wr
-                re[b] = re[a] - xr
-                im[b] = im[a] - xi
-                re[a] += xr
-                im[a] += xi
-        h *= 2
-
-
-#: orientations processed side by side in the fused kernel (SIMD lanes)
-_LANES = 8
 
 
 @njit(cache=True, fastmath=True)
