@@ -504,6 +504,10 @@ def _stage_twiddles(p):
     return twr, twi
 
 
+#: orientations processed side by side in the fused kernel (SIMD lanes)
+_LANES = 8
+
+
 @njit(cache=True, fastmath=True)
 def _fft_lanes_bitreversed(re, im, twr, twi):
     """In-place forward radix-2 FFTs of ``_LANES`` signals at once.
