@@ -12,6 +12,7 @@ Quick start
 
 __version__ = "0.1.0"
 
+from .io import model_to_toml, write_model  # noqa: E402
 from .model import Measurement, Model, ModelError, Site, load_model, make_model, make_site, parse_model  # noqa: E402
 from .nuclides import Nuclide, get_nuclide, list_nuclides  # noqa: E402
 from .plotting import plot_spectrum, save_plot  # noqa: E402
@@ -22,5 +23,5 @@ from .tensors import ShiftTensor  # noqa: E402
 __all__ = [
     "Measurement", "Model", "ModelError", "Site", "load_model", "make_model", "make_site", "parse_model",
     "Nuclide", "get_nuclide", "list_nuclides", "plot_spectrum", "save_plot", "simulate", "Spectrum",
-    "ShiftTensor", "__version__",
+    "ShiftTensor", "model_to_toml", "write_model", "__version__",
 ]
