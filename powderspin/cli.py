@@ -113,13 +113,44 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv=None) -> int:
+    """Run the ``powderspin`` command line: ``simulate``, ``nuclide`` or ``demo``.
+
+    Model and input errors (ValueError) and refused overwrites are printed as
+    one ``error: ...`` line on standard error, with exit status 2.
+
+    Parameters
+    ----------
+    argv : list of str, optional
+        Arguments after the program name; ``sys.argv[1:]`` when None.  Fields
+        are given in tesla (``--field``), model files use Hz, ppm and degrees.
+
+    Returns
+    -------
+    int
+        Exit status: 0 on success, 2 for bad input or an existing output file.
+
+    References
+    ----------
+    R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795 (the nuclear data
+    printed by ``nuclide``); M. H. Levitt, J. Magn. Reson. 82 (1989) 427
+    (the sidebands printed by ``simulate --sidebands``).
+
+    Examples
+    --------
+    >>> main(["nuclide", "27Al", "--field", "14.1"])
+    27Al: spin 5/2, quadrupolar (6 levels)
+      reference frequency at 14.1 T: 156.4... MHz ...
+    0
+    >>> main(["simulate", "/nonexistent/model.toml", "-o", "/nonexistent/out.csv"])
+    2
+    """
     args = build_parser().parse_args(argv)
     try:
         return args.func(args)
     except ValueError as e:  # model and input errors: one clear line, no traceback
         print(f"error: {e}", file=sys.stderr)
         return 2
-    except FileExistsError as e:
+    except OSError as e:  # existing outputs, unwritable folders, an output that is a directory ...
         print(f"error: {e}", file=sys.stderr)
         return 2
 

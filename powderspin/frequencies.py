@@ -58,6 +58,20 @@ class SiteFrame:
     symmetry : str
         "octant" when every tensor is diagonal in the crystallite frame,
         otherwise "hemisphere" (all terms are of even rank).
+
+    References
+    ----------
+    M. Mehring, *Principles of High Resolution NMR in Solids* (1983), ch. 2
+    (interaction tensors in their principal frames) (from memory).
+
+    Examples
+    --------
+    >>> from powderspin.model import make_site
+    >>> from powderspin.nuclides import get_nuclide
+    >>> f = site_frame(make_site(cq_mhz=3.0, span_ppm=40.0, skew=0.2, euler_deg=[0, 30, 0]),
+    ...                get_nuclide("27Al"), 14.1)
+    >>> f.spin, f.symmetry, f.vdiag.tolist()
+    (2.5, 'hemisphere', [-0.5, -0.5, 1.0])
     """
 
     spin: float
@@ -69,7 +83,26 @@ class SiteFrame:
 
     @property
     def nu_q_hz(self) -> float:
-        """nu_Q = 3 C_Q / (2I(2I-1)) in Hz."""
+        """nu_Q = 3 C_Q / (2I(2I-1)) in Hz.
+
+        Returns
+        -------
+        float
+            Quadrupolar frequency nu_Q (Hz); the satellite splitting at
+            theta = 0 for eta = 0.
+
+        References
+        ----------
+        A. Abragam, *The Principles of Nuclear Magnetism* (1961), chapter on
+        electric quadrupole effects (from memory).
+
+        Examples
+        --------
+        >>> from powderspin.model import Site
+        >>> from powderspin.nuclides import get_nuclide
+        >>> site_frame(Site(cq_mhz=3.0), get_nuclide("27Al"), 14.1).nu_q_hz
+        450000.0
+        """
         return 3.0 * self.k_hz
 
 
@@ -79,6 +112,26 @@ def site_frame(site: Site, nucleus: Nuclide, field_tesla: float) -> SiteFrame:
     The crystallite frame is the EFG principal frame; the shift tensor is
     rotated into it with the site's Euler angles (see
     :mod:`powderspin.tensors`).
+
+    Parameters
+    ----------
+    site : Site
+        Shift tensor (ppm), C_Q (MHz), eta_Q and Euler angles (degrees).
+    nucleus : Nuclide
+        Spin and frequency ratio of the observed nucleus.
+    field_tesla : float
+        Magnetic field B0 (T), > 0.
+
+    Returns
+    -------
+    SiteFrame
+        Spin, nu0 (Hz), C_Q/(2I(2I-1)) (Hz), EFG principal values and the
+        shift tensor (ppm) in the EFG principal frame.
+
+    References
+    ----------
+    M. Mehring, *Principles of High Resolution NMR in Solids* (1983), app. B;
+    M. E. Rose, *Elementary Theory of Angular Momentum* (1957), ch. IV.
 
     Examples
     --------
@@ -162,7 +215,7 @@ def perturbative_offsets(
 
     References
     ----------
-    A. Abragam, *The Principles of Nuclear Magnetism* (1961), ch. VII;
+    A. Abragam, *The Principles of Nuclear Magnetism* (1961), chapter on electric quadrupole effects (from memory);
     P. P. Man, in *Encyclopedia of Analytical Chemistry* (2000), "Quadrupolar
     interactions" (second-order level shifts).
 
@@ -235,7 +288,7 @@ def exact_offsets(
 
     References
     ----------
-    J. A. Weil, J. R. Bolton, *Electron Paramagnetic Resonance* (2007), ch. 5
+    J. A. Weil, J. R. Bolton, *Electron Paramagnetic Resonance* (2007) (from memory)
     (exact spin-Hamiltonian diagonalisation).
 
     Examples
@@ -324,11 +377,29 @@ def multiple_quantum_offsets(
 def transition_intensity(spin: float, m: float) -> float:
     """Small-tip intensity of m -> m-1: |<m|I+|m-1>|^2 = I(I+1) - m(m-1).
 
+    Parameters
+    ----------
+    spin : float
+        Nuclear spin I.
+    m : float
+        Upper level m of the transition m -> m-1.
+
+    Returns
+    -------
+    float
+        Relative intensity (dimensionless); 9 for the central transition of
+        I = 5/2.
+
     References
     ----------
-    A. Abragam, *The Principles of Nuclear Magnetism* (1961), ch. II
+    A. Abragam, *The Principles of Nuclear Magnetism* (1961), chapter on the motion of free spins (from memory)
     (matrix elements of I+); common practice for non-selective small-tip
     excitation.
+
+    Examples
+    --------
+    >>> [transition_intensity(2.5, m) for m in (2.5, 1.5, 0.5)]
+    [5.0, 8.0, 9.0]
     """
     return spin * (spin + 1.0) - m * (m - 1.0)
 
@@ -348,6 +419,39 @@ def needs_exact(frame: SiteFrame, ms, *, rotor_angle_rad: float = 0.0, phases: i
     ``method = "auto"`` uses this: when the returned error exceeds the
     requested resolution, the exact producer is used.  Returns 0.0 for
     spin 1/2 or C_Q = 0 (first-order shift is exact at high field).
+
+    Parameters
+    ----------
+    frame : SiteFrame
+        Site interactions (:func:`site_frame`).
+    ms : sequence of float
+        Upper level m of each transition m -> m-1.
+    rotor_angle_rad : float, optional
+        Rotor angle (radians); 0 with ``phases=1`` is static.
+    phases : int, optional
+        Rotor phases per period to compare at.
+
+    Returns
+    -------
+    float
+        max |perturbative - exact| offset (Hz) over 96 probe directions.
+
+    References
+    ----------
+    A. Abragam, *The Principles of Nuclear Magnetism* (1961), chapter on
+    electric quadrupole effects (perturbation theory of the levels) (from memory); J. A. Weil,
+    J. R. Bolton, *Electron Paramagnetic Resonance* (2007) (exact
+    diagonalisation of spin Hamiltonians) (from memory).
+
+    Examples
+    --------
+    >>> from powderspin.model import Site
+    >>> from powderspin.nuclides import get_nuclide
+    >>> al = get_nuclide("27Al")
+    >>> needs_exact(site_frame(Site(cq_mhz=3.0), al, 14.1), [0.5]) < 1.0      # Hz
+    True
+    >>> needs_exact(site_frame(Site(cq_mhz=20.0), al, 9.4), [0.5]) > 10.0     # Hz
+    True
     """
     if frame.k_hz == 0.0:
         return 0.0

@@ -43,6 +43,17 @@ class Axis:
         Number of bins; intensity i belongs to the bin centred at ``hz[i]``.
     nu_ref_hz : float
         Reference frequency used for the ppm scale.
+
+    References
+    ----------
+    R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795 (the ppm scale
+    delta = 1e6 offset / nu_ref).
+
+    Examples
+    --------
+    >>> ax = Axis(center_hz=0.0, width_hz=1000.0, points=4, nu_ref_hz=100e6)
+    >>> ax.hz.tolist(), ax.ppm.tolist()
+    ([-375.0, -125.0, 125.0, 375.0], [-3.75, -1.25, 1.25, 3.75])
     """
 
     center_hz: float
@@ -52,22 +63,100 @@ class Axis:
 
     @property
     def dx_hz(self) -> float:
+        """Bin width (Hz).
+
+        Returns
+        -------
+        float
+            ``width_hz / points``.
+
+        References
+        ----------
+        R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795.
+
+        Examples
+        --------
+        >>> Axis(0.0, 1000.0, 4, 100e6).dx_hz
+        250.0
+        """
         return self.width_hz / self.points
 
     @property
     def left_edge_hz(self) -> float:
+        """Low-frequency edge of the first bin (Hz).
+
+        Returns
+        -------
+        float
+            ``center_hz - width_hz / 2``.
+
+        References
+        ----------
+        R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795.
+
+        Examples
+        --------
+        >>> Axis(0.0, 1000.0, 4, 100e6).left_edge_hz
+        -500.0
+        """
         return self.center_hz - self.width_hz / 2.0
 
     @property
     def hz(self) -> np.ndarray:
+        """Bin centres (Hz offsets from nu_ref), ascending.
+
+        Returns
+        -------
+        numpy.ndarray, shape (points,)
+
+        References
+        ----------
+        R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795.
+
+        Examples
+        --------
+        >>> Axis(0.0, 1000.0, 4, 100e6).hz.tolist()
+        [-375.0, -125.0, 125.0, 375.0]
+        """
         return self.left_edge_hz + (np.arange(self.points) + 0.5) * self.dx_hz
 
     @property
     def ppm(self) -> np.ndarray:
+        """Bin centres in ppm, ``1e6 * hz / nu_ref_hz``.
+
+        Returns
+        -------
+        numpy.ndarray, shape (points,)
+
+        References
+        ----------
+        R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795.
+
+        Examples
+        --------
+        >>> Axis(0.0, 1000.0, 4, 100e6).ppm.tolist()
+        [-3.75, -1.25, 1.25, 3.75]
+        """
         return self.hz / self.nu_ref_hz * 1e6
 
     @property
     def dx_ppm(self) -> float:
+        """Bin width (ppm).
+
+        Returns
+        -------
+        float
+            ``1e6 * dx_hz / nu_ref_hz``.
+
+        References
+        ----------
+        R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795.
+
+        Examples
+        --------
+        >>> Axis(0.0, 1000.0, 4, 100e6).dx_ppm
+        2.5
+        """
         return self.dx_hz / self.nu_ref_hz * 1e6
 
 
@@ -85,6 +174,24 @@ def make_axis(points: int, nu_ref_hz: float, center_ppm=None, width_ppm=None, sp
     span_hz : (float, float) or None
         Lowest and highest frequency that must be on the axis when the
         centre or width is not given (a 10 % margin is added each side).
+
+    Returns
+    -------
+    Axis
+        Centre and width in Hz; with neither ppm values nor a span, a small
+        axis about 0 Hz.
+
+    References
+    ----------
+    R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795 (ppm scale).
+
+    Examples
+    --------
+    >>> make_axis(1024, 100e6, center_ppm=0.0, width_ppm=50.0).width_hz   # 50 ppm at 100 MHz
+    5000.0
+    >>> ax = make_axis(1024, 100e6, span_hz=(-1000.0, 3000.0))
+    >>> round(ax.center_hz, 6), round(ax.width_hz, 6)
+    (1000.0, 4800.0)
     """
     if span_hz is not None:
         lo, hi = float(span_hz[0]), float(span_hz[1])
@@ -123,9 +230,31 @@ def bin_lines(axis: Axis, mean, amp, weights_t, orientation_set, binning: str, r
     cutoff : float
         Triangle-line contributions at or below this weight are skipped.
 
+    Returns
+    -------
+    numpy.ndarray, shape (axis.points,)
+        Fraction of the weighted intensity in each bin (dimensionless); lines
+        off the axis are lost.
+
     References
     ----------
     D. W. Alderman, M. S. Solum, D. M. Grant, J. Chem. Phys. 84 (1986) 3717.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from powderspin.orientations import OrientationSet, triangulated
+    >>> ax = Axis(0.0, 1000.0, 4, 100e6)
+    >>> poles = OrientationSet("two-poles", "sphere", np.array([[0., 0., 1.], [0., 0., -1.]]),
+    ...                        np.array([0.5, 0.5]))
+    >>> bin_lines(ax, [[-300.0], [200.0]], np.ones((2, 1, 1)), np.ones((2, 1)), poles,
+    ...           "histogram").tolist()
+    [0.5, 0.0, 0.5, 0.0]
+    >>> tri = triangulated(2, "octant")          # same line everywhere: one bin
+    >>> n = tri.size
+    >>> np.round(bin_lines(ax, np.full((n, 1), 100.0), np.ones((n, 1, 1)), np.ones((n, 1)), tri,
+    ...                    "interpolate"), 12).tolist()
+    [0.0, 0.0, 1.0, 0.0]
     """
     mean = np.ascontiguousarray(mean, dtype=float)
     amp = np.ascontiguousarray(amp, dtype=float)
@@ -154,8 +283,16 @@ def broaden(y: np.ndarray, dx_hz: float, lorentz_hz: float = 0.0, gauss_hz: floa
     ----------
     y : ndarray
         Spectrum on a uniform axis of spacing ``dx_hz``.
+    dx_hz : float
+        Axis spacing (Hz).
     lorentz_hz, gauss_hz : float
         Full widths at half maximum (Hz), >= 0.
+
+    Returns
+    -------
+    numpy.ndarray
+        The broadened spectrum, same shape as ``y`` (a copy when both widths
+        are 0).
 
     References
     ----------

@@ -62,16 +62,64 @@ __all__ = [
     "parse_transition",
 ]
 
+#: The magic angle arccos(1/sqrt 3) in degrees (about 54.7356), the default
+#: rotor angle (E. R. Andrew, A. Bradbury, R. G. Eades, Nature 182 (1958) 1659).
 MAGIC_ANGLE_DEG = math.degrees(math.acos(1.0 / math.sqrt(3.0)))
 
 
 class ModelError(ValueError):
-    """A model value is missing, unknown or outside its allowed range."""
+    """A model value is missing, unknown or outside its allowed range.
+
+    A ``ValueError`` subclass whose message names the key, the value and the
+    allowed range (or the allowed keys).
+
+    Parameters
+    ----------
+    message : str
+        Where the problem is (``"site 'AlO4': eta_q"``), the value and the
+        allowed range.
+
+    References
+    ----------
+    TOML v1.0.0 specification (toml.io), for the file syntax; R. K. Harris
+    et al., Pure Appl. Chem. 80 (2008) 59, for the parameter conventions.
+
+    Examples
+    --------
+    >>> try:
+    ...     Site(eta_q=1.5)
+    ... except ModelError as e:
+    ...     print(e)
+    site 'site': eta_q = 1.5 is outside the allowed range [0, 1]
+    """
 
 
 @dataclass(frozen=True)
 class FreeParameter:
-    """A parameter marked free in a model file: start value and bounds."""
+    """A parameter marked free in a model file: start value and bounds.
+
+    Parameters
+    ----------
+    where : str
+        The key it belongs to, e.g. ``"site 'AlO4'.cq_mhz"``.
+    start : float
+        Start value, in the unit of that key (MHz, ppm, Hz, degrees, ...);
+        simulations use it.
+    min, max : float
+        Bounds in the same unit (default -inf, inf).
+
+    References
+    ----------
+    W. H. Press et al., *Numerical Recipes*, 3rd ed. (2007), ch. 15
+    (modelling of data; bounded parameters) (from memory).
+
+    Examples
+    --------
+    >>> m = parse_model({"nucleus": "27Al",
+    ...                  "site": [{"cq_mhz": {"start": 3.0, "min": 0.5, "max": 8.0}}]})
+    >>> m.free[0]
+    FreeParameter(where="site 'site 1'.cq_mhz", start=3.0, min=0.5, max=8.0)
+    """
 
     where: str
     start: float
@@ -101,6 +149,18 @@ class Site:
         to the EFG principal frame.
     lorentz_hz, gauss_hz : float
         Extra Lorentzian / Gaussian broadening of this site (FWHM, Hz).
+
+    References
+    ----------
+    M. J. Duer, *Introduction to Solid-State NMR Spectroscopy* (2004)
+    (shift and quadrupolar interactions) (from memory); J. Mason, Solid
+    State Nucl. Magn. Reson. 2 (1993) 285 (shift-tensor conventions).
+
+    Examples
+    --------
+    >>> s = Site(label="AlO4", cq_mhz=3.0, eta_q=0.4)
+    >>> s.cq_hz, s.shift.iso_ppm
+    (3000000.0, 0.0)
     """
 
     label: str = "site"
@@ -128,10 +188,43 @@ class Site:
 
     @property
     def euler_rad(self) -> tuple[float, float, float]:
+        """The ZYZ Euler angles of the shift frame relative to the EFG frame, radians.
+
+        Returns
+        -------
+        tuple of 3 float
+            ``euler_deg`` converted to radians.
+
+        References
+        ----------
+        M. E. Rose, *Elementary Theory of Angular Momentum* (1957), ch. IV.
+
+        Examples
+        --------
+        >>> [round(a, 6) for a in Site(euler_deg=(0.0, 90.0, 180.0)).euler_rad]
+        [0.0, 1.570796, 3.141593]
+        """
         return tuple(math.radians(x) for x in self.euler_deg)
 
     @property
     def cq_hz(self) -> float:
+        """Quadrupolar coupling constant C_Q = e^2 q Q / h in Hz.
+
+        Returns
+        -------
+        float
+            ``cq_mhz * 1e6``.
+
+        References
+        ----------
+        A. Abragam, *The Principles of Nuclear Magnetism* (1961), chapter on
+        electric quadrupole effects (from memory).
+
+        Examples
+        --------
+        >>> Site(cq_mhz=2.5).cq_hz
+        2500000.0
+        """
         return self.cq_mhz * 1e6
 
 
@@ -163,6 +256,17 @@ class Measurement:
         ``"auto"`` or the number of rotor phases per period (power of 2, >= 8).
     lorentz_hz, gauss_hz : float
         Broadening applied to every site (FWHM, Hz).
+
+    References
+    ----------
+    E. R. Andrew, A. Bradbury, R. G. Eades, Nature 182 (1958) 1659 and
+    I. J. Lowe, Phys. Rev. Lett. 2 (1959) 285 (magic-angle spinning).
+
+    Examples
+    --------
+    >>> meas = Measurement(field_tesla=14.1, spinning_hz=12500.0)
+    >>> round(meas.rotor_angle_deg, 4), meas.is_static, meas.transitions
+    (54.7356, False, 'central')
     """
 
     field_tesla: float = 9.4
@@ -232,16 +336,72 @@ class Measurement:
 
     @property
     def is_static(self) -> bool:
+        """True for a static sample (spinning_hz == 0 Hz).
+
+        Returns
+        -------
+        bool
+
+        References
+        ----------
+        M. J. Duer, *Introduction to Solid-State NMR Spectroscopy* (2004)
+        (static and spinning powder patterns) (from memory).
+
+        Examples
+        --------
+        >>> Measurement().is_static, Measurement(spinning_hz=5000.0).is_static
+        (True, False)
+        """
         return self.spinning_hz == 0.0
 
     @property
     def is_infinite_rate(self) -> bool:
+        """True for the infinitely-fast-spinning limit (spinning_hz = inf Hz).
+
+        Returns
+        -------
+        bool
+            Only the rotor-averaged (centre-band) lines remain.
+
+        References
+        ----------
+        M. M. Maricq, J. S. Waugh, J. Chem. Phys. 70 (1979) 3300.
+
+        Examples
+        --------
+        >>> Measurement(spinning_hz=math.inf).is_infinite_rate
+        True
+        """
         return math.isinf(self.spinning_hz)
 
 
 @dataclass(frozen=True)
 class Model:
-    """A nucleus, a measurement and one or more sites."""
+    """A nucleus, a measurement and one or more sites.
+
+    Parameters
+    ----------
+    nucleus : Nuclide
+        The observed nucleus (:func:`powderspin.nuclides.get_nuclide`).
+    measurement : Measurement
+        Field (tesla), spinning rate (Hz), rotor angle (degrees), axis, ...
+    sites : sequence of Site
+        At least one site; ``cq_mhz`` must be 0 for a spin-1/2 nucleus.
+    free : tuple of FreeParameter, optional
+        Parameters marked free in the model file.
+    source : str, optional
+        Where the model came from (a file path), recorded in the metadata.
+
+    References
+    ----------
+    TOML v1.0.0 specification (toml.io), for the model-file syntax.
+
+    Examples
+    --------
+    >>> m = make_model("27Al", {"field_tesla": 14.1}, [{"cq_mhz": 3.0}])
+    >>> m.nucleus.name, len(m.sites)
+    ('27Al', 1)
+    """
 
     nucleus: Nuclide
     measurement: Measurement
@@ -265,6 +425,31 @@ class Model:
         selected_transitions(self.nucleus.spin, self.measurement.transitions)
 
     def with_measurement(self, **changes) -> "Model":
+        """A copy of the model with some measurement fields changed.
+
+        Parameters
+        ----------
+        **changes
+            :class:`Measurement` fields and new values, e.g.
+            ``field_tesla=18.8`` (T) or ``spinning_hz=20000.0`` (Hz); they are
+            validated as in :class:`Measurement`.
+
+        Returns
+        -------
+        Model
+            A new model; this one is unchanged.
+
+        References
+        ----------
+        E. R. Andrew, A. Bradbury, R. G. Eades, Nature 182 (1958) 1659
+        (magic-angle spinning).
+
+        Examples
+        --------
+        >>> m = make_model("27Al", {"field_tesla": 14.1}, [{"cq_mhz": 3.0}])
+        >>> m.with_measurement(field_tesla=18.8).measurement.field_tesla, m.measurement.field_tesla
+        (18.8, 14.1)
+        """
         return replace(self, measurement=replace(self.measurement, **changes))
 
 
@@ -278,6 +463,39 @@ def parse_transition(text: str, spin: float | None) -> tuple[float, float]:
     Single-quantum transitions need ``m1 - m2 = +-1``; symmetric
     multiple-quantum transitions ``m:-m`` are also accepted.  Returns the pair
     ordered as (upper m, lower m).
+
+    Parameters
+    ----------
+    text : str
+        ``"m1:m2"`` with half-integer magnetic quantum numbers (``"3/2"``,
+        ``"-1/2"``, ``"1"``).
+    spin : float or None
+        Nuclear spin I to check ``|m| <= I`` against; None skips that check.
+
+    Returns
+    -------
+    tuple of 2 float
+        (upper m, lower m).
+
+    Raises
+    ------
+    ModelError
+        If the text is malformed, the transition is neither single-quantum
+        nor symmetric, or ``|m| > I``.
+
+    References
+    ----------
+    A. Abragam, *The Principles of Nuclear Magnetism* (1961)
+    (magnetic-dipole selection rule Delta m = +-1) (from memory); L. Frydman,
+    J. S. Harwood, J. Am. Chem. Soc. 117 (1995) 5367 (symmetric
+    multiple-quantum transitions).
+
+    Examples
+    --------
+    >>> parse_transition("1/2:3/2", 2.5)
+    (1.5, 0.5)
+    >>> parse_transition("3/2:-3/2", 1.5)
+    (1.5, -1.5)
     """
     try:
         a, b = text.split(":")
@@ -455,6 +673,28 @@ def _parse_measurement(meas_t, free) -> Measurement:
 def parse_model(data: dict, source: str = "") -> Model:
     """Build a :class:`Model` from a parsed TOML mapping, validating every key.
 
+    Parameters
+    ----------
+    data : dict
+        The parsed file: ``nucleus``, a ``measurement`` table and ``site``
+        tables, with the keys of the module docstring (field in tesla,
+        spinning rate in Hz, shifts in ppm, C_Q in MHz, angles in degrees).
+    source : str, optional
+        Where the mapping came from (recorded in the model and the metadata).
+
+    Returns
+    -------
+    Model
+
+    Raises
+    ------
+    ModelError
+        For a missing, unknown or out-of-range key.
+
+    References
+    ----------
+    TOML v1.0.0 specification (toml.io).
+
     Examples
     --------
     >>> m = parse_model({"nucleus": "27Al", "measurement": {"field_tesla": 14.1},
@@ -484,6 +724,20 @@ def load_model(path) -> Model:
     path : str or pathlib.Path
         Model file.
 
+    Returns
+    -------
+    Model
+        The validated model; its ``source`` is ``path``.
+
+    Raises
+    ------
+    ModelError
+        If the file is missing, is not valid TOML, or a value is wrong.
+
+    References
+    ----------
+    TOML v1.0.0 specification (toml.io).
+
     Examples
     --------
     >>> from pathlib import Path
@@ -503,6 +757,23 @@ def load_model(path) -> Model:
 
 def make_site(**keys) -> Site:
     """Build a :class:`Site` from the model-file keys (same names, same checks).
+
+    Parameters
+    ----------
+    **keys
+        ``[[site]]`` keys: ``label``, ``weight``, ``shift_ppm``, ``cq_mhz``,
+        ``eta_q``, one of ``span_ppm`` + ``skew`` / ``aniso_ppm`` + ``eta_cs``
+        / ``principal_ppm`` (ppm), ``euler_deg`` (degrees), ``lorentz_hz``,
+        ``gauss_hz`` (Hz).
+
+    Returns
+    -------
+    Site
+
+    References
+    ----------
+    J. Mason, Solid State Nucl. Magn. Reson. 2 (1993) 285; J. Herzfeld,
+    A. E. Berger, J. Chem. Phys. 73 (1980) 6021 (shift-tensor conventions).
 
     Examples
     --------
@@ -524,6 +795,15 @@ def make_model(nucleus, measurement=None, sites=()) -> Model:
         ``[measurement]`` keys (see the module docstring).
     sites : sequence of dict or Site
         Site keys as in a model file, or ready :class:`Site` values.
+
+    Returns
+    -------
+    Model
+
+    References
+    ----------
+    TOML v1.0.0 specification (toml.io), for the key names shared with model
+    files.
 
     Examples
     --------

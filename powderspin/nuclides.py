@@ -103,7 +103,29 @@ _SYMBOL_ONLY = re.compile(r"^\s*([A-Za-z]{1,2})\s*$")
 
 
 class UnknownNuclideError(ValueError):
-    """Raised when a nucleus name is malformed or not in the shipped table."""
+    """Raised when a nucleus name is malformed or not in the shipped table.
+
+    A ``ValueError`` subclass; the message names the nucleus and suggests
+    close matches from the table.
+
+    Parameters
+    ----------
+    message : str
+        The unknown name, suggestions and how to list the known nuclei.
+
+    References
+    ----------
+    .. [1] R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795 (the nuclei
+       and their names).
+
+    Examples
+    --------
+    >>> try:
+    ...     get_nuclide("27Xx")
+    ... except UnknownNuclideError as e:
+    ...     print(str(e).split(";")[0])
+    unknown nucleus '27Xx'
+    """
 
 
 def proton_gyromagnetic_ratio_mhz_per_t() -> float:
@@ -241,22 +263,82 @@ class Nuclide:
 
     @property
     def is_quadrupolar(self) -> bool:
-        """True for spin I > 1/2 (the nucleus has an electric quadrupole moment)."""
+        """True for spin I > 1/2 (the nucleus has an electric quadrupole moment).
+
+        Returns
+        -------
+        bool
+
+        References
+        ----------
+        .. [1] P. Pyykko, Mol. Phys. 116 (2018) 1328.
+
+        Examples
+        --------
+        >>> get_nuclide("17O").is_quadrupolar, get_nuclide("13C").is_quadrupolar
+        (True, False)
+        """
         return self.spin > 0.5
 
     @property
     def multiplicity(self) -> int:
-        """Number of Zeeman levels, 2I + 1."""
+        """Number of Zeeman levels, 2I + 1.
+
+        Returns
+        -------
+        int
+
+        References
+        ----------
+        .. [1] R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795 (spins).
+
+        Examples
+        --------
+        >>> get_nuclide("27Al").multiplicity
+        6
+        """
         return int(round(2 * self.spin)) + 1
 
     @property
     def quadrupole_moment_fm2(self) -> float:
-        """Quadrupole moment Q in fm^2 (1 mb = 0.1 fm^2)."""
+        """Quadrupole moment Q in fm^2 (1 mb = 0.1 fm^2).
+
+        Returns
+        -------
+        float
+            Q in fm^2 (signed; 0 for spin 1/2).
+
+        References
+        ----------
+        .. [1] P. Pyykko, Mol. Phys. 116 (2018) 1328.
+
+        Examples
+        --------
+        >>> o17 = get_nuclide("17O")
+        >>> o17.quadrupole_moment_fm2 == o17.quadrupole_moment_mb / 10
+        True
+        """
         return self.quadrupole_moment_mb / 10.0
 
     @property
     def quadrupole_moment_barn(self) -> float:
-        """Quadrupole moment Q in barn (1 b = 1000 mb = 100 fm^2)."""
+        """Quadrupole moment Q in barn (1 b = 1000 mb = 100 fm^2).
+
+        Returns
+        -------
+        float
+            Q in barn (signed; 0 for spin 1/2).
+
+        References
+        ----------
+        .. [1] P. Pyykko, Mol. Phys. 116 (2018) 1328.
+
+        Examples
+        --------
+        >>> o17 = get_nuclide("17O")
+        >>> o17.quadrupole_moment_barn == o17.quadrupole_moment_mb / 1000
+        True
+        """
         return self.quadrupole_moment_mb / 1000.0
 
     def larmor_hz(self, field_tesla: float) -> float:

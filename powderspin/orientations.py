@@ -119,11 +119,54 @@ _NAME_PATTERNS = (
 
 
 class OrientationSetError(ValueError):
-    """Invalid argument or inconsistent data for an orientation set."""
+    """Invalid argument or inconsistent data for an orientation set.
+
+    A ``ValueError`` subclass; the message names the field, the value and the
+    allowed range.
+
+    Parameters
+    ----------
+    message : str
+        Field, offending value and allowed range.
+
+    References
+    ----------
+    .. [1] M. Edén, M. H. Levitt, J. Magn. Reson. 132 (1998) 220 (the grids
+       whose parameters are checked).
+
+    Examples
+    --------
+    >>> try:
+    ...     zcw(1)
+    ... except OrientationSetError as e:
+    ...     print(e)
+    count_index must be in [2, 30], got 1
+    """
 
 
 class OrientationSetFileMissing(OrientationSetError, FileNotFoundError):
-    """A shipped orientation-set data file is not where it should be."""
+    """A shipped orientation-set data file is not where it should be.
+
+    Both an :class:`OrientationSetError` (so a ``ValueError``) and a
+    ``FileNotFoundError``.
+
+    Parameters
+    ----------
+    message : str
+        The missing file and the set that needs it.
+
+    References
+    ----------
+    .. [1] V. I. Lebedev, D. N. Laikov, Doklady Mathematics 59 (1999) 477
+       (the shipped Lebedev rules).
+
+    Examples
+    --------
+    >>> issubclass(OrientationSetFileMissing, FileNotFoundError)
+    True
+    >>> issubclass(OrientationSetFileMissing, ValueError)
+    True
+    """
 
 
 def _orientation_set_dir() -> Path:
@@ -258,19 +301,69 @@ class OrientationSet:
 
     @property
     def size(self) -> int:
-        """Number of orientations N."""
+        """Number of orientations N.
+
+        Returns
+        -------
+        int
+
+        References
+        ----------
+        .. [1] M. Edén, M. H. Levitt, J. Magn. Reson. 132 (1998) 220.
+
+        Examples
+        --------
+        >>> zcw(3).size
+        5
+        """
         return int(self.vectors.shape[0])
 
     @property
     def beta(self) -> np.ndarray:
-        """Polar angle of each vector from the z axis, radians in [0, pi]."""
+        """Polar angle of each vector from the z axis, radians in [0, pi].
+
+        Returns
+        -------
+        numpy.ndarray, shape (N,)
+            beta in radians (read-only).
+
+        References
+        ----------
+        .. [1] M. Edén, M. H. Levitt, J. Magn. Reson. 132 (1998) 220.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> s = OrientationSet("x-z", "octant", np.array([[1., 0., 0.], [0., 0., 1.]]),
+        ...                    np.array([0.5, 0.5]))
+        >>> np.degrees(s.beta).round(6).tolist()
+        [90.0, 0.0]
+        """
         out = np.arccos(np.clip(self.vectors[:, 2], -1.0, 1.0))
         out.flags.writeable = False
         return out
 
     @property
     def alpha(self) -> np.ndarray:
-        """Azimuth of each vector from the x axis, radians in [0, 2 pi)."""
+        """Azimuth of each vector from the x axis, radians in [0, 2 pi).
+
+        Returns
+        -------
+        numpy.ndarray, shape (N,)
+            alpha in radians (read-only); 0 on the z axis.
+
+        References
+        ----------
+        .. [1] M. Edén, M. H. Levitt, J. Magn. Reson. 132 (1998) 220.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> s = OrientationSet("x-y", "octant", np.array([[1., 0., 0.], [0., 1., 0.]]),
+        ...                    np.array([0.5, 0.5]))
+        >>> np.degrees(s.alpha).round(6).tolist()
+        [0.0, 90.0]
+        """
         out = np.mod(np.arctan2(self.vectors[:, 1], self.vectors[:, 0]), 2.0 * np.pi)
         out[out >= 2.0 * np.pi] = 0.0
         out.flags.writeable = False
@@ -278,7 +371,24 @@ class OrientationSet:
 
     @property
     def has_triangles(self) -> bool:
-        """True when the set carries a triangulation."""
+        """True when the set carries a triangulation.
+
+        Returns
+        -------
+        bool
+            True when ``triangles`` and ``triangle_weights`` are present, as
+            triangle ("tent") interpolation needs.
+
+        References
+        ----------
+        .. [1] D. W. Alderman, M. S. Solum, D. M. Grant, J. Chem. Phys. 84
+           (1986) 3717.
+
+        Examples
+        --------
+        >>> triangulated(2, "octant").has_triangles, zcw(3).has_triangles
+        (True, False)
+        """
         return self.triangles is not None
 
     def __repr__(self) -> str:

@@ -76,7 +76,48 @@ def plot_spectrum(spectrum, ax=None, *, show_sites: bool = True, mark_sidebands:
 
 
 def save_plot(spectrum, path, *, force: bool = False):
-    """Save a PNG (or any matplotlib format) of the spectrum; never overwrites without force."""
+    """Save a PNG (or any matplotlib format) of the spectrum; never overwrites without force.
+
+    The figure is drawn by :func:`plot_spectrum` (ppm decreasing to the
+    right), written to a temporary file in the same folder and moved into
+    place.
+
+    Parameters
+    ----------
+    spectrum : Spectrum
+        The spectrum to draw (ppm axis, intensities as densities per ppm).
+    path : str or pathlib.Path
+        Output file; the suffix picks the format (``.png`` when none).
+    force : bool, optional
+        Overwrite an existing file.
+
+    Returns
+    -------
+    pathlib.Path
+        The file written.
+
+    Raises
+    ------
+    powderspin.spectrum.OutputExistsError
+        If ``path`` exists and ``force`` is False.
+
+    References
+    ----------
+    J. D. Hunter, Comput. Sci. Eng. 9 (2007) 90 (matplotlib); R. K. Harris
+    et al., Pure Appl. Chem. 73 (2001) 1795 (shift scale, increasing to the
+    left).
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> from powderspin.spectrum import Spectrum
+    >>> spec = Spectrum(hz=[-100.0, 0.0, 100.0], ppm=[-1.0, 0.0, 1.0], intensity=[0.0, 1.0, 0.0],
+    ...                 site_labels=("a",), site_intensities=[[0.0, 1.0, 0.0]])
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     p = save_plot(spec, pathlib.Path(d) / "spec.png")
+    ...     p.stat().st_size > 0
+    True
+    """
     import os
     import tempfile
     from pathlib import Path

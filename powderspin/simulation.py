@@ -63,6 +63,8 @@ class SiteLines:
     Attributes
     ----------
     orientations : OrientationSet
+        The n_v directions (rotor axis or B0 in the crystallite frame) and
+        their weights.
     ms : tuple of float
         Upper level m of each transition m -> m-1.
     mean : ndarray (n_v, n_t)
@@ -78,6 +80,29 @@ class SiteLines:
         "perturbation" or "exact".
     phases : int
         Rotor phases sampled per period.
+    band_intensity, band_position_hz, band_max : ndarray (P,) or None
+        Per-band summaries over the powder: integrated intensity,
+        intensity-weighted position sum (Hz) and largest single-line
+        intensity of each band n (index ``n mod P``).
+
+    References
+    ----------
+    M. H. Levitt, J. Magn. Reson. 82 (1989) 427 (gamma-averaged sideband
+    intensities); M. Edén, M. H. Levitt, J. Magn. Reson. 132 (1998) 220
+    (powder averaging).
+
+    Examples
+    --------
+    >>> from powderspin.frequencies import site_frame
+    >>> from powderspin.model import Measurement, Site
+    >>> from powderspin.nuclides import get_nuclide
+    >>> from powderspin.orientations import triangulated
+    >>> from powderspin.tensors import ShiftTensor
+    >>> f = site_frame(Site(shift=ShiftTensor(0.0, 50.0, 0.0)), get_nuclide("31P"), 9.4)
+    >>> sl = site_lines(f, [0.5], Measurement(field_tesla=9.4), "perturbation",
+    ...                 triangulated(8, "octant"))
+    >>> sl.method, sl.phases, sl.mean.shape, sl.amp.shape
+    ('perturbation', 1, (45, 1), (45, 1, 1))
     """
 
     orientations: OrientationSet
@@ -93,13 +118,68 @@ class SiteLines:
     band_max: np.ndarray | None = None
 
     def band_offsets(self) -> np.ndarray:
+        """Offset (Hz) of each band from the centre band, ``n * rate_hz``.
+
+        Returns
+        -------
+        numpy.ndarray, shape (P,)
+            Band n at index ``n mod P`` (numpy FFT order); ``[0.0]`` when
+            static or infinitely fast.
+
+        References
+        ----------
+        M. M. Maricq, J. S. Waugh, J. Chem. Phys. 70 (1979) 3300.
+
+        Examples
+        --------
+        >>> from powderspin.frequencies import site_frame
+        >>> from powderspin.model import Measurement, Site
+        >>> from powderspin.nuclides import get_nuclide
+        >>> from powderspin.orientations import triangulated
+        >>> from powderspin.tensors import ShiftTensor
+        >>> f = site_frame(Site(shift=ShiftTensor(0.0, 50.0, 0.0)), get_nuclide("31P"), 9.4)
+        >>> meas = Measurement(field_tesla=9.4, spinning_hz=4000.0, rotor_phases=16)
+        >>> sl = site_lines(f, [0.5], meas, "perturbation", triangulated(8, "octant"))
+        >>> sl.band_offsets()[:3].tolist(), float(sl.band_offsets()[-1])
+        ([0.0, 4000.0, 8000.0], -4000.0)
+        """
         p = self.amp.shape[2]
         if p == 1 or not math.isfinite(self.rate_hz):
             return np.zeros(1)
         return np.fft.fftfreq(p, 1.0 / p) * self.rate_hz
 
     def frequency_range(self, cutoff: float = 1e-6) -> tuple[float, float]:
-        """Lowest and highest frequency carrying intensity above ``cutoff``."""
+        """Lowest and highest frequency carrying intensity above ``cutoff``.
+
+        Parameters
+        ----------
+        cutoff : float, optional
+            Bands whose largest single-line intensity (fraction of 1) is at
+            or below this are ignored.
+
+        Returns
+        -------
+        tuple of 2 float
+            (lowest, highest) line position (Hz offsets from nu_ref),
+            sidebands included.
+
+        References
+        ----------
+        M. H. Levitt, J. Magn. Reson. 82 (1989) 427.
+
+        Examples
+        --------
+        >>> from powderspin.frequencies import site_frame
+        >>> from powderspin.model import Measurement, Site
+        >>> from powderspin.nuclides import get_nuclide
+        >>> from powderspin.orientations import triangulated
+        >>> from powderspin.tensors import ShiftTensor
+        >>> f = site_frame(Site(shift=ShiftTensor(0.0, 50.0, 0.0)), get_nuclide("31P"), 9.4)
+        >>> sl = site_lines(f, [0.5], Measurement(field_tesla=9.4), "perturbation",
+        ...                 triangulated(8, "octant"))
+        >>> [round(x / f.nu0_hz * 1e6, 6) for x in sl.frequency_range()]   # ppm: d_perp, d_par
+        [-25.0, 50.0]
+        """
         off = self.band_offsets()
         if self.amp.shape[2] == 1:
             keep = np.array([True])
@@ -147,16 +227,39 @@ def site_lines(
     Parameters
     ----------
     frame : SiteFrame
+        Site interactions (:func:`powderspin.frequencies.site_frame`).
     ms : sequence of float
         Upper levels of the transitions.
     meas : Measurement
+        Spinning rate (Hz), rotor angle (degrees), rotor phases and
+        orientation choice.
     method : {"perturbation", "exact"}
+        The producer of the frequencies.
     orientations : OrientationSet, optional
         Defaults to the measurement's choice for the site's symmetry.
 
     Returns
     -------
     SiteLines
+        Line positions (Hz), sideband intensities and weights per
+        orientation and transition, normalised to a total of 1.
+
+    References
+    ----------
+    M. H. Levitt, J. Magn. Reson. 82 (1989) 427 (sidebands); J. R. Carson,
+    Proc. IRE 10 (1922) 57 (first guess of the number of rotor phases).
+
+    Examples
+    --------
+    >>> from powderspin.frequencies import site_frame
+    >>> from powderspin.model import Measurement, Site
+    >>> from powderspin.nuclides import get_nuclide
+    >>> from powderspin.orientations import triangulated
+    >>> f = site_frame(Site(cq_mhz=3.0), get_nuclide("27Al"), 14.1)
+    >>> meas = Measurement(field_tesla=14.1, spinning_hz=10000.0, rotor_phases=32)
+    >>> sl = site_lines(f, [0.5], meas, "perturbation", triangulated(8, "octant"))
+    >>> sl.amp.shape, round(float(sl.band_intensity.sum()), 9)
+    ((45, 1, 32), 1.0)
     """
     rate = meas.spinning_hz
     theta = math.radians(meas.rotor_angle_deg)

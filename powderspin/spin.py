@@ -14,7 +14,40 @@ __all__ = ["SpinOperators", "spin_operators", "magnetic_numbers", "check_spin"]
 
 
 def check_spin(spin: float, name: str = "spin") -> float:
-    """Validate a spin quantum number: a positive multiple of 1/2."""
+    """Validate a spin quantum number: a positive multiple of 1/2.
+
+    Parameters
+    ----------
+    spin : float
+        Nuclear spin quantum number I (dimensionless), 1/2 ... 20.
+    name : str, optional
+        Field name used in the error message.
+
+    Returns
+    -------
+    float
+        I rounded to the nearest multiple of 1/2.
+
+    Raises
+    ------
+    ValueError
+        If ``spin`` is not a positive multiple of 1/2 in [1/2, 20].
+
+    References
+    ----------
+    J. J. Sakurai, *Modern Quantum Mechanics* (1994), sec. 3.5 (allowed values
+    of the angular-momentum quantum number).
+
+    Examples
+    --------
+    >>> check_spin(2.5)
+    2.5
+    >>> try:
+    ...     check_spin(0.7)
+    ... except ValueError as e:
+    ...     print(e)
+    spin = 0.7 must be a positive multiple of 1/2 (1/2 ... 20)
+    """
     try:
         s = float(spin)
     except (TypeError, ValueError):
@@ -26,14 +59,54 @@ def check_spin(spin: float, name: str = "spin") -> float:
 
 
 def magnetic_numbers(spin: float) -> np.ndarray:
-    """m = I, I-1, ..., -I."""
+    """Magnetic quantum numbers m = I, I-1, ..., -I (the basis order).
+
+    Parameters
+    ----------
+    spin : float
+        Nuclear spin quantum number I, a positive multiple of 1/2.
+
+    Returns
+    -------
+    numpy.ndarray, shape (2I+1,)
+        m values in descending order.
+
+    References
+    ----------
+    J. J. Sakurai, *Modern Quantum Mechanics* (1994), sec. 3.5.
+
+    Examples
+    --------
+    >>> magnetic_numbers(1.5).tolist()
+    [1.5, 0.5, -0.5, -1.5]
+    """
     s = check_spin(spin)
     return s - np.arange(int(round(2 * s)) + 1)
 
 
 @dataclass(frozen=True)
 class SpinOperators:
-    """Matrices of Ix, Iy, Iz, I+ and I- in the |I, m> basis (m descending)."""
+    """Matrices of Ix, Iy, Iz, I+ and I- in the |I, m> basis (m descending).
+
+    Built by :func:`spin_operators`; the matrices are read-only.
+
+    Parameters
+    ----------
+    spin : float
+        Nuclear spin quantum number I.
+    x, y, z, plus, minus : numpy.ndarray, shape (2I+1, 2I+1)
+        Complex matrices of Ix, Iy, Iz, I+ and I- (units of hbar).
+
+    References
+    ----------
+    J. J. Sakurai, *Modern Quantum Mechanics* (1994), sec. 3.5.
+
+    Examples
+    --------
+    >>> ops = spin_operators(1.0)
+    >>> ops.dimension, ops.plus[0, 1].real.round(6).tolist()
+    (3, 1.414214)
+    """
 
     spin: float
     x: np.ndarray
@@ -44,6 +117,22 @@ class SpinOperators:
 
     @property
     def dimension(self) -> int:
+        """Number of Zeeman levels 2I + 1.
+
+        Returns
+        -------
+        int
+            Size of the matrices.
+
+        References
+        ----------
+        J. J. Sakurai, *Modern Quantum Mechanics* (1994), sec. 3.5.
+
+        Examples
+        --------
+        >>> spin_operators(2.5).dimension
+        6
+        """
         return self.z.shape[0]
 
 

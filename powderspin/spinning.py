@@ -98,6 +98,27 @@ def outer_band_fraction(amp: np.ndarray, weights: np.ndarray | None = None) -> f
         Powder and transition weights.  Given, the result is the fraction of
         the total (weighted) intensity in the outer bands; omitted, it is the
         largest fraction over all crystallites and transitions.
+
+    Returns
+    -------
+    float
+        Fraction (dimensionless, 0 ... 1) of the intensity in bands with
+        ``|n| > 3P/8``; 0.0 when P < 8.
+
+    References
+    ----------
+    M. H. Levitt, J. Magn. Reson. 82 (1989) 427 (sideband intensities
+    |F_n|^2); E. O. Brigham, *The Fast Fourier Transform and Its
+    Applications* (1988) (aliasing of sampled spectra) (from memory).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> outer_band_fraction(np.full((1, 1, 16), 1.0 / 16))   # bands 7, -7, -8 of 16
+    0.1875
+    >>> centre = np.zeros((1, 1, 16)); centre[..., 0] = 1.0
+    >>> outer_band_fraction(centre)
+    0.0
     """
     p = amp.shape[-1]
     if p < 8:
@@ -130,6 +151,13 @@ def choose_rotor_phases(spread_hz: float, rate_hz: float) -> int:
     References
     ----------
     J. R. Carson, Proc. IRE 10 (1922) 57 (bandwidth of frequency modulation).
+
+    Examples
+    --------
+    >>> choose_rotor_phases(5000.0, 1000.0)   # 5 kHz spread at 1 kHz spinning
+    64
+    >>> choose_rotor_phases(0.0, 20000.0)
+    16
     """
     bands = 2.0 * (spread_hz / rate_hz + 4.0)
     p = 16
@@ -154,14 +182,20 @@ def perturbative_sidebands(frame, directions, ms, *, rotor_angle_rad: float, pha
     ms : sequence of float
         Upper levels m of the transitions m -> m-1.
     rotor_angle_rad : float
+        Angle between rotor axis and B0 (radians), in [0, pi/2].
     phases : int
         P, a power of 2 (>= 16).
     rate_hz : float
+        Spinning rate nu_r (Hz), > 0 and finite.
+    second_order : bool, optional
+        Include the second-order quadrupolar term.
 
     Returns
     -------
     mean : ndarray (N, T)
+        Rotor-period averages (Hz), the centre-band positions.
     amp : ndarray (N, T, P)
+        |F_n|^2 with band n at index ``n mod P``; each row sums to 1.
 
     References
     ----------

@@ -52,7 +52,30 @@ _TOL = 1e-12
 
 
 class TensorError(ValueError):
-    """A tensor parameter is outside its allowed range."""
+    """A tensor parameter is outside its allowed range.
+
+    A ``ValueError`` subclass; the message names the field, the value and the
+    allowed range.
+
+    Parameters
+    ----------
+    message : str
+        Field name, offending value and allowed range, e.g. ``"eta_cs = 1.5 is
+        outside the allowed range [0, 1]"``.
+
+    References
+    ----------
+    R. K. Harris et al., Pure Appl. Chem. 80 (2008) 59 (the conventions that
+    fix the allowed ranges of the shift-tensor parameters).
+
+    Examples
+    --------
+    >>> try:
+    ...     ShiftTensor(0.0, 10.0, 1.5)
+    ... except TensorError as e:
+    ...     print(e)
+    eta_cs = 1.5 is outside the allowed range [0, 1]
+    """
 
 
 def _finite(name: str, value: float, allowed: str = "(-inf, inf), finite") -> float:
@@ -120,7 +143,33 @@ class ShiftTensor:
     # ----- constructors -------------------------------------------------
     @classmethod
     def from_span_skew(cls, iso_ppm: float, span_ppm: float, skew: float) -> "ShiftTensor":
-        """Build from Herzfeld-Berger span (ppm, >= 0) and skew in [-1, 1]."""
+        """Build from Herzfeld-Berger span (ppm, >= 0) and skew in [-1, 1].
+
+        Parameters
+        ----------
+        iso_ppm : float
+            Isotropic shift delta_iso (ppm).
+        span_ppm : float
+            Span Omega = d11 - d33 (ppm), >= 0.
+        skew : float
+            Skew kappa = 3 (d22 - delta_iso)/Omega, in [-1, 1].
+
+        Returns
+        -------
+        ShiftTensor
+            The same tensor in the Haeberlen convention.
+
+        References
+        ----------
+        J. Herzfeld, A. E. Berger, J. Chem. Phys. 73 (1980) 6021; J. Mason,
+        Solid State Nucl. Magn. Reson. 2 (1993) 285.
+
+        Examples
+        --------
+        >>> t = ShiftTensor.from_span_skew(0.0, 90.0, 1.0)   # axial, d11 = d22
+        >>> round(t.aniso_ppm, 6), t.eta == 0.0
+        (-60.0, True)
+        """
         span = _finite("span_ppm", span_ppm, "[0, inf)")
         kappa = _finite("skew", skew, "[-1, 1]")
         if span < 0:
@@ -136,7 +185,31 @@ class ShiftTensor:
 
     @classmethod
     def from_principal(cls, principal_ppm) -> "ShiftTensor":
-        """Build from three principal values (ppm, any order; sorted to IUPAC)."""
+        """Build from three principal values (ppm, any order; sorted to IUPAC).
+
+        Parameters
+        ----------
+        principal_ppm : sequence of 3 float
+            Principal values (ppm) in any order; they are sorted to
+            d11 >= d22 >= d33.  Their mean is the isotropic shift.
+
+        Returns
+        -------
+        ShiftTensor
+            Haeberlen parameters; when ``|d11 - iso| == |d33 - iso|`` the
+            z axis is taken along d33.
+
+        References
+        ----------
+        J. Mason, Solid State Nucl. Magn. Reson. 2 (1993) 285; U. Haeberlen,
+        *High Resolution NMR in Solids*, Adv. Magn. Reson. Suppl. 1 (1976).
+
+        Examples
+        --------
+        >>> t = ShiftTensor.from_principal([-77.5, 72.5, 35.0])
+        >>> round(t.iso_ppm, 6), round(t.aniso_ppm, 6), round(t.eta, 6)
+        (10.0, -87.5, 0.428571)
+        """
         try:
             raw = list(principal_ppm)
         except TypeError:
@@ -169,7 +242,24 @@ class ShiftTensor:
     # ----- derived views ------------------------------------------------
     @property
     def principal_haeberlen(self) -> tuple[float, float, float]:
-        """(d_xx, d_yy, d_zz) in ppm along the tensor's own x, y, z axes."""
+        """(d_xx, d_yy, d_zz) in ppm along the tensor's own x, y, z axes.
+
+        Returns
+        -------
+        tuple of 3 float
+            Haeberlen-ordered principal values (ppm),
+            ``|d_zz - iso| >= |d_xx - iso| >= |d_yy - iso|``.
+
+        References
+        ----------
+        U. Haeberlen, *High Resolution NMR in Solids*, Adv. Magn. Reson.
+        Suppl. 1 (1976).
+
+        Examples
+        --------
+        >>> ShiftTensor(0.0, 30.0, 0.5).principal_haeberlen
+        (-22.5, -7.5, 30.0)
+        """
         d = self.aniso_ppm
         return (
             self.iso_ppm - d * (1.0 + self.eta) / 2.0,
@@ -179,18 +269,65 @@ class ShiftTensor:
 
     @property
     def principal_iupac(self) -> tuple[float, float, float]:
-        """(d11, d22, d33) in ppm, d11 >= d22 >= d33."""
+        """(d11, d22, d33) in ppm, d11 >= d22 >= d33.
+
+        Returns
+        -------
+        tuple of 3 float
+            IUPAC-ordered principal values (ppm), highest shift first.
+
+        References
+        ----------
+        J. Mason, Solid State Nucl. Magn. Reson. 2 (1993) 285.
+
+        Examples
+        --------
+        >>> ShiftTensor(0.0, 30.0, 0.5).principal_iupac
+        (30.0, -7.5, -22.5)
+        """
         return tuple(sorted(self.principal_haeberlen, reverse=True))
 
     @property
     def span_ppm(self) -> float:
-        """Span Omega = d11 - d33 (ppm)."""
+        """Span Omega = d11 - d33 (ppm).
+
+        Returns
+        -------
+        float
+            Span in ppm, >= 0.
+
+        References
+        ----------
+        J. Mason, Solid State Nucl. Magn. Reson. 2 (1993) 285.
+
+        Examples
+        --------
+        >>> ShiftTensor(0.0, 30.0, 0.5).span_ppm
+        52.5
+        """
         p = self.principal_iupac
         return p[0] - p[2]
 
     @property
     def skew(self) -> float:
-        """Skew kappa = 3 (d22 - iso)/Omega; undefined for Omega = 0, returned as 0."""
+        """Skew kappa = 3 (d22 - iso)/Omega; undefined for Omega = 0, returned as 0.
+
+        Returns
+        -------
+        float
+            Skew (dimensionless) in [-1, 1].
+
+        References
+        ----------
+        J. Mason, Solid State Nucl. Magn. Reson. 2 (1993) 285.
+
+        Examples
+        --------
+        >>> round(ShiftTensor(0.0, 30.0, 0.5).skew, 6)
+        -0.428571
+        >>> ShiftTensor(5.0).skew
+        0.0
+        """
         span = self.span_ppm
         if span == 0.0:
             return 0.0
@@ -198,6 +335,23 @@ class ShiftTensor:
 
     @property
     def is_isotropic(self) -> bool:
+        """True when the tensor has no anisotropy (aniso_ppm == 0).
+
+        Returns
+        -------
+        bool
+            True for a purely isotropic shift.
+
+        References
+        ----------
+        U. Haeberlen, *High Resolution NMR in Solids*, Adv. Magn. Reson.
+        Suppl. 1 (1976).
+
+        Examples
+        --------
+        >>> ShiftTensor(5.0).is_isotropic, ShiftTensor(5.0, 1.0).is_isotropic
+        (True, False)
+        """
         return self.aniso_ppm == 0.0
 
     def matrix(self, euler_rad=(0.0, 0.0, 0.0)) -> np.ndarray:
@@ -205,6 +359,28 @@ class ShiftTensor:
 
         The columns of ``rotation_matrix(*euler_rad)`` are this tensor's
         principal axes in the reference (EFG) frame.
+
+        Parameters
+        ----------
+        euler_rad : tuple of 3 float, optional
+            ZYZ active Euler angles (alpha, beta, gamma) in radians of the
+            tensor's principal frame relative to the reference frame.
+
+        Returns
+        -------
+        numpy.ndarray, shape (3, 3)
+            ``R diag(d_xx, d_yy, d_zz) R^T`` in ppm (isotropic part included).
+
+        References
+        ----------
+        M. Mehring, *Principles of High Resolution NMR in Solids* (1983), app. B.
+
+        Examples
+        --------
+        >>> import math
+        >>> m = ShiftTensor(0.0, 30.0, 0.0).matrix((0.0, math.pi / 2, 0.0))
+        >>> round(float(m[0, 0]), 9), round(float(m[2, 2]), 9)
+        (30.0, -15.0)
         """
         r = rotation_matrix(*euler_rad)
         return r @ np.diag(self.principal_haeberlen) @ r.T
@@ -225,7 +401,7 @@ def efg_principal(eta_q: float) -> np.ndarray:
 
     References
     ----------
-    A. Abragam, *The Principles of Nuclear Magnetism* (1961), ch. VI.
+    A. Abragam, *The Principles of Nuclear Magnetism* (1961), chapter on electric quadrupole effects (from memory).
 
     Examples
     --------
@@ -252,6 +428,16 @@ def _ry(b: float) -> np.ndarray:
 def rotation_matrix(alpha: float, beta: float, gamma: float) -> np.ndarray:
     """Active ZYZ rotation ``Rz(alpha) Ry(beta) Rz(gamma)`` (angles in radians).
 
+    Parameters
+    ----------
+    alpha, beta, gamma : float
+        ZYZ Euler angles in radians.
+
+    Returns
+    -------
+    numpy.ndarray, shape (3, 3)
+        Proper orthogonal matrix; its columns are the rotated x, y, z axes.
+
     References
     ----------
     M. E. Rose, *Elementary Theory of Angular Momentum* (1957), ch. IV.
@@ -266,7 +452,34 @@ def rotation_matrix(alpha: float, beta: float, gamma: float) -> np.ndarray:
 
 
 def is_axis_permutation(r: np.ndarray, tol: float = 1e-9) -> bool:
-    """True when a rotation only permutes (and flips) the coordinate axes."""
+    """True when a rotation only permutes (and flips) the coordinate axes.
+
+    Parameters
+    ----------
+    r : array_like, shape (3, 3)
+        Rotation matrix (dimensionless).
+    tol : float, optional
+        Tolerance on each element being 0 or +-1.
+
+    Returns
+    -------
+    bool
+        True when every element of ``r`` is 0 or +-1 within ``tol``, i.e. two
+        tensors related by ``r`` share principal axes.
+
+    References
+    ----------
+    H. Goldstein, C. Poole, J. Safko, *Classical Mechanics*, 3rd ed. (2002),
+    ch. 4 (orthogonal transformations) (from memory).
+
+    Examples
+    --------
+    >>> import math
+    >>> is_axis_permutation(rotation_matrix(0.0, math.pi / 2, 0.0))
+    True
+    >>> is_axis_permutation(rotation_matrix(0.0, 0.3, 0.0))
+    False
+    """
     a = np.abs(np.asarray(r))
     return bool(np.all((a < tol) | (np.abs(a - 1.0) < tol)))
 
@@ -296,6 +509,17 @@ def spherical_components(t: np.ndarray) -> dict[int, np.ndarray]:
     Note that ``T'_{2m} = sum_k D_{m k} T_{2k}`` (without the conjugate) does
     *not* hold for these components.
 
+    Parameters
+    ----------
+    t : array_like, shape (3, 3)
+        Real Cartesian tensor (any unit, e.g. ppm or units of V_zz).
+
+    Returns
+    -------
+    dict
+        ``{0: array([T00]), 2: complex array([T2,-2, ..., T2,2])}`` in the
+        units of ``t``.
+
     References
     ----------
     M. Mehring, *Principles of High Resolution NMR in Solids* (1983), app. B.
@@ -322,7 +546,30 @@ def spherical_components(t: np.ndarray) -> dict[int, np.ndarray]:
 
 
 def cartesian_from_spherical(comp: dict[int, np.ndarray]) -> np.ndarray:
-    """Inverse of :func:`spherical_components` for a symmetric tensor."""
+    """Inverse of :func:`spherical_components` for a symmetric tensor.
+
+    Parameters
+    ----------
+    comp : dict
+        ``{0: array([T00]), 2: array([T2,-2 ... T2,2])}`` as returned by
+        :func:`spherical_components` (same units as the tensor).
+
+    Returns
+    -------
+    numpy.ndarray, shape (3, 3)
+        The real symmetric Cartesian tensor.
+
+    References
+    ----------
+    M. Mehring, *Principles of High Resolution NMR in Solids* (1983), app. B.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> t = np.array([[1.0, 0.2, 0.3], [0.2, -2.0, 0.5], [0.3, 0.5, 4.0]])
+    >>> bool(np.allclose(cartesian_from_spherical(spherical_components(t)), t))
+    True
+    """
     tr = float(np.real(comp[0][0]))
     c = comp[2]
     zz = float(np.real(c[2])) / math.sqrt(1.5)

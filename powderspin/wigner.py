@@ -58,6 +58,11 @@ def wigner_small_d(rank: int, beta: float) -> np.ndarray:
     beta : float
         Rotation angle about y in radians.
 
+    Returns
+    -------
+    numpy.ndarray, shape (2l+1, 2l+1)
+        Real matrix ``d^l_{m'm}(beta)`` indexed ``[m' + l, m + l]``.
+
     References
     ----------
     E. P. Wigner, *Group Theory* (1959), eq. 15.27; M. E. Rose, *Elementary
@@ -96,6 +101,12 @@ def wigner_D(rank: int, alpha: float, beta: float, gamma: float) -> np.ndarray:
         l >= 0 (2 and 4 are the ranks NMR needs).
     alpha, beta, gamma : float
         ZYZ Euler angles in radians.
+
+    Returns
+    -------
+    numpy.ndarray, shape (2l+1, 2l+1)
+        Complex unitary matrix ``D^l_{m'm} = exp(-i m' alpha) d^l_{m'm}(beta)
+        exp(-i m gamma)`` indexed ``[m' + l, m + l]``.
 
     References
     ----------

@@ -91,3 +91,14 @@ def test_sideband_table(tmp_path, capsys):
     out = capsys.readouterr()
     assert "band" in out.out and "offset_hz" in out.out
     assert "rated spinning rate" in out.err  # safety caution printed with spinning
+
+
+def test_output_that_is_a_folder_is_a_clear_error(tmp_path, capsys):
+    model = tmp_path / "m.toml"
+    model.write_text(MODEL)
+    folder = tmp_path / "out"
+    folder.mkdir()
+    (folder / "keep.txt").write_text("x")
+    assert main(["simulate", str(model), "-o", str(folder), "--force"]) == 2
+    assert "error:" in capsys.readouterr().err
+    assert (folder / "keep.txt").read_text() == "x"

@@ -25,7 +25,7 @@ Check sources (named again beside each test):
 * off-magic-angle spinning at infinite rate scales a rank-2 pattern by
   P2(cos theta_R) (spherical-harmonic addition theorem, common practice);
 * small-tip transition intensities I(I+1) - m(m-1) (A. Abragam, *The
-  Principles of Nuclear Magnetism* (1961), ch. II, chapter from memory;
+  Principles of Nuclear Magnetism* (1961), chapter on the motion of free spins (from memory), chapter from memory;
   common practice).
 """
 
@@ -645,7 +645,7 @@ def test_exact_route_chosen_and_centre_bands_match_numpy():
 
 
 def test_satellite_manifolds_and_transition_weights():
-    """27Al, all transitions, 10 kHz MAS, C_Q = 3 MHz, eta = 0 (first-order quadrupolar splitting, Abragam ch. VII).
+    """27Al, all transitions, 10 kHz MAS, C_Q = 3 MHz, eta = 0 (first-order quadrupolar splitting, Abragam, chapter on electric quadrupole effects, from memory).
 
     The m -> m-1 satellite follows A P2(cos theta), A = (nu_Q/2)(2m-1), with
     cos theta uniform on [0, 1]: its static pattern spans [-A/2, A] (for A > 0),
@@ -659,7 +659,7 @@ def test_satellite_manifolds_and_transition_weights():
     20 kHz: horn maximum 0.35-0.67 s inside -A/2, its half-height point within
     0.22 s of -A/2, the half-step point 0.28-0.53 s inside A).  Intensities
     follow the small-tip weights I(I+1) - m(m-1) = 5, 8, 9, 8, 5 (of 35) for
-    I = 5/2 (Abragam ch. II, from memory; common practice).
+    I = 5/2 (Abragam, chapter on the motion of free spins, from memory; common practice).
     """
     rate = 10000.0
     m = _model("27Al", {"field_tesla": 9.4, "spinning_hz": rate, "transitions": "all", "orientations": "coarse",

@@ -20,7 +20,7 @@ these components and uses their squared moduli.
 :func:`second_order_sum` gives an independent route to E2: the textbook
 Rayleigh-Schroedinger sum ``sum_{m' != m} |<m'|H_Q|m>|^2 / (E_m - E_m')`` with
 unperturbed energies ``E_m = nu0 m`` (e.g. A. Abragam, *The Principles of
-Nuclear Magnetism* (1961), ch. VII), evaluated with explicit matrices.
+Nuclear Magnetism* (1961), chapter on electric quadrupole effects (from memory)), evaluated with explicit matrices.
 """
 
 from __future__ import annotations

@@ -21,7 +21,7 @@ is made the way an experiment makes it, by adding up free induction decays.
    ``E2(m) = -(K^2 / (2 nu0)) m [(4X - 8m^2 - 1)(V_xz^2 + V_yz^2)
    - (2X - 2m^2 - 1)((V_xx - V_yy)^2 + 4 V_xy^2) / 4]``,
    ``nu = E1(m) - E1(m-1) + E2(m) - E2(m-1) + nu0 1e-6 d_zz``
-   (A. Abragam, *The Principles of Nuclear Magnetism* (1961), ch. VII, for
+   (A. Abragam, *The Principles of Nuclear Magnetism* (1961), chapter on electric quadrupole effects (from memory), for
    the first- and second-order quadrupolar level shifts).
 4. Phase: ``xi(t) = 2 pi int_0^t nu dt'`` by the cumulative Simpson rule
    (scipy.integrate.cumulative_simpson) on a fine grid over one rotor period;
