@@ -54,6 +54,8 @@ ALIAS_TOLERANCE = 1e-6
 #: triangle-band contributions below this fraction of a site's area are skipped
 #: (at most ~1e-6 of the area in all, far below any plotted feature)
 BIN_CUTOFF = 1e-13
+#: how much of the sphere each kind of orientation set covers (larger covers more)
+_COVER = {"octant": 0, "hemisphere": 1, "sphere": 2}
 
 
 @dataclass(frozen=True)
@@ -201,8 +203,7 @@ def _pick_orientations(meas, symmetry: str, exact_spinning: bool) -> Orientation
         acc = "coarse" if (o == "auto" and exact_spinning) else o
         return select_orientations(symmetry, acc, interpolate=interp)
     s = orientation_set_by_name(str(o))
-    order = {"octant": 0, "hemisphere": 1, "sphere": 2}
-    if order[s.symmetry] < order[symmetry]:
+    if _COVER[s.symmetry] < _COVER[symmetry]:
         raise ModelError(
             f"measurement: orientations = {o!r} covers only the {s.symmetry}, but these interactions "
             f"need a {symmetry} set (the shift and EFG tensors are not coaxial)"
@@ -265,7 +266,15 @@ def site_lines(
     theta = math.radians(meas.rotor_angle_deg)
     ms = tuple(float(m) for m in ms)
     exact = method == "exact"
-    oset = orientations or _pick_orientations(meas, frame.symmetry, exact and rate > 0)
+    if orientations is None:
+        oset = _pick_orientations(meas, frame.symmetry, exact and rate > 0)
+    else:
+        oset = orientations
+        if _COVER[oset.symmetry] < _COVER[frame.symmetry]:
+            raise ModelError(
+                f"orientations: the set '{oset.name}' covers only the {oset.symmetry}, but this site needs a "
+                f"{frame.symmetry} set (its shift and EFG tensors are not coaxial)"
+            )
     dirs = oset.vectors
     ideal = _ideal_weights(frame.spin, ms)
     norm = sum(transition_intensity(frame.spin, m) for m in ms)

@@ -225,3 +225,17 @@ def test_octant_reduction_matches_full_sphere_for_coaxial_tensors():
     a = simulate(m)
     b = simulate(m, orientations=triangulated(60, "sphere"))
     assert np.sqrt(np.mean((a.intensity - b.intensity) ** 2)) / b.intensity.max() < 5e-3
+
+
+def test_too_small_orientation_set_is_refused():
+    """Non-coaxial tensors break the octant symmetry (DEVELOPERS.md): an octant set must be refused."""
+    from powderspin.model import ModelError
+    from powderspin.orientations import triangulated
+
+    m = _model("23Na", {"field_tesla": 9.4, "points": 256},
+               [{"cq_mhz": 2.0, "span_ppm": 50.0, "skew": 0.1, "euler_deg": [10.0, 30.0, 0.0]}])
+    with pytest.raises(ModelError, match="covers only the octant"):
+        simulate(m, orientations=triangulated(10, "octant"))
+    with pytest.raises(ModelError, match="covers only the octant"):
+        simulate(m.with_measurement(orientations="tri-octant-10"))
+    assert simulate(m, orientations=triangulated(10, "hemisphere")).area() == pytest.approx(1.0, rel=1e-3)
