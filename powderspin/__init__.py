@@ -1,5 +1,8 @@
 """powderspin: solid-state NMR powder patterns of quadrupolar and shift-anisotropic nuclei.
 
+The names below are imported on first use, so that ``import powderspin`` (and
+commands such as ``powderspin nuclide``) do not pay for the compiled kernels.
+
 Quick start
 -----------
 >>> import powderspin as ps
@@ -10,18 +13,42 @@ Quick start
 1.0
 """
 
-__version__ = "0.1.0"
+from __future__ import annotations
 
-from .io import model_to_toml, write_model  # noqa: E402
-from .model import Measurement, Model, ModelError, Site, load_model, make_model, make_site, parse_model  # noqa: E402
-from .nuclides import Nuclide, get_nuclide, list_nuclides  # noqa: E402
-from .plotting import plot_spectrum, save_plot  # noqa: E402
-from .simulation import simulate  # noqa: E402
-from .spectrum import Spectrum  # noqa: E402
-from .tensors import ShiftTensor  # noqa: E402
+import importlib
+from importlib import metadata as _metadata
 
-__all__ = [
-    "Measurement", "Model", "ModelError", "Site", "load_model", "make_model", "make_site", "parse_model",
-    "Nuclide", "get_nuclide", "list_nuclides", "plot_spectrum", "save_plot", "simulate", "Spectrum",
-    "ShiftTensor", "model_to_toml", "write_model", "__version__",
-]
+try:
+    __version__ = _metadata.version("powderspin")
+except _metadata.PackageNotFoundError:  # pragma: no cover - an uninstalled source tree
+    __version__ = "unknown"
+
+#: public name -> module that holds it
+_EXPORTS = {
+    "Measurement": "model", "Model": "model", "ModelError": "model", "Site": "model", "FitSettings": "model",
+    "ParameterAddress": "model", "FreeParameter": "model", "TiedParameter": "model",
+    "make_model": "model", "make_site": "model",
+    "load_model": "modelfile", "parse_model": "modelfile", "model_to_toml": "modelfile", "write_model": "modelfile",
+    "Nuclide": "nuclides", "get_nuclide": "nuclides", "list_nuclides": "nuclides",
+    "plot_spectrum": "plotting", "save_plot": "plotting",
+    "simulate": "simulation", "simulate_all": "simulation",
+    "SiteJob": "site_lines", "SiteLines": "site_lines", "site_job": "site_lines", "compute_lines": "site_lines",
+    "render_lines": "site_lines",
+    "Spectrum": "spectrum",
+    "ShiftTensor": "tensors",
+}
+
+__all__ = sorted(_EXPORTS) + ["__version__"]
+
+
+def __getattr__(name: str):
+    module = _EXPORTS.get(name)
+    if module is None:
+        raise AttributeError(f"module 'powderspin' has no attribute {name!r}")
+    value = getattr(importlib.import_module(f".{module}", __name__), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_EXPORTS))

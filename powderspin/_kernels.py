@@ -95,6 +95,23 @@ def _shift_terms(delta):
             delta[1, 2] + delta[2, 1])
 
 
+@njit(cache=True, inline="always")
+def _pair_coefficients(m, mm, x, k_hz, c2):
+    """Coefficients of the offset of the level pair (m, mm) on (d_zz, V_zz, A, B).
+
+    The offset E(m) - E(mm) - (m - mm) nu0 of the high-field formulas
+    (DEVELOPERS.md, "Level energies") is linear in four orientation
+    functions: c_cs * nu0 1e-6 d_zz + c1 V_zz + c_a A + c_b B, with
+    E1(m) - E1(mm) = (3 K / 2) V_zz (m^2 - mm^2) and
+    E2(m) - E2(mm) = c2 [ca A - cb B / 4], c2 = -K^2 / (2 nu0).
+    Returns (m - mm, c1, c_a, c_b).
+    """
+    c1 = 1.5 * k_hz * (m * m - mm * mm)
+    ca = m * (4 * x - 8 * m * m - 1) - mm * (4 * x - 8 * mm * mm - 1)
+    cb = m * (2 * x - 2 * m * m - 1) - mm * (2 * x - 2 * mm * mm - 1)
+    return m - mm, c1, c2 * ca, -0.25 * c2 * cb
+
+
 # ---------------------------------------------------------------------------
 # perturbative producer
 
@@ -118,20 +135,13 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz
     x = spin * (spin + 1.0)
     t2 = vdiag[0] ** 2 + vdiag[1] ** 2 + vdiag[2] ** 2
     c2 = -(k_hz * k_hz) / (2.0 * nu0_hz) if second_order else 0.0
-    # per-transition constants for the pair of levels (m_hi, m_lo)
+    # per-transition coefficients on (d_zz, V_zz, A, B) for the pair of levels (m_hi, m_lo)
+    dm = np.empty(nt)
     c1 = np.empty(nt)
     ca = np.empty(nt)
     cb = np.empty(nt)
-    dm = np.empty(nt)
     for t in range(nt):
-        m = mhi[t]
-        mm = mlo[t]
-        # E1(m) - E1(mm) = (3 K / 2) V_zz (m^2 - mm^2)
-        c1[t] = 1.5 * k_hz * (m * m - mm * mm)
-        # E2(m) - E2(mm) = c2 * ( ca * A - cb * B / 4 )
-        ca[t] = m * (4 * x - 8 * m * m - 1) - mm * (4 * x - 8 * mm * mm - 1)
-        cb[t] = m * (2 * x - 2 * m * m - 1) - mm * (2 * x - 2 * mm * mm - 1)
-        dm[t] = m - mm
+        dm[t], c1[t], ca[t], cb[t] = _pair_coefficients(mhi[t], mlo[t], x, k_hz, c2)
     scale_cs = nu0_hz * 1e-6
     cph = np.empty(nphase)
     sph = np.empty(nphase)
@@ -148,7 +158,7 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz
                                               sin_r * sph[p], v0, v1, v2, t2, dd)
             cs = scale_cs * dzz
             for t in range(nt):
-                out[i, t, p] = dm[t] * cs + c1[t] * vzz + c2 * (ca[t] * a - cb[t] * 0.25 * bq)
+                out[i, t, p] = dm[t] * cs + c1[t] * vzz + ca[t] * a + cb[t] * bq
     return out
 
 
@@ -580,14 +590,11 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_
     # per-transition linear coefficients on (vzz, a, bq, dzz)
     coef = np.empty((nt, 4))
     for t in range(nt):
-        m = ms[t]
-        mm = m - 1.0
-        ca = m * (4 * x - 8 * m * m - 1) - mm * (4 * x - 8 * mm * mm - 1)
-        cb = m * (2 * x - 2 * m * m - 1) - mm * (2 * x - 2 * mm * mm - 1)
-        coef[t, 0] = 1.5 * k_hz * (2.0 * m - 1.0)
-        coef[t, 1] = c2 * ca
-        coef[t, 2] = -c2 * cb * 0.25
-        coef[t, 3] = scale_cs
+        dm, c1, ca, cb = _pair_coefficients(ms[t], ms[t] - 1.0, x, k_hz, c2)
+        coef[t, 0] = c1
+        coef[t, 1] = ca
+        coef[t, 2] = cb
+        coef[t, 3] = dm * scale_cs
     # sampling tables (16 phases) and harmonic tables at the P output phases
     cs16 = np.empty(ns)
     sn16 = np.empty(ns)

@@ -1,8 +1,14 @@
 """Command line: a thin layer over the Python API.
 
-    powderspin simulate MODEL.toml -o OUT.csv [--plot OUT.png] [--sidebands] [--force]
-    powderspin nuclide 27Al [--field 14.1]
-    powderspin demo [--out DIR] [--force]
+    powderspin simulate MODEL.toml -o OUT.csv [--plot OUT.png] [--sidebands [FILE]] [--force] [-q]
+    powderspin nuclide 27Al --field 14.1 | --list
+    powderspin demo [--out DIR]
+    powderspin --version
+
+Every error is one line on standard error (``error: ...``) with exit status 2;
+Ctrl-C stops at once with status 130 and leaves no partial output.  Outputs
+are checked before any computing and written atomically; an existing file is
+replaced only with ``--force`` and an input file never.
 """
 
 from __future__ import annotations
@@ -12,7 +18,7 @@ import math
 import sys
 from pathlib import Path
 
-__all__ = ["main"]
+__all__ = ["main", "build_parser", "SPINNING_CAUTION", "CliError"]
 
 SPINNING_CAUTION = (
     "caution: simulated spinning rates say nothing about what a rotor can take; never exceed the "
@@ -20,120 +26,308 @@ SPINNING_CAUTION = (
     "and follow your laboratory's rules."
 )
 
+#: marker file that says a folder was made by ``powderspin demo`` (so a rerun may replace its files)
+DEMO_MARKER = ".powderspin-demo"
+
+
+class CliError(Exception):
+    """A command-line problem reported as one line with exit status 2.
+
+    Parameters
+    ----------
+    message : str
+
+    Examples
+    --------
+    >>> str(CliError("bad range"))
+    'bad range'
+    """
+
+
+def _note(args, text: str) -> None:
+    if not getattr(args, "quiet", False):
+        print(text, file=sys.stderr)
+
+
+def _compile_note(args) -> None:
+    """Say once that the kernels will compile, when (and only when) their cache is missing."""
+    try:
+        from . import _kernels as k
+
+        missing = [d for d in (k._perturbative_offsets, k._perturbative_sidebands, k._bin_tent)
+                   if not Path(d._cache._cache_file._index_path).exists()]
+    except Exception:  # the check is a courtesy; never let it stop a run
+        return
+    if missing:
+        print("note: compiling the numerical kernels for the first time (up to a minute); later runs reuse them",
+              file=sys.stderr)
+
+
+class _Progress:
+    """A progress bar per site that appears only for work longer than two seconds."""
+
+    def __init__(self, quiet: bool):
+        self.quiet = quiet
+        self.bar = None
+        self.label = None
+
+    def __call__(self, label, done, total):
+        if self.quiet:
+            return
+        from tqdm import tqdm
+
+        if label != self.label:
+            self.close()
+            self.label = label
+            self.bar = tqdm(total=total, desc=f"site {label}", unit="orientations", delay=2.0, leave=False,
+                            file=sys.stderr)
+        if self.bar.total != total:
+            self.bar.total = total
+        self.bar.n = done
+        self.bar.refresh()
+
+    def close(self):
+        if self.bar is not None:
+            self.bar.close()
+            self.bar = None
+
+
+def _parse_range(text: str | None, what: str):
+    if text is None:
+        return None
+    try:
+        a, b = text.split(":")
+        lo, hi = float(a), float(b)
+    except ValueError:
+        raise CliError(f"{what} = {text!r} must be two numbers A:B, e.g. 120:-40") from None
+    if not (math.isfinite(lo) and math.isfinite(hi)) or lo == hi:
+        raise CliError(f"{what} = {text!r} must be two different finite numbers A:B")
+    return (lo, hi)
+
+
+def _plot_options(args) -> dict:
+    opts = {"unit": args.unit, "limits": _parse_range(args.range, "--range")}
+    if args.zoom is not None:
+        if not args.zoom > 1:
+            raise CliError(f"--zoom = {args.zoom:g} must be > 1 (a vertical magnification)")
+        opts["vertical_zoom"] = args.zoom
+    return opts
+
+
+def _cmd_simulate(args) -> int:
+    from .files import STDOUT, check_outputs
+    from .modelfile import load_model
+    from .plotting import PLOT_SUFFIXES
+
+    model_path = Path(args.model)
+    model = load_model(model_path)
+    plot_opts = _plot_options(args)
+    n_meas = len(model.measurements)
+    which = range(n_meas) if args.measurement is None else [args.measurement - 1]
+    if args.measurement is not None and not (1 <= args.measurement <= n_meas):
+        raise CliError(f"--measurement = {args.measurement} must be in [1, {n_meas}] (the model has {n_meas})")
+
+    def name_for(base: str | None, j: int) -> str | None:
+        if base is None or base == STDOUT or len(which) == 1:
+            return base
+        p = Path(base)
+        return str(p.with_name(f"{p.stem}-m{j + 1}{p.suffix}"))
+
+    if args.output == STDOUT and len(which) > 1:
+        raise CliError("-o -: the model has several measurements; give a file name (one CSV per measurement "
+                       "is written, NAME-m1.csv, NAME-m2.csv, ...) or --measurement N")
+    sidebands_file = args.sidebands if isinstance(args.sidebands, str) else None
+    outputs = []
+    for j in which:
+        outputs.append((name_for(args.output, j), "output"))
+        if args.plot:
+            outputs.append((name_for(args.plot, j), "plot", PLOT_SUFFIXES))
+        if sidebands_file:
+            outputs.append((name_for(sidebands_file, j), "sideband table"))
+    check_outputs(outputs, force=args.force, protect=[model_path])
+    from .site_lines import check_high_field
+    from .simulation import simulate
+
+    for j in which:
+        for text in check_high_field(model.sites, model.nucleus, model.measurements[j].field_tesla,
+                                     allow_strong_coupling=args.allow_strong_coupling):
+            print(f"note: {text}", file=sys.stderr)
+    _compile_note(args)
+    progress = _Progress(args.quiet)
+    spectra = []
+    try:
+        for j in which:
+            spectra.append((j, simulate(model, measurement=j, progress=progress,
+                                        allow_strong_coupling=args.allow_strong_coupling)))
+    finally:
+        progress.close()
+    for j, spec in spectra:
+        for note in spec.metadata.get("notes", []):
+            if "nu_Q is" in note:
+                continue  # already said before computing
+            print(f"note: {note}", file=sys.stderr)
+        meas = model.measurements[j]
+        if meas.spinning_hz > 0 and math.isfinite(meas.spinning_hz):
+            _note(args, SPINNING_CAUTION)
+        out = name_for(args.output, j)
+        spec.write_csv(out, force=args.force, protect=[model_path])
+        if out != STDOUT:
+            print(f"wrote {out} ({spec.hz.size} points, {len(spec.site_labels)} site(s))", file=sys.stderr)
+        if args.plot:
+            from .plotting import save_plot
+
+            p = name_for(args.plot, j)
+            save_plot(spec, p, force=args.force, protect=[model_path], **plot_opts)
+            print(f"wrote {p}", file=sys.stderr)
+        if sidebands_file:
+            from .files import write_text_atomic
+
+            p = name_for(sidebands_file, j)
+            write_text_atomic(p, spec.sideband_csv_text(), force=args.force, protect=[model_path],
+                              role="sideband table")
+            print(f"wrote {p}", file=sys.stderr)
+        if args.sidebands is True or sidebands_file:
+            stream = sys.stderr if args.output == STDOUT else sys.stdout
+            print(spec.sideband_table(), end="", file=stream)
+    return 0
+
+
+def _cmd_nuclide(args) -> int:
+    from . import nuclides as nuc_mod
+
+    if args.list:
+        table = getattr(nuc_mod, "nuclide_table_text", None)
+        if table is not None:
+            print(table(), end="")
+        else:
+            for n in nuc_mod.list_nuclides():
+                print(f"{n.name:>6}  spin {n.spin_label:>4}")
+        return 0
+    if args.name is None:
+        raise CliError("nuclide: give a nucleus (e.g. 27Al) or --list")
+    nucleus = nuc_mod.get_nuclide(args.name)
+    if args.field is None:
+        raise CliError("nuclide: --field is required (the magnetic field in tesla, e.g. --field 14.1)")
+    from .model import check_number
+
+    check_number("nuclide", "field_tesla", args.field, "measurement")
+    print(nuc_mod.nuclide_summary(nucleus, args.field))
+    return 0
+
 
 def _demo_model_path() -> Path:
     return Path(__file__).resolve().parent / "data" / "demo.toml"
 
 
-def _cmd_simulate(args) -> int:
-    from .model import load_model
-    from .simulation import simulate
-    from .spectrum import write_text_safely
-
-    model = load_model(args.model)
-    out = Path(args.output)
-    plot = Path(args.plot) if args.plot else None
-    for p in [out] + ([plot] if plot else []):
-        if p.exists() and p.resolve() == Path(args.model).resolve():
-            raise SystemExit(f"error: output {str(p)!r} is the model file; choose another name")
-        if p.exists() and not args.force:
-            raise SystemExit(f"error: output {str(p)!r} exists; pass --force to overwrite it")
-    spec = simulate(model)
-    for note in spec.metadata.get("notes", []):
-        print(f"note: {note}", file=sys.stderr)
-    if model.measurement.spinning_hz > 0 and math.isfinite(model.measurement.spinning_hz):
-        print(SPINNING_CAUTION, file=sys.stderr)
-    write_text_safely(out, spec.csv_text(), force=args.force, protect=[args.model])
-    print(f"wrote {out} ({spec.hz.size} points, {len(spec.site_labels)} site(s))")
-    if plot:
-        from .plotting import save_plot
-
-        save_plot(spec, plot, force=args.force)
-        print(f"wrote {plot}")
-    if args.sidebands:
-        print(spec.sideband_table(), end="")
-    return 0
-
-
-def _cmd_nuclide(args) -> int:
-    from .nuclides import get_nuclide, nuclide_summary
-
-    print(nuclide_summary(get_nuclide(args.name), args.field))
-    return 0
+def _demo_folder(requested: str) -> Path:
+    """The demo's folder: its own (marked) folder may be reused; a foreign one is never touched."""
+    base = Path(requested)
+    candidates = [base] + [base.with_name(f"{base.name}-{k}") for k in range(2, 100)]
+    for p in candidates:
+        if not p.exists() or (p.is_dir() and (p / DEMO_MARKER).exists()):
+            return p
+    raise CliError(f"demo: {str(base)!r} and its numbered variants exist and were not made by the demo; "
+                   "give --out NEW_FOLDER")
 
 
 def _cmd_demo(args) -> int:
-    from .model import load_model
+    from .files import check_outputs, write_text_atomic
+    from .modelfile import load_model
     from .plotting import save_plot
     from .simulation import simulate
-    from .spectrum import write_text_safely
 
-    outdir = Path(args.out)
-    outdir.mkdir(parents=True, exist_ok=True)
+    outdir = _demo_folder(args.out)
+    if outdir != Path(args.out):
+        print(f"note: {args.out!r} holds files the demo did not make; writing to {str(outdir)!r} instead",
+              file=sys.stderr)
     csv, png = outdir / "demo_spectrum.csv", outdir / "demo_spectrum.png"
-    for p in (csv, png):
-        if p.exists() and not args.force:
-            raise SystemExit(f"error: output {str(p)!r} exists; pass --force to overwrite it")
+    check_outputs([(csv, "output"), (png, "plot", (".png",))], force=True)
     model = load_model(_demo_model_path())
-    print("note: the first run compiles the numerical kernels (up to a minute); later runs reuse them",
-          file=sys.stderr)
+    _compile_note(args)
     print(f"demo: {model.nucleus.name}, {len(model.sites)} sites, {model.measurement.field_tesla} T, "
           f"{model.measurement.spinning_hz / 1e3:g} kHz MAS (model: {_demo_model_path()})")
     spec = simulate(model)
-    write_text_safely(csv, spec.csv_text(), force=args.force)
-    save_plot(spec, png, force=args.force)
+    outdir.mkdir(parents=True, exist_ok=True)
+    write_text_atomic(outdir / DEMO_MARKER, "made by powderspin demo; its files may be replaced by a rerun\n",
+                      force=True)
+    spec.write_csv(csv, force=True)
+    save_plot(spec, png, force=True)
     print(spec.sideband_table(), end="")
     print(f"wrote {csv} and {png}")
-    print(SPINNING_CAUTION, file=sys.stderr)
+    _note(args, SPINNING_CAUTION)
     return 0
 
 
 def build_parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(prog="powderspin", description="Solid-state NMR powder patterns.")
+    """The argument parser of the ``powderspin`` command.
+
+    Returns
+    -------
+    argparse.ArgumentParser
+
+    Examples
+    --------
+    >>> build_parser().parse_args(["nuclide", "27Al", "--field", "9.4"]).field
+    9.4
+    """
+    from . import __version__
+
+    p = argparse.ArgumentParser(prog="powderspin", description="Solid-state NMR powder patterns: simulate.")
+    p.add_argument("--version", action="version", version=f"powderspin {__version__}")
     sub = p.add_subparsers(dest="command", required=True)
 
     s = sub.add_parser("simulate", help="simulate the spectrum of a TOML model file")
     s.add_argument("model", help="model file (TOML)")
-    s.add_argument("-o", "--output", required=True, help="CSV file to write (ppm,hz,intensity)")
-    s.add_argument("--plot", help="also write a figure (PNG)")
-    s.add_argument("--sidebands", action="store_true", help="print the sideband table")
+    s.add_argument("-o", "--output", required=True, help="CSV file to write ('-' for standard output)")
+    s.add_argument("--plot", help="also write a figure (.png, .pdf or .svg)")
+    s.add_argument("--sidebands", nargs="?", const=True, default=None, metavar="FILE",
+                   help="print the sideband table; with FILE also write it as CSV")
+    s.add_argument("--measurement", type=int, help="simulate only measurement N (1-based) of several")
+    s.add_argument("--unit", choices=("ppm", "khz"), default="ppm", help="plot axis unit (default ppm)")
+    s.add_argument("--range", help="plot axis range A:B in the plot unit, e.g. 120:-40")
+    s.add_argument("--zoom", type=float, help="also plot the sum magnified N times (shows satellites)")
+    s.add_argument("--allow-strong-coupling", action="store_true",
+                   help="compute sites whose nu_Q exceeds half the Larmor frequency (refused by default)")
     s.add_argument("--force", action="store_true", help="overwrite existing output files")
+    s.add_argument("-q", "--quiet", action="store_true", help="no progress bars or cautions")
     s.set_defaults(func=_cmd_simulate)
 
-    n = sub.add_parser("nuclide", help="print the NMR data of a nucleus")
-    n.add_argument("name", help="nucleus, e.g. 27Al")
-    n.add_argument("--field", type=float, default=14.1, help="magnetic field in tesla (default 14.1)")
+    n = sub.add_parser("nuclide", help="print the NMR data of a nucleus, or list them all")
+    n.add_argument("name", nargs="?", help="nucleus, e.g. 27Al")
+    n.add_argument("--field", type=float, help="magnetic field in tesla (required with a nucleus)")
+    n.add_argument("--list", action="store_true", help="list every nucleus in the table")
     n.set_defaults(func=_cmd_nuclide)
 
     d = sub.add_parser("demo", help="simulate the bundled example and write a CSV and a PNG")
     d.add_argument("--out", default="powderspin-demo", help="output folder (default ./powderspin-demo)")
-    d.add_argument("--force", action="store_true", help="overwrite existing output files")
+    d.add_argument("-q", "--quiet", action="store_true", help="no cautions")
+    d.add_argument("--force", action="store_true", help=argparse.SUPPRESS)  # accepted; the demo owns its folder
     d.set_defaults(func=_cmd_demo)
     return p
 
 
 def main(argv=None) -> int:
-    """Run the ``powderspin`` command line: ``simulate``, ``nuclide`` or ``demo``.
+    """Run the ``powderspin`` command line.
 
-    Model and input errors (ValueError) and refused overwrites are printed as
-    one ``error: ...`` line on standard error, with exit status 2.
+    Model and input errors and refused overwrites are printed as one
+    ``error: ...`` line on standard error, with exit status 2; Ctrl-C gives
+    one line and status 130.
 
     Parameters
     ----------
     argv : list of str, optional
-        Arguments after the program name; ``sys.argv[1:]`` when None.  Fields
-        are given in tesla (``--field``), model files use Hz, ppm and degrees.
+        Arguments after the program name; ``sys.argv[1:]`` when None.
 
     Returns
     -------
     int
-        Exit status: 0 on success, 2 for bad input or an existing output file.
+        Exit status: 0 on success, 2 for bad input or an existing output
+        file, 130 when interrupted.
 
     References
     ----------
     R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795 (the nuclear data
-    printed by ``nuclide``); M. H. Levitt, J. Magn. Reson. 82 (1989) 427
-    (the sidebands printed by ``simulate --sidebands``).
+    printed by ``nuclide``).
 
     Examples
     --------
@@ -144,13 +338,22 @@ def main(argv=None) -> int:
     >>> main(["simulate", "/nonexistent/model.toml", "-o", "/nonexistent/out.csv"])
     2
     """
-    args = build_parser().parse_args(argv)
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as e:  # argparse: usage errors exit 2 after one message, --help/--version exit 0
+        return int(e.code or 0)
     try:
         return args.func(args)
-    except ValueError as e:  # model and input errors: one clear line, no traceback
-        print(f"error: {e}", file=sys.stderr)
-        return 2
-    except OSError as e:  # existing outputs, unwritable folders, an output that is a directory ...
+    except KeyboardInterrupt:
+        print("interrupted; no output was written for the unfinished step", file=sys.stderr)
+        return 130
+    except SystemError as e:  # an interrupt that arrives inside a compiled kernel
+        if isinstance(e.__cause__ or e.__context__, KeyboardInterrupt):
+            print("interrupted; no output was written for the unfinished step", file=sys.stderr)
+            return 130
+        raise
+    except (ValueError, OSError, CliError) as e:  # input errors, files: one clear line, no traceback
         print(f"error: {e}", file=sys.stderr)
         return 2
 

@@ -35,7 +35,8 @@ __all__ = [
     "exact_offsets",
     "multiple_quantum_offsets",
     "transition_intensity",
-    "needs_exact",
+    "perturbation_error_hz",
+    "probe_directions",
 ]
 
 
@@ -404,8 +405,26 @@ def transition_intensity(spin: float, m: float) -> float:
     return spin * (spin + 1.0) - m * (m - 1.0)
 
 
-def _probe_directions(count: int = 96) -> np.ndarray:
-    """Quasi-uniform directions (a golden-angle spiral) for quick checks."""
+def probe_directions(count: int = 96) -> np.ndarray:
+    """Quasi-uniform directions on the upper hemisphere (a golden-angle spiral) for quick checks.
+
+    Parameters
+    ----------
+    count : int, optional
+        Number of directions.
+
+    Returns
+    -------
+    numpy.ndarray, shape (count, 3)
+        Unit vectors with z > 0 (all high-field terms are of even rank, so a
+        hemisphere represents the sphere).
+
+    Examples
+    --------
+    >>> d = probe_directions(10)
+    >>> d.shape, bool(np.allclose(np.linalg.norm(d, axis=1), 1.0))
+    ((10, 3), True)
+    """
     i = np.arange(count) + 0.5
     z = 1.0 - i / count  # upper hemisphere suffices (even-rank terms)
     phi = i * math.pi * (3.0 - math.sqrt(5.0))
@@ -413,11 +432,12 @@ def _probe_directions(count: int = 96) -> np.ndarray:
     return np.column_stack([r * np.cos(phi), r * np.sin(phi), z])
 
 
-def needs_exact(frame: SiteFrame, ms, *, rotor_angle_rad: float = 0.0, phases: int = 1) -> float:
+def perturbation_error_hz(frame: SiteFrame, ms, *, rotor_angle_rad: float = 0.0, phases: int = 1) -> float:
     """Largest perturbative error (Hz) over probe orientations, by exact diagonalisation.
 
-    ``method = "auto"`` uses this: when the returned error exceeds the
-    requested resolution, the exact producer is used.  Returns 0.0 for
+    ``method = "auto"`` uses this (:func:`powderspin.site_lines.choose_method`):
+    when the returned error exceeds half an axis point, the exact producer is
+    used.  Returns 0.0 for
     spin 1/2 or C_Q = 0 (first-order shift is exact at high field).
 
     Parameters
@@ -448,14 +468,14 @@ def needs_exact(frame: SiteFrame, ms, *, rotor_angle_rad: float = 0.0, phases: i
     >>> from powderspin.model import Site
     >>> from powderspin.nuclides import get_nuclide
     >>> al = get_nuclide("27Al")
-    >>> needs_exact(site_frame(Site(cq_mhz=3.0), al, 14.1), [0.5]) < 1.0      # Hz
+    >>> perturbation_error_hz(site_frame(Site(cq_mhz=3.0), al, 14.1), [0.5]) < 1.0      # Hz
     True
-    >>> needs_exact(site_frame(Site(cq_mhz=20.0), al, 9.4), [0.5]) > 10.0     # Hz
+    >>> perturbation_error_hz(site_frame(Site(cq_mhz=20.0), al, 9.4), [0.5]) > 10.0     # Hz
     True
     """
     if frame.k_hz == 0.0:
         return 0.0
-    d = _probe_directions()
+    d = probe_directions()
     a = perturbative_offsets(frame, d, ms, rotor_angle_rad=rotor_angle_rad, phases=phases)
     b, _ = exact_offsets(frame, d, ms, rotor_angle_rad=rotor_angle_rad, phases=phases)
     return float(np.max(np.abs(a - b)))

@@ -1,70 +1,58 @@
-"""Sites, measurements and models: the values a simulation is made from.
+"""Sites, measurements and models: the values a simulation or a fit is made from.
 
-A model file is TOML with the keys below (all frequencies in Hz, shifts in
-ppm, angles in degrees in files and radians inside)::
+The values are frozen dataclasses checked against the key table of
+:mod:`powderspin.schema` (units, ranges, defaults).  Reading and writing model
+files is :mod:`powderspin.modelfile`; building values from Python dicts with
+the same keys is :func:`make_model` / :func:`make_site`.
 
-    nucleus = "27Al"
+Free and tied parameters
+------------------------
+A model may mark parameters free (start value and bounds) or tie one to
+another.  Each has a structured :class:`ParameterAddress` (which table, which
+site or measurement, which key), and :meth:`Model.with_parameters` returns a
+new model with new values, ties applied.
 
-    [measurement]
-    field_tesla = 14.1
-    spinning_hz = 0            # 0 = static, "inf" or inf = infinite rate
-    rotor_angle_deg = 54.7356  # default: the magic angle
-    transitions = "central"    # "central" | "all" | ["3/2:1/2", ...]
-    method = "auto"            # "auto" | "perturbation" | "exact"
-    points = 2048
-    center_ppm = 0.0           # optional; chosen from the lines when absent
-    width_ppm = 200.0          # optional
-    orientations = "auto"      # "auto" | "coarse" | "fine" | a set name
-    binning = "interpolate"    # "interpolate" (triangle tent) | "histogram"
-    rotor_phases = "auto"      # number of rotor phases sampled per period
-    lorentz_hz = 0.0
-    gauss_hz = 0.0
-
-    [[site]]
-    label = "AlO4"
-    weight = 1.0
-    shift_ppm = 60.0
-    cq_mhz = 3.0
-    eta_q = 0.4
-    span_ppm = 40 ; skew = 0.2   # or aniso_ppm + eta_cs, or principal_ppm = [d11, d22, d33]
-    euler_deg = [0, 0, 0]        # shift frame relative to EFG frame (ZYZ, active)
-    lorentz_hz = 0.0
-    gauss_hz = 0.0
-
-A number may be replaced by an inline table ``{ start = 3.0, min = 0.5,
-max = 8.0 }`` marking a free parameter for fitting; simulations use
-``start``.
+All frequencies are in Hz, shifts in ppm, C_Q in MHz, angles in degrees in
+files and values (radians inside the engine).
 """
 
 from __future__ import annotations
 
 import math
-import tomllib
 from dataclasses import dataclass, field, replace
 from fractions import Fraction
-from pathlib import Path
-from typing import Any
+from typing import Any, Mapping
 
 import numpy as np
 
 from .nuclides import Nuclide, get_nuclide
+from .schema import key_spec
 from .tensors import ShiftTensor, TensorError
 
 __all__ = [
     "ModelError",
     "MAGIC_ANGLE_DEG",
+    "ParameterAddress",
     "FreeParameter",
+    "TiedParameter",
     "Site",
     "Measurement",
+    "FitSettings",
     "Model",
-    "load_model",
-    "parse_model",
+    "make_model",
+    "make_site",
     "parse_transition",
+    "selected_transitions",
+    "site_key_values",
 ]
 
 #: The magic angle arccos(1/sqrt 3) in degrees (about 54.7356), the default
 #: rotor angle (E. R. Andrew, A. Bradbury, R. G. Eades, Nature 182 (1958) 1659).
 MAGIC_ANGLE_DEG = math.degrees(math.acos(1.0 / math.sqrt(3.0)))
+
+#: finest axis point spacing a model may ask for (Hz): far below the width of
+#: any solid-state NMR line, and still printed distinctly in the CSV output
+MIN_POINT_SPACING_HZ = 0.01
 
 
 class ModelError(ValueError):
@@ -79,52 +67,199 @@ class ModelError(ValueError):
         Where the problem is (``"site 'AlO4': eta_q"``), the value and the
         allowed range.
 
-    References
-    ----------
-    TOML v1.0.0 specification (toml.io), for the file syntax; R. K. Harris
-    et al., Pure Appl. Chem. 80 (2008) 59, for the parameter conventions.
-
     Examples
     --------
     >>> try:
     ...     Site(eta_q=1.5)
     ... except ModelError as e:
     ...     print(e)
-    site 'site': eta_q = 1.5 is outside the allowed range [0, 1]
+    site 'site': eta_q = 1.5 is outside the allowed range [0, 1] (|V_zz| >= |V_yy| >= |V_xx| by convention)
     """
 
 
-@dataclass(frozen=True)
-class FreeParameter:
-    """A parameter marked free in a model file: start value and bounds.
+def check_number(where: str, key: str, value, table: str) -> float:
+    """Check a number against the key table; return it as float.
 
     Parameters
     ----------
     where : str
-        The key it belongs to, e.g. ``"site 'AlO4'.cq_mhz"``.
+        Where the key is, for the message (``"site 'AlO4'"``, ``"measurement"``).
+    key : str
+        The key (its range comes from :mod:`powderspin.schema`).
+    value : object
+        The value.
+    table : {"measurement", "site", "fit"}
+
+    Returns
+    -------
+    float
+
+    Raises
+    ------
+    ModelError
+        For a non-number, NaN or a value outside the key's range; the message
+        names the key, the value, the range and why.
+
+    Examples
+    --------
+    >>> check_number("measurement", "field_tesla", 9.4, "measurement")
+    9.4
+    """
+    spec = key_spec(table, key)
+    if isinstance(value, bool):
+        raise ModelError(f"{where}: {key} must be a number ({spec.unit or 'dimensionless'}), got {value!r}")
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise ModelError(f"{where}: {key} must be a number ({spec.unit or 'dimensionless'}), got {value!r}") from None
+    low_bad = v <= spec.low if spec.low_open else v < spec.low
+    if math.isnan(v) or low_bad or v > spec.high:
+        why = f" ({spec.why})" if spec.why else ""
+        raise ModelError(f"{where}: {key} = {value!r} is outside the allowed range {spec.range_text()}{why}")
+    return v
+
+
+# ---------------------------------------------------------------------------
+# parameter addresses
+
+
+@dataclass(frozen=True, order=True)
+class ParameterAddress:
+    """Where a parameter lives: a site or measurement (by index) and a key.
+
+    Parameters
+    ----------
+    table : {"site", "measurement"}
+    index : int
+        Index of the site or measurement (0-based, model order).
+    key : str
+        Model-file key, e.g. ``"cq_mhz"``.
+    item : int or None
+        Component of a list-valued key (``euler_deg``: 0, 1, 2).
+
+    Examples
+    --------
+    >>> a = ParameterAddress("site", 0, "cq_mhz")
+    >>> a.key, a.index
+    ('cq_mhz', 0)
+    """
+
+    table: str
+    index: int
+    key: str
+    item: int | None = None
+
+    def __post_init__(self):
+        if self.table not in ("site", "measurement"):
+            raise ModelError(f"parameter address: table = {self.table!r} is not one of 'site', 'measurement'")
+        spec = key_spec(self.table, self.key) if self.key in _FREE_KEYS[self.table] else None
+        if spec is None:
+            raise ModelError(
+                f"parameter address: {self.table} key {self.key!r} cannot be a fit parameter; "
+                f"allowed keys are {', '.join(sorted(_FREE_KEYS[self.table]))}"
+            )
+        if (self.key == "euler_deg") != (self.item is not None):
+            raise ModelError("parameter address: euler_deg needs an item 0, 1 or 2; other keys take none")
+        if self.item is not None and self.item not in (0, 1, 2):
+            raise ModelError(f"parameter address: item = {self.item!r} must be 0, 1 or 2")
+
+    def name(self, model: "Model | None" = None) -> str:
+        """A readable name: ``"AlO4.cq_mhz"``, ``"AlO4.euler_deg[1]"``, ``"measurement 2.gauss_hz"``.
+
+        Parameters
+        ----------
+        model : Model, optional
+            Gives the site label; without it the site is named by index.
+
+        Returns
+        -------
+        str
+
+        Examples
+        --------
+        >>> ParameterAddress("measurement", 0, "gauss_hz").name()
+        'measurement 1.gauss_hz'
+        """
+        item = f"[{self.item}]" if self.item is not None else ""
+        if self.table == "measurement":
+            return f"measurement {self.index + 1}.{self.key}{item}"
+        if model is not None and self.index < len(model.sites):
+            return f"{model.sites[self.index].label}.{self.key}{item}"
+        return f"site {self.index + 1}.{self.key}{item}"
+
+
+_FREE_KEYS = {
+    "site": {"weight", "shift_ppm", "cq_mhz", "eta_q", "span_ppm", "skew", "aniso_ppm", "eta_cs",
+             "euler_deg", "lorentz_hz", "gauss_hz"},
+    "measurement": {"lorentz_hz", "gauss_hz", "shift_offset_ppm"},
+}
+
+
+@dataclass(frozen=True)
+class FreeParameter:
+    """A parameter marked free: start value and bounds.
+
+    Parameters
+    ----------
+    address : ParameterAddress
+        Which parameter.
     start : float
         Start value, in the unit of that key (MHz, ppm, Hz, degrees, ...);
         simulations use it.
     min, max : float
-        Bounds in the same unit (default -inf, inf).
-
-    References
-    ----------
-    W. H. Press et al., *Numerical Recipes*, 3rd ed. (2007), ch. 15
-    (modelling of data; bounded parameters) (from memory).
+        Bounds in the same unit (default: the key's allowed range).
+    name : str
+        Readable name (``"AlO4.cq_mhz"``), for tables and messages.
 
     Examples
     --------
-    >>> m = parse_model({"nucleus": "27Al",
-    ...                  "site": [{"cq_mhz": {"start": 3.0, "min": 0.5, "max": 8.0}}]})
-    >>> m.free[0]
-    FreeParameter(where="site 'site 1'.cq_mhz", start=3.0, min=0.5, max=8.0)
+    >>> m = make_model("27Al", {"field_tesla": 9.4},
+    ...                [{"label": "A", "cq_mhz": {"start": 3.0, "min": 0.5, "max": 8.0}}])
+    >>> fp = m.free[0]
+    >>> fp.name, fp.start, fp.min, fp.max
+    ('A.cq_mhz', 3.0, 0.5, 8.0)
     """
 
-    where: str
+    address: ParameterAddress
     start: float
     min: float = -math.inf
     max: float = math.inf
+    name: str = ""
+
+
+@dataclass(frozen=True)
+class TiedParameter:
+    """A parameter that takes another one's value (``{ same_as = "LABEL.key" }``).
+
+    Parameters
+    ----------
+    address : ParameterAddress
+        The tied parameter.
+    source : ParameterAddress
+        The parameter it follows (same key).
+    name, source_name : str
+        Readable names.
+
+    Examples
+    --------
+    >>> m = make_model("27Al", {"field_tesla": 9.4},
+    ...                [{"label": "A", "gauss_hz": 100.0},
+    ...                 {"label": "B", "gauss_hz": {"same_as": "A.gauss_hz"}}])
+    >>> m.tied[0].name, m.tied[0].source_name, m.sites[1].gauss_hz
+    ('B.gauss_hz', 'A.gauss_hz', 100.0)
+    """
+
+    address: ParameterAddress
+    source: ParameterAddress
+    name: str = ""
+    source_name: str = ""
+
+
+# ---------------------------------------------------------------------------
+# values
+
+
+_SHIFT_FORMS = ("iso", "span_skew", "haeberlen", "principal")
 
 
 @dataclass(frozen=True)
@@ -134,7 +269,7 @@ class Site:
     Parameters
     ----------
     label : str
-        Name shown in plots and tables.
+        Name shown in plots and tables; unique within a model.
     weight : float
         Relative population (>= 0); the site's selected transitions integrate
         to it.
@@ -149,12 +284,17 @@ class Site:
         to the EFG principal frame.
     lorentz_hz, gauss_hz : float
         Extra Lorentzian / Gaussian broadening of this site (FWHM, Hz).
+    shift_form : {"iso", "span_skew", "haeberlen", "principal"}
+        How the shift tensor was given (it is written back the same way).
+    shift_given : tuple of float
+        The values as given in that form ((span, skew), (aniso, eta) or the
+        three principal values), so that they are written back exactly;
+        empty when the tensor was given as a :class:`ShiftTensor`.
 
     References
     ----------
-    M. J. Duer, *Introduction to Solid-State NMR Spectroscopy* (2004)
-    (shift and quadrupolar interactions) (from memory); J. Mason, Solid
-    State Nucl. Magn. Reson. 2 (1993) 285 (shift-tensor conventions).
+    J. Mason, Solid State Nucl. Magn. Reson. 2 (1993) 285 (shift-tensor
+    conventions).
 
     Examples
     --------
@@ -171,20 +311,31 @@ class Site:
     euler_deg: tuple[float, float, float] = (0.0, 0.0, 0.0)
     lorentz_hz: float = 0.0
     gauss_hz: float = 0.0
+    shift_form: str = "haeberlen"
+    shift_given: tuple = ()
 
     def __post_init__(self):
+        if not isinstance(self.label, str) or not self.label.strip():
+            raise ModelError(f"site: label = {self.label!r} must be a non-empty text")
+        if any(c in self.label for c in "\n\r\t"):
+            raise ModelError(f"site: label = {self.label!r} must be one line of text")
         where = f"site '{self.label}'"
-        _check_range(f"{where}: weight", self.weight, 0.0, math.inf)
-        _check_range(f"{where}: cq_mhz", self.cq_mhz, -1e4, 1e4)
-        _check_range(f"{where}: eta_q", self.eta_q, 0.0, 1.0)
-        _check_range(f"{where}: lorentz_hz", self.lorentz_hz, 0.0, math.inf)
-        _check_range(f"{where}: gauss_hz", self.gauss_hz, 0.0, math.inf)
-        e = tuple(float(x) for x in self.euler_deg)
-        if len(e) != 3 or not all(math.isfinite(x) for x in e):
-            raise ModelError(f"{where}: euler_deg must be 3 finite angles in degrees, got {self.euler_deg!r}")
+        for key in ("weight", "cq_mhz", "eta_q", "lorentz_hz", "gauss_hz"):
+            object.__setattr__(self, key, check_number(where, key, getattr(self, key), "site"))
+        try:
+            e = tuple(float(x) for x in self.euler_deg)
+        except (TypeError, ValueError):
+            raise ModelError(f"{where}: euler_deg must be 3 angles in degrees, got {self.euler_deg!r}") from None
+        if len(e) != 3:
+            raise ModelError(f"{where}: euler_deg must be 3 angles in degrees, got {self.euler_deg!r}")
+        e = tuple(check_number(where, "euler_deg", x, "site") for x in e)
         object.__setattr__(self, "euler_deg", e)
         if not isinstance(self.shift, ShiftTensor):
             raise ModelError(f"{where}: shift must be a ShiftTensor")
+        for key, v in (("shift_ppm", self.shift.iso_ppm), ("aniso_ppm", self.shift.aniso_ppm)):
+            check_number(where, key, v, "site")
+        if self.shift_form not in _SHIFT_FORMS:
+            raise ModelError(f"{where}: shift_form = {self.shift_form!r} is not one of {', '.join(_SHIFT_FORMS)}")
 
     @property
     def euler_rad(self) -> tuple[float, float, float]:
@@ -193,11 +344,6 @@ class Site:
         Returns
         -------
         tuple of 3 float
-            ``euler_deg`` converted to radians.
-
-        References
-        ----------
-        M. E. Rose, *Elementary Theory of Angular Momentum* (1957), ch. IV.
 
         Examples
         --------
@@ -215,11 +361,6 @@ class Site:
         float
             ``cq_mhz * 1e6``.
 
-        References
-        ----------
-        A. Abragam, *The Principles of Nuclear Magnetism* (1961), chapter on
-        electric quadrupole effects (from memory).
-
         Examples
         --------
         >>> Site(cq_mhz=2.5).cq_hz
@@ -230,14 +371,15 @@ class Site:
 
 @dataclass(frozen=True)
 class Measurement:
-    """How the spectrum is recorded and computed.
+    """How a spectrum is recorded and computed.
 
     Parameters
     ----------
     field_tesla : float
-        Magnetic field B0 (T), > 0.
+        Magnetic field B0 (T), in [0.1, 40]; required.
     spinning_hz : float
-        Spinning rate (Hz): 0 = static, ``math.inf`` = infinitely fast.
+        Spinning rate (Hz): 0 = static, ``math.inf`` = infinitely fast,
+        otherwise at most 200 kHz.
     rotor_angle_deg : float
         Angle between rotor axis and B0 (degrees), default the magic angle.
     transitions : str or tuple of str
@@ -249,13 +391,19 @@ class Measurement:
     center_ppm, width_ppm : float or None
         Axis centre and full width (ppm); chosen from the lines when None.
     orientations : str or int
-        ``"auto"``, ``"coarse"``, ``"fine"``, a subdivision count or a set name.
+        ``"auto"``, ``"coarse"``, ``"medium"``, ``"fine"``, an accuracy level
+        (subdivisions per octahedron edge, 1 to 1024) or a set name.
     binning : str
         ``"interpolate"`` (triangle interpolation) or ``"histogram"``.
     rotor_phases : str or int
-        ``"auto"`` or the number of rotor phases per period (power of 2, >= 8).
+        ``"auto"`` or the number of rotor phases per period (a power of 2,
+        16 to 65536).
     lorentz_hz, gauss_hz : float
         Broadening applied to every site (FWHM, Hz).
+    shift_offset_ppm : float
+        Referencing offset added to every shift of this measurement (ppm).
+    data : str or None
+        Measured spectrum for fitting (path, relative to the model file).
 
     References
     ----------
@@ -269,7 +417,7 @@ class Measurement:
     (54.7356, False, 'central')
     """
 
-    field_tesla: float = 9.4
+    field_tesla: float
     spinning_hz: float = 0.0
     rotor_angle_deg: float = MAGIC_ANGLE_DEG
     transitions: Any = "central"
@@ -282,58 +430,68 @@ class Measurement:
     rotor_phases: Any = "auto"
     lorentz_hz: float = 0.0
     gauss_hz: float = 0.0
+    shift_offset_ppm: float = 0.0
+    data: str | None = None
 
     def __post_init__(self):
-        _check_range("measurement: field_tesla", self.field_tesla, 0.0, 100.0, open_low=True)
-        sp = float(self.spinning_hz)
-        if math.isnan(sp) or sp < 0:
+        w = "measurement"
+        object.__setattr__(self, "field_tesla", check_number(w, "field_tesla", self.field_tesla, w))
+        sp = self.spinning_hz
+        if isinstance(sp, str) and sp.strip().lower() in ("inf", "infinite", "infinity"):
+            sp = math.inf
+        if not (isinstance(sp, (int, float, np.floating, np.integer)) and not isinstance(sp, bool)
+                and math.isinf(sp) and sp > 0):
+            sp = check_number(w, "spinning_hz", sp, w)
+            if 0.0 < sp < 10.0:
+                raise ModelError(
+                    f"measurement: spinning_hz = {self.spinning_hz!r} is below 10 Hz; give 0 for a static sample "
+                    "(allowed: 0, 10 to 200000, or \"inf\")"
+                )
+        object.__setattr__(self, "spinning_hz", float(sp))
+        object.__setattr__(self, "rotor_angle_deg",
+                           check_number(w, "rotor_angle_deg", self.rotor_angle_deg, w))
+        for key in ("method", "binning"):
+            choices = key_spec(w, key).choices
+            if getattr(self, key) not in choices:
+                raise ModelError(
+                    f"measurement: {key} = {getattr(self, key)!r} is not one of "
+                    + ", ".join(repr(c) for c in choices)
+                )
+        spec = key_spec(w, "points")
+        pts = self.points
+        if isinstance(pts, bool) or not isinstance(pts, (int, np.integer)) or not (spec.low <= pts <= spec.high):
             raise ModelError(
-                f"measurement: spinning_hz = {self.spinning_hz!r} is outside the allowed range "
-                "[0, inf] (0 = static, inf = infinite rate)"
+                f"measurement: points = {pts!r} must be an integer in [{spec.low:g}, {spec.high:g}] ({spec.why})"
             )
-        object.__setattr__(self, "spinning_hz", sp)
-        _check_range("measurement: rotor_angle_deg", self.rotor_angle_deg, 0.0, 90.0)
-        if self.method not in ("auto", "perturbation", "exact"):
-            raise ModelError(
-                f"measurement: method = {self.method!r} is not one of 'auto', 'perturbation', 'exact'"
-            )
-        if self.binning not in ("interpolate", "histogram"):
-            raise ModelError(
-                f"measurement: binning = {self.binning!r} is not one of 'interpolate', 'histogram'"
-            )
-        if isinstance(self.points, bool) or int(self.points) != self.points or not (16 <= self.points <= 2**22):
-            raise ModelError(f"measurement: points = {self.points!r} must be an integer in [16, 4194304]")
-        object.__setattr__(self, "points", int(self.points))
-        if self.center_ppm is not None:
-            _check_range("measurement: center_ppm", self.center_ppm, -1e7, 1e7)
-        if self.width_ppm is not None:
-            _check_range("measurement: width_ppm", self.width_ppm, 0.0, 1e7, open_low=True)
-        _check_range("measurement: lorentz_hz", self.lorentz_hz, 0.0, math.inf)
-        _check_range("measurement: gauss_hz", self.gauss_hz, 0.0, math.inf)
+        object.__setattr__(self, "points", int(pts))
+        for key in ("center_ppm", "width_ppm"):
+            if getattr(self, key) is not None:
+                object.__setattr__(self, key, check_number(w, key, getattr(self, key), w))
+        for key in ("lorentz_hz", "gauss_hz", "shift_offset_ppm"):
+            object.__setattr__(self, key, check_number(w, key, getattr(self, key), w))
         rp = self.rotor_phases
         if rp != "auto":
-            if isinstance(rp, bool) or not isinstance(rp, (int, np.integer)) or rp < 8 or rp > 65536 or (rp & (rp - 1)):
+            spec = key_spec(w, "rotor_phases")
+            if (isinstance(rp, bool) or not isinstance(rp, (int, np.integer)) or rp < spec.low or rp > spec.high
+                    or (rp & (rp - 1))):
                 raise ModelError(
-                    f"measurement: rotor_phases = {rp!r} must be 'auto' or a power of 2 in [8, 65536]"
+                    f"measurement: rotor_phases = {rp!r} must be 'auto' or a power of 2 in "
+                    f"[{spec.low:g}, {spec.high:g}] ({spec.why})"
                 )
-        t = self.transitions
-        if isinstance(t, str):
-            if t not in ("central", "all"):
-                parse_transition(t, None)
-                t = (t,)
-        else:
-            try:
-                t = tuple(t)
-            except TypeError:
-                raise ModelError(
-                    f"measurement: transitions = {self.transitions!r} must be 'central', 'all' or a list of 'm1:m2'"
-                ) from None
-            for s in t:
-                if not isinstance(s, str):
-                    raise ModelError(f"measurement: transitions entry {s!r} must be a string 'm1:m2'")
-                parse_transition(s, None)
-        object.__setattr__(self, "transitions", t)
+            object.__setattr__(self, "rotor_phases", int(rp))
+        object.__setattr__(self, "orientations", _check_orientations(self.orientations))
+        if self.binning == "interpolate" and isinstance(self.orientations, str) and self.orientations not in \
+                key_spec(w, "orientations").choices:
+            from .orientations import orientation_set_by_name
 
+            if not orientation_set_by_name(self.orientations).has_triangles:
+                raise ModelError(
+                    f"measurement: orientations = {self.orientations!r} has no triangles, which binning = "
+                    "'interpolate' needs; use binning = \"histogram\" or a \"tri-...\" set"
+                )
+        object.__setattr__(self, "transitions", _check_transitions(self.transitions))
+        if self.data is not None and not isinstance(self.data, str):
+            raise ModelError(f"measurement: data = {self.data!r} must be a file path (text)")
     @property
     def is_static(self) -> bool:
         """True for a static sample (spinning_hz == 0 Hz).
@@ -342,14 +500,9 @@ class Measurement:
         -------
         bool
 
-        References
-        ----------
-        M. J. Duer, *Introduction to Solid-State NMR Spectroscopy* (2004)
-        (static and spinning powder patterns) (from memory).
-
         Examples
         --------
-        >>> Measurement().is_static, Measurement(spinning_hz=5000.0).is_static
+        >>> Measurement(9.4).is_static, Measurement(9.4, spinning_hz=5000.0).is_static
         (True, False)
         """
         return self.spinning_hz == 0.0
@@ -369,66 +522,253 @@ class Measurement:
 
         Examples
         --------
-        >>> Measurement(spinning_hz=math.inf).is_infinite_rate
+        >>> Measurement(9.4, spinning_hz=math.inf).is_infinite_rate
         True
         """
         return math.isinf(self.spinning_hz)
 
 
+def _check_orientations(o):
+    from .orientations import OrientationSetError, orientation_set_by_name
+
+    spec = key_spec("measurement", "orientations")
+    if isinstance(o, bool):
+        raise ModelError(f"measurement: orientations = {o!r} must be a word, a number or a set name")
+    if isinstance(o, (int, np.integer)):
+        if not (1 <= o <= 1024):
+            raise ModelError(
+                f"measurement: orientations = {o!r} is outside the allowed range [1, 1024] "
+                "(an accuracy level: subdivisions per octahedron edge)"
+            )
+        return int(o)
+    if isinstance(o, float):
+        raise ModelError(f"measurement: orientations = {o!r} must be a whole number of subdivisions in [1, 1024]")
+    if not isinstance(o, str):
+        raise ModelError(f"measurement: orientations = {o!r} must be a word, a number or a set name")
+    if o in spec.choices:
+        return o
+    try:
+        return orientation_set_by_name(o).name
+    except OrientationSetError as e:
+        raise ModelError(
+            f"measurement: orientations = {o!r} is not one of {', '.join(repr(c) for c in spec.choices)} "
+            f"nor a valid set name ({e})"
+        ) from None
+
+
+def _check_transitions(t):
+    if isinstance(t, str):
+        if t in ("central", "all"):
+            return t
+        parse_transition(t, None)
+        return (t,)
+    if isinstance(t, (list, tuple)):
+        if len(t) == 0:
+            raise ModelError(
+                "measurement: transitions = [] selects nothing; give 'central', 'all' or a list of 'm1:m2'"
+            )
+        for s in t:
+            if not isinstance(s, str):
+                raise ModelError(f"measurement: transitions entry {s!r} must be a string 'm1:m2'")
+            parse_transition(s, None)
+        if len(t) == 1 and t[0] in ("central", "all"):
+            return t[0]
+        return tuple(t)
+    raise ModelError(f"measurement: transitions = {t!r} must be 'central', 'all' or a list of 'm1:m2'")
+
+
+@dataclass(frozen=True)
+class FitSettings:
+    """The ``[fit]`` table: regions, noise region and baseline.
+
+    Parameters
+    ----------
+    regions : tuple of (float, float)
+        Fit regions (ppm_hi, ppm_lo); empty means the whole data axis.
+    noise_region : (float, float) or None
+        A signal-free region (ppm_hi, ppm_lo) for the noise level.
+    baseline_order : int or None
+        Order of the polynomial baseline solved with the scale; None for none.
+
+    Examples
+    --------
+    >>> FitSettings(regions=((90.0, 40.0),)).regions
+    ((90.0, 40.0),)
+    """
+
+    regions: tuple = ()
+    noise_region: tuple | None = None
+    baseline_order: int | None = None
+
+    def __post_init__(self):
+        regs = []
+        for i, r in enumerate(self.regions):
+            regs.append(_check_region(f"fit: regions[{i}]", r))
+        object.__setattr__(self, "regions", tuple(regs))
+        if self.noise_region is not None:
+            object.__setattr__(self, "noise_region", _check_region("fit: noise_region", self.noise_region))
+        if self.baseline_order is not None:
+            b = self.baseline_order
+            spec = key_spec("fit", "baseline_order")
+            if isinstance(b, bool) or not isinstance(b, (int, np.integer)) or not (spec.low <= b <= spec.high):
+                raise ModelError(
+                    f"fit: baseline_order = {b!r} must be an integer in [{spec.low:g}, {spec.high:g}] ({spec.why})"
+                )
+            object.__setattr__(self, "baseline_order", int(b))
+
+
+def _check_region(where, r):
+    try:
+        a, b = r
+        a, b = float(a), float(b)
+    except (TypeError, ValueError):
+        raise ModelError(f"{where} = {r!r} must be two shifts [ppm_hi, ppm_lo]") from None
+    if not (math.isfinite(a) and math.isfinite(b)) or a == b:
+        raise ModelError(f"{where} = {r!r} must be two different finite shifts [ppm_hi, ppm_lo]")
+    return (max(a, b), min(a, b))
+
+
 @dataclass(frozen=True)
 class Model:
-    """A nucleus, a measurement and one or more sites.
+    """A nucleus, one or more measurements and one or more sites.
 
     Parameters
     ----------
     nucleus : Nuclide
         The observed nucleus (:func:`powderspin.nuclides.get_nuclide`).
-    measurement : Measurement
-        Field (tesla), spinning rate (Hz), rotor angle (degrees), axis, ...
+    measurements : sequence of Measurement
+        At least one; site parameters are shared by all of them.
     sites : sequence of Site
-        At least one site; ``cq_mhz`` must be 0 for a spin-1/2 nucleus.
+        At least one, with unique labels and at least one weight > 0;
+        ``cq_mhz`` must be 0 for a spin-1/2 nucleus.
     free : tuple of FreeParameter, optional
-        Parameters marked free in the model file.
+        Parameters marked free.
+    tied : tuple of TiedParameter, optional
+        Parameters tied to another one.
+    fit : FitSettings, optional
+        The ``[fit]`` table.
     source : str, optional
-        Where the model came from (a file path), recorded in the metadata.
-
-    References
-    ----------
-    TOML v1.0.0 specification (toml.io), for the model-file syntax.
+        Where the model came from (a file path), recorded in the metadata;
+        relative ``data`` paths are resolved against its folder.
 
     Examples
     --------
     >>> m = make_model("27Al", {"field_tesla": 14.1}, [{"cq_mhz": 3.0}])
-    >>> m.nucleus.name, len(m.sites)
-    ('27Al', 1)
+    >>> m.nucleus.name, len(m.sites), m.measurement.field_tesla
+    ('27Al', 1, 14.1)
     """
 
     nucleus: Nuclide
-    measurement: Measurement
-    sites: tuple[Site, ...]
-    free: tuple[FreeParameter, ...] = ()
+    measurements: tuple
+    sites: tuple
+    free: tuple = ()
+    tied: tuple = ()
+    fit: FitSettings = field(default_factory=FitSettings)
     source: str = ""
 
     def __post_init__(self):
+        if isinstance(self.measurements, Measurement):
+            object.__setattr__(self, "measurements", (self.measurements,))
+        meas = tuple(self.measurements)
+        if not meas:
+            raise ModelError("model: a [measurement] table with field_tesla is required")
+        for m in meas:
+            if not isinstance(m, Measurement):
+                raise ModelError(f"model: measurements must be Measurement values, got {type(m).__name__}")
+        object.__setattr__(self, "measurements", meas)
         sites = tuple(self.sites)
         if not sites:
             raise ModelError("model: at least one [[site]] is needed")
+        for s in sites:
+            if not isinstance(s, Site):
+                raise ModelError(f"model: sites must be Site values, got {type(s).__name__}")
         object.__setattr__(self, "sites", sites)
-        if not self.nucleus.is_quadrupolar:
+        object.__setattr__(self, "free", tuple(self.free))
+        object.__setattr__(self, "tied", tuple(self.tied))
+        seen: dict[str, int] = {}
+        for i, s in enumerate(sites):
+            if s.label in seen:
+                raise ModelError(
+                    f"site '{s.label}': the label is used by sites {seen[s.label] + 1} and {i + 1}; "
+                    "labels must be unique (they name each site's results)"
+                )
+            seen[s.label] = i
+        if all(s.weight == 0.0 for s in sites):
+            raise ModelError("model: every site has weight = 0; at least one weight must be > 0")
+        nuc = self.nucleus
+        if not nuc.is_quadrupolar:
             for s in sites:
                 if s.cq_mhz != 0.0:
                     raise ModelError(
-                        f"site '{s.label}': cq_mhz = {s.cq_mhz} but {self.nucleus.name} has spin 1/2 "
+                        f"site '{s.label}': cq_mhz = {s.cq_mhz} but {nuc.name} has spin 1/2 "
                         "(no quadrupole moment); the allowed value is 0"
                     )
-        # transitions must exist for this spin
-        selected_transitions(self.nucleus.spin, self.measurement.transitions)
+        for j, m in enumerate(meas):
+            where = "measurement" if len(meas) == 1 else f"measurement {j + 1}"
+            try:
+                selected_transitions(nuc.spin, m.transitions)
+            except ModelError as e:
+                raise ModelError(str(e).replace("measurement:", f"{where}:", 1)) from None
+            widest = max(s.lorentz_hz + m.lorentz_hz + math.hypot(s.gauss_hz, m.gauss_hz) for s in sites)
+            if m.width_ppm is not None:
+                width_hz = m.width_ppm * nuc.larmor_hz(m.field_tesla) * 1e-6
+                if width_hz / m.points < MIN_POINT_SPACING_HZ:
+                    raise ModelError(
+                        f"{where}: width_ppm = {m.width_ppm:g} over {m.points} points is "
+                        f"{width_hz / m.points:.3g} Hz per point, finer than {MIN_POINT_SPACING_HZ:g} Hz (far below "
+                        f"any solid-state line); the allowed width is at least "
+                        f"{MIN_POINT_SPACING_HZ * m.points / (nuc.larmor_hz(m.field_tesla) * 1e-6):.3g} ppm"
+                    )
+                if widest > width_hz:
+                    raise ModelError(
+                        f"{where}: the broadening ({widest:g} Hz FWHM, site plus measurement) is wider than the "
+                        f"axis (width_ppm = {m.width_ppm:g} ppm = {width_hz:.4g} Hz); the allowed broadening is "
+                        f"below the axis width"
+                    )
+        n_s, n_m = len(sites), len(meas)
+        for p in self.free + self.tied:
+            for a in (p.address,) + ((p.source,) if isinstance(p, TiedParameter) else ()):
+                limit = n_s if a.table == "site" else n_m
+                if not (0 <= a.index < limit):
+                    raise ModelError(f"parameter {a.name()}: no {a.table} with index {a.index}")
 
-    def with_measurement(self, **changes) -> "Model":
-        """A copy of the model with some measurement fields changed.
+    @property
+    def measurement(self) -> Measurement:
+        """The first (usually the only) measurement.
+
+        Returns
+        -------
+        Measurement
+
+        Examples
+        --------
+        >>> make_model("23Na", {"field_tesla": 11.7}, [{"cq_mhz": 2.0}]).measurement.field_tesla
+        11.7
+        """
+        return self.measurements[0]
+
+    @property
+    def larmor_hz(self) -> float:
+        """Reference frequency nu_ref (Hz) of the nucleus at the first measurement's field.
+
+        Returns
+        -------
+        float
+
+        Examples
+        --------
+        >>> round(make_model("1H", {"field_tesla": 9.4}, [{}]).larmor_hz / 1e6, 1)
+        400.2
+        """
+        return self.nucleus.larmor_hz(self.measurement.field_tesla)
+
+    def with_measurement(self, index: int = 0, **changes) -> "Model":
+        """A copy of the model with some fields of one measurement changed.
 
         Parameters
         ----------
+        index : int, optional
+            Which measurement (default the first).
         **changes
             :class:`Measurement` fields and new values, e.g.
             ``field_tesla=18.8`` (T) or ``spinning_hz=20000.0`` (Hz); they are
@@ -439,18 +779,198 @@ class Model:
         Model
             A new model; this one is unchanged.
 
-        References
-        ----------
-        E. R. Andrew, A. Bradbury, R. G. Eades, Nature 182 (1958) 1659
-        (magic-angle spinning).
-
         Examples
         --------
         >>> m = make_model("27Al", {"field_tesla": 14.1}, [{"cq_mhz": 3.0}])
         >>> m.with_measurement(field_tesla=18.8).measurement.field_tesla, m.measurement.field_tesla
         (18.8, 14.1)
         """
-        return replace(self, measurement=replace(self.measurement, **changes))
+        meas = list(self.measurements)
+        meas[index] = replace(meas[index], **changes)
+        return replace(self, measurements=tuple(meas))
+
+    def with_sites(self, sites) -> "Model":
+        """A copy of the model with other sites (free and tied parameters dropped).
+
+        Parameters
+        ----------
+        sites : sequence of Site
+
+        Returns
+        -------
+        Model
+
+        Examples
+        --------
+        >>> m = make_model("27Al", {"field_tesla": 14.1}, [{"cq_mhz": 3.0}])
+        >>> m.with_sites([Site(label="x", cq_mhz=5.0)]).sites[0].cq_mhz
+        5.0
+        """
+        return replace(self, sites=tuple(sites), free=(), tied=())
+
+    def parameter_value(self, address: ParameterAddress) -> float:
+        """The current value of a parameter.
+
+        Parameters
+        ----------
+        address : ParameterAddress
+
+        Returns
+        -------
+        float
+            In the key's unit.
+
+        Examples
+        --------
+        >>> m = make_model("27Al", {"field_tesla": 14.1}, [{"cq_mhz": 3.0}])
+        >>> m.parameter_value(ParameterAddress("site", 0, "cq_mhz"))
+        3.0
+        """
+        if address.table == "measurement":
+            return float(getattr(self.measurements[address.index], address.key))
+        vals = site_key_values(self.sites[address.index])
+        if address.key not in vals:
+            raise ModelError(
+                f"parameter {address.name(self)}: the site gives its shift tensor as "
+                f"{self.sites[address.index].shift_form}, which has no {address.key}"
+            )
+        v = vals[address.key]
+        return float(v[address.item]) if address.item is not None else float(v)
+
+    def with_parameters(self, values: Mapping) -> "Model":
+        """A new model with new parameter values (ties applied).
+
+        Parameters
+        ----------
+        values : mapping of ParameterAddress to float
+            New values in each key's unit.  A tied parameter follows its
+            source and may not be set directly.
+
+        Returns
+        -------
+        Model
+            Same free and tied parameters; the values are checked as usual.
+
+        Examples
+        --------
+        >>> m = make_model("27Al", {"field_tesla": 9.4},
+        ...                [{"label": "A", "cq_mhz": {"start": 3.0, "min": 1.0, "max": 9.0},
+        ...                  "gauss_hz": 50.0},
+        ...                 {"label": "B", "gauss_hz": {"same_as": "A.gauss_hz"}}])
+        >>> a_gauss = ParameterAddress("site", 0, "gauss_hz")
+        >>> m2 = m.with_parameters({m.free[0].address: 4.5, a_gauss: 80.0})
+        >>> m2.sites[0].cq_mhz, m2.sites[1].gauss_hz, m.sites[0].cq_mhz
+        (4.5, 80.0, 3.0)
+        """
+        tied_targets = {t.address for t in self.tied}
+        site_changes: dict[int, dict] = {}
+        meas_changes: dict[int, dict] = {}
+
+        def put(addr, v):
+            if addr.table == "measurement":
+                meas_changes.setdefault(addr.index, {})[addr.key] = float(v)
+            else:
+                d = site_changes.setdefault(addr.index, {})
+                if addr.item is not None:
+                    e = list(d.get("euler_deg", self.sites[addr.index].euler_deg))
+                    e[addr.item] = float(v)
+                    d["euler_deg"] = tuple(e)
+                else:
+                    d[addr.key] = float(v)
+
+        for addr, v in values.items():
+            if not isinstance(addr, ParameterAddress):
+                raise ModelError(f"with_parameters: keys must be ParameterAddress values, got {addr!r}")
+            if addr in tied_targets:
+                raise ModelError(f"parameter {addr.name(self)} is tied to another one and cannot be set directly")
+            put(addr, v)
+        for t in self.tied:
+            src = t.source
+            if src.table == "measurement":
+                v = meas_changes.get(src.index, {}).get(src.key, self.parameter_value(src))
+            elif src.item is not None:
+                v = site_changes.get(src.index, {}).get("euler_deg", self.sites[src.index].euler_deg)[src.item]
+            else:
+                v = site_changes.get(src.index, {}).get(src.key, self.parameter_value(src))
+            put(t.address, v)
+        sites = list(self.sites)
+        for i, ch in site_changes.items():
+            vals = site_key_values(sites[i])
+            for k in ch:
+                if k not in vals:
+                    raise ModelError(
+                        f"site '{sites[i].label}': its shift tensor is given as {sites[i].shift_form}, "
+                        f"which has no {k}"
+                    )
+            vals.update(ch)
+            sites[i] = _site_from_values(vals, sites[i].label, sites[i].shift_form)
+        meas = list(self.measurements)
+        for j, ch in meas_changes.items():
+            meas[j] = replace(meas[j], **ch)
+        return replace(self, sites=tuple(sites), measurements=tuple(meas))
+
+
+def site_key_values(site: Site) -> dict:
+    """The site's values under its model-file keys, shift tensor in the form it was given.
+
+    Parameters
+    ----------
+    site : Site
+
+    Returns
+    -------
+    dict
+        ``weight``, ``cq_mhz``, ``eta_q``, ``euler_deg``, ``lorentz_hz``,
+        ``gauss_hz`` and the shift keys of its form (``shift_ppm`` with
+        ``span_ppm`` + ``skew``, ``aniso_ppm`` + ``eta_cs``, or
+        ``principal_ppm``).
+
+    Examples
+    --------
+    >>> s = make_site(label="P", shift_ppm=5.0, span_ppm=100.0, skew=0.5)
+    >>> v = site_key_values(s)
+    >>> v["shift_ppm"], round(v["span_ppm"], 9), round(v["skew"], 9)
+    (5.0, 100.0, 0.5)
+    """
+    t = site.shift
+    g = site.shift_given
+    out = {"weight": site.weight, "cq_mhz": site.cq_mhz, "eta_q": site.eta_q,
+           "euler_deg": tuple(site.euler_deg), "lorentz_hz": site.lorentz_hz, "gauss_hz": site.gauss_hz}
+    if site.shift_form == "principal":
+        out["principal_ppm"] = tuple(g) if len(g) == 3 else tuple(t.principal_iupac)
+        return out
+    out["shift_ppm"] = t.iso_ppm
+    if site.shift_form == "span_skew":
+        out["span_ppm"], out["skew"] = g if len(g) == 2 else (t.span_ppm, t.skew)
+    elif site.shift_form == "haeberlen":
+        out["aniso_ppm"], out["eta_cs"] = g if len(g) == 2 else (t.aniso_ppm, t.eta)
+    return out
+
+
+def _site_from_values(v: dict, label: str, form: str) -> Site:
+    where = f"site '{label}'"
+    given: tuple = ()
+    try:
+        if form == "principal":
+            given = tuple(check_number(where, "principal_ppm", x, "site") for x in v["principal_ppm"])
+            shift = ShiftTensor.from_principal(given)
+        else:
+            iso = check_number(where, "shift_ppm", v.get("shift_ppm", 0.0), "site")
+            if form == "span_skew":
+                given = (check_number(where, "span_ppm", v["span_ppm"], "site"),
+                         check_number(where, "skew", v["skew"], "site"))
+                shift = ShiftTensor.from_span_skew(iso, *given)
+            elif form == "haeberlen":
+                given = (check_number(where, "aniso_ppm", v["aniso_ppm"], "site"),
+                         check_number(where, "eta_cs", v["eta_cs"], "site"))
+                shift = ShiftTensor(iso, *given)
+            else:
+                shift = ShiftTensor(iso)
+    except TensorError as e:
+        raise ModelError(f"{where}: {e}") from None
+    return Site(label=label, weight=v["weight"], shift=shift, cq_mhz=v["cq_mhz"], eta_q=v["eta_q"],
+                euler_deg=tuple(v["euler_deg"]), lorentz_hz=v["lorentz_hz"], gauss_hz=v["gauss_hz"],
+                shift_form=form, shift_given=given)
 
 
 # ---------------------------------------------------------------------------
@@ -485,9 +1005,7 @@ def parse_transition(text: str, spin: float | None) -> tuple[float, float]:
 
     References
     ----------
-    A. Abragam, *The Principles of Nuclear Magnetism* (1961)
-    (magnetic-dipole selection rule Delta m = +-1) (from memory); L. Frydman,
-    J. S. Harwood, J. Am. Chem. Soc. 117 (1995) 5367 (symmetric
+    L. Frydman, J. S. Harwood, J. Am. Chem. Soc. 117 (1995) 5367 (symmetric
     multiple-quantum transitions).
 
     Examples
@@ -500,7 +1018,7 @@ def parse_transition(text: str, spin: float | None) -> tuple[float, float]:
     try:
         a, b = text.split(":")
         m1, m2 = float(Fraction(a.strip())), float(Fraction(b.strip()))
-    except (ValueError, ZeroDivisionError):
+    except (ValueError, ZeroDivisionError, AttributeError):
         raise ModelError(
             f"measurement: transition {text!r} is not of the form 'm1:m2' with m in half-integers, e.g. '3/2:1/2'"
         ) from None
@@ -513,9 +1031,9 @@ def parse_transition(text: str, spin: float | None) -> tuple[float, float]:
             f"measurement: transition {text!r} must be single-quantum (m1 - m2 = 1) or symmetric (m:-m)"
         )
     if spin is not None and (hi > spin + 1e-12 or lo < -spin - 1e-12):
+        s = Fraction(spin).limit_denominator(2)
         raise ModelError(
-            f"measurement: transition {text!r} needs |m| <= I = {Fraction(spin).limit_denominator(2)}; "
-            f"allowed m range is [-{Fraction(spin).limit_denominator(2)}, {Fraction(spin).limit_denominator(2)}]"
+            f"measurement: transition {text!r} needs |m| <= I = {s}; allowed m range is [-{s}, {s}]"
         )
     return hi, lo
 
@@ -523,16 +1041,39 @@ def parse_transition(text: str, spin: float | None) -> tuple[float, float]:
 def selected_transitions(spin: float, transitions) -> tuple[float, ...]:
     """Upper m of each selected single-quantum transition m -> m-1.
 
-    Symmetric multiple-quantum transitions are rejected here: spectra show
-    single-quantum coherences only.
+    Parameters
+    ----------
+    spin : float
+        Nuclear spin I.
+    transitions : str or sequence of str
+        ``"central"`` (half-integer spins only: there is no central
+        transition for an integer spin), ``"all"`` or ``"m1:m2"`` strings.
+
+    Returns
+    -------
+    tuple of float
+
+    Raises
+    ------
+    ModelError
+        For ``"central"`` with an integer spin, a multiple-quantum transition
+        or ``|m| > I``.
+
+    Examples
+    --------
+    >>> selected_transitions(2.5, "central"), selected_transitions(1.0, "all")
+    ((0.5,), (1.0, 0.0))
     """
     if transitions == "central" or transitions == ("central",):
         if abs(spin - round(spin)) < 1e-12:
-            # integer spin: no central transition; the pair +-1 <-> 0 instead
-            return (1.0, 0.0)
+            raise ModelError(
+                f"measurement: transitions = 'central' but spin {int(round(spin))} has no central transition "
+                "(its single-quantum transitions are +-1 <-> 0 for spin 1); use transitions = \"all\" or list "
+                "them, e.g. [\"1:0\", \"0:-1\"]"
+            )
         return (0.5,)
     if transitions == "all" or transitions == ("all",):
-        return tuple(spin - np.arange(int(round(2 * spin))))
+        return tuple(float(spin - k) for k in range(int(round(2 * spin))))
     out = []
     for t in transitions:
         hi, lo = parse_transition(t, spin)
@@ -547,212 +1088,7 @@ def selected_transitions(spin: float, transitions) -> tuple[float, ...]:
 
 
 # ---------------------------------------------------------------------------
-# file parsing
-
-_MEAS_KEYS = {
-    "field_tesla", "spinning_hz", "rotor_angle_deg", "transitions", "method", "points",
-    "center_ppm", "width_ppm", "orientations", "binning", "rotor_phases", "lorentz_hz", "gauss_hz",
-}
-_SITE_KEYS = {
-    "label", "weight", "shift_ppm", "cq_mhz", "eta_q", "span_ppm", "skew", "aniso_ppm", "eta_cs",
-    "principal_ppm", "euler_deg", "lorentz_hz", "gauss_hz",
-}
-_TOP_KEYS = {"nucleus", "measurement", "site"}
-
-
-def _check_range(name, value, lo, hi, open_low=False):
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise ModelError(f"{name} must be a number, got {value!r}") from None
-    bad = math.isnan(v) or v > hi or (v <= lo if open_low else v < lo)
-    if bad:
-        lb = "(" if open_low else "["
-        raise ModelError(f"{name} = {value!r} is outside the allowed range {lb}{lo:g}, {hi:g}]")
-    return v
-
-
-def _unknown(keys, allowed, where):
-    extra = sorted(set(keys) - allowed)
-    if extra:
-        import difflib
-
-        hints = []
-        for k in extra:
-            close = difflib.get_close_matches(k, sorted(allowed), n=1)
-            hints.append(f"'{k}'" + (f" (did you mean '{close[0]}'?)" if close else ""))
-        raise ModelError(f"{where}: unknown key {', '.join(hints)}; allowed keys are {', '.join(sorted(allowed))}")
-
-
-def _number(table, key, where, free, default=None):
-    if key not in table:
-        return default
-    v = table[key]
-    if isinstance(v, dict):
-        _unknown(v.keys(), {"start", "min", "max"}, f"{where}.{key}")
-        if "start" not in v:
-            raise ModelError(f"{where}.{key}: a free parameter needs 'start'")
-        lo = float(v.get("min", -math.inf))
-        hi = float(v.get("max", math.inf))
-        st = float(v["start"])
-        if not (lo <= st <= hi):
-            raise ModelError(f"{where}.{key}: start = {st} is outside its own range [{lo}, {hi}]")
-        free.append(FreeParameter(f"{where}.{key}", st, lo, hi))
-        return st
-    if isinstance(v, bool) or not isinstance(v, (int, float)):
-        raise ModelError(f"{where}.{key} must be a number, got {v!r}")
-    return float(v)
-
-
-def _parse_site(i, t, free) -> Site:
-    where = f"site[{i}]"
-    if not isinstance(t, dict):
-        raise ModelError(f"{where} must be a table")
-    _unknown(t.keys(), _SITE_KEYS, where)
-    label = str(t.get("label", f"site {i + 1}"))
-    where = f"site '{label}'"
-    iso = _number(t, "shift_ppm", where, free, 0.0)
-    forms = [k for k in (("span_ppm", "skew"), ("aniso_ppm", "eta_cs"), ("principal_ppm",)) if any(x in t for x in k)]
-    if len(forms) > 1:
-        raise ModelError(
-            f"{where}: give the shift anisotropy one way only: span_ppm + skew, aniso_ppm + eta_cs, or principal_ppm"
-        )
-    try:
-        if forms and forms[0][0] == "span_ppm":
-            shift = ShiftTensor.from_span_skew(
-                iso, _number(t, "span_ppm", where, free, 0.0), _number(t, "skew", where, free, 0.0)
-            )
-        elif forms and forms[0][0] == "aniso_ppm":
-            shift = ShiftTensor(iso, _number(t, "aniso_ppm", where, free, 0.0), _number(t, "eta_cs", where, free, 0.0))
-        elif forms:
-            p = t["principal_ppm"]
-            if not isinstance(p, list) or len(p) != 3:
-                raise ModelError(f"{where}.principal_ppm must be a list of 3 numbers (ppm)")
-            if "shift_ppm" in t:
-                raise ModelError(f"{where}: principal_ppm fixes the isotropic shift; do not also give shift_ppm")
-            shift = ShiftTensor.from_principal(p)
-        else:
-            shift = ShiftTensor(iso)
-    except TensorError as e:
-        raise ModelError(f"{where}: {e}") from None
-    euler = t.get("euler_deg", [0.0, 0.0, 0.0])
-    if not isinstance(euler, list) or len(euler) != 3:
-        raise ModelError(f"{where}.euler_deg must be a list of 3 angles in degrees")
-    return Site(
-        label=label,
-        weight=_number(t, "weight", where, free, 1.0),
-        shift=shift,
-        cq_mhz=_number(t, "cq_mhz", where, free, 0.0),
-        eta_q=_number(t, "eta_q", where, free, 0.0),
-        euler_deg=tuple(float(x) for x in euler),
-        lorentz_hz=_number(t, "lorentz_hz", where, free, 0.0),
-        gauss_hz=_number(t, "gauss_hz", where, free, 0.0),
-    )
-
-
-def _parse_measurement(meas_t, free) -> Measurement:
-    if not isinstance(meas_t, dict):
-        raise ModelError("model: [measurement] must be a table")
-    _unknown(meas_t.keys(), _MEAS_KEYS, "measurement")
-    kw: dict[str, Any] = {}
-    for k, v in meas_t.items():
-        if k in ("transitions", "method", "orientations", "binning", "rotor_phases"):
-            kw[k] = tuple(v) if isinstance(v, list) else v
-        elif k == "points":
-            kw[k] = v
-        elif k == "spinning_hz" and isinstance(v, str):
-            if v.strip().lower() not in ("inf", "infinite", "infinity"):
-                raise ModelError(f"measurement.spinning_hz = {v!r}: give a number of Hz or \"inf\"")
-            kw[k] = math.inf
-        else:
-            kw[k] = _number(meas_t, k, "measurement", free)
-    meas = Measurement(**kw)
-    return meas
-
-
-def parse_model(data: dict, source: str = "") -> Model:
-    """Build a :class:`Model` from a parsed TOML mapping, validating every key.
-
-    Parameters
-    ----------
-    data : dict
-        The parsed file: ``nucleus``, a ``measurement`` table and ``site``
-        tables, with the keys of the module docstring (field in tesla,
-        spinning rate in Hz, shifts in ppm, C_Q in MHz, angles in degrees).
-    source : str, optional
-        Where the mapping came from (recorded in the model and the metadata).
-
-    Returns
-    -------
-    Model
-
-    Raises
-    ------
-    ModelError
-        For a missing, unknown or out-of-range key.
-
-    References
-    ----------
-    TOML v1.0.0 specification (toml.io).
-
-    Examples
-    --------
-    >>> m = parse_model({"nucleus": "27Al", "measurement": {"field_tesla": 14.1},
-    ...                  "site": [{"cq_mhz": 3.0, "eta_q": 0.5}]})
-    >>> m.sites[0].cq_mhz
-    3.0
-    """
-    _unknown(data.keys(), _TOP_KEYS, "model")
-    if "nucleus" not in data:
-        raise ModelError("model: 'nucleus' is required, e.g. nucleus = \"27Al\"")
-    nuc = get_nuclide(str(data["nucleus"]))
-    meas_t = data.get("measurement", {})
-    free: list[FreeParameter] = []
-    meas = _parse_measurement(meas_t, free)
-    sites_t = data.get("site", [])
-    if isinstance(sites_t, dict):
-        sites_t = [sites_t]
-    sites = tuple(_parse_site(i, t, free) for i, t in enumerate(sites_t))
-    return Model(nuc, meas, sites, tuple(free), source)
-
-
-def load_model(path) -> Model:
-    """Read and validate a TOML model file.
-
-    Parameters
-    ----------
-    path : str or pathlib.Path
-        Model file.
-
-    Returns
-    -------
-    Model
-        The validated model; its ``source`` is ``path``.
-
-    Raises
-    ------
-    ModelError
-        If the file is missing, is not valid TOML, or a value is wrong.
-
-    References
-    ----------
-    TOML v1.0.0 specification (toml.io).
-
-    Examples
-    --------
-    >>> from pathlib import Path
-    >>> m = load_model(Path(__file__).parent / "data" / "demo.toml")
-    >>> m.nucleus.name
-    '27Al'
-    """
-    p = Path(path)
-    if not p.is_file():
-        raise ModelError(f"model file {str(p)!r} does not exist")
-    try:
-        data = tomllib.loads(p.read_text(encoding="utf-8"))
-    except tomllib.TOMLDecodeError as e:
-        raise ModelError(f"model file {str(p)!r} is not valid TOML: {e}") from None
-    return parse_model(data, str(p))
+# building models from Python dicts (the same keys as model files)
 
 
 def make_site(**keys) -> Site:
@@ -781,48 +1117,53 @@ def make_site(**keys) -> Site:
     >>> round(s.shift.span_ppm, 6)
     20.0
     """
-    return _parse_site(0, dict(keys), [])
+    from .modelfile import parse_site_table
+
+    site, free, tied = parse_site_table(0, dict(keys), "site")
+    if free or tied:
+        raise ModelError("make_site: free or tied parameters need a model; use make_model")
+    return site
 
 
-def make_model(nucleus, measurement=None, sites=()) -> Model:
+def make_model(nucleus, measurement=None, sites=(), fit=None) -> Model:
     """Build a :class:`Model` from a nucleus name, measurement keys and site key dicts.
 
     Parameters
     ----------
     nucleus : str or Nuclide
         e.g. ``"27Al"``.
-    measurement : dict or Measurement, optional
-        ``[measurement]`` keys (see the module docstring).
+    measurement : dict or Measurement or list of them
+        ``[measurement]`` keys (``field_tesla`` is required); a list gives
+        several measurements of one sample.
     sites : sequence of dict or Site
-        Site keys as in a model file, or ready :class:`Site` values.
+        Site keys as in a model file (free ``{start, min, max}`` and tied
+        ``{same_as = "LABEL.key"}`` values allowed), or ready :class:`Site`
+        values.
+    fit : dict, optional
+        ``[fit]`` keys.
 
     Returns
     -------
     Model
 
-    References
-    ----------
-    TOML v1.0.0 specification (toml.io), for the key names shared with model
-    files.
-
     Examples
     --------
     >>> m = make_model("23Na", {"field_tesla": 11.7}, [{"cq_mhz": 2.0}])
-    >>> m.measurement.field_tesla
-    11.7
+    >>> m.measurement.field_tesla, m.sites[0].label
+    (11.7, 'site 1')
     """
+    from .modelfile import model_from_tables
+
     nuc = nucleus if isinstance(nucleus, Nuclide) else get_nuclide(str(nucleus))
-    free: list[FreeParameter] = []
-    if isinstance(measurement, Measurement):
-        meas = measurement
-    else:
-        meas = _parse_measurement(dict(measurement or {}), free)
-    built = []
-    for i, s in enumerate(sites):
-        if isinstance(s, Site):
-            built.append(s)
-        elif isinstance(s, dict):
-            built.append(_parse_site(i, s, free))
-        else:
-            raise ModelError(f"sites[{i}] must be a dict of site keys or a Site, got {type(s).__name__}")
-    return Model(nuc, meas, tuple(built), tuple(free))
+    if measurement is None:
+        raise ModelError("model: a measurement with field_tesla is required, e.g. {\"field_tesla\": 14.1}")
+    if isinstance(measurement, (dict, Measurement)):
+        measurement = [measurement]
+    if isinstance(sites, (dict, Site)):
+        raise ModelError(
+            "make_model: sites must be a list of site dicts (or Site values), e.g. [{\"cq_mhz\": 3.0}]; "
+            "got a single " + ("dict" if isinstance(sites, dict) else "Site") + " - wrap it in a list"
+        )
+    if isinstance(sites, str):
+        raise ModelError("make_model: sites must be a list of site dicts, got a string")
+    return model_from_tables(nuc, list(measurement), list(sites), fit or {}, source="")

@@ -76,6 +76,7 @@ __all__ = [
     "triangulated",
     "select_orientations",
     "orientation_set_by_name",
+    "coverage_rank",
 ]
 
 #: The allowed values of ``symmetry``.
@@ -93,6 +94,27 @@ LEBEDEV_PUBLISHED_DEGREES = (
     3, 5, 7, 9, 11, 13, 15, 17, 19, 21, 23, 25, 27, 29, 31, 35,
     41, 47, 53, 59, 65, 71, 77, 83, 89, 95, 101, 107, 113, 119, 125, 131,
 )
+
+def coverage_rank(symmetry: str) -> int:
+    """How much of the sphere a symmetry's sets cover: octant 0 < hemisphere 1 < sphere 2.
+
+    A set of larger rank can stand in for one of smaller rank.
+
+    Parameters
+    ----------
+    symmetry : {"sphere", "hemisphere", "octant"}
+
+    Returns
+    -------
+    int
+
+    Examples
+    --------
+    >>> coverage_rank("octant") < coverage_rank("hemisphere") < coverage_rank("sphere")
+    True
+    """
+    return {"octant": 0, "hemisphere": 1, "sphere": 2}[_check_symmetry(symmetry)]
+
 
 # Solid angle covered by each symmetry (steradian).
 _REGION_SOLID_ANGLE = {"sphere": 4.0 * math.pi, "hemisphere": 2.0 * math.pi,

@@ -1,14 +1,38 @@
-"""Figures of spectra: ppm decreasing from left to right (the trade's convention)."""
+"""Figures of spectra: shift decreasing from left to right (the trade's convention).
+
+Axis units: ppm (default) or kHz (offsets from the reference frequency; wide
+2H and satellite patterns are read in kHz).  Sideband marks sit at each site's
+centre band plus n times the spinning rate, in that site's colour, thinned
+when a manifold has many bands.  A vertical zoom (a second, scaled copy of the
+sum) shows weak features such as satellite manifolds next to a strong central
+transition.
+"""
 
 from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["plot_spectrum", "save_plot"]
+from .files import write_via
+
+__all__ = ["plot_spectrum", "save_plot", "PLOT_SUFFIXES"]
+
+#: figure formats that :func:`save_plot` writes
+PLOT_SUFFIXES = (".png", ".pdf", ".svg")
+#: most sideband marks drawn per site (others are thinned out)
+_MAX_MARKS = 60
 
 
-def plot_spectrum(spectrum, ax=None, *, show_sites: bool = True, mark_sidebands: bool = True):
-    """Draw a spectrum: one line per site plus the sum, ppm axis reversed.
+def _x(spectrum, unit: str):
+    if unit == "ppm":
+        return spectrum.ppm
+    if unit == "khz":
+        return spectrum.hz / 1e3
+    raise ValueError(f"unit = {unit!r} is not one of 'ppm', 'khz'")
+
+
+def plot_spectrum(spectrum, ax=None, *, show_sites: bool = True, mark_sidebands: bool = True, unit: str = "ppm",
+                  limits=None, vertical_zoom: float | None = None):
+    """Draw a spectrum: the sum and one line per site, shift axis reversed.
 
     Parameters
     ----------
@@ -18,11 +42,23 @@ def plot_spectrum(spectrum, ax=None, *, show_sites: bool = True, mark_sidebands:
     show_sites : bool
         Draw each site (dashed) as well as the sum (when there is more than one site).
     mark_sidebands : bool
-        Mark spinning-sideband positions (small ticks under the baseline).
+        Mark spinning-sideband positions (ticks under the baseline, at each
+        site's centre band + n x rate, in the site's colour).
+    unit : {"ppm", "khz"}
+        Axis unit: shift in ppm, or offset from nu_ref in kHz.
+    limits : (float, float), optional
+        Axis range in ``unit`` (either order; drawn decreasing to the right).
+    vertical_zoom : float, optional
+        Also draw the sum multiplied by this factor (> 1), to show weak
+        features such as satellite manifolds.
 
     Returns
     -------
     matplotlib Axes
+
+    See Also
+    --------
+    save_plot
 
     References
     ----------
@@ -33,35 +69,60 @@ def plot_spectrum(spectrum, ax=None, *, show_sites: bool = True, mark_sidebands:
     --------
     >>> import matplotlib
     >>> matplotlib.use("Agg")
-    >>> from powderspin.model import parse_model
+    >>> from powderspin.model import make_model
     >>> from powderspin.simulation import simulate
-    >>> spec = simulate(parse_model({"nucleus": "31P", "measurement": {"points": 256},
-    ...                              "site": [{"span_ppm": 100.0, "skew": 0.3}]}))
-    >>> ax = plot_spectrum(spec)
-    >>> bool(ax.get_xlim()[0] > ax.get_xlim()[1])
-    True
+    >>> spec = simulate(make_model("31P", {"field_tesla": 9.4, "points": 256},
+    ...                            [{"span_ppm": 100.0, "skew": 0.3}]))
+    >>> ax = plot_spectrum(spec, unit="khz")
+    >>> bool(ax.get_xlim()[0] > ax.get_xlim()[1]), ax.get_xlabel()
+    (True, 'offset from 31P reference / kHz')
     """
     import matplotlib.pyplot as plt
 
     if ax is None:
-        _, ax = plt.subplots(figsize=(7.0, 4.0), layout="constrained")
-    ppm = spectrum.ppm
+        _, ax = plt.subplots(figsize=(7.5, 4.2), layout="constrained")
+    x = _x(spectrum, unit)
     n_sites = len(spectrum.site_labels)
-    ax.plot(ppm, spectrum.intensity, lw=1.3, color="black",
-            label="sum" if n_sites > 1 else spectrum.site_labels[0])
+    colours = plt.rcParams["axes.prop_cycle"].by_key().get("color", ["C0", "C1", "C2", "C3"])
+    site_colour = {label: colours[i % len(colours)] for i, label in enumerate(spectrum.site_labels)}
+    ax.plot(x, spectrum.intensity, lw=1.3, color="black", label="sum" if n_sites > 1 else spectrum.site_labels[0])
+    top = float(np.max(spectrum.intensity)) if spectrum.intensity.size else 1.0
+    if vertical_zoom is not None:
+        if not vertical_zoom > 1:
+            raise ValueError(f"vertical_zoom = {vertical_zoom!r} must be > 1")
+        ax.plot(x, spectrum.intensity * vertical_zoom, lw=0.8, color="0.55", label=f"sum x {vertical_zoom:g}")
+        ax.set_ylim(-0.08 * top, 1.1 * top)
     if show_sites and n_sites > 1:
         for label, y in zip(spectrum.site_labels, spectrum.site_intensities):
-            ax.plot(ppm, y, lw=1.0, ls="--", label=label)
+            ax.plot(x, y, lw=1.0, ls="--", color=site_colour[label], label=label)
     if mark_sidebands and spectrum.sidebands:
-        top = float(np.max(spectrum.intensity)) if spectrum.intensity.size else 1.0
-        marks = [r.offset_ppm for r in spectrum.sidebands if r.index != 0]
-        if marks:
-            ax.plot(marks, np.full(len(marks), -0.04 * top), "|", color="0.35", ms=6,
-                    label="sidebands")
-    ax.set_xlim(ppm.max(), ppm.min())
+        rows = spectrum.sideband_rows_with_nominal()
+        nu_ref = spectrum.nu_ref_hz
+        for k, label in enumerate(spectrum.site_labels):
+            mine = [(r, h) for r, h in rows if r.site == label and r.order != 0]
+            if not mine:
+                continue
+            weight = sum(r.intensity for r, _ in rows if r.site == label) or 1.0
+            mine = [(r, h) for r, h in mine if r.intensity > 1e-3 * weight]
+            step = max(1, int(np.ceil(len(mine) / _MAX_MARKS)))
+            mine = [(r, h) for r, h in mine if r.order % step == 0]
+            if not mine:
+                continue
+            hz = np.array([h for _, h in mine])
+            xs = hz / 1e3 if unit == "khz" else hz / nu_ref * 1e6
+            y0 = -(0.035 + 0.03 * k) * top
+            thin = f", every {step}th" if step > 1 else ""
+            ax.plot(xs, np.full(xs.size, y0), "|", color=site_colour[label], ms=6,
+                    label=f"{label} sidebands{thin}")
+    lo, hi = (float(np.min(x)), float(np.max(x))) if limits is None else (min(limits), max(limits))
+    ax.set_xlim(hi, lo)
     nuc = spectrum.metadata.get("nucleus", "")
-    ax.set_xlabel(f"{nuc} shift / ppm" if nuc else "shift / ppm")
-    ax.set_ylabel("intensity / ppm$^{-1}$")
+    if unit == "ppm":
+        ax.set_xlabel(f"{nuc} shift / ppm" if nuc else "shift / ppm")
+        ax.set_ylabel("intensity / ppm$^{-1}$")
+    else:
+        ax.set_xlabel(f"offset from {nuc} reference / kHz" if nuc else "offset / kHz")
+        ax.set_ylabel("intensity / ppm$^{-1}$")
     field = spectrum.metadata.get("field_tesla")
     rate = spectrum.metadata.get("spinning_hz")
     title = []
@@ -75,21 +136,24 @@ def plot_spectrum(spectrum, ax=None, *, show_sites: bool = True, mark_sidebands:
     return ax
 
 
-def save_plot(spectrum, path, *, force: bool = False):
-    """Save a PNG (or any matplotlib format) of the spectrum; never overwrites without force.
+def save_plot(spectrum, path, *, force: bool = False, protect=(), **options):
+    """Save a figure of the spectrum (PNG, PDF or SVG by suffix); never overwrites without force.
 
-    The figure is drawn by :func:`plot_spectrum` (ppm decreasing to the
-    right), written to a temporary file in the same folder and moved into
-    place.
+    The figure is drawn by :func:`plot_spectrum`, written to a temporary file
+    in the same folder and moved into place.
 
     Parameters
     ----------
     spectrum : Spectrum
-        The spectrum to draw (ppm axis, intensities as densities per ppm).
+        The spectrum to draw.
     path : str or pathlib.Path
-        Output file; the suffix picks the format (``.png`` when none).
+        Output file ending in ``.png``, ``.pdf`` or ``.svg``.
     force : bool, optional
         Overwrite an existing file.
+    protect : iterable of path, optional
+        Input files never to overwrite.
+    **options
+        Passed to :func:`plot_spectrum` (``unit``, ``limits``, ``vertical_zoom``, ...).
 
     Returns
     -------
@@ -98,14 +162,18 @@ def save_plot(spectrum, path, *, force: bool = False):
 
     Raises
     ------
-    powderspin.spectrum.OutputExistsError
+    powderspin.files.OutputExistsError
         If ``path`` exists and ``force`` is False.
+    powderspin.files.OutputPathError
+        For another suffix or an unwritable place.
+
+    See Also
+    --------
+    plot_spectrum
 
     References
     ----------
-    J. D. Hunter, Comput. Sci. Eng. 9 (2007) 90 (matplotlib); R. K. Harris
-    et al., Pure Appl. Chem. 73 (2001) 1795 (shift scale, increasing to the
-    left).
+    J. D. Hunter, Comput. Sci. Eng. 9 (2007) 90 (matplotlib).
 
     Examples
     --------
@@ -118,29 +186,21 @@ def save_plot(spectrum, path, *, force: bool = False):
     ...     p.stat().st_size > 0
     True
     """
-    import os
-    import tempfile
     from pathlib import Path
 
+    from .files import check_outputs
+
+    p = Path(path)
+    check_outputs([(p, "plot", PLOT_SUFFIXES)], force=force, protect=protect)
     import matplotlib
 
     matplotlib.use("Agg", force=False)
     import matplotlib.pyplot as plt
 
-    from .spectrum import OutputExistsError
-
-    p = Path(path)
-    if p.exists() and not force:
-        raise OutputExistsError(f"output {str(p)!r} exists; pass --force (force=True) to overwrite it")
-    fig, ax = plt.subplots(figsize=(7.0, 4.0), layout="constrained")
-    plot_spectrum(spectrum, ax)
-    fd, tmp = tempfile.mkstemp(prefix=".", suffix=p.suffix or ".png", dir=str(p.parent or "."))
-    os.close(fd)
+    fig, ax = plt.subplots(figsize=(7.5, 4.2), layout="constrained")
     try:
-        fig.savefig(tmp, dpi=120, format=(p.suffix[1:] or "png"))
-        os.replace(tmp, p)
+        plot_spectrum(spectrum, ax, **options)
+        return write_via(p, lambda tmp: fig.savefig(tmp, dpi=120, format=p.suffix[1:].lower()), force=force,
+                         protect=protect, role="plot")
     finally:
         plt.close(fig)
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-    return p

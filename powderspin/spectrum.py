@@ -1,18 +1,26 @@
 """The Spectrum value and its files.
 
 CSV layout (our own): ``#`` comment lines ``# key: value`` holding the
-metadata, then the header ``ppm,hz,intensity`` and one row per point in
-ascending hz.  Intensities are densities per ppm: each site's selected
+metadata (every site's parameters included, so a CSV alone says how it was
+made), then the header ``ppm,hz,intensity,<site label>,...`` and one row per
+point in ascending hz.  ``intensity`` is the sum over sites; each further
+column is one site.  Intensities are densities per ppm: each site's selected
 transitions integrate (over ppm) to its weight, apart from what falls outside
 the axis.
+
+Sideband table (``--sidebands FILE``), CSV with the columns ``site`` (label),
+``order`` (sideband order n, 0 = centre band), ``position_hz`` and
+``position_ppm`` (the band's intensity-weighted position, Hz from nu_ref and
+ppm), ``nominal_hz`` (the centre band's position plus n times the spinning
+rate) and ``intensity`` (integrated; a site's bands sum to its weight).
 """
 
 from __future__ import annotations
 
+import csv
+import io
 import json
 import math
-import os
-import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 from types import MappingProxyType
@@ -20,35 +28,9 @@ from typing import Mapping
 
 import numpy as np
 
-__all__ = ["Spectrum", "SidebandRow", "OutputExistsError", "write_text_safely"]
+from .files import write_text_atomic
 
-
-class OutputExistsError(FileExistsError):
-    """An output file exists and overwriting was not requested.
-
-    A ``FileExistsError`` subclass; the message names the file.
-
-    Parameters
-    ----------
-    message : str
-        The file and how to allow overwriting (``force=True`` / ``--force``).
-
-    References
-    ----------
-    POSIX ``rename()`` (IEEE Std 1003.1), the atomic replace behind
-    :func:`write_text_safely` (from memory).
-
-    Examples
-    --------
-    >>> import tempfile, pathlib
-    >>> with tempfile.TemporaryDirectory() as d:
-    ...     p = write_text_safely(pathlib.Path(d) / "a.txt", "x")
-    ...     try:
-    ...         write_text_safely(p, "y")
-    ...     except OutputExistsError:
-    ...         print("refused")
-    refused
-    """
+__all__ = ["Spectrum", "SidebandRow"]
 
 
 @dataclass(frozen=True)
@@ -59,12 +41,12 @@ class SidebandRow:
     ----------
     site : str
         Label of the site the band belongs to.
-    index : int
+    order : int
         Sideband order n (0 = centre band).
-    offset_hz : float
+    position_hz : float
         Intensity-weighted position of the band (Hz from nu_ref).
-    offset_ppm : float
-        The same position in ppm (``1e6 * offset_hz / nu_ref``).
+    position_ppm : float
+        The same position in ppm (``1e6 * position_hz / nu_ref``).
     intensity : float
         Integrated intensity (the site's bands sum to its weight).
 
@@ -76,14 +58,14 @@ class SidebandRow:
     Examples
     --------
     >>> row = SidebandRow("AlO4", -1, -12500.0, -79.9, 0.02)
-    >>> row.index, row.offset_hz
+    >>> row.order, row.position_hz
     (-1, -12500.0)
     """
 
     site: str
-    index: int
-    offset_hz: float
-    offset_ppm: float
+    order: int
+    position_hz: float
+    position_ppm: float
     intensity: float
 
 
@@ -246,13 +228,15 @@ class Spectrum:
 
     # ----- files ---------------------------------------------------------
     def csv_text(self) -> str:
-        """The spectrum as CSV text: ``# key: value`` metadata lines, then ``ppm,hz,intensity``.
+        """The spectrum as CSV text: metadata lines, then ``ppm,hz,intensity`` and one column per site.
 
         Returns
         -------
         str
-            Metadata comment lines (dicts and lists as JSON), the header and
-            one row per point in ascending hz (ppm, Hz, density per ppm).
+            ``# key: value`` metadata lines (dicts and lists as JSON), the
+            header and one row per point in ascending hz (ppm, Hz, the sum and
+            each site as densities per ppm).  Site columns are named by label
+            (quoted where CSV needs it).
 
         References
         ----------
@@ -267,44 +251,46 @@ class Spectrum:
         >>> print(spec.csv_text(), end="")
         # nucleus: 31P
         # nu_ref_hz: 100000000.0
-        ppm,hz,intensity
-        -1,-100,0
-        0,0,1
-        1,100,0
+        ppm,hz,intensity,a
+        -1,-100,0,0
+        0,0,1,1
+        1,100,0,0
         """
         lines = []
         for k, v in self.metadata.items():
             if isinstance(v, (dict, list, tuple)):
                 v = json.dumps(v)
             lines.append(f"# {k}: {v}")
-        lines.append("ppm,hz,intensity")
-        for p, h, y in zip(self.ppm, self.hz, self.intensity):
-            lines.append(f"{p:.8g},{h:.10g},{y:.10g}")
+        head = io.StringIO()
+        csv.writer(head, lineterminator="").writerow(["ppm", "hz", "intensity", *self.site_labels])
+        lines.append(head.getvalue())
+        cols = [self.ppm, self.hz, self.intensity, *self.site_intensities]
+        fmts = ["{:.10g}", "{:.12g}"] + ["{:.10g}"] * (len(cols) - 2)
+        for row in zip(*cols):
+            lines.append(",".join(f.format(x) for f, x in zip(fmts, row)))
         return "\n".join(lines) + "\n"
 
-    def write_csv(self, path, *, force: bool = False) -> Path:
-        """Write the spectrum as CSV; refuses to overwrite unless ``force``.
+    def write_csv(self, path, *, force: bool = False, protect=()) -> Path | None:
+        """Write the spectrum as CSV atomically; refuses to overwrite unless ``force``.
 
         Parameters
         ----------
         path : str or pathlib.Path
-            Output file (parent folders are made).
+            Output file (parent folders are made); ``"-"`` for standard output.
         force : bool, optional
             Overwrite an existing file.
+        protect : iterable of path, optional
+            Input files never to overwrite.
 
         Returns
         -------
-        pathlib.Path
+        pathlib.Path or None
             The file written (see :meth:`csv_text` for the layout).
 
         Raises
         ------
-        OutputExistsError
+        powderspin.files.OutputExistsError
             If ``path`` exists and ``force`` is False.
-
-        References
-        ----------
-        Y. Shafranovich, RFC 4180 (2005) (CSV) (from memory).
 
         Examples
         --------
@@ -315,17 +301,68 @@ class Spectrum:
         >>> with tempfile.TemporaryDirectory() as d:
         ...     p = spec.write_csv(pathlib.Path(d) / "out.csv")
         ...     p.read_text().splitlines()[2]
-        'ppm,hz,intensity'
+        'ppm,hz,intensity,a'
         """
-        return write_text_safely(path, self.csv_text(), force=force)
+        return write_text_atomic(path, self.csv_text(), force=force, protect=protect)
 
-    def sideband_table(self) -> str:
-        """Text table: site, sideband index, offset (Hz, ppm), integrated intensity.
+    def sideband_rows_with_nominal(self) -> list[tuple]:
+        """Sideband rows with each band's nominal position: the site's centre band plus n x rate.
+
+        Returns
+        -------
+        list of (SidebandRow, float)
+            Each row and its nominal position (Hz).
+
+        Examples
+        --------
+        >>> spec = Spectrum(hz=[0.0, 1.0], ppm=[0.0, 0.01], intensity=[1.0, 0.0], site_labels=("a",),
+        ...                 site_intensities=[[1.0, 0.0]], metadata={"spinning_hz": 1000.0},
+        ...                 sidebands=(SidebandRow("a", 0, 10.0, 0.1, 0.9), SidebandRow("a", 1, 1012.0, 10.12, 0.1)))
+        >>> [round(h, 1) for _, h in spec.sideband_rows_with_nominal()]
+        [10.0, 1010.0]
+        """
+        rate = self.metadata.get("spinning_hz", 0.0)
+        rate = float(rate) if not isinstance(rate, str) else math.inf
+        centre = {r.site: r.position_hz for r in self.sidebands if r.order == 0}
+        out = []
+        for r in self.sidebands:
+            c = centre.get(r.site, r.position_hz - r.order * rate)
+            out.append((r, c + r.order * rate))
+        return out
+
+    def sideband_csv_text(self) -> str:
+        """The sideband table as CSV (columns described in the module docstring).
 
         Returns
         -------
         str
-            One header line and one line per :class:`SidebandRow`, or a
+
+        Examples
+        --------
+        >>> spec = Spectrum(hz=[0.0, 1.0], ppm=[0.0, 0.01], intensity=[1.0, 0.0], site_labels=("a",),
+        ...                 site_intensities=[[1.0, 0.0]], metadata={"spinning_hz": 1000.0, "nu_ref_hz": 1e8},
+        ...                 sidebands=(SidebandRow("a", 0, 10.0, 0.1, 0.9),))
+        >>> print(spec.sideband_csv_text(), end="")
+        # spinning_hz: 1000.0
+        site,order,position_hz,position_ppm,nominal_hz,intensity
+        a,0,10,0.1,10,0.9
+        """
+        buf = io.StringIO()
+        w = csv.writer(buf, lineterminator="\n")
+        buf.write(f"# spinning_hz: {self.metadata.get('spinning_hz', '')}\n")
+        w.writerow(["site", "order", "position_hz", "position_ppm", "nominal_hz", "intensity"])
+        for r, nominal in self.sideband_rows_with_nominal():
+            w.writerow([r.site, r.order, f"{r.position_hz:.10g}", f"{r.position_ppm:.10g}", f"{nominal:.10g}",
+                        f"{r.intensity:.8g}"])
+        return buf.getvalue()
+
+    def sideband_table(self) -> str:
+        """Text table: site, sideband order, position (Hz, ppm), integrated intensity.
+
+        Returns
+        -------
+        str
+            Two header lines and one line per :class:`SidebandRow`, or a
             one-line note for a static or infinite-rate spectrum.
 
         References
@@ -343,75 +380,9 @@ class Spectrum:
         """
         if not self.sidebands:
             return "no sidebands (static or infinite-rate spectrum)\n"
-        rows = [f"{'site':<16} {'band':>5} {'offset_hz':>14} {'offset_ppm':>12} {'intensity':>12}"]
+        rows = ["sidebands (order n: the band at the centre band + n x the spinning rate)",
+                f"{'site':<16} {'order':>5} {'position_hz':>14} {'position_ppm':>12} {'intensity':>12}"]
         for r in self.sidebands:
-            rows.append(f"{r.site:<16} {r.index:>5d} {r.offset_hz:>14.2f} {r.offset_ppm:>12.3f} {r.intensity:>12.6f}")
+            rows.append(f"{r.site:<16} {r.order:>5d} {r.position_hz:>14.2f} {r.position_ppm:>12.3f} "
+                        f"{r.intensity:>12.6f}")
         return "\n".join(rows) + "\n"
-
-
-def write_text_safely(path, text: str, *, force: bool = False, protect=()) -> Path:
-    """Write a text file atomically; never overwrite without ``force``.
-
-    Files listed in ``protect`` (e.g. the input model) are never overwritten,
-    even with ``force``.
-
-    The text goes to a temporary file in the same folder, which is then moved
-    into place with an atomic rename, so readers never see a half-written file.
-
-    Parameters
-    ----------
-    path : str or pathlib.Path
-        Output file; missing parent folders are made.
-    text : str
-        Content, written as UTF-8 with ``\n`` line ends.
-    force : bool, optional
-        Overwrite an existing file.
-    protect : iterable of path, optional
-        Files that must never be overwritten (e.g. the input model).
-
-    Returns
-    -------
-    pathlib.Path
-        The file written.
-
-    Raises
-    ------
-    OutputExistsError
-        If ``path`` exists and ``force`` is False, or ``path`` is a protected
-        file.
-
-    References
-    ----------
-    POSIX ``rename()`` (IEEE Std 1003.1), atomic replacement of a file
-    (from memory).
-
-    Examples
-    --------
-    >>> import tempfile, pathlib
-    >>> with tempfile.TemporaryDirectory() as d:
-    ...     p = write_text_safely(pathlib.Path(d) / "sub" / "a.txt", "one")
-    ...     p = write_text_safely(p, "two", force=True)
-    ...     p.read_text()
-    'two'
-    """
-    p = Path(path)
-    for q in protect:
-        try:
-            if p.exists() and Path(q).exists() and p.resolve() == Path(q).resolve():
-                raise OutputExistsError(f"output {str(p)!r} is an input file; choose another output name")
-        except OSError:
-            pass
-    if p.exists() and not force:
-        raise OutputExistsError(f"output {str(p)!r} exists; pass --force (force=True) to overwrite it")
-    if p.parent and not p.parent.exists():
-        p.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=".", suffix=".part", dir=str(p.parent or "."))
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
-            fh.write(text)
-        os.replace(tmp, p)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
-    return p

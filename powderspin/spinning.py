@@ -42,8 +42,9 @@ def _check_rotor_angle(rotor_angle_rad: float) -> float:
         raise ValueError(f"rotor_angle_rad = {rotor_angle_rad!r} is outside the allowed range [0, pi/2]")
     return a
 
-#: largest number of rotor phases the automatic choice goes to
-MAX_AUTO_PHASES = 4096
+#: largest number of rotor phases (the automatic choice and the rotor_phases
+#: key); beyond it the sideband manifold is refused rather than aliased
+MAX_ROTOR_PHASES = 65536
 
 
 def rotor_lines(traj: np.ndarray, rate_hz: float) -> tuple[np.ndarray, np.ndarray]:
@@ -161,7 +162,7 @@ def choose_rotor_phases(spread_hz: float, rate_hz: float) -> int:
     """
     bands = 2.0 * (spread_hz / rate_hz + 4.0)
     p = 16
-    while p < 2.0 * bands and p < MAX_AUTO_PHASES:
+    while p < 2.0 * bands and p < MAX_ROTOR_PHASES:
         p *= 2
     return p
 
@@ -220,15 +221,13 @@ def perturbative_sidebands(frame, directions, ms, *, rotor_angle_rad: float, pha
     if not (rate_hz > 0 and math.isfinite(rate_hz)):
         raise ValueError(f"spinning_hz = {rate_hz!r} must be finite and > 0 here")
     rotor_angle_rad = _check_rotor_angle(rotor_angle_rad)
-    from .frequencies import _axes, _upper_levels
+    from .frequencies import _axes, _kernel_geometry, _upper_levels
 
     d = _axes(directions)
     _upper_levels(frame.spin, ms)
     return _k._perturbative_sidebands(
-        d, math.cos(rotor_angle_rad), math.sin(rotor_angle_rad), p,
-        np.ascontiguousarray(frame.vdiag, dtype=float), np.ascontiguousarray(frame.delta_ppm, dtype=float),
-        float(frame.k_hz), float(frame.nu0_hz), np.asarray(ms, dtype=float), float(frame.spin),
-        bool(second_order), float(rate_hz))
+        *_kernel_geometry(frame, d, rotor_angle_rad, p),
+        np.ascontiguousarray(ms, dtype=float), float(frame.spin), bool(second_order), float(rate_hz))
 
 
 def rotor_fourier_components(frame, directions, ms, *, rotor_angle_rad: float) -> np.ndarray:

@@ -178,10 +178,10 @@ class ShiftTensor:
             raise TensorError(f"skew = {skew!r} is outside the allowed range [-1, 1]")
         kappa = min(max(kappa, -1.0), 1.0)
         iso = _finite("shift_ppm", iso_ppm)
-        d11 = iso + span * (3.0 - kappa) / 6.0
-        d22 = iso + kappa * span / 3.0
-        d33 = iso - span * (3.0 + kappa) / 6.0
-        return cls.from_principal((d11, d22, d33))
+        # principal values relative to the isotropic shift, so that the
+        # isotropic shift is kept exactly as given
+        t = cls.from_principal((span * (3.0 - kappa) / 6.0, kappa * span / 3.0, -span * (3.0 + kappa) / 6.0))
+        return cls(iso, t.aniso_ppm, t.eta)
 
     @classmethod
     def from_principal(cls, principal_ppm) -> "ShiftTensor":

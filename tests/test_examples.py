@@ -37,8 +37,16 @@ def test_demo_command(tmp_path):
     r = _run(["demo", "--out", str(tmp_path / "d")], tmp_path)
     assert r.returncode == 0, r.stderr
     assert (tmp_path / "d" / "demo_spectrum.csv").exists() and (tmp_path / "d" / "demo_spectrum.png").exists()
+    # the demo owns its folder: a rerun replaces its own files without --force ...
     r2 = _run(["demo", "--out", str(tmp_path / "d")], tmp_path)
-    assert r2.returncode != 0 and "--force" in (r2.stderr + r2.stdout)
+    assert r2.returncode == 0, r2.stderr
+    # ... but never touches a folder it did not make
+    (tmp_path / "mine").mkdir()
+    (tmp_path / "mine" / "demo_spectrum.csv").write_text("precious")
+    r3 = _run(["demo", "--out", str(tmp_path / "mine")], tmp_path)
+    assert r3.returncode == 0, r3.stderr
+    assert (tmp_path / "mine" / "demo_spectrum.csv").read_text() == "precious"
+    assert (tmp_path / "mine-2" / "demo_spectrum.csv").exists()
 
 
 def test_readme_python_block(tmp_path, monkeypatch):

@@ -29,7 +29,7 @@ from powderspin import _kernels as _k
 from powderspin.frequencies import (
     SiteFrame,
     exact_offsets,
-    needs_exact,
+    perturbation_error_hz,
     perturbative_offsets,
     transition_intensity,
 )
@@ -335,21 +335,21 @@ def test_zero_rotor_angle_is_static():
 
 
 # ---------------------------------------------------------------------------
-# needs_exact and input checks
+# perturbation_error_hz and input checks
 
 
-def test_needs_exact_small_and_large():
+def test_perturbation_error_hz_small_and_large():
     # Source: the error scaling above; at C_Q/nu0 = 1e-3 the CT error is ~1e-12 C_Q (far
     # below a millihertz), at C_Q/nu0 = 0.4 perturbation theory is off by kilohertz.
     nu0 = 1.0e8
-    small = needs_exact(_frame(2.5, nu0, 1e-3 * nu0, 0.3), [0.5])
-    large = needs_exact(_frame(2.5, nu0, 0.4 * nu0, 0.3), [0.5])
+    small = perturbation_error_hz(_frame(2.5, nu0, 1e-3 * nu0, 0.3), [0.5])
+    large = perturbation_error_hz(_frame(2.5, nu0, 0.4 * nu0, 0.3), [0.5])
     assert 0.0 <= small < 1e-3
     assert large > 1e3
     # satellites: third-order error, still far below a hertz at 1e-3
-    assert needs_exact(_frame(1.0, nu0, 1e-3 * nu0, 0.0), [1.0, 0.0]) < 0.1
+    assert perturbation_error_hz(_frame(1.0, nu0, 1e-3 * nu0, 0.0), [1.0, 0.0]) < 0.1
     # no quadrupole coupling: first-order shift is exact
-    assert needs_exact(_frame(0.5, nu0, 0.0, 0.0, np.diag([10.0, 20.0, 30.0])), [0.5]) == 0.0
+    assert perturbation_error_hz(_frame(0.5, nu0, 0.0, 0.0, np.diag([10.0, 20.0, 30.0])), [0.5]) == 0.0
 
 
 @pytest.mark.parametrize("bad", [[[0.0, 0.0, 0.0]], [[np.nan, 0.0, 1.0]], [[np.inf, 0.0, 1.0]],

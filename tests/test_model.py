@@ -6,7 +6,8 @@ import math
 
 import pytest
 
-from powderspin.model import MAGIC_ANGLE_DEG, ModelError, load_model, make_model, parse_model, selected_transitions
+from powderspin.model import MAGIC_ANGLE_DEG, ModelError, make_model, selected_transitions
+from powderspin.modelfile import load_model, parse_model
 
 
 def _data(**meas):
@@ -24,7 +25,7 @@ def test_defaults_and_free_parameters():
     d["site"][0]["cq_mhz"] = {"start": 3.0, "min": 0.5, "max": 8.0}
     m = parse_model(d)
     assert m.sites[0].cq_mhz == 3.0
-    assert m.free[0].where.endswith("cq_mhz") and m.free[0].min == 0.5 and m.free[0].max == 8.0
+    assert m.free[0].address.key == "cq_mhz" and m.free[0].min == 0.5 and m.free[0].max == 8.0
     assert m.measurement.rotor_angle_deg == pytest.approx(MAGIC_ANGLE_DEG)
 
 
@@ -32,9 +33,9 @@ def test_defaults_and_free_parameters():
     "mutate,needle",
     [
         (lambda d: d["site"][0].update(eta_q=1.5), "eta_q = 1.5 is outside the allowed range [0, 1]"),
-        (lambda d: d["measurement"].update(field_tesla=-2.0), "field_tesla = -2.0 is outside the allowed range (0, 100]"),
+        (lambda d: d["measurement"].update(field_tesla=-2.0), "field_tesla = -2.0 is outside the allowed range [0.1, 40]"),
         (lambda d: d["site"][0].update(span_ppm=10.0, skew=1.4), "skew = 1.4 is outside the allowed range [-1, 1]"),
-        (lambda d: d["site"][0].update(span_ppm=-10.0, skew=0.0), "span_ppm = -10.0 is outside the allowed range [0, inf)"),
+        (lambda d: d["site"][0].update(span_ppm=-10.0, skew=0.0), "span_ppm = -10.0 is outside the allowed range [0, 100000]"),
         (lambda d: d["measurement"].update(transitions=["7/2:5/2"]), "needs |m| <= I = 5/2"),
         (lambda d: d["measurement"].update(transitions=["3/2:-1/2"]), "single-quantum"),
         (lambda d: d["measurement"].update(method="magic"), "method = 'magic' is not one of"),
@@ -59,19 +60,22 @@ def test_bad_values_name_key_value_and_range(mutate, needle):
 
 def test_spin_half_rejects_cq():
     with pytest.raises(ModelError, match="spin 1/2"):
-        parse_model({"nucleus": "31P", "site": [{"cq_mhz": 1.0}]})
+        parse_model({"nucleus": "31P", "measurement": {"field_tesla": 9.4}, "site": [{"cq_mhz": 1.0}]})
 
 
 def test_transition_selection():
     assert selected_transitions(2.5, "central") == (0.5,)
     assert selected_transitions(2.5, "all") == (2.5, 1.5, 0.5, -0.5, -1.5)
     assert selected_transitions(1.5, ("3/2:1/2", "-1/2:-3/2")) == (1.5, -0.5)
-    assert selected_transitions(1.0, "central") == (1.0, 0.0)  # integer spin: the +-1 <-> 0 pair
+    assert selected_transitions(1.0, "all") == (1.0, 0.0)  # integer spin: the +-1 <-> 0 pair
+    # an integer spin has no central transition: refused, with the way forward named
+    with pytest.raises(ModelError, match="no central transition.*all"):
+        selected_transitions(1.0, "central")
 
 
 def test_infinite_rate_and_files(tmp_path):
     p = tmp_path / "m.toml"
-    p.write_text('nucleus = "23Na"\n[measurement]\nspinning_hz = "inf"\n[[site]]\ncq_mhz = 2.0\n')
+    p.write_text('nucleus = "23Na"\n[measurement]\nfield_tesla = 9.4\nspinning_hz = "inf"\n[[site]]\ncq_mhz = 2.0\n')
     m = load_model(p)
     assert math.isinf(m.measurement.spinning_hz)
     assert p.read_text().startswith('nucleus = "23Na"')  # the input is untouched

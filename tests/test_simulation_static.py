@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from powderspin.lineshape import broaden
-from powderspin.model import parse_model
+from powderspin.modelfile import parse_model
 from powderspin.simulation import simulate
 from tests.reference import bloembergen_rowland as br
 

@@ -39,10 +39,12 @@ import pytest
 from scipy.special import eval_legendre
 
 from powderspin.frequencies import site_frame
-from powderspin.model import MAGIC_ANGLE_DEG, parse_model, selected_transitions
+from powderspin.model import MAGIC_ANGLE_DEG, selected_transitions
+from powderspin.modelfile import parse_model
 from powderspin.nuclides import get_nuclide
 from powderspin.orientations import orientation_set_by_name
-from powderspin.simulation import simulate, site_lines
+from powderspin.simulation import simulate
+from powderspin.site_lines import compute_lines, site_job
 
 from tests.reference import bloembergen_rowland as br
 from tests.reference import herzfeld_berger as hb
@@ -59,16 +61,21 @@ def _model(nucleus, meas, sites):
     return parse_model({"nucleus": nucleus, "measurement": meas, "site": sites})
 
 
+def _site_lines(site, nucleus, meas, method, oset=None):
+    """A site's lines at their absolute positions (isotropic shift carried by the job)."""
+    job = site_job(site, meas, nucleus, method, oset, carry_shift=True)
+    return compute_lines(job, orientations=oset)
+
+
 def _lines(model, method="perturbation", orientations=None, site=0):
     fr = site_frame(model.sites[site], model.nucleus, model.measurement.field_tesla)
-    ms = selected_transitions(model.nucleus.spin, model.measurement.transitions)
     oset = orientation_set_by_name(orientations) if isinstance(orientations, str) else orientations
-    return fr, site_lines(fr, ms, model.measurement, method, oset)
+    return fr, _site_lines(model.sites[site], model.nucleus, model.measurement, method, oset)
 
 
 def _band_moments(sl):
     """Intensity, first and central second moment (Hz) of the bands at mean + n nu_r."""
-    w = sl.orientations.weights[:, None, None] * sl.weights[:, :, None] * sl.amp
+    w = sl.orientations.weights[:, None, None] * sl.weights[:, :, None] * sl.intensity
     f = sl.mean[:, :, None] + sl.band_offsets()[None, None, :]
     total = w.sum()
     m1 = (w * f).sum() / total
@@ -109,8 +116,8 @@ def test_sideband_sum_rule_two_sites():
     assert spec.area() == pytest.approx(3.5, rel=1e-4)
     for i in range(2):
         _, sl = _lines(m, site=i)
-        assert sl.amp.shape[2] >= 16
-        np.testing.assert_allclose(sl.amp.sum(axis=2), 1.0, atol=1e-12)
+        assert sl.intensity.shape[2] >= 16
+        np.testing.assert_allclose(sl.intensity.sum(axis=2), 1.0, atol=1e-12)
 
 
 def test_spinning_about_b0_and_zero_rate_give_the_static_pattern():
@@ -122,7 +129,7 @@ def test_spinning_about_b0_and_zero_rate_give_the_static_pattern():
     assert static.sidebands == ()
     spun = simulate(_model("31P", dict(base, spinning_hz=3000.0, rotor_angle_deg=0.0), site))
     np.testing.assert_allclose(spun.intensity, static.intensity, rtol=0, atol=1e-9 * static.intensity.max())
-    assert [r.index for r in spun.sidebands] == [0]
+    assert [r.order for r in spun.sidebands] == [0]
     assert spun.sidebands[0].intensity == pytest.approx(1.0, abs=1e-12)
     # a slow rate whose bands are merged by broadening wider than the rate: the static pattern again
     # (Maricq and Waugh: the manifold's envelope is the static pattern as nu_r -> 0)
@@ -249,7 +256,7 @@ def test_sideband_intensities_match_herzfeld_berger(mu, eta):
         m = _model("31P", {"field_tesla": field, "spinning_hz": rate, "points": 1024, "orientations": "coarse"},
                    [{"shift_ppm": 10.0, "aniso_ppm": aniso_ppm, "eta_cs": eta}])
         spec = simulate(m)
-        got = {r.index: r.intensity for r in spec.sidebands}
+        got = {r.order: r.intensity for r in spec.sidebands}
         assert max(abs(n) for n in got) < 16
         engine = np.array([got.get(int(n), 0.0) for n in orders])
         ref = hb.sideband_intensities(hb.principal_from_aniso(aniso_ppm * 1e-6 * nu0, eta), rate, orders,
@@ -266,7 +273,7 @@ def test_sideband_intensities_off_magic_angle_match_reference():
                        "orientations": "coarse"},
                [{"shift_ppm": 0.0, "aniso_ppm": 100.0, "eta_cs": 0.5}])
     spec = simulate(m)
-    got = {r.index: r.intensity for r in spec.sidebands}
+    got = {r.order: r.intensity for r in spec.sidebands}
     orders = np.arange(-12, 13)
     engine = np.array([got.get(int(n), 0.0) for n in orders])
     ref = hb.sideband_intensities(hb.principal_from_aniso(100e-6 * nu0, 0.5), rate, orders,
@@ -304,7 +311,7 @@ def test_slow_spinning_envelope_follows_static():
         m = _model("31P", {"field_tesla": field, "spinning_hz": rate, "points": 1024, "orientations": "coarse"},
                    [{"shift_ppm": 0.0, "aniso_ppm": aniso, "eta_cs": eta}])
         spec = simulate(m)
-        got = {r.index: r.intensity for r in spec.sidebands}
+        got = {r.order: r.intensity for r in spec.sidebands}
         n = np.arange(-2 * mu, 2 * mu + 1)
         engine = np.array([got.get(int(k), 0.0) for k in n])
         with warnings.catch_warnings():
@@ -626,18 +633,18 @@ def test_exact_route_chosen_and_centre_bands_match_numpy():
     # per orientation, on a small independent set of rotor axes
     fr = site_frame(m.sites[0], m.nucleus, 4.7)
     oset = orientation_set_by_name("gl-3x4-octant")
-    sl = site_lines(fr, (0.5,), m.with_measurement(rotor_phases=32).measurement, "exact", oset)
+    sl = _site_lines(m.sites[0], m.nucleus, m.with_measurement(rotor_phases=32).measurement, "exact", oset)
     ref = _numpy_rotor_average(fr.spin, fr.nu0_hz, 10e6, 0.5, 35.0, oset.vectors, MAGIC, 32)
     np.testing.assert_allclose(sl.mean[:, 0], ref, rtol=0, atol=1e-3)
     # second-order theory is off here by tens of Hz at single rotor phases and ~10 Hz after
     # the rotor average, far beyond the tolerance above, so the check has teeth
-    pert = site_lines(fr, (0.5,), m.with_measurement(rotor_phases=32).measurement, "perturbation", oset)
+    pert = _site_lines(m.sites[0], m.nucleus, m.with_measurement(rotor_phases=32).measurement, "perturbation", oset)
     assert np.max(np.abs(pert.mean[:, 0] - ref)) > 1.0
     # the sideband table's centre band lies at the intensity-weighted mean of the exact rotor averages
-    centre = [r for r in spec.sidebands if r.index == 0][0]
-    full = site_lines(fr, (0.5,), m.measurement, "exact")
-    w = full.orientations.weights * full.weights[:, 0] * full.amp[:, 0, 0]
-    assert centre.offset_hz == pytest.approx(float(w @ full.mean[:, 0] / w.sum()), abs=1e-6)
+    centre = [r for r in spec.sidebands if r.order == 0][0]
+    full = _site_lines(m.sites[0], m.nucleus, m.measurement, "exact")
+    w = full.orientations.weights * full.weights[:, 0] * full.intensity[:, 0, 0]
+    assert centre.position_hz == pytest.approx(float(w @ full.mean[:, 0] / w.sum()), abs=1e-6)
 
 
 # ---------------------------------------------------------------------------
@@ -667,18 +674,18 @@ def test_satellite_manifolds_and_transition_weights():
                [{"cq_mhz": 3.0, "eta_q": 0.0}])
     fr, sl = _lines(m)
     nuq = fr.nu_q_hz
-    assert sl.ms == (2.5, 1.5, 0.5, -0.5, -1.5)
+    assert sl.transitions == (2.5, 1.5, 0.5, -0.5, -1.5)
     vw = sl.orientations.weights
-    frac = np.einsum("v,vt,vtp->t", vw, sl.weights, sl.amp)
+    frac = np.einsum("v,vt,vtp->t", vw, sl.weights, sl.intensity)
     np.testing.assert_allclose(frac, np.array([5, 8, 9, 8, 5]) / 35, atol=1e-12)
-    p = sl.amp.shape[2]
+    p = sl.intensity.shape[2]
     n = np.fft.fftfreq(p, 1.0 / p).astype(int)
     order = np.argsort(n)
     pos = n[order] * rate
     for t, upper in ((0, 2.5), (1, 1.5), (3, -0.5), (4, -1.5)):
         amp = nuq * (2 * upper - 1) / 2
         sgn = math.copysign(1.0, amp)
-        bands = np.einsum("v,v,vp->p", vw, sl.weights[:, t], sl.amp[:, t, :])[order] / frac[t]
+        bands = np.einsum("v,v,vp->p", vw, sl.weights[:, t], sl.intensity[:, t, :])[order] / frac[t]
         x = sgn * pos  # mirror the negative-A transitions onto the A > 0 picture
         smear = (abs(amp) * rate**2) ** (1 / 3)
         # horn at -A/2 (the smoothed maximum moves inwards by less than s); its outer

@@ -7,9 +7,9 @@ import tomllib
 
 import pytest
 
-from powderspin.io import model_to_toml, write_model
-from powderspin.model import load_model, parse_model
-from powderspin.spectrum import OutputExistsError
+from powderspin.modelfile import load_model, model_to_toml, parse_model, write_model
+
+from powderspin.files import OutputExistsError
 
 
 def _model():
