@@ -61,6 +61,42 @@ class Axis:
     points: int
     nu_ref_hz: float
 
+    @classmethod
+    def from_points(cls, hz, nu_ref_hz: float, rtol: float = 1e-6) -> "Axis":
+        """The axis whose point centres are ``hz`` (uniform, ascending; e.g. a measured spectrum's).
+
+        Parameters
+        ----------
+        hz : array_like
+            Point positions (Hz offsets from nu_ref), ascending and uniform.
+        nu_ref_hz : float
+            Reference frequency (Hz).
+        rtol : float, optional
+            Allowed deviation from uniform spacing, relative to the step.
+
+        Returns
+        -------
+        Axis
+
+        Raises
+        ------
+        ValueError
+            For fewer than 2 points or a non-uniform or descending axis.
+
+        Examples
+        --------
+        >>> ax = Axis.from_points([-375.0, -125.0, 125.0, 375.0], 100e6)
+        >>> ax.center_hz, ax.width_hz, ax.points
+        (0.0, 1000.0, 4)
+        """
+        h = np.asarray(hz, dtype=float)
+        if h.ndim != 1 or h.size < 2:
+            raise ValueError(f"an axis needs at least 2 points, got shape {h.shape}")
+        step = (h[-1] - h[0]) / (h.size - 1)
+        if not step > 0 or np.max(np.abs(np.diff(h) - step)) > rtol * step:
+            raise ValueError("the points must be ascending and uniformly spaced")
+        return cls(float(0.5 * (h[0] + h[-1])), float(step * h.size), int(h.size), float(nu_ref_hz))
+
     @property
     def dx_hz(self) -> float:
         """Bin width (Hz).

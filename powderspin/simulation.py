@@ -74,7 +74,8 @@ def _widest_broadening_hz(model: Model, meas) -> float:
 
 
 def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None = None, progress=None,
-             allow_strong_coupling: bool = False, lines_memo: dict | None = None) -> Spectrum:
+             allow_strong_coupling: bool = False, lines_memo: dict | None = None, axis: Axis | None = None,
+             methods=None) -> Spectrum:
     """Simulate the spectrum of a model (one measurement).
 
     Parameters
@@ -94,6 +95,14 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
     lines_memo : dict, optional
         ``SiteJob -> SiteLines`` memo shared between calls (a fit passes one
         so that unchanged sites are not recomputed).
+    axis : Axis, optional
+        The spectral axis to render on (e.g. a measured spectrum's); the
+        measurement's ``points``, ``center_ppm`` and ``width_ppm`` are then
+        not used.
+    methods : sequence of str, optional
+        The producer of each site (``"perturbation"`` or ``"exact"``),
+        overriding the ``method = "auto"`` decision (a fit fixes it once, so
+        that its objective does not jump between producers).
 
     Returns
     -------
@@ -133,23 +142,32 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
     notes = check_high_field(model.sites, nuc, meas.field_tesla, allow_strong_coupling=allow_strong_coupling)
     offset_hz = meas.shift_offset_ppm * nu_ref * 1e-6
     widest = _widest_broadening_hz(model, meas)
-    explicit_axis = meas.center_ppm is not None and meas.width_ppm is not None
+    explicit_axis = axis is not None or (meas.center_ppm is not None and meas.width_ppm is not None)
 
     def axis_from(spans) -> Axis:
         lo = min(s[0] for s in spans) - 4 * widest
         hi = max(s[1] for s in spans) + 4 * widest
         return make_axis(meas.points, nu_ref, meas.center_ppm, meas.width_ppm, (lo, hi))
 
-    if explicit_axis:
+    if axis is not None:
+        if abs(axis.nu_ref_hz - nu_ref) > 1e-9 * nu_ref:
+            raise ModelError(f"simulate: the axis has nu_ref = {axis.nu_ref_hz:.9g} Hz but the measurement's is "
+                             f"{nu_ref:.9g} Hz ({nuc.name} at {meas.field_tesla:g} T)")
+    elif explicit_axis:
         axis = make_axis(meas.points, nu_ref, meas.center_ppm, meas.width_ppm)
     else:
         axis = axis_from([tuple(x + offset_hz for x in estimate_span_hz(s, meas, nuc)) for s in model.sites])
     # the method is decided once per site, against half a point of the (estimated) axis
+    if methods is not None and len(methods) != len(model.sites):
+        raise ModelError(f"simulate: methods has {len(methods)} entries for {len(model.sites)} sites")
     jobs = []
-    for site in model.sites:
-        method, note = choose_method(site, meas, nuc, 0.5 * axis.dx_hz)
-        if note:
-            notes.append(note)
+    for k, site in enumerate(model.sites):
+        if methods is not None:
+            method = methods[k]
+        else:
+            method, note = choose_method(site, meas, nuc, 0.5 * axis.dx_hz)
+            if note:
+                notes.append(note)
         jobs.append(site_job(site, meas, nuc, method, orientations))
     lines: list[SiteLines] = []
     for site, job in zip(model.sites, jobs):
