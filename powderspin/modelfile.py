@@ -53,7 +53,7 @@ from .model import (
     MAGIC_ANGLE_DEG,
 )
 from .nuclides import get_nuclide
-from .schema import FREE_TABLE_KEYS, TIE_KEY, key_spec, keys_of
+from .schema import FREE_TABLE_KEYS, KEYS, TIE_KEY, key_spec, keys_of
 
 __all__ = ["load_model", "parse_model", "model_from_tables", "parse_site_table", "model_to_dict",
            "model_to_toml", "write_model", "MAX_MODEL_BYTES"]
@@ -339,6 +339,9 @@ def model_from_tables(nucleus, measurements: list, sites: list, fit: dict, sourc
     for i, (key, item, st, lo, hi) in pending_free:
         a = ParameterAddress("site", i, key, item)
         free.append(FreeParameter(a, st, lo, hi, _name(a, built)))
+    order = {(k.table, k.name): n for n, k in enumerate(KEYS)}
+    free.sort(key=lambda f: (f.address.table != "measurement", f.address.index,
+                             order[(f.address.table, f.address.key)], f.address.item or 0))
     tied: list[TiedParameter] = []
     for i, (key, item, text) in pending_tied:
         a = ParameterAddress("site", i, key, item)
