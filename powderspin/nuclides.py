@@ -4,8 +4,8 @@ The table ``powderspin/data/nuclides.csv`` holds, per nucleus, the spin, the
 IUPAC frequency ratio Xi, the sign of the magnetic moment, the spectroscopic
 quadrupole moment and the natural abundance, with the sources named in the
 file's comment block.  This module loads it once (read-only, cached) and
-offers lookup by name, a reference-frequency calculator and a human-readable
-summary.
+offers lookup by name, a reference-frequency calculator, a human-readable
+summary of one nucleus and a text table of all of them.
 
 Reference frequency
 -------------------
@@ -60,6 +60,7 @@ __all__ = [
     "get_nuclide",
     "list_nuclides",
     "nuclide_summary",
+    "nuclide_table",
     "spin_from_label",
     "proton_gyromagnetic_ratio_mhz_per_t",
 ]
@@ -707,4 +708,81 @@ def nuclide_summary(nuclide: str | Nuclide, field_tesla: float) -> str:
     )
     lines.append("  sources:")
     lines.extend(f"    - {source}" for source in nuc.sources)
+    return "\n".join(lines)
+
+
+def nuclide_table(field_tesla: float = 1.0) -> str:
+    """Readable text table of every nucleus in the shipped table.
+
+    One line per nucleus, in table order (by mass number): name, spin, the
+    frequency ratio Xi, the reference frequency at ``field_tesla``, the
+    quadrupole moment and the natural abundance.  Meant for listing the
+    known nuclei on a terminal.
+
+    Parameters
+    ----------
+    field_tesla : float, optional
+        Static magnetic field B0 in tesla at which the reference frequencies
+        are given; finite and > 0 T.  Default 1 T, so the column is then
+        the reference frequency per tesla.
+
+    Returns
+    -------
+    str
+        A caption line, a header line, a rule and one line per nucleus;
+        columns separated by blanks, no trailing newline.  The frequency
+        column is ``Nuclide.larmor_hz(field_tesla)`` in MHz; Q is in mb
+        ("-" for spin 1/2); the abundance is in percent.
+
+    Raises
+    ------
+    ValueError
+        If ``field_tesla`` is not a finite number > 0 T.
+
+    See Also
+    --------
+    nuclide_summary : all data and sources of one nucleus.
+    list_nuclides : the same rows as Nuclide values.
+
+    References
+    ----------
+    .. [1] R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795 (Xi, spins,
+       abundances).
+    .. [2] P. Pyykko, Mol. Phys. 116 (2018) 1328 (quadrupole moments).
+
+    Examples
+    --------
+    >>> lines = nuclide_table(14.1).splitlines()
+    >>> print(lines[1])
+    nucleus   spin      Xi / %  MHz at 14.1 T     Q / mb  abundance / %
+    >>> print(next(line for line in lines if line.startswith("27Al ")))
+    27Al       5/2   26.056859       156.4304      146.6            100
+    """
+    field = _checked_field(field_tesla)
+    table = _table()
+    freq_head = f"MHz at {_format_number(field)} T"
+    widths = (7, 5, 10, max(12, len(freq_head)), 9, 13)
+    heads = ("nucleus", "spin", "Xi / %", freq_head, "Q / mb", "abundance / %")
+
+    def line(cells: tuple[str, ...]) -> str:
+        first = f"{cells[0]:<{widths[0]}}"
+        rest = "  ".join(f"{c:>{w}}" for c, w in zip(cells[1:], widths[1:]))
+        return f"{first}  {rest}"
+
+    lines = [
+        f"{len(table)} NMR nuclei; reference frequency nu_ref = (Xi / 100) x "
+        f"{proton_gyromagnetic_ratio_mhz_per_t():.4f} MHz/T x {_format_number(field)} T",
+        line(heads),
+        line(tuple("-" * w for w in widths)),
+    ]
+    for nuc in table:
+        q = _format_number(nuc.quadrupole_moment_mb) if nuc.is_quadrupolar else "-"
+        lines.append(line((
+            nuc.name,
+            nuc.spin_label,
+            f"{nuc.xi_percent:.6f}",
+            f"{nuc.larmor_hz(field) / 1e6:.4f}",
+            q,
+            _format_number(nuc.abundance_percent),
+        )))
     return "\n".join(lines)

@@ -36,29 +36,51 @@ from powderspin.nuclides import (
     get_nuclide,
     list_nuclides,
     nuclide_summary,
+    nuclide_table,
     proton_gyromagnetic_ratio_mhz_per_t,
     spin_from_label,
 )
 
-# The rows the project needs (from the task definition of the table).
+# The rows of the table: the stable nuclei of the IUPAC tables (R. K. Harris
+# et al., Pure Appl. Chem. 73 (2001) 1795, Table 1 spin 1/2 and Table 2
+# quadrupolar; membership of those tables from memory), counting primordial
+# nuclei with very long half-lives (40K, 50V, 87Rb, 115In, 138La, 187Re, 209Bi,
+# 235U) as stable because they have a natural abundance.
 QUADRUPOLAR = (
-    "2H 6Li 7Li 9Be 10B 11B 14N 17O 23Na 25Mg 27Al 33S 35Cl 37Cl 39K 43Ca 45Sc "
-    "47Ti 49Ti 51V 53Cr 55Mn 59Co 61Ni 63Cu 65Cu 67Zn 69Ga 71Ga 73Ge 75As 79Br "
-    "81Br 85Rb 87Rb 87Sr 91Zr 93Nb 95Mo 97Mo 115In 121Sb 123Sb 127I 133Cs 135Ba "
-    "137Ba 139La 181Ta 209Bi"
+    "2H 6Li 7Li 9Be 10B 11B 14N 17O 21Ne 23Na 25Mg 27Al 33S 35Cl 37Cl 39K 40K "
+    "41K 43Ca 45Sc 47Ti 49Ti 50V 51V 53Cr 55Mn 59Co 61Ni 63Cu 65Cu 67Zn 69Ga "
+    "71Ga 73Ge 75As 79Br 81Br 83Kr 85Rb 87Rb 87Sr 91Zr 93Nb 95Mo 97Mo 99Ru "
+    "101Ru 105Pd 113In 115In 121Sb 123Sb 127I 131Xe 133Cs 135Ba 137Ba 138La "
+    "139La 181Ta 185Re 187Re 189Os 201Hg 209Bi 235U"
 ).split()
 SPIN_HALF = (
-    "1H 13C 15N 19F 29Si 31P 77Se 89Y 103Rh 109Ag 113Cd 119Sn 125Te 183W 195Pt "
-    "199Hg 205Tl 207Pb"
+    "1H 3He 13C 15N 19F 29Si 31P 57Fe 77Se 89Y 103Rh 107Ag 109Ag 111Cd 113Cd "
+    "115Sn 117Sn 119Sn 123Te 125Te 129Xe 171Yb 183W 187Os 195Pt 199Hg 203Tl "
+    "205Tl 207Pb"
 ).split()
 ALL_NAMES = QUADRUPOLAR + SPIN_HALF
+
+# Nuclei of those IUPAC tables that are NOT in our table, with the reason.
+# Each is asserted to be unknown, so adding one means moving it up.
+NOT_IN_TABLE = {
+    # not stable: no natural abundance
+    "3H": "radioactive (half-life 12.3 years), no natural abundance",
+    "99Tc": "radioactive, technetium has no stable isotope",
+    # no reference compound and Xi could be written down from memory; the
+    # table holds no invented numbers, so these wait for a copy of the source
+    **{name: "no Xi / reference compound recalled" for name in (
+        "141Pr 143Nd 145Nd 147Sm 149Sm 151Eu 153Eu 155Gd 157Gd 159Tb 161Dy "
+        "163Dy 165Ho 167Er 169Tm 173Yb 175Lu 176Lu 177Hf 179Hf 191Ir 193Ir "
+        "197Au"
+    ).split()},
+}
 
 # ---------------------------------------------------------------------------
 # Documented differences from mendeleev
 # ---------------------------------------------------------------------------
 
 # Rows for which mendeleev has no value of some quantity.  Currently none:
-# mendeleev 1.3 has spin, g-factor, Q and abundance for all 68 rows.  The test
+# mendeleev 1.3 has spin, g-factor, Q and abundance for all 95 rows.  The test
 # `test_mendeleev_has_all_values_except_listed` fails if that changes, so a
 # missing value is always reported, never silently passed.
 MISSING_IN_MENDELEEV: dict[str, tuple[str, ...]] = {}
@@ -73,11 +95,16 @@ MISSING_IN_MENDELEEV: dict[str, tuple[str, ...]] = {}
 # (largest |difference| per tier, mendeleev 1.3, given in the comments) with a
 # margin; the g-factor's own uncertainty (2 sigma, from mendeleev) is added.
 XI_ALLOWANCE_BY_Z = (
-    (10, 3.0e-4),   # H..Ne: largest measured 2.57e-4 (17O, water)
+    (10, 3.0e-4),   # H..Ne: largest measured 2.57e-4 (17O, water); 21Ne listed below
     (18, 1.2e-3),   # Na..Ar: 9.78e-4 (37Cl)
-    (36, 3.0e-3),   # K..Kr: 2.59e-3 (79Br)
-    (54, 7.5e-3),   # Rb..Xe: 6.61e-3 (125Te)
-    (86, 1.5e-2),   # Cs..Rn: 1.29e-2 (205Tl, 209Bi)
+    (36, 3.0e-3),   # K..Kr: 2.59e-3 (79Br); 83Kr listed below
+    (54, 7.5e-3),   # Rb..Xe: 6.61e-3 (125Te), 6.69e-3 (123Te)
+    (86, 1.5e-2),   # Cs..Rn: 1.29e-2 (205Tl, 209Bi), 1.28e-2 (203Tl)
+    # Fr..U: only 235U (UF6), measured -5.27e-2; mendeleev's g-factor of
+    # 235U carries an 8 % uncertainty, so 2 sigma_g (0.16) dominates the
+    # tolerance and this row's Xi check is weak.  The tier value itself
+    # follows the growth of the lower tiers.
+    (92, 2.0e-2),
 )
 # Normally the reference nucleus is more shielded than the proton of TMS, so
 # the difference is negative.  Rows whose reference compound is strongly
@@ -98,7 +125,19 @@ XI_POSITIVE_ROWS = {
 # 59Co (K3[Co(CN)6], Co(III)) also comes out positive (+5.12e-3): Co(III)
 # has a large paramagnetic term too, and mendeleev's g-factor for 59Co carries
 # a 0.54 % uncertainty, so it passes the generic rule (|d| <= 2 sigma_g) without
-# being listed.
+# being listed.  The same holds for 99Ru and 101Ru (K4[Ru(CN)6], Ru(II), 4d6
+# like Rh(III)): +3.24e-3 and +3.82e-3, with g uncertainties of 0.78 % and
+# 0.84 % in mendeleev.
+
+# Rows whose reference is a free noble-gas atom: the whole diamagnetic
+# shielding of the atom enters Xi, with no paramagnetic term to offset it,
+# so the difference is more negative than the tier allows.  Order of
+# magnitude of the atomic shieldings (from memory of atomic shielding
+# calculations): about 5.5e-4 for Ne and 3e-3 to 4e-3 for Kr.  Measured:
+# 21Ne -4.13e-4 (tier 3e-4 plus 2 sigma_g 0.9e-4), 83Kr -3.72e-3 (tier
+# 3e-3).  3He (shielding about 6e-5) and the xenon rows (XeOF4, not the gas)
+# stay within their tiers.  Explicit tolerances:
+XI_NEGATIVE_ROWS = {"21Ne": 6.0e-4, "83Kr": 4.5e-3}
 
 # Pairs of isotopes of one element in the same reference compound: the
 # shielding cancels, so Xi_a/Xi_b must equal |g_a/g_b| to within isotope
@@ -108,11 +147,21 @@ XI_POSITIVE_ROWS = {
 # (2 sigma_g = 1.9e-3).  1H/2H: TMS versus TMS-d12, the same chemistry.
 # This is the tightest check of the table's Xi digits: a single-row Xi check
 # against bare-nucleus g-factors cannot resolve better than the shielding.
+# Pairs added with the completed table, measured the same way: 39K/40K
+# -4.9e-6, 39K/41K -1.0e-6, 50V/51V -3.0e-6, 129Xe/131Xe -4.6e-7, 138La/139La
+# -5.2e-6, 113In/115In -6.3e-6; the pairs of heavier elements (Ru, Ag, Cd,
+# Sn, Te, Re, Os, Hg, Tl) agree to 3.1e-4 or better, inside their g
+# uncertainties (tolerances 1.7e-3 to 3.2e-2).
 ISOTOPE_PAIRS = (
     ("1H", "2H"), ("6Li", "7Li"), ("10B", "11B"), ("14N", "15N"),
-    ("35Cl", "37Cl"), ("47Ti", "49Ti"), ("63Cu", "65Cu"), ("69Ga", "71Ga"),
-    ("79Br", "81Br"), ("85Rb", "87Rb"), ("95Mo", "97Mo"), ("121Sb", "123Sb"),
-    ("135Ba", "137Ba"),
+    ("35Cl", "37Cl"), ("39K", "40K"), ("39K", "41K"), ("47Ti", "49Ti"),
+    ("50V", "51V"), ("63Cu", "65Cu"), ("69Ga", "71Ga"), ("79Br", "81Br"),
+    ("85Rb", "87Rb"), ("95Mo", "97Mo"), ("99Ru", "101Ru"), ("107Ag", "109Ag"),
+    ("111Cd", "113Cd"), ("113In", "115In"), ("115Sn", "119Sn"),
+    ("117Sn", "119Sn"), ("121Sb", "123Sb"), ("123Te", "125Te"),
+    ("129Xe", "131Xe"), ("135Ba", "137Ba"), ("138La", "139La"),
+    ("185Re", "187Re"), ("187Os", "189Os"), ("199Hg", "201Hg"),
+    ("203Tl", "205Tl"),
 )
 PAIR_ALLOWANCE = 5.0e-5
 
@@ -136,6 +185,10 @@ Q_EXCEPTIONS = {
     # our 58.5 mb (remembered as the tabulated value; a newer determination
     # near 60 mb exists, see the row's notes).
     "39K": (10.0, 0.05, "10x unit slip in mendeleev, then 58.5 vs 60.3 mb"),
+    # The other two potassium rows show the same factor ten and the same
+    # step of about 3 % (a later revision of the potassium moments?):
+    "40K": (10.0, 0.05, "10x unit slip in mendeleev, then -73 vs -75.0 mb"),
+    "41K": (10.0, 0.05, "10x unit slip in mendeleev, then 71.1 vs 73.4 mb"),
     # mendeleev lists later determinations than the values we remember for
     # Pyykko's table (the rows' notes flag them as possibly pre-2018):
     "79Br": (1.0, 0.02, "313 vs 308.7 mb"),
@@ -144,6 +197,12 @@ Q_EXCEPTIONS = {
     "135Ba": (1.0, 0.05, "160 vs 153 mb"),
     "137Ba": (1.0, 0.05, "245 vs 236 mb"),
     "139La": (1.0, 0.04, "200 vs 206 mb"),
+    "185Re": (1.0, 0.06, "2180 vs 2070 mb"),
+    "187Re": (1.0, 0.07, "2070 vs 1940 mb"),
+    # Unresolved: 450 mb is what we remember for 138La, mendeleev has 390 mb
+    # (15 % apart, the largest difference in the table).  Kept, flagged
+    # "unsure" in the row's notes, until someone checks the source in hand.
+    "138La": (1.0, 0.16, "450 vs 390 mb, unresolved"),
 }
 
 # --- natural abundance ----------------------------------------------------------
@@ -213,6 +272,26 @@ def test_table_has_exactly_the_required_rows():
     names = [n.name for n in list_nuclides()]
     assert len(names) == len(set(names))
     assert set(names) == set(ALL_NAMES)
+    assert len(names) == 95
+
+
+def test_table_is_in_mass_order():
+    # list_nuclides promises the order of the file, by mass number.
+    masses = [n.mass_number for n in list_nuclides()]
+    assert masses == sorted(masses)
+
+
+@pytest.mark.parametrize("name", sorted(NOT_IN_TABLE))
+def test_nuclei_left_out_are_unknown(name):
+    with pytest.raises(UnknownNuclideError):
+        get_nuclide(name)
+
+
+def test_xenon_129_is_known():
+    # It used to be missing (the lookup suggested 125Te instead).
+    xe = get_nuclide("Xe-129")
+    assert xe.name == "129Xe" and xe.spin_label == "1/2" and xe.gamma_sign == -1
+    assert get_nuclide("131Xe").is_quadrupolar
     for name in QUADRUPOLAR:
         assert get_nuclide(name).is_quadrupolar, name
     for name in SPIN_HALF:
@@ -318,10 +397,13 @@ def test_xi_matches_mendeleev_g_ratio(mendeleev_isotopes, name):
     ratio = abs(rec["g_factor"] / proton["g_factor"])
     diff = (nuc.xi_percent / 100.0) / ratio - 1.0
     g_unc = 2.0 * (_rel_g_unc(rec) + _rel_g_unc(proton))
-    tol = XI_POSITIVE_ROWS.get(name) or (_xi_allowance(rec["atomic_number"]) + g_unc)
+    generic = _xi_allowance(rec["atomic_number"]) + g_unc
+    tol = XI_POSITIVE_ROWS.get(name) or XI_NEGATIVE_ROWS.get(name) or generic
     assert abs(diff) <= tol, f"{name}: Xi/g-ratio - 1 = {diff:+.3e}, tolerance {tol:.2e}"
     if name in XI_POSITIVE_ROWS:
         assert diff > g_unc, f"{name}: listed as deshielded but diff = {diff:+.3e}"
+    elif name in XI_NEGATIVE_ROWS:
+        assert diff < -generic, f"{name}: within the generic tolerance; drop the exception"
     else:
         # reference nucleus more shielded than the TMS proton (or equal, 1H/2H)
         assert diff <= g_unc + 1e-7, f"{name}: unexpected positive diff {diff:+.3e}"
@@ -487,7 +569,7 @@ def test_unknown_nucleus_suggests_close_matches():
         assert get_nuclide(name).name == name
 
 
-@pytest.mark.parametrize("bad", ["107Ag", "Al", "xyz", "", "27", "3000Al"])
+@pytest.mark.parametrize("bad", ["108Ag", "Al", "xyz", "", "27", "3000Al"])
 def test_unknown_or_malformed_names_raise(bad):
     with pytest.raises(UnknownNuclideError) as info:
         get_nuclide(bad)
@@ -496,7 +578,9 @@ def test_unknown_or_malformed_names_raise(bad):
 
 def test_unknown_isotope_of_known_element_suggests_its_isotopes():
     with pytest.raises(UnknownNuclideError, match=r"did you mean .*109Ag"):
-        get_nuclide("Ag-107")
+        get_nuclide("Ag-108")
+    with pytest.raises(UnknownNuclideError, match=r"did you mean .*107Ag"):
+        get_nuclide("Ag-108")
 
 
 def test_non_string_name_raises():
@@ -568,6 +652,58 @@ def test_summary_spin_half():
     assert "spin 1/2" in text and "none (spin 1/2)" in text
     assert "22.1 %" in text and "Me4Pb" in text
     assert "Mol. Phys." not in text
+
+
+# ---------------------------------------------------------------------------
+# table text (for listing every nucleus)
+# ---------------------------------------------------------------------------
+
+
+def _table_rows(text):
+    lines = text.splitlines()
+    assert set(lines[2]) <= {"-", " "}  # the rule under the header
+    return lines[1].split("  "), [line.split() for line in lines[3:]]
+
+
+def test_table_lists_every_nucleus_once_in_order():
+    text = nuclide_table()
+    assert not text.endswith("\n")
+    assert text.splitlines()[0].startswith(f"{len(list_nuclides())} NMR nuclei")
+    _, rows = _table_rows(text)
+    assert [r[0] for r in rows] == [n.name for n in list_nuclides()]
+    assert all(len(r) == 6 for r in rows)
+
+
+@pytest.mark.parametrize("field", [1.0, 9.4, 23.5])
+def test_table_values_match_the_nuclides(field):
+    header, rows = _table_rows(nuclide_table(field))
+    assert f"MHz at {field:g} T" in nuclide_table(field).splitlines()[1]
+    for row, nuc in zip(rows, list_nuclides()):
+        name, spin, xi, mhz, q, abundance = row
+        assert spin == nuc.spin_label
+        assert float(xi) == pytest.approx(nuc.xi_percent, abs=5e-7)
+        assert float(mhz) == pytest.approx(nuc.larmor_hz(field) / 1e6, abs=5e-5)
+        if nuc.is_quadrupolar:
+            assert float(q) == pytest.approx(nuc.quadrupole_moment_mb, rel=1e-6)
+        else:
+            assert q == "-"
+        assert float(abundance) == pytest.approx(nuc.abundance_percent, rel=1e-6)
+
+
+def test_table_default_is_one_tesla():
+    # At 1 T the frequency column is gamma/2pi in MHz/T; 1H: the CODATA
+    # proton value (scipy.constants).
+    assert nuclide_table() == nuclide_table(1.0)
+    _, rows = _table_rows(nuclide_table())
+    h = next(r for r in rows if r[0] == "1H")
+    gamma_mhz = physical_constants["proton gyromag. ratio in MHz/T"][0]
+    assert float(h[3]) == pytest.approx(gamma_mhz, abs=5e-5)
+
+
+@pytest.mark.parametrize("bad", [0.0, -3.0, math.nan, "x"])
+def test_table_rejects_bad_field(bad):
+    with pytest.raises(ValueError, match="field_tesla"):
+        nuclide_table(bad)
 
 
 def test_summary_unknown_nucleus():

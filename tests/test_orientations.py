@@ -23,8 +23,11 @@ Outside checks used here, each named again beside its test:
 from __future__ import annotations
 
 import dataclasses
+import fnmatch
+import importlib.resources
 import math
 import re
+import tomllib
 from pathlib import Path
 
 import numpy as np
@@ -46,7 +49,11 @@ from powderspin.orientations import (
     zcw_sizes,
 )
 
-README = Path(__file__).resolve().parent.parent / "orientation_sets" / "README.md"
+REPO = Path(__file__).resolve().parent.parent
+# The README (how each set was made, accuracy tables) stays in the source tree;
+# the Lebedev files themselves are package data.
+README = REPO / "orientation_sets" / "README.md"
+PACKAGE_SETS = ("data", "orientation_sets")
 REGION = {"sphere": 4 * math.pi, "hemisphere": 2 * math.pi, "octant": math.pi / 2}
 
 # Degrees the brief asks for at least; more are shipped.
@@ -262,10 +269,29 @@ def test_missing_lebedev_file_names_file_and_script(monkeypatch, tmp_path):
         with pytest.raises(ori.OrientationSetFileMissing) as err:
             lebedev(17)
         assert "lebedev_017.csv" in str(err.value)
-        assert "make_sets.py" in str(err.value)
+        assert "tools/make_sets.py" in str(err.value)
         assert isinstance(err.value, ValueError) and isinstance(err.value, FileNotFoundError)
+        assert lebedev_degrees() == ()
     finally:
         ori._lebedev_cached.cache_clear()
+
+
+def test_lebedev_files_are_package_data():
+    # The rules are read from inside the package (importlib.resources), not
+    # from the source tree, so a non-editable install has them too.
+    folder = importlib.resources.files("powderspin").joinpath(*PACKAGE_SETS)
+    assert str(ori._orientation_set_dir()) == str(folder)
+    names = sorted(entry.name for entry in folder.iterdir() if entry.name.endswith(".csv"))
+    assert names == [f"lebedev_{d:03d}.csv" for d in lebedev_degrees()]
+    # Nothing left at the old place in the source tree.
+    assert not list((REPO / "orientation_sets").glob("*.csv"))
+    # pyproject.toml ships them: every file matches a package-data pattern.
+    config = tomllib.loads((REPO / "pyproject.toml").read_text(encoding="utf-8"))
+    patterns = config["tool"]["setuptools"]["package-data"]["powderspin"]
+    for name in names:
+        relative = "/".join(PACKAGE_SETS + (name,))
+        assert any(fnmatch.fnmatch(relative, pattern) and pattern.count("/") == relative.count("/")
+                   for pattern in patterns), relative
 
 
 # ---------------------------------------------------------------------------
@@ -504,14 +530,42 @@ def test_select_orientations_sizes(accuracy, octant_size):
             assert other.triangles.shape[0] == factor * octant.triangles.shape[0]
 
 
+def tri_vertex_count(s: int, symmetry: str) -> int:
+    # Combinatorics of the barycentric grid (see test_triangulation_is_a_proper_mesh).
+    return {"octant": (s + 1) * (s + 2) // 2, "hemisphere": 2 * s * s + 2 * s + 1,
+            "sphere": 4 * s * s + 2}[symmetry]
+
+
+# ZCW sizes are consecutive Fibonacci numbers, neighbours a factor of about
+# the golden ratio phi = 1.618 apart.  The size nearest in ratio to a target
+# therefore lies within a factor sqrt(phi) = 1.272 of it either way, and its
+# neighbours lie outside that band, so the band tells neighbouring sizes apart
+# (a factor-1.6 band would not: it admits a neighbour, e.g. 987 for the coarse
+# octant's 1540 vertices).  Chosen sizes and ratios to the vertex count:
+#   coarse  octant 1597 / 1540 = 1.037, hemisphere 6765 / 5941 = 1.139,
+#           sphere 10946 / 11666 = 0.938;
+#   medium  octant 4181 / 5050 = 0.828, hemisphere 17711 / 19801 = 0.894,
+#           sphere 46368 / 39206 = 1.183;
+#   fine    octant 17711 / 20100 = 0.881, hemisphere 75025 / 79601 = 0.943,
+#           sphere 196418 / 158406 = 1.240.
+SQRT_PHI = math.sqrt((1 + math.sqrt(5)) / 2)
+
+
+@pytest.mark.parametrize("accuracy", ["coarse", "medium", "fine"])
 @pytest.mark.parametrize("symmetry", ori.SYMMETRIES)
-def test_select_orientations_without_interpolation(symmetry):
-    tri = select_orientations(symmetry, "coarse")
-    plain = select_orientations(symmetry, "coarse", interpolate=False)
+def test_select_orientations_without_interpolation(symmetry, accuracy):
+    target = tri_vertex_count(dict(ori.ACCURACY_LEVELS)[accuracy], symmetry)
+    if accuracy == "coarse":  # the triangulated sets themselves only where cheap
+        assert select_orientations(symmetry, accuracy).size == target
+    plain = select_orientations(symmetry, accuracy, interpolate=False)
     assert plain.name.startswith(f"zcw-{symmetry}-") and not plain.has_triangles
     assert plain.symmetry == symmetry
-    ratio = plain.size / tri.size
-    assert 0.625 < ratio < 1.6  # within a factor 1.6 either way
+    ratio = plain.size / target
+    assert 1 / SQRT_PHI < ratio < SQRT_PHI
+    sizes = sorted(zcw_sizes(symmetry).values())
+    index = sizes.index(plain.size)
+    for neighbour in (sizes[index - 1], sizes[index + 1]):
+        assert not 1 / SQRT_PHI < neighbour / target < SQRT_PHI, neighbour
 
 
 def test_select_orientations_integer_accuracy():
