@@ -31,7 +31,7 @@ from powderspin.simulation import site_lines, simulate  # noqa: E402
 
 def numpy_mas(frame, vecs, m, theta, p, rate):
     """Plain numpy version of the same steps: trajectories, FFTs, |F_n|^2."""
-    spin, k, nu0 = frame.spin, frame.k_hz, frame.nu0_hz
+    spin, k, nu0 = frame.spin, frame.quad_constant_hz, frame.nu0_hz
     x = spin * (spin + 1)
     n = vecs
     e = np.where(np.abs(n[:, :1]) <= np.min(np.abs(n[:, 1:]), axis=1, keepdims=True),
@@ -43,11 +43,11 @@ def numpy_mas(frame, vecs, m, theta, p, rate):
     ph = 2 * np.pi * np.arange(p) / p
     b = (math.cos(theta) * n[:, None, :] + math.sin(theta) * (np.cos(ph)[None, :, None] * u[:, None, :]
                                                                + np.sin(ph)[None, :, None] * v[:, None, :]))
-    vd = frame.vdiag
+    vd = frame.efg_principal_values
     vzz = (b**2) @ vd
     a = (b**2) @ (vd**2) - vzz**2
     bq = 2 * np.sum(vd**2) - 3 * vzz**2 - 4 * a
-    dzz = np.einsum("npi,ij,npj->np", b, frame.delta_ppm, b)
+    dzz = np.einsum("npi,ij,npj->np", b, frame.shift_tensor_ppm, b)
 
     def e2(mm):
         return -(k * k / (2 * nu0)) * mm * ((4 * x - 8 * mm * mm - 1) * a - (2 * x - 2 * mm * mm - 1) * bq / 4)

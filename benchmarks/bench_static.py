@@ -26,13 +26,13 @@ from powderspin.simulation import site_lines, simulate  # noqa: E402
 
 def numpy_frequencies(frame, vecs, m):
     """Plain numpy: first-order shift + 1st/2nd-order quadrupolar offsets of m -> m-1."""
-    spin, k, nu0 = frame.spin, frame.k_hz, frame.nu0_hz
+    spin, k, nu0 = frame.spin, frame.quad_constant_hz, frame.nu0_hz
     x = spin * (spin + 1)
-    v = frame.vdiag
+    v = frame.efg_principal_values
     vzz = (vecs**2) @ v
     a = (vecs**2) @ (v**2) - vzz**2
     bq = 2 * np.sum(v**2) - 3 * vzz**2 - 4 * a
-    dzz = np.einsum("ni,ij,nj->n", vecs, frame.delta_ppm, vecs)
+    dzz = np.einsum("ni,ij,nj->n", vecs, frame.shift_tensor_ppm, vecs)
 
     def e2(mm):
         return -(k * k / (2 * nu0)) * mm * ((4 * x - 8 * mm * mm - 1) * a - (2 * x - 2 * mm * mm - 1) * bq / 4)

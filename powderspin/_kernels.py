@@ -68,13 +68,13 @@ def _field_direction(n, u, v, cos_r, sin_r, phi, b):
 
 
 @njit(cache=True, inline="always")
-def _cone_functions(n0, n1, n2, u0, u1, u2, w0, w1, w2, cos_r, cc, sn, v0, v1, v2, t2, dd):
+def _cone_functions(n0, n1, n2, u0, u1, u2, w0, w1, w2, cos_r, cc, sn, v0, v1, v2, t2, shift_terms):
     """The four orientation functions the perturbative offsets are linear in.
 
     B0 direction b = cos_r n + cc u + sn w (cc, sn already include sin_r);
     returns V_zz, A = V_xz^2 + V_yz^2 = |V b|^2 - V_zz^2,
     B = (V_xx - V_yy)^2 + 4 V_xy^2 = 2 Tr V^2 - 3 V_zz^2 - 4 A and d_zz, with
-    dd = (d00, d11, d22, d01 + d10, d02 + d20, d12 + d21) of the shift tensor.
+    shift_terms = (d00, d11, d22, d01 + d10, d02 + d20, d12 + d21) of the shift tensor.
     """
     b0 = cos_r * n0 + cc * u0 + sn * w0
     b1 = cos_r * n1 + cc * u1 + sn * w1
@@ -85,7 +85,7 @@ def _cone_functions(n0, n1, n2, u0, u1, u2, w0, w1, w2, cos_r, cc, sn, v0, v1, v
     vzz = v0 * b0s + v1 * b1s + v2 * b2s
     a = v0 * v0 * b0s + v1 * v1 * b1s + v2 * v2 * b2s - vzz * vzz
     bq = 2.0 * t2 - 3.0 * vzz * vzz - 4.0 * a
-    dzz = dd[0] * b0s + dd[1] * b1s + dd[2] * b2s + dd[3] * b0 * b1 + dd[4] * b0 * b2 + dd[5] * b1 * b2
+    dzz = shift_terms[0] * b0s + shift_terms[1] * b1s + shift_terms[2] * b2s + shift_terms[3] * b0 * b1 + shift_terms[4] * b0 * b2 + shift_terms[5] * b1 * b2
     return vzz, a, bq, dzz
 
 
@@ -96,7 +96,7 @@ def _shift_terms(delta):
 
 
 @njit(cache=True, inline="always")
-def _pair_coefficients(m, mm, x, k_hz, c2):
+def _pair_coefficients(m, mm, x, quad_constant_hz, c2):
     """Coefficients of the offset of the level pair (m, mm) on (d_zz, V_zz, A, B).
 
     The offset E(m) - E(mm) - (m - mm) nu0 of the high-field formulas
@@ -106,7 +106,7 @@ def _pair_coefficients(m, mm, x, k_hz, c2):
     E2(m) - E2(mm) = c2 [ca A - cb B / 4], c2 = -K^2 / (2 nu0).
     Returns (m - mm, c1, c_a, c_b).
     """
-    c1 = 1.5 * k_hz * (m * m - mm * mm)
+    c1 = 1.5 * quad_constant_hz * (m * m - mm * mm)
     ca = m * (4 * x - 8 * m * m - 1) - mm * (4 * x - 8 * mm * mm - 1)
     cb = m * (2 * x - 2 * m * m - 1) - mm * (2 * x - 2 * mm * mm - 1)
     return m - mm, c1, c2 * ca, -0.25 * c2 * cb
@@ -117,7 +117,7 @@ def _pair_coefficients(m, mm, x, k_hz, c2):
 
 
 @njit(parallel=True, cache=True)
-def _perturbative_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz, mhi, mlo, spin, second_order):
+def _perturbative_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, m_upper, m_lower, spin, second_order):
     """Offsets (Hz) of transitions m_hi <-> m_lo for every orientation and rotor phase.
 
     The offset is E(m_hi) - E(m_lo) - (m_hi - m_lo) nu0: single-quantum
@@ -130,32 +130,32 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz
     rotation invariants of the EFG so only b = B0 direction is needed).
     """
     n_or = axes.shape[0]
-    nt = mhi.shape[0]
+    nt = m_upper.shape[0]
     out = np.empty((n_or, nt, nphase))
     x = spin * (spin + 1.0)
-    t2 = vdiag[0] ** 2 + vdiag[1] ** 2 + vdiag[2] ** 2
-    c2 = -(k_hz * k_hz) / (2.0 * nu0_hz) if second_order else 0.0
+    t2 = efg_principal_values[0] ** 2 + efg_principal_values[1] ** 2 + efg_principal_values[2] ** 2
+    c2 = -(quad_constant_hz * quad_constant_hz) / (2.0 * nu0_hz) if second_order else 0.0
     # per-transition coefficients on (d_zz, V_zz, A, B) for the pair of levels (m_hi, m_lo)
     dm = np.empty(nt)
     c1 = np.empty(nt)
     ca = np.empty(nt)
     cb = np.empty(nt)
     for t in range(nt):
-        dm[t], c1[t], ca[t], cb[t] = _pair_coefficients(mhi[t], mlo[t], x, k_hz, c2)
+        dm[t], c1[t], ca[t], cb[t] = _pair_coefficients(m_upper[t], m_lower[t], x, quad_constant_hz, c2)
     scale_cs = nu0_hz * 1e-6
     cph = np.empty(nphase)
     sph = np.empty(nphase)
     for p in range(nphase):
         cph[p] = math.cos(2.0 * math.pi * p / nphase)
         sph[p] = math.sin(2.0 * math.pi * p / nphase)
-    v0, v1, v2 = vdiag[0], vdiag[1], vdiag[2]
-    dd = _shift_terms(delta)
+    v0, v1, v2 = efg_principal_values[0], efg_principal_values[1], efg_principal_values[2]
+    shift_terms = _shift_terms(delta)
     for i in prange(n_or):
         n0, n1, n2 = axes[i, 0], axes[i, 1], axes[i, 2]
         u0, u1, u2, w0, w1, w2 = _perp3(n0, n1, n2)
         for p in range(nphase):
             vzz, a, bq, dzz = _cone_functions(n0, n1, n2, u0, u1, u2, w0, w1, w2, cos_r, sin_r * cph[p],
-                                              sin_r * sph[p], v0, v1, v2, t2, dd)
+                                              sin_r * sph[p], v0, v1, v2, t2, shift_terms)
             cs = scale_cs * dzz
             for t in range(nt):
                 out[i, t, p] = dm[t] * cs + c1[t] * vzz + ca[t] * a + cb[t] * bq
@@ -167,20 +167,20 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz
 
 
 @njit(parallel=True, cache=True)
-def _exact_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz, ops, iz_diag, iplus, upper_idx,
-                  lower_idx):
+def _exact_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, ops, iz_diag, iplus, upper_index,
+                  lower_index):
     """Exact transition offsets (Hz) and intensities |<m|I+|m-1>|^2.
 
     Diagonalises H = nu0 (1 + 1e-6 d_zz) Iz + K sum_ab V_ab I_a I_b at every
     orientation and rotor phase, labels the eigenstates by <Iz> (descending)
     and returns offsets E(m_hi) - E(m_lo) - (m_hi - m_lo) nu0 for the level
-    indices ``upper_idx`` / ``lower_idx`` in that order (m = I first) and the
+    indices ``upper_index`` / ``lower_index`` in that order (m = I first) and the
     intensities |<m_hi|I+|m_lo>|^2 (zero unless single-quantum).
 
     ``ops`` holds IxIx, IyIy, IzIz, {Ix,Iy}, {Ix,Iz}, {Iy,Iz} (complex).
     """
     n_or = axes.shape[0]
-    nt = upper_idx.shape[0]
+    nt = upper_index.shape[0]
     dim = iz_diag.shape[0]
     off = np.empty((n_or, nt, nphase))
     inten = np.empty((n_or, nt, nphase))
@@ -202,12 +202,12 @@ def _exact_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz, ops, 
             vxz = 0.0
             vyz = 0.0
             for k in range(3):
-                vxx += vdiag[k] * ex[k] * ex[k]
-                vyy += vdiag[k] * ey[k] * ey[k]
-                vzz += vdiag[k] * b[k] * b[k]
-                vxy += vdiag[k] * ex[k] * ey[k]
-                vxz += vdiag[k] * ex[k] * b[k]
-                vyz += vdiag[k] * ey[k] * b[k]
+                vxx += efg_principal_values[k] * ex[k] * ex[k]
+                vyy += efg_principal_values[k] * ey[k] * ey[k]
+                vzz += efg_principal_values[k] * b[k] * b[k]
+                vxy += efg_principal_values[k] * ex[k] * ey[k]
+                vxz += efg_principal_values[k] * ex[k] * b[k]
+                vyz += efg_principal_values[k] * ey[k] * b[k]
             dzz = 0.0
             for r in range(3):
                 for s in range(3):
@@ -215,7 +215,7 @@ def _exact_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz, ops, 
             zee = nu0_hz * (1.0 + 1e-6 * dzz)
             for r in range(dim):
                 for s in range(dim):
-                    h[r, s] = k_hz * (
+                    h[r, s] = quad_constant_hz * (
                         vxx * ops[0, r, s]
                         + vyy * ops[1, r, s]
                         + vzz * ops[2, r, s]
@@ -232,9 +232,9 @@ def _exact_offsets(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz, ops, 
                 mz[j] = acc
             order = np.argsort(-mz)
             for t in range(nt):
-                jh = order[upper_idx[t]]
-                jl = order[lower_idx[t]]
-                off[i, t, p] = w[jh] - w[jl] - (lower_idx[t] - upper_idx[t]) * nu0_hz
+                jh = order[upper_index[t]]
+                jl = order[lower_index[t]]
+                off[i, t, p] = w[jh] - w[jl] - (lower_index[t] - upper_index[t]) * nu0_hz
                 # <psi_hi| I+ |psi_lo>
                 amp = 0.0 + 0.0j
                 for r in range(dim):
@@ -284,7 +284,7 @@ def _fft_inplace(a, inverse):
 
 
 @njit(parallel=True, cache=True)
-def _sideband_amplitudes(traj, rate_hz):
+def _sideband_intensities(traj, rate_hz):
     """Rotor averages and gamma-averaged sideband intensities |F_n|^2.
 
     ``traj`` (n_orient, n_trans, P) holds offsets (Hz) at P equally spaced
@@ -566,12 +566,12 @@ def _fft_lanes_bitreversed(re, im, twr, twi):
 
 
 @njit(parallel=True, cache=True, fastmath=True)
-def _perturbative_sidebands(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_hz, ms, spin, second_order,
+def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, m_upper, spin, second_order,
                             rate_hz):
     """Rotor averages and sideband intensities straight from the perturbative terms.
 
     Same physics as ``_perturbative_offsets`` followed by
-    ``_sideband_amplitudes``, organised for speed: the four orientation
+    ``_sideband_intensities``, organised for speed: the four orientation
     functions the offsets are linear in (V_zz, the two second-order EFG
     invariants and d_zz) are trigonometric polynomials of degree <= 4 in the
     rotor phase, so 16 samples give their Fourier coefficients k = 0..4
@@ -580,17 +580,17 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_
     Returns mean (N, T) and amp (N, T, P).
     """
     n_or = axes.shape[0]
-    nt = ms.shape[0]
+    nt = m_upper.shape[0]
     p = nphase
     ns = 16
     x = spin * (spin + 1.0)
-    t2 = vdiag[0] ** 2 + vdiag[1] ** 2 + vdiag[2] ** 2
-    c2 = -(k_hz * k_hz) / (2.0 * nu0_hz) if second_order else 0.0
+    t2 = efg_principal_values[0] ** 2 + efg_principal_values[1] ** 2 + efg_principal_values[2] ** 2
+    c2 = -(quad_constant_hz * quad_constant_hz) / (2.0 * nu0_hz) if second_order else 0.0
     scale_cs = nu0_hz * 1e-6
     # per-transition linear coefficients on (vzz, a, bq, dzz)
     coef = np.empty((nt, 4))
     for t in range(nt):
-        dm, c1, ca, cb = _pair_coefficients(ms[t], ms[t] - 1.0, x, k_hz, c2)
+        dm, c1, ca, cb = _pair_coefficients(m_upper[t], m_upper[t] - 1.0, x, quad_constant_hz, c2)
         coef[t, 0] = c1
         coef[t, 1] = ca
         coef[t, 2] = cb
@@ -622,8 +622,8 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_
     mean = np.empty((n_or, nt))
     amp = np.empty((n_or, nt, p))
     inv = 1.0 / (p * p)
-    v0, v1, v2 = vdiag[0], vdiag[1], vdiag[2]
-    dd = _shift_terms(delta)
+    v0, v1, v2 = efg_principal_values[0], efg_principal_values[1], efg_principal_values[2]
+    shift_terms = _shift_terms(delta)
     nchunk = min(n_or, 64)
     step = (n_or + nchunk - 1) // nchunk if nchunk > 0 else 0
     for c in prange(nchunk):
@@ -644,7 +644,7 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, vdiag, delta, k_hz, nu0_
                 u0, u1, u2, w0, w1, w2 = _perp3(n0, n1, n2)
                 for j in range(ns):
                     vzz, a, bq, dzz = _cone_functions(n0, n1, n2, u0, u1, u2, w0, w1, w2, cos_r,
-                                                      sin_r * cs16[j], sin_r * sn16[j], v0, v1, v2, t2, dd)
+                                                      sin_r * cs16[j], sin_r * sn16[j], v0, v1, v2, t2, shift_terms)
                     f[0, j] = vzz
                     f[1, j] = a
                     f[2, j] = bq

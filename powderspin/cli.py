@@ -196,12 +196,12 @@ def _cmd_nuclide(args) -> int:
     from . import nuclides as nuc_mod
 
     if args.list:
-        table = getattr(nuc_mod, "nuclide_table_text", None)
-        if table is not None:
-            print(table(), end="")
-        else:
-            for n in nuc_mod.list_nuclides():
-                print(f"{n.name:>6}  spin {n.spin_label:>4}")
+        field = 1.0 if args.field is None else args.field
+        if args.field is not None:
+            from .model import check_number
+
+            check_number("nuclide", "field_tesla", args.field, "measurement")
+        print(nuc_mod.nuclide_table(field))
         return 0
     if args.name is None:
         raise CliError("nuclide: give a nucleus (e.g. 27Al) or --list")
@@ -295,7 +295,8 @@ def build_parser() -> argparse.ArgumentParser:
     n = sub.add_parser("nuclide", help="print the NMR data of a nucleus, or list them all")
     n.add_argument("name", nargs="?", help="nucleus, e.g. 27Al")
     n.add_argument("--field", type=float, help="magnetic field in tesla (required with a nucleus)")
-    n.add_argument("--list", action="store_true", help="list every nucleus in the table")
+    n.add_argument("--list", action="store_true",
+                   help="list every nucleus in the table (frequencies at --field, default 1 T)")
     n.set_defaults(func=_cmd_nuclide)
 
     d = sub.add_parser("demo", help="simulate the bundled example and write a CSV and a PNG")
@@ -348,6 +349,11 @@ def main(argv=None) -> int:
     except KeyboardInterrupt:
         print("interrupted; no output was written for the unfinished step", file=sys.stderr)
         return 130
+    except BrokenPipeError:  # the reader of standard output went away (e.g. `| head`): stop quietly
+        import os
+
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
     except SystemError as e:  # an interrupt that arrives inside a compiled kernel
         if isinstance(e.__cause__ or e.__context__, KeyboardInterrupt):
             print("interrupted; no output was written for the unfinished step", file=sys.stderr)

@@ -50,11 +50,11 @@ class SiteFrame:
         Nuclear spin I.
     nu0_hz : float
         Reference (Larmor) frequency at the field (Hz).
-    k_hz : float
+    quad_constant_hz : float
         C_Q / (2I(2I-1)) in Hz (0 for spin 1/2 or C_Q = 0).
-    vdiag : ndarray
+    efg_principal_values : ndarray
         EFG principal values in units of V_zz.
-    delta_ppm : ndarray
+    shift_tensor_ppm : ndarray
         3x3 shift tensor (ppm, isotropic part included) in the crystallite frame.
     symmetry : str
         "octant" when every tensor is diagonal in the crystallite frame,
@@ -71,15 +71,15 @@ class SiteFrame:
     >>> from powderspin.nuclides import get_nuclide
     >>> f = site_frame(make_site(cq_mhz=3.0, span_ppm=40.0, skew=0.2, euler_deg=[0, 30, 0]),
     ...                get_nuclide("27Al"), 14.1)
-    >>> f.spin, f.symmetry, f.vdiag.tolist()
+    >>> f.spin, f.symmetry, f.efg_principal_values.tolist()
     (2.5, 'hemisphere', [-0.5, -0.5, 1.0])
     """
 
     spin: float
     nu0_hz: float
-    k_hz: float
-    vdiag: np.ndarray
-    delta_ppm: np.ndarray
+    quad_constant_hz: float
+    efg_principal_values: np.ndarray
+    shift_tensor_ppm: np.ndarray
     symmetry: str
 
     @property
@@ -104,7 +104,7 @@ class SiteFrame:
         >>> site_frame(Site(cq_mhz=3.0), get_nuclide("27Al"), 14.1).nu_q_hz
         450000.0
         """
-        return 3.0 * self.k_hz
+        return 3.0 * self.quad_constant_hz
 
 
 def site_frame(site: Site, nucleus: Nuclide, field_tesla: float) -> SiteFrame:
@@ -139,7 +139,7 @@ def site_frame(site: Site, nucleus: Nuclide, field_tesla: float) -> SiteFrame:
     >>> from powderspin.model import Site
     >>> from powderspin.nuclides import get_nuclide
     >>> f = site_frame(Site(cq_mhz=3.0), get_nuclide("27Al"), 14.1)
-    >>> round(f.k_hz)
+    >>> round(f.quad_constant_hz)
     150000
     """
     spin = nucleus.spin
@@ -171,14 +171,14 @@ def _axes(directions) -> np.ndarray:
     return d / nrm[:, None]
 
 
-def _upper_levels(spin: float, ms) -> np.ndarray:
-    """Index (m = I first) of the upper level of each transition m -> m-1; validates ms."""
-    ms_a = np.asarray(ms, dtype=float).reshape(-1)
-    idx = spin - ms_a
+def _upper_levels(spin: float, m_upper) -> np.ndarray:
+    """Index (m = I first) of the upper level of each transition m -> m-1; validates m_upper."""
+    m_upper_a = np.asarray(m_upper, dtype=float).reshape(-1)
+    idx = spin - m_upper_a
     ok = np.isfinite(idx) & (np.abs(idx - np.round(idx)) < 1e-9) & (idx > -0.5) & (idx < 2 * spin - 0.5)
     if not np.all(ok):
         allowed = [spin - i for i in range(int(round(2 * spin)))]
-        raise ValueError(f"transition upper levels ms = {ms_a.tolist()} not available for spin {spin}; "
+        raise ValueError(f"transition upper levels m_upper = {m_upper_a.tolist()} not available for spin {spin}; "
                          f"allowed values are {allowed}")
     return np.round(idx).astype(np.int64)
 
@@ -186,7 +186,7 @@ def _upper_levels(spin: float, ms) -> np.ndarray:
 def perturbative_offsets(
     frame: SiteFrame,
     directions,
-    ms,
+    m_upper,
     *,
     rotor_angle_rad: float = 0.0,
     phases: int = 1,
@@ -201,7 +201,7 @@ def perturbative_offsets(
     directions : array_like, shape (N, 3)
         Static: B0 directions in the crystallite frame.  Spinning: rotor-axis
         directions.
-    ms : sequence of float
+    m_upper : sequence of float
         Upper level m of each transition m -> m-1.
     rotor_angle_rad : float
         Angle between rotor axis and B0; 0 (with ``phases=1``) is static.
@@ -212,7 +212,7 @@ def perturbative_offsets(
 
     Returns
     -------
-    ndarray, shape (N, len(ms), phases)
+    ndarray, shape (N, len(m_upper), phases)
 
     References
     ----------
@@ -229,9 +229,9 @@ def perturbative_offsets(
     [[[450000.0]]]
     """
     ax = _axes(directions)
-    _upper_levels(frame.spin, ms)
-    ms_a = np.asarray(ms, dtype=float).reshape(-1)
-    return _perturbative_pairs(frame, ax, ms_a, ms_a - 1.0, rotor_angle_rad, phases, second_order)
+    _upper_levels(frame.spin, m_upper)
+    m_upper_a = np.asarray(m_upper, dtype=float).reshape(-1)
+    return _perturbative_pairs(frame, ax, m_upper_a, m_upper_a - 1.0, rotor_angle_rad, phases, second_order)
 
 
 def _kernel_geometry(frame, ax, rotor_angle_rad, phases):
@@ -241,18 +241,18 @@ def _kernel_geometry(frame, ax, rotor_angle_rad, phases):
         math.cos(rotor_angle_rad),
         math.sin(rotor_angle_rad),
         int(phases),
-        np.ascontiguousarray(frame.vdiag, dtype=float),
-        np.ascontiguousarray(frame.delta_ppm, dtype=float),
-        float(frame.k_hz),
+        np.ascontiguousarray(frame.efg_principal_values, dtype=float),
+        np.ascontiguousarray(frame.shift_tensor_ppm, dtype=float),
+        float(frame.quad_constant_hz),
         float(frame.nu0_hz),
     )
 
 
-def _perturbative_pairs(frame, ax, mhi, mlo, rotor_angle_rad, phases, second_order):
+def _perturbative_pairs(frame, ax, m_upper, m_lower, rotor_angle_rad, phases, second_order):
     return _k._perturbative_offsets(
         *_kernel_geometry(frame, ax, rotor_angle_rad, phases),
-        np.ascontiguousarray(mhi, dtype=float),
-        np.ascontiguousarray(mlo, dtype=float),
+        np.ascontiguousarray(m_upper, dtype=float),
+        np.ascontiguousarray(m_lower, dtype=float),
         float(frame.spin),
         bool(second_order),
     )
@@ -268,7 +268,7 @@ def _operator_products(spin: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]
 def exact_offsets(
     frame: SiteFrame,
     directions,
-    ms,
+    m_upper,
     *,
     rotor_angle_rad: float = 0.0,
     phases: int = 1,
@@ -277,12 +277,12 @@ def exact_offsets(
 
     Parameters
     ----------
-    frame, directions, ms, rotor_angle_rad, phases
+    frame, directions, m_upper, rotor_angle_rad, phases
         As in :func:`perturbative_offsets`.
 
     Returns
     -------
-    offsets : ndarray, shape (N, len(ms), phases)
+    offsets : ndarray, shape (N, len(m_upper), phases)
         E(m) - E(m-1) - nu0 with levels labelled by <Iz>.
     intensities : ndarray, same shape
         |<m|I+|m-1>|^2 between the eigenstates (I(I+1) - m(m-1) in high field).
@@ -303,7 +303,7 @@ def exact_offsets(
     """
     ax = _axes(directions)
     spin = frame.spin
-    upper = _upper_levels(spin, ms)
+    upper = _upper_levels(spin, m_upper)
     return _exact_pairs(frame, ax, upper, upper + 1, rotor_angle_rad, phases)
 
 
@@ -432,7 +432,7 @@ def probe_directions(count: int = 96) -> np.ndarray:
     return np.column_stack([r * np.cos(phi), r * np.sin(phi), z])
 
 
-def perturbation_error_hz(frame: SiteFrame, ms, *, rotor_angle_rad: float = 0.0, phases: int = 1) -> float:
+def perturbation_error_hz(frame: SiteFrame, m_upper, *, rotor_angle_rad: float = 0.0, phases: int = 1) -> float:
     """Largest perturbative error (Hz) over probe orientations, by exact diagonalisation.
 
     ``method = "auto"`` uses this (:func:`powderspin.site_lines.choose_method`):
@@ -444,7 +444,7 @@ def perturbation_error_hz(frame: SiteFrame, ms, *, rotor_angle_rad: float = 0.0,
     ----------
     frame : SiteFrame
         Site interactions (:func:`site_frame`).
-    ms : sequence of float
+    m_upper : sequence of float
         Upper level m of each transition m -> m-1.
     rotor_angle_rad : float, optional
         Rotor angle (radians); 0 with ``phases=1`` is static.
@@ -473,9 +473,9 @@ def perturbation_error_hz(frame: SiteFrame, ms, *, rotor_angle_rad: float = 0.0,
     >>> perturbation_error_hz(site_frame(Site(cq_mhz=20.0), al, 9.4), [0.5]) > 10.0     # Hz
     True
     """
-    if frame.k_hz == 0.0:
+    if frame.quad_constant_hz == 0.0:
         return 0.0
     d = probe_directions()
-    a = perturbative_offsets(frame, d, ms, rotor_angle_rad=rotor_angle_rad, phases=phases)
-    b, _ = exact_offsets(frame, d, ms, rotor_angle_rad=rotor_angle_rad, phases=phases)
+    a = perturbative_offsets(frame, d, m_upper, rotor_angle_rad=rotor_angle_rad, phases=phases)
+    b, _ = exact_offsets(frame, d, m_upper, rotor_angle_rad=rotor_angle_rad, phases=phases)
     return float(np.max(np.abs(a - b)))

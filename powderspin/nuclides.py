@@ -634,7 +634,7 @@ def get_nuclide(name: str | Nuclide) -> Nuclide:
         )
     raise UnknownNuclideError(
         f"unknown nucleus {name!r}{hint or '; no similar nucleus in the table'}"
-        f" (list_nuclides() gives all {len(_table())} known nuclei)"
+        f" (powderspin nuclide --list, or list_nuclides() in Python, gives all {len(_table())} known nuclei)"
     )
 
 

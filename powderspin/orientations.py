@@ -82,7 +82,7 @@ __all__ = [
     "triangulated",
     "select_orientations",
     "orientation_set_by_name",
-    "coverage_rank",
+    "symmetry_rank",
 ]
 
 #: The allowed values of ``symmetry``.
@@ -101,7 +101,7 @@ LEBEDEV_PUBLISHED_DEGREES = (
     41, 47, 53, 59, 65, 71, 77, 83, 89, 95, 101, 107, 113, 119, 125, 131,
 )
 
-def coverage_rank(symmetry: str) -> int:
+def symmetry_rank(symmetry: str) -> int:
     """How much of the sphere a symmetry's sets cover: octant 0 < hemisphere 1 < sphere 2.
 
     A set of larger rank can stand in for one of smaller rank.
@@ -116,7 +116,7 @@ def coverage_rank(symmetry: str) -> int:
 
     Examples
     --------
-    >>> coverage_rank("octant") < coverage_rank("hemisphere") < coverage_rank("sphere")
+    >>> symmetry_rank("octant") < symmetry_rank("hemisphere") < symmetry_rank("sphere")
     True
     """
     return {"octant": 0, "hemisphere": 1, "sphere": 2}[_check_symmetry(symmetry)]
@@ -294,7 +294,7 @@ class OrientationSet:
         if abs(weights.sum() - 1.0) > 1e-12:
             raise OrientationSetError(
                 f"weights must sum to 1 (to 1e-12), they sum to {weights.sum()!r}")
-        _check_region(vectors, self.symmetry, "vectors")
+        _check_within_symmetry(vectors, self.symmetry, "vectors")
         if (self.triangles is None) != (self.triangle_weights is None):
             raise OrientationSetError(
                 "triangles and triangle_weights must both be given or both be None")
@@ -451,7 +451,7 @@ def _check_int(value: object, field: str, low: int, high: int) -> int:
     return int(value)
 
 
-def _check_region(vectors: np.ndarray, symmetry: str, field: str) -> None:
+def _check_within_symmetry(vectors: np.ndarray, symmetry: str, field: str) -> None:
     tol = -1e-12
     if symmetry == "hemisphere" and vectors[:, 2].min() < tol:
         raise OrientationSetError(

@@ -194,7 +194,7 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
         if sl.phases > 1:
             sidebands.extend(sideband_rows(site.label, site.weight, sl, nu_ref, sh))
     ys = np.array(ys)
-    ms = selected_transitions(nuc.spin, meas.transitions)
+    m_upper = selected_transitions(nuc.spin, meas.transitions)
     meta = {
         "powderspin_version": package_version(),
         "nucleus": nuc.name,
@@ -203,7 +203,7 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
         "nu_ref_hz": nu_ref,
         "spinning_hz": "inf" if meas.is_infinite_rate else meas.spinning_hz,
         "rotor_angle_deg": meas.rotor_angle_deg if not meas.is_static else "n/a (static)",
-        "transitions": [f"{_frac(m)}:{_frac(m - 1)}" for m in ms],
+        "transitions": [f"{_frac(m)}:{_frac(m - 1)}" for m in m_upper],
         "method": {s.label: sl.method for s, sl in zip(model.sites, lines)},
         "orientations": {s.label: f"{sl.orientations.name} ({sl.orientations.size} directions)"
                          for s, sl in zip(model.sites, lines)},

@@ -41,7 +41,7 @@ from .frequencies import (
 from .lineshape import Axis, bin_lines, broaden
 from .model import Measurement, ModelError, Site, selected_transitions
 from .nuclides import Nuclide, get_nuclide
-from .orientations import OrientationSet, coverage_rank, orientation_set_by_name, select_orientations
+from .orientations import OrientationSet, symmetry_rank, orientation_set_by_name, select_orientations
 from .spinning import MAX_ROTOR_PHASES, choose_rotor_phases, perturbative_sidebands, rotor_lines
 from .tensors import ShiftTensor
 
@@ -199,7 +199,7 @@ class SiteJob:
         --------
         >>> from powderspin.model import Measurement, Site
         >>> f = site_job(Site(cq_mhz=3.0), Measurement(14.1), get_nuclide("27Al"), "perturbation").frame()
-        >>> round(f.k_hz)
+        >>> round(f.quad_constant_hz)
         150000
         """
         site = Site(shift=ShiftTensor(self.iso_ppm, self.aniso_ppm, self.eta_cs), cq_mhz=self.cq_mhz,
@@ -221,7 +221,7 @@ def _pick_orientations(meas: Measurement, symmetry: str, exact_spinning: bool) -
 
 
 def _check_cover(oset: OrientationSet, symmetry: str, where: str) -> None:
-    if coverage_rank(oset.symmetry) < coverage_rank(symmetry):
+    if symmetry_rank(oset.symmetry) < symmetry_rank(symmetry):
         raise ModelError(
             f"{where}: the set '{oset.name}' covers only the {oset.symmetry}, but this site needs a "
             f"{symmetry} set (its shift and EFG tensors are not coaxial)"
@@ -267,7 +267,7 @@ def site_job(site: Site, meas: Measurement, nucleus: Nuclide, method: str,
     """
     if method not in ("perturbation", "exact"):
         raise ModelError(f"method = {method!r} is not one of 'perturbation', 'exact' (resolve 'auto' first)")
-    ms = selected_transitions(nucleus.spin, meas.transitions)
+    m_upper = selected_transitions(nucleus.spin, meas.transitions)
     quadrupolar = nucleus.spin > 0.5 and site.cq_mhz != 0.0
     if not quadrupolar:
         method = "perturbation"  # first-order shift is exact at high field
@@ -287,7 +287,7 @@ def site_job(site: Site, meas: Measurement, nucleus: Nuclide, method: str,
         field_tesla=meas.field_tesla,
         spinning_hz=rate,
         rotor_angle_deg=0.0 if static else meas.rotor_angle_deg,
-        transitions=tuple(float(m) for m in ms),
+        transitions=tuple(float(m) for m in m_upper),
         method=method,
         orientations=oset.name,
         rotor_phases=meas.rotor_phases if finite else 0,
@@ -422,11 +422,11 @@ def choose_method(site: Site, meas: Measurement, nucleus: Nuclide, resolution_hz
     if nucleus.spin <= 0.5 or site.cq_mhz == 0.0:
         return "perturbation", ""
     frame = site_frame(site, nucleus, meas.field_tesla)
-    ms = selected_transitions(nucleus.spin, meas.transitions)
+    m_upper = selected_transitions(nucleus.spin, meas.transitions)
     if meas.is_static:
-        err = perturbation_error_hz(frame, ms)
+        err = perturbation_error_hz(frame, m_upper)
     else:
-        err = perturbation_error_hz(frame, ms, rotor_angle_rad=math.radians(meas.rotor_angle_deg), phases=8)
+        err = perturbation_error_hz(frame, m_upper, rotor_angle_rad=math.radians(meas.rotor_angle_deg), phases=8)
     if err > resolution_hz:
         return "exact", (
             f"site '{site.label}': second-order perturbation theory is off by up to {err:.3g} Hz "
@@ -465,12 +465,12 @@ def estimate_span_hz(site: Site, meas: Measurement, nucleus: Nuclide) -> tuple[f
     from .frequencies import probe_directions
 
     frame = site_frame(site, nucleus, meas.field_tesla)
-    ms = selected_transitions(nucleus.spin, meas.transitions)
+    m_upper = selected_transitions(nucleus.spin, meas.transitions)
     d = probe_directions()
     if meas.is_static:
-        off = perturbative_offsets(frame, d, ms)
+        off = perturbative_offsets(frame, d, m_upper)
     else:
-        off = perturbative_offsets(frame, d, ms, rotor_angle_rad=math.radians(meas.rotor_angle_deg), phases=8)
+        off = perturbative_offsets(frame, d, m_upper, rotor_angle_rad=math.radians(meas.rotor_angle_deg), phases=8)
         if meas.is_infinite_rate:
             off = off.mean(axis=2)
     return float(off.min()), float(off.max())
@@ -612,8 +612,8 @@ def _chunks(n: int, size: int):
         yield start, min(n, start + size)
 
 
-def _ideal_weights(spin: float, ms) -> np.ndarray:
-    w = np.array([transition_intensity(spin, m) for m in ms])
+def _ideal_weights(spin: float, m_upper) -> np.ndarray:
+    w = np.array([transition_intensity(spin, m) for m in m_upper])
     return w / w.sum()
 
 
@@ -624,15 +624,15 @@ class _Producer:
         self.job = job
         self.oset = oset
         self.frame = job.frame()
-        self.ms = job.transitions
+        self.m_upper = job.transitions
         self.exact = job.method == "exact"
         self.theta = math.radians(job.rotor_angle_deg)
         self.rate = job.spinning_hz
-        self.ideal = _ideal_weights(self.frame.spin, self.ms)
-        self.norm = sum(transition_intensity(self.frame.spin, m) for m in self.ms)
+        self.ideal = _ideal_weights(self.frame.spin, self.m_upper)
+        self.norm = sum(transition_intensity(self.frame.spin, m) for m in self.m_upper)
 
     def chunk_size(self, phases: int) -> int:
-        per = len(self.ms) * max(phases, 1) * (self.frame_dim() ** 2 if self.exact else 1)
+        per = len(self.m_upper) * max(phases, 1) * (self.frame_dim() ** 2 if self.exact else 1)
         return max(16, _CHUNK_POINTS // per)
 
     def frame_dim(self) -> int:
@@ -640,33 +640,33 @@ class _Producer:
 
     def lines(self, dirs: np.ndarray, phases: int):
         """mean (n, T), intensity (n, T, P'), weights (n, T) for directions ``dirs``."""
-        f, ms, rate = self.frame, self.ms, self.rate
+        f, m_upper, rate = self.frame, self.m_upper, self.rate
         if rate == 0.0:
             if self.exact:
-                off, inten = exact_offsets(f, dirs, ms)
+                off, inten = exact_offsets(f, dirs, m_upper)
                 w = inten[:, :, 0] / self.norm
             else:
-                off = perturbative_offsets(f, dirs, ms)
+                off = perturbative_offsets(f, dirs, m_upper)
                 w = np.broadcast_to(self.ideal, off.shape[:2]).copy()
             return off[:, :, 0].copy(), np.ones(off.shape[:2] + (1,)), w
         if math.isinf(rate):
             if self.exact:
-                off, inten = exact_offsets(f, dirs, ms, rotor_angle_rad=self.theta, phases=phases)
+                off, inten = exact_offsets(f, dirs, m_upper, rotor_angle_rad=self.theta, phases=phases)
                 w = inten.mean(axis=2) / self.norm
             else:
-                off = perturbative_offsets(f, dirs, ms, rotor_angle_rad=self.theta, phases=phases)
+                off = perturbative_offsets(f, dirs, m_upper, rotor_angle_rad=self.theta, phases=phases)
                 w = np.broadcast_to(self.ideal, off.shape[:2]).copy()
             return off.mean(axis=2), np.ones(off.shape[:2] + (1,)), w
         if self.exact:
-            off, inten = exact_offsets(f, dirs, ms, rotor_angle_rad=self.theta, phases=phases)
+            off, inten = exact_offsets(f, dirs, m_upper, rotor_angle_rad=self.theta, phases=phases)
             w = inten.mean(axis=2) / self.norm
             mean, amp = rotor_lines(off, rate)
             return mean, amp, w
-        mean, amp = perturbative_sidebands(f, dirs, ms, rotor_angle_rad=self.theta, phases=phases, rate_hz=rate)
+        mean, amp = perturbative_sidebands(f, dirs, m_upper, rotor_angle_rad=self.theta, phases=phases, rate_hz=rate)
         return mean, amp, np.broadcast_to(self.ideal, mean.shape).copy()
 
     def first_guess_phases(self) -> int:
-        probe = perturbative_offsets(self.frame, self.oset.vectors[:: max(1, self.oset.size // 512)], self.ms,
+        probe = perturbative_offsets(self.frame, self.oset.vectors[:: max(1, self.oset.size // 512)], self.m_upper,
                                      rotor_angle_rad=self.theta, phases=16)
         spread = float(np.max(np.abs(probe - probe.mean(axis=2, keepdims=True)))) if probe.size else 0.0
         return choose_rotor_phases(spread, self.rate)
@@ -675,7 +675,7 @@ class _Producer:
         """One pass over the orientation set at ``phases``: lines, band summaries, intensities if stored."""
         oset = self.oset
         n = oset.size
-        nt = len(self.ms)
+        nt = len(self.m_upper)
         p_out = phases if (self.rate > 0 and math.isfinite(self.rate)) else 1
         mean = np.empty((n, nt))
         w = np.empty((n, nt))

@@ -82,7 +82,7 @@ def rotor_lines(traj: np.ndarray, rate_hz: float) -> tuple[np.ndarray, np.ndarra
         raise ValueError(f"rotor phases = {p} must be a power of 2")
     if not (rate_hz > 0 and math.isfinite(rate_hz)):
         raise ValueError(f"spinning_hz = {rate_hz!r} must be finite and > 0 here")
-    return _k._sideband_amplitudes(np.ascontiguousarray(traj, dtype=float), float(rate_hz))
+    return _k._sideband_intensities(np.ascontiguousarray(traj, dtype=float), float(rate_hz))
 
 
 def outer_band_fraction(amp: np.ndarray, weights: np.ndarray | None = None) -> float:
@@ -167,7 +167,7 @@ def choose_rotor_phases(spread_hz: float, rate_hz: float) -> int:
     return p
 
 
-def perturbative_sidebands(frame, directions, ms, *, rotor_angle_rad: float, phases: int, rate_hz: float,
+def perturbative_sidebands(frame, directions, m_upper, *, rotor_angle_rad: float, phases: int, rate_hz: float,
                            second_order: bool = True) -> tuple[np.ndarray, np.ndarray]:
     """Rotor averages and sideband intensities for perturbative frequencies (fast path).
 
@@ -180,7 +180,7 @@ def perturbative_sidebands(frame, directions, ms, *, rotor_angle_rad: float, pha
     frame : powderspin.frequencies.SiteFrame
     directions : ndarray (N, 3)
         Rotor-axis directions in the crystallite frame.
-    ms : sequence of float
+    m_upper : sequence of float
         Upper levels m of the transitions m -> m-1.
     rotor_angle_rad : float
         Angle between rotor axis and B0 (radians), in [0, pi/2].
@@ -224,13 +224,13 @@ def perturbative_sidebands(frame, directions, ms, *, rotor_angle_rad: float, pha
     from .frequencies import _axes, _kernel_geometry, _upper_levels
 
     d = _axes(directions)
-    _upper_levels(frame.spin, ms)
+    _upper_levels(frame.spin, m_upper)
     return _k._perturbative_sidebands(
         *_kernel_geometry(frame, d, rotor_angle_rad, p),
-        np.ascontiguousarray(ms, dtype=float), float(frame.spin), bool(second_order), float(rate_hz))
+        np.ascontiguousarray(m_upper, dtype=float), float(frame.spin), bool(second_order), float(rate_hz))
 
 
-def rotor_fourier_components(frame, directions, ms, *, rotor_angle_rad: float) -> np.ndarray:
+def rotor_fourier_components(frame, directions, m_upper, *, rotor_angle_rad: float) -> np.ndarray:
     """Fourier components k = -4..4 of each transition's offset over one rotor period.
 
     The offset of a crystallite whose rotor axis is ``n`` is, at rotor phase
@@ -248,7 +248,7 @@ def rotor_fourier_components(frame, directions, ms, *, rotor_angle_rad: float) -
     frame : powderspin.frequencies.SiteFrame
     directions : array_like (N, 3)
         Rotor-axis directions in the crystallite frame.
-    ms : sequence of float
+    m_upper : sequence of float
         Upper levels m of the transitions m -> m-1.
     rotor_angle_rad : float
         Angle between rotor axis and B0.
@@ -280,7 +280,7 @@ def rotor_fourier_components(frame, directions, ms, *, rotor_angle_rad: float) -
     from .frequencies import perturbative_offsets
 
     rotor_angle_rad = _check_rotor_angle(rotor_angle_rad)
-    traj = perturbative_offsets(frame, directions, ms, rotor_angle_rad=rotor_angle_rad, phases=16)
+    traj = perturbative_offsets(frame, directions, m_upper, rotor_angle_rad=rotor_angle_rad, phases=16)
     c = np.fft.fft(traj, axis=2) / 16.0  # c_k exp(i k phi) convention: numpy's forward DFT
     k = np.arange(-4, 5)
     return c[..., k % 16]

@@ -19,11 +19,11 @@ def _frame(spin, ratio, eta=0.35, nu0=1e8, delta=None):
 def _numpy_mq(spin, frame, dirs, m):
     """Exact E(m) - E(-m) - 2 m nu0 from plain numpy eigh (tests/reference/exact_numpy.py)."""
     _, _, iz, _ = spin_matrices(spin)
-    cq = frame.k_hz * 2 * spin * (2 * spin - 1)
-    eta = float(frame.vdiag[0] - frame.vdiag[1])
+    cq = frame.quad_constant_hz * 2 * spin * (2 * spin - 1)
+    eta = float(frame.efg_principal_values[0] - frame.efg_principal_values[1])
     out = []
     for b in dirs:
-        h = hamiltonian(spin, frame.nu0_hz, cq, eta, frame.delta_ppm, b)
+        h = hamiltonian(spin, frame.nu0_hz, cq, eta, frame.shift_tensor_ppm, b)
         e, u = np.linalg.eigh(h)
         mz = np.einsum("ij,i->j", np.abs(u) ** 2, np.real(np.diag(iz)))
         order = np.argsort(-mz)

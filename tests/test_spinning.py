@@ -193,7 +193,7 @@ def test_maricq_waugh_moments_quadrupolar_satellites(rate_hz):
                [{"cq_mhz": cq, "eta_q": eta}])
     fr, sl = _lines(m, orientations=GL_OCTANT)
     total, m1, m2 = _band_moments(sl)
-    spin, nu0, k = fr.spin, fr.nu0_hz, fr.k_hz
+    spin, nu0, k = fr.spin, fr.nu0_hz, fr.quad_constant_hz
     nuq = 3 * k
     x = spin * (spin + 1)
     trv = (3 + eta * eta) / 2

@@ -125,7 +125,7 @@ def test_quadrupolar_components_match_wigner_route(nucleus, cq_mhz, eta, theta):
             _assert_close(got[:, i] + got[:, j], ref[:, i] + ref[:, j])
     # the second-order part really is there: |k| = 3, 4 components are non-zero
     # (products of two rank-2 components) unless every tensor is axial about n
-    assert np.max(np.abs(ref[:len(axes) - 6, :, [0, 1, 7, 8]])) > 1e-3 * frame.k_hz ** 2 / frame.nu0_hz
+    assert np.max(np.abs(ref[:len(axes) - 6, :, [0, 1, 7, 8]])) > 1e-3 * frame.quad_constant_hz ** 2 / frame.nu0_hz
     # Hermitian symmetry of a real trajectory (common practice), engine and reference
     np.testing.assert_allclose(got[..., ::-1], np.conj(got), rtol=0, atol=1e-9 * np.max(np.abs(got)))
     np.testing.assert_allclose(ref[..., ::-1], np.conj(ref), rtol=0, atol=1e-12 * np.max(np.abs(ref)))
@@ -187,7 +187,7 @@ def _coupled_pas(eta, rank):
     return w
 
 
-def _ct_rotor_average(spin, k_hz, nu0_hz, eta, axes, theta):
+def _ct_rotor_average(spin, quad_constant_hz, nu0_hz, eta, axes, theta):
     """Rank decomposition of the CT rotor average (derivation in the test docstring)."""
     a = spin * (spin + 1) - 0.75
     out = np.zeros(len(axes))
@@ -199,7 +199,7 @@ def _ct_rotor_average(spin, k_hz, nu0_hz, eta, axes, theta):
         # W^R_{L0} = sum_j W^C_{Lj} D^L_{j0}(alpha_n, beta_n, .), D^L_{j0} = conj(sqrt(4 pi/(2L+1)) Y_Lj(beta, alpha))
         wr = sum(w[j + rank] * np.conj(math.sqrt(4 * math.pi / (2 * rank + 1)) * sph_harm_y(rank, j, beta, alpha))
                  for j in range(-rank, rank + 1))
-        out += -(2 * a * k_hz ** 2 / nu0_hz) * g * eval_legendre(rank, math.cos(theta)) * wr.real
+        out += -(2 * a * quad_constant_hz ** 2 / nu0_hz) * g * eval_legendre(rank, math.cos(theta)) * wr.real
     return out
 
 
@@ -245,7 +245,7 @@ def test_ct_rotor_average_rank_decomposition(nucleus, cq_mhz, eta):
 
     nuc = get_nuclide(nucleus)
     spin = nuc.spin
-    k_hz = cq_mhz * 1e6 / (2 * spin * (2 * spin - 1))
+    quad_constant_hz = cq_mhz * 1e6 / (2 * spin * (2 * spin - 1))
     axes = _axes(seed=3 + int(10 * eta), count=20)
     iso = 5.0
     for theta, shift, euler in ((MAGIC, SHIFT, EULER_DEG), (math.radians(35.0), ShiftTensor(iso), (0, 0, 0)),
@@ -253,8 +253,8 @@ def test_ct_rotor_average_rank_decomposition(nucleus, cq_mhz, eta):
         site = Site(shift=shift, cq_mhz=cq_mhz, eta_q=eta, euler_deg=euler)
         frame = site_frame(site, nuc, FIELD_T)
         c0 = rotor_fourier_components(frame, axes, [0.5], rotor_angle_rad=theta)[:, 0, 4]
-        expect = shift.iso_ppm * 1e-6 * frame.nu0_hz + _ct_rotor_average(spin, k_hz, frame.nu0_hz, eta, axes, theta)
-        scale = k_hz ** 2 / frame.nu0_hz
+        expect = shift.iso_ppm * 1e-6 * frame.nu0_hz + _ct_rotor_average(spin, quad_constant_hz, frame.nu0_hz, eta, axes, theta)
+        scale = quad_constant_hz ** 2 / frame.nu0_hz
         np.testing.assert_allclose(c0.real, expect, rtol=0, atol=1e-9 * scale)
         assert np.max(np.abs(c0.imag)) < 1e-9 * scale
 

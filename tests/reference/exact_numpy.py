@@ -76,13 +76,13 @@ def to_lab(tensor, b) -> np.ndarray:
     return r.T @ np.asarray(tensor, dtype=float) @ r
 
 
-def hamiltonian(spin, nu0_hz, cq_hz, eta_q, delta_ppm, b) -> np.ndarray:
+def hamiltonian(spin, nu0_hz, cq_hz, eta_q, shift_tensor_ppm, b) -> np.ndarray:
     """Full Hamiltonian (Hz) for B0 along the crystallite-frame direction b."""
     ix, iy, iz, _ = spin_matrices(spin)
     ops = (ix, iy, iz)
     k = cq_hz / (2 * spin * (2 * spin - 1)) if spin > 0.5 else 0.0
     v_lab = to_lab(np.diag(efg_principal_values(eta_q)), b)
-    d_lab = to_lab(delta_ppm, b)
+    d_lab = to_lab(shift_tensor_ppm, b)
     h = nu0_hz * (1 + 1e-6 * d_lab[2, 2]) * iz
     for a in range(3):
         for c in range(3):
@@ -90,7 +90,7 @@ def hamiltonian(spin, nu0_hz, cq_hz, eta_q, delta_ppm, b) -> np.ndarray:
     return h
 
 
-def exact_transitions(spin, nu0_hz, cq_hz, eta_q, delta_ppm, directions, ms):
+def exact_transitions(spin, nu0_hz, cq_hz, eta_q, shift_tensor_ppm, directions, ms):
     """Exact offsets (Hz) and intensities of transitions m -> m-1.
 
     Parameters
@@ -100,7 +100,7 @@ def exact_transitions(spin, nu0_hz, cq_hz, eta_q, delta_ppm, directions, ms):
         Larmor frequency (Hz).
     cq_hz, eta_q : float
         Quadrupole coupling constant (Hz) and asymmetry.
-    delta_ppm : (3, 3) array
+    shift_tensor_ppm : (3, 3) array
         Shift tensor (ppm) in the crystallite (EFG principal) frame.
     directions : (N, 3) array
         B0 directions in the crystallite frame.
@@ -117,7 +117,7 @@ def exact_transitions(spin, nu0_hz, cq_hz, eta_q, delta_ppm, directions, ms):
     off = np.empty((len(directions), len(ms)))
     inten = np.empty_like(off)
     for i, b in enumerate(directions):
-        h = hamiltonian(spin, nu0_hz, cq_hz, eta_q, delta_ppm, b)
+        h = hamiltonian(spin, nu0_hz, cq_hz, eta_q, shift_tensor_ppm, b)
         energies, vecs = np.linalg.eigh(h)
         mz = np.array([np.real(np.vdot(vecs[:, j], iz @ vecs[:, j])) for j in range(len(energies))])
         order = np.argsort(-mz)  # order[k] = eigen-index of level m = I - k

@@ -39,7 +39,7 @@ def cone_directions(n, rotor_angle_rad, phases):
             + np.sin(rotor_angle_rad) * (np.cos(phi)[:, None] * u[None, :] + np.sin(phi)[:, None] * v[None, :]))
 
 
-def mas_sidebands(spin, nu0_hz, cq_hz, eta_q, delta_ppm, axes, ms, rotor_angle_rad, rate_hz, phases,
+def mas_sidebands(spin, nu0_hz, cq_hz, eta_q, shift_tensor_ppm, axes, ms, rotor_angle_rad, rate_hz, phases,
                   samples=64, fine=8192):
     """Centre-band positions (N, T) and sideband intensities (N, T, phases) in FFT order.
 
@@ -54,7 +54,7 @@ def mas_sidebands(spin, nu0_hz, cq_hz, eta_q, delta_ppm, axes, ms, rotor_angle_r
     amp = np.empty((len(axes), len(ms), phases))
     for i, n in enumerate(axes):
         b = cone_directions(n, rotor_angle_rad, samples)
-        traj = perturbative_transitions(spin, nu0_hz, cq_hz, eta_q, delta_ppm, b, ms)  # (samples, T)
+        traj = perturbative_transitions(spin, nu0_hz, cq_hz, eta_q, shift_tensor_ppm, b, ms)  # (samples, T)
         for t in range(len(ms)):
             nu = trig_interpolant(traj[:, t])
             m, inten = sideband_intensities(nu, rate_hz, samples_per_period=fine)

@@ -77,7 +77,7 @@ def second_order_sum(spin, cq_hz, nu0_hz, eta_q, b, m):
     return total
 
 
-def perturbative_transitions(spin, nu0_hz, cq_hz, eta_q, delta_ppm, directions, ms, second_order=True):
+def perturbative_transitions(spin, nu0_hz, cq_hz, eta_q, shift_tensor_ppm, directions, ms, second_order=True):
     """Perturbative offsets (Hz) of m -> m-1, shape (N, len(ms)).
 
     First-order shift ``nu0 1e-6 d_zz(lab)`` (isotropic part included) plus
@@ -86,7 +86,7 @@ def perturbative_transitions(spin, nu0_hz, cq_hz, eta_q, delta_ppm, directions, 
     directions = np.atleast_2d(np.asarray(directions, dtype=float))
     out = np.empty((len(directions), len(ms)))
     for i, b in enumerate(directions):
-        d_lab = to_lab(delta_ppm, b)
+        d_lab = to_lab(shift_tensor_ppm, b)
         cs = nu0_hz * 1e-6 * d_lab[2, 2]
         v, comp = lab_efg_spherical(eta_q, b)
         for t, m in enumerate(ms):

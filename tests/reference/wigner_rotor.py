@@ -210,7 +210,7 @@ def _pad9(a5: np.ndarray) -> np.ndarray:
     return out
 
 
-def transition_fourier_components(spin, nu0_hz, k_hz, eta_q, shift_principal_ppm, shift_euler_rad, axis,
+def transition_fourier_components(spin, nu0_hz, quad_constant_hz, eta_q, shift_principal_ppm, shift_euler_rad, axis,
                                   phase_origin, rotor_angle_rad, ms, second_order=True) -> np.ndarray:
     """Fourier components c_p (p = -4..4, index p + 4) of the offsets of transitions m -> m-1.
 
@@ -220,7 +220,7 @@ def transition_fourier_components(spin, nu0_hz, k_hz, eta_q, shift_principal_ppm
         I.
     nu0_hz : float
         Larmor (reference) frequency, Hz.
-    k_hz : float
+    quad_constant_hz : float
         K = C_Q / (2I(2I-1)), Hz (0 for no quadrupolar coupling).
     eta_q : float
         EFG asymmetry.
@@ -264,10 +264,10 @@ def transition_fourier_components(spin, nu0_hz, k_hz, eta_q, shift_principal_ppm
     for i, m in enumerate(ms):
         m = float(m)
         mm = m - 1.0
-        c = cs + 1.5 * k_hz * (2.0 * m - 1.0) * vzz
-        if second_order and k_hz != 0.0:
+        c = cs + 1.5 * quad_constant_hz * (2.0 * m - 1.0) * vzz
+        if second_order and quad_constant_hz != 0.0:
             alpha_m = m * (4 * x - 8 * m * m - 1) - mm * (4 * x - 8 * mm * mm - 1)
             beta_m = m * (2 * x - 2 * m * m - 1) - mm * (2 * x - 2 * mm * mm - 1)
-            c = c - (k_hz * k_hz / (2.0 * nu0_hz)) * (alpha_m * big_a - beta_m * big_b)
+            c = c - (quad_constant_hz * quad_constant_hz / (2.0 * nu0_hz)) * (alpha_m * big_a - beta_m * big_b)
         out[i] = c
     return out
