@@ -80,7 +80,15 @@ class OutputPathError(OSError):
 
 
 def _umask() -> int:
-    mask = os.umask(0)
+    """The process umask, read without changing it where the system allows (Linux /proc)."""
+    try:
+        with open("/proc/self/status", encoding="ascii", errors="replace") as fh:
+            for line in fh:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    except (OSError, ValueError, IndexError):
+        pass
+    mask = os.umask(0o022)  # no other portable way to read it
     os.umask(mask)
     return mask
 
@@ -110,10 +118,11 @@ def check_outputs(outputs: Iterable, *, force: bool = False, protect: Iterable =
     Raises
     ------
     OutputExistsError
-        An output exists and ``force`` is False.
+        An output exists and ``force`` is False, or is an input file (never
+        replaced, even with ``force``).
     OutputPathError
-        An output is a folder, an input file, named twice, has a suffix that
-        is not allowed, or its folder cannot be written.
+        An output is a folder, named twice, has a suffix that is not
+        allowed, or its folder cannot be written.
 
     Examples
     --------
@@ -153,8 +162,8 @@ def check_outputs(outputs: Iterable, *, force: bool = False, protect: Iterable =
         if p.is_dir():
             raise OutputPathError(f"{role} {text!r} is a directory; give a file name")
         for q in protect:
-            if _same_file(p, q) or os.path.abspath(text) == os.path.abspath(q):
-                raise OutputPathError(f"{role} {text!r} is an input file; choose another name")
+            if str(q) and (_same_file(p, q) or os.path.abspath(text) == os.path.abspath(q)):
+                raise OutputExistsError(f"{role} {text!r} is an input file (it is read from); choose another name")
         if p.exists() or p.is_symlink():
             if not force:
                 raise OutputExistsError(f"{role} {text!r} exists; pass --force (force=True) to overwrite it")
