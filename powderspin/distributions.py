@@ -1039,7 +1039,9 @@ def czjzek_grid(sigma_mhz: float, spin: float, larmor_hz: float, resolution_hz: 
     if c0 == 0.0:
         method = "quadrature"
         c_lo = 0.0
-        c_hi = optimize.brentq(lambda c: float(czjzek_cq_cdf(c, s)) - (1 - tail), 0.0, 20 * s, xtol=1e-12 * s)
+        # aim a hair inside the target so that rounding never leaves more than tail_mass outside
+        c_hi = optimize.brentq(lambda c: float(czjzek_cq_cdf(c, s)) - (1 - tail * (1 - 1e-6)), 0.0, 20 * s,
+                               xtol=1e-13 * s)
         e_lo, e_hi = 0.0, 1.0
     else:
         method = "sampling"
