@@ -624,7 +624,8 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, de
     inv = 1.0 / (p * p)
     v0, v1, v2 = efg_principal_values[0], efg_principal_values[1], efg_principal_values[2]
     shift_terms = _shift_terms(delta)
-    nchunk = min(n_or, 64)
+    # at least one full set of lanes per chunk (a chunk of one orientation would leave 7 of 8 lanes idle)
+    nchunk = max(1, min(64, (n_or + _LANES - 1) // _LANES))
     step = (n_or + nchunk - 1) // nchunk if nchunk > 0 else 0
     for c in prange(nchunk):
         # per-chunk work buffers (no allocation per orientation, no sharing)

@@ -22,10 +22,13 @@ import numpy as np
 from .lineshape import Axis, make_axis
 from .model import Model, ModelError, selected_transitions, site_key_values
 from .orientations import OrientationSet
+from .orientations import orientation_set_by_name
 from .site_lines import (
+    ORIENTATION_TARGET,
     SiteLines,
     check_high_field,
     choose_method,
+    choose_orientations,
     compute_lines,
     estimate_span_hz,
     render_lines,
@@ -84,8 +87,9 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
         Nucleus, measurement(s) and sites, or the path of a model file.
     measurement : int, optional
         Which measurement (0-based) of a model with several.
-    orientations : OrientationSet, optional
-        Override the measurement's orientation choice.
+    orientations : OrientationSet or sequence, optional
+        Override the measurement's orientation choice: one set for every
+        site, or one set (or set name) per site (a fit fixes them once).
     progress : callable, optional
         ``progress(site_label, done, total)`` while a site's lines are
         computed (work units are orientations).
@@ -160,7 +164,10 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
     # the method is decided once per site, against half a point of the (estimated) axis
     if methods is not None and len(methods) != len(model.sites):
         raise ModelError(f"simulate: methods has {len(methods)} entries for {len(model.sites)} sites")
+    per_site = _per_site_orientations(orientations, len(model.sites))
+    memo = lines_memo if lines_memo is not None else {}
     jobs = []
+    orientation_error = {}
     for k, site in enumerate(model.sites):
         if methods is not None:
             method = methods[k]
@@ -168,15 +175,21 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
             method, note = choose_method(site, meas, nuc, 0.5 * axis.dx_hz)
             if note:
                 notes.append(note)
-        jobs.append(site_job(site, meas, nuc, method, orientations))
+        oset = per_site[k]
+        if oset is None and meas.orientations == "auto":
+            oset, err = choose_orientations(site, meas, nuc, method, axis,
+                                            shift_hz=site.shift.iso_ppm * nu_ref * 1e-6 + offset_hz, lines_memo=memo)
+            orientation_error[site.label] = err
+        jobs.append(site_job(site, meas, nuc, method, oset))
     lines: list[SiteLines] = []
-    for site, job in zip(model.sites, jobs):
-        sl = lines_memo.get(job) if lines_memo is not None else None
+    for k, (site, job) in enumerate(zip(model.sites, jobs)):
+        sl = memo.get(job)
         if sl is None:
             cb = None if progress is None else (lambda d, t, _l=site.label: progress(_l, d, t))
-            sl = compute_lines(job, orientations=orientations, progress=cb)
-            if lines_memo is not None:
-                lines_memo[job] = sl
+            given = per_site[k]
+            sl = compute_lines(job, orientations=given if given is not None and given.name == job.orientations
+                               else None, progress=cb)
+            memo[job] = sl
         lines.append(sl)
         notes.extend(f"site '{site.label}': {n}" for n in sl.notes)
     shifts = [(site.shift.iso_ppm - job.iso_ppm) * nu_ref * 1e-6 + offset_hz for site, job in zip(model.sites, jobs)]
@@ -207,6 +220,8 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
         "method": {s.label: sl.method for s, sl in zip(model.sites, lines)},
         "orientations": {s.label: f"{sl.orientations.name} ({sl.orientations.size} directions)"
                          for s, sl in zip(model.sites, lines)},
+        "orientation_error": {label: f"{err:.2g} of the maximum, RMS (estimated; target "
+                                     f"{ORIENTATION_TARGET:g})" for label, err in orientation_error.items()},
         "rotor_phases": {s.label: sl.phases for s, sl in zip(model.sites, lines)},
         "binning": meas.binning,
         "lorentz_hz": meas.lorentz_hz,
@@ -223,6 +238,17 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
         meta["model"] = model.source
     return Spectrum(axis.hz, axis.ppm, ys.sum(axis=0), tuple(s.label for s in model.sites), ys, meta,
                     tuple(sidebands))
+
+
+def _per_site_orientations(orientations, n_sites: int) -> list:
+    if orientations is None:
+        return [None] * n_sites
+    if isinstance(orientations, OrientationSet):
+        return [orientations] * n_sites
+    sets = list(orientations)
+    if len(sets) != n_sites:
+        raise ModelError(f"simulate: orientations has {len(sets)} entries for {n_sites} sites")
+    return [orientation_set_by_name(o) if isinstance(o, str) else o for o in sets]
 
 
 def simulate_all(model, **options) -> tuple[Spectrum, ...]:

@@ -147,7 +147,8 @@ def choose_rotor_phases(spread_hz: float, rate_hz: float) -> int:
     int
         A power of 2, at least 16: about four times the number of bands that
         carry intensity by Carson's bandwidth rule for frequency modulation
-        (2 (deviation/rate + harmonics)).
+        (2 (deviation/rate + harmonics)).  It may exceed
+        :data:`MAX_ROTOR_PHASES`; the caller refuses such a manifold.
 
     References
     ----------
@@ -162,7 +163,7 @@ def choose_rotor_phases(spread_hz: float, rate_hz: float) -> int:
     """
     bands = 2.0 * (spread_hz / rate_hz + 4.0)
     p = 16
-    while p < 2.0 * bands and p < MAX_ROTOR_PHASES:
+    while p < 2.0 * bands and p < (1 << 40):
         p *= 2
     return p
 
