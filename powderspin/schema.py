@@ -17,7 +17,8 @@ import math
 from dataclasses import dataclass
 from typing import Any
 
-__all__ = ["KeySpec", "KEYS", "key_spec", "keys_of", "REQUIRED", "FREE_TABLE_KEYS", "TIE_KEY"]
+__all__ = ["KeySpec", "KEYS", "key_spec", "keys_of", "REQUIRED", "FREE_TABLE_KEYS", "TIE_KEY",
+           "key_reference_markdown"]
 
 
 class _Required:
@@ -102,7 +103,7 @@ class KeySpec:
         '[0, 1]'
         """
         lb = "(" if self.low_open else "["
-        return f"{lb}{self.low:g}, {self.high:g}]"
+        return f"{lb}{self.low:.10g}, {self.high:.10g}]"
 
 
 _MAS_WHY = "the fastest magic-angle-spinning rotors reach about 150 kHz (common practice)"
@@ -249,3 +250,57 @@ def keys_of(table: str) -> dict[str, KeySpec]:
     ['regions', 'noise_region', 'baseline_order']
     """
     return dict(_BY_TABLE.get(table, {}))
+
+
+def _default_text(k: KeySpec) -> str:
+    d = k.default
+    if d is REQUIRED:
+        return "required"
+    if d is None:
+        return "absent"
+    if k.name == "rotor_angle_deg":
+        return "54.7356 (the magic angle)"
+    if isinstance(d, str):
+        return f'"{d}"'
+    if isinstance(d, tuple):
+        return "[" + ", ".join(f"{x:g}" for x in d) + "]"
+    return f"{d:.10g}"
+
+
+def _range_text(k: KeySpec) -> str:
+    if k.name == "rotor_phases":
+        return '"auto", or a power of 2 in [16, 65536]'
+    if k.name == "orientations":
+        return '"auto" / "coarse" / "medium" / "fine", an integer in [1, 1024], or a set name'
+    if k.name == "spinning_hz":
+        return '0, [10, 200000] or "inf"'
+    if k.kind in ("number", "integer", "angles", "principal") and math.isfinite(k.low):
+        return k.range_text()
+    if k.choices:
+        return " / ".join(f'"{c}"' for c in k.choices)
+    return "-"
+
+
+def key_reference_markdown() -> str:
+    """The README's key reference: one Markdown table row per key of :data:`KEYS`.
+
+    Returns
+    -------
+    str
+        The table (header, rule and rows), ending with a newline.
+
+    Examples
+    --------
+    >>> key_reference_markdown().splitlines()[2].startswith("| top | `nucleus` |")
+    True
+    """
+    lines = ["| table | key | unit | default | allowed | may be fitted | meaning |",
+             "|---|---|---|---|---|---|---|"]
+    for k in KEYS:
+        lines.append(f"| {k.table} | `{k.name}` | {k.unit or '-'} | {_default_text(k)} | {_range_text(k)} | "
+                     f"{'yes' if k.free else ''} | {k.doc} |")
+    return "\n".join(lines) + "\n"
+
+
+if __name__ == "__main__":  # pragma: no cover - prints the table for the README
+    print(key_reference_markdown(), end="")
