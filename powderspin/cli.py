@@ -83,8 +83,7 @@ class _Progress:
                             file=sys.stderr)
         if self.bar.total != total:
             self.bar.total = total
-        self.bar.n = done
-        self.bar.refresh()
+        self.bar.update(done - self.bar.n)  # shown only once the work has taken longer than the delay
 
     def close(self):
         if self.bar is not None:
@@ -258,6 +257,18 @@ def _cmd_demo(args) -> int:
     return 0
 
 
+def _caused_by_interrupt(error: BaseException) -> bool:
+    """True when a KeyboardInterrupt is anywhere in the chain of causes (compiled kernels wrap it)."""
+    seen = set()
+    e = error
+    while e is not None and id(e) not in seen:
+        if isinstance(e, KeyboardInterrupt):
+            return True
+        seen.add(id(e))
+        e = e.__cause__ or e.__context__
+    return False
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser of the ``powderspin`` command.
 
@@ -355,7 +366,7 @@ def main(argv=None) -> int:
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 0
     except SystemError as e:  # an interrupt that arrives inside a compiled kernel
-        if isinstance(e.__cause__ or e.__context__, KeyboardInterrupt):
+        if _caused_by_interrupt(e):
             print("interrupted; no output was written for the unfinished step", file=sys.stderr)
             return 130
         raise

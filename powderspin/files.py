@@ -175,8 +175,12 @@ def check_outputs(outputs: Iterable, *, force: bool = False, protect: Iterable =
             probe = probe.parent
         if not probe.is_dir():
             raise OutputPathError(f"{role} {text!r}: {str(probe)!r} is not a directory")
-        if not os.access(probe, os.W_OK | os.X_OK):
-            raise OutputPathError(f"{role} {text!r}: the folder {str(probe)!r} cannot be written (permission denied)")
+        try:  # the only sure test of a folder is to make (and remove) a file in it
+            fd, trial = tempfile.mkstemp(prefix=".powderspin-check-", dir=str(probe))
+            os.close(fd)
+            os.unlink(trial)
+        except OSError as e:
+            raise OutputPathError(f"{role} {text!r} cannot be written: {e.strerror or e}") from None
 
 
 @contextlib.contextmanager

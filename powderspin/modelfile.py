@@ -242,7 +242,8 @@ def _parse_measurement(j: int, t: Any, where: str, free: list):
             kw[k] = v
         elif spec.kind in ("choice", "text"):
             if not isinstance(v, str):
-                raise ModelError(f"{where}: {k} must be text, got {v!r}")
+                what = "a file path (text), e.g. data = \"spectrum.csv\"" if k == "data" else "text"
+                raise ModelError(f"{where}: {k} = {v!r} must be {what}")
             kw[k] = v
         else:  # pragma: no cover - every measurement kind is handled above
             kw[k] = v
@@ -405,7 +406,10 @@ def parse_model(data: Any, source: str = "") -> Model:
         raise ModelError("model: 'nucleus' is required, e.g. nucleus = \"27Al\"")
     if not isinstance(data["nucleus"], str):
         raise ModelError(f"model: nucleus = {data['nucleus']!r} must be text, e.g. \"27Al\"")
-    nuc = get_nuclide(data["nucleus"])
+    try:
+        nuc = get_nuclide(data["nucleus"])
+    except ValueError as e:
+        raise ModelError(f"model: nucleus: {e}") from None
     if "measurement" not in data:
         raise ModelError(
             "model: a [measurement] table with field_tesla is required (the magnetic field in tesla, "
