@@ -1,6 +1,6 @@
 """Cold start of the command line with the compiled numba cache present.
 
-Target (design notes, section 6): <= 3 s.  Each run is a fresh process.
+Target (DEVELOPERS.md, 'Performance'): <= 3 s.  Each run is a fresh process.
 The ratio printed is to a bare ``python -c "import numpy, scipy, numba"``
 measured in the same run (the floor any numba tool pays).
 

@@ -1,6 +1,6 @@
 """Spinning samples: warm timings and ratios to plain numpy and a time-domain reference.
 
-Targets (design notes, section 6): MAS CT + shift anisotropy with sidebands,
+Targets (DEVELOPERS.md, 'Performance'): MAS CT + shift anisotropy with sidebands,
 >= 4000 orientations x 64 rotor phases <= 10 ms; a satellite-transition
 manifold at 10 kHz for C_Q = 3 MHz <= 0.5 s; exact route for I = 9/2 under
 MAS <= 2 s.

@@ -1,6 +1,6 @@
 """Static powder patterns: warm timings and ratios to a plain numpy version.
 
-Targets (design notes, section 6): a static CT or shift-anisotropy pattern with
+Targets (DEVELOPERS.md, 'Performance'): a static CT or shift-anisotropy pattern with
 >= 1e4 orientations, triangle interpolation and 4096 points in <= 5 ms warm.
 
 Run:  python benchmarks/bench_static.py

@@ -126,7 +126,7 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delt
 
     Returns an array (n_orient, n_trans, nphase).  First-order shift (all of
     the tensor's lab zz part), first-order quadrupolar and second-order
-    quadrupolar terms (design.md section 2 formulas, written with the
+    quadrupolar terms (DEVELOPERS.md, 'Physics formulas' formulas, written with the
     rotation invariants of the EFG so only b = B0 direction is needed).
     """
     n_or = axes.shape[0]

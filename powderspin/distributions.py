@@ -767,7 +767,7 @@ def ct_g_extremes(eta: float, experiment: str = "mas") -> tuple[float, float]:
     ----------
     The static eta = 0 values (-9/32 at theta = 90 deg, 1/2 at
     cos^2 theta = 5/9) are the standard singularities of the second-order CT
-    pattern (design notes section 5, derivable from second-order perturbation
+    pattern (DEVELOPERS.md, 'Physics formulas', derivable from second-order perturbation
     theory).
 
     Examples
@@ -810,7 +810,7 @@ def ct_edges_hz(cq_mhz, eta, spin: float, larmor_hz: float, experiment: str = "m
     References
     ----------
     A. Samoson, Chem. Phys. Lett. 119 (1985) 29 (second-order CT shifts);
-    design notes section 2 (the high-field level energies).
+    DEVELOPERS.md, 'Physics formulas' (the high-field level energies).
 
     Examples
     --------

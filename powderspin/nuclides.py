@@ -10,7 +10,7 @@ summary of one nucleus and a text table of all of them.
 Reference frequency
 -------------------
 powderspin measures every frequency as an offset from the reference frequency
-``nu_ref`` of the nucleus at the given field (see the design notes), taken
+``nu_ref`` of the nucleus at the given field (DEVELOPERS.md, 'Physics formulas'), taken
 from the IUPAC unified scale:
 
     nu_ref = (Xi / 100) * nu_H(B0),   nu_H(B0) = (gamma_p / 2 pi) * B0

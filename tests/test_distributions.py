@@ -6,7 +6,7 @@ Sources named beside each check:
   J. Magn. Reson. 192 (2008) 244; G. Le Caer, R. A. Brand, J. Phys.: Condens. Matter 10 (1998) 10715.
 - chi distribution with 5 degrees of freedom: scipy.stats.chi (reference library).
 - Quadrupolar-induced shift: A. Samoson, Chem. Phys. Lett. 119 (1985) 29.
-- Static eta = 0 CT singularities: design notes section 5 (standard second-order result).
+- Static eta = 0 CT singularities: DEVELOPERS.md, 'Physics formulas' (standard second-order result).
 Sample sizes: 10^6 tensors give KS and chi-square tests a resolution of about 1e-3 in
 probability, far finer than any plausible convention error (a wrong factor in the component
 map moves the distribution by tens of per cent); every generator is seeded.
@@ -194,7 +194,7 @@ def test_sampling_input_errors():
 
 
 def test_ct_g_extremes_static_eta0_singularities():
-    # design notes section 5: +a nu_Q^2/(16 nu0) at theta = 90 deg and -a nu_Q^2/(9 nu0) at
+    # DEVELOPERS.md, 'Physics formulas': +a nu_Q^2/(16 nu0) at theta = 90 deg and -a nu_Q^2/(9 nu0) at
     # cos^2 theta = 5/9, a = I(I+1) - 3/4, nu_Q = 3 C_Q/(2I(2I-1)).
     spin, cq, nu0 = 2.5, 6.0, NU0_AL_9T4
     a_design = spin * (spin + 1) - 0.75
@@ -207,7 +207,7 @@ def test_ct_g_extremes_static_eta0_singularities():
 @pytest.mark.parametrize("experiment", ["static", "mas"])
 @pytest.mark.parametrize("eta", [0.0, 0.3, 0.75, 1.0])
 def test_ct_g_extremes_against_brute_force_orientations(experiment, eta):
-    # Independent route: the CT offset of the perturbative level formula (design notes section 2)
+    # Independent route: the CT offset of the perturbative level formula (DEVELOPERS.md, 'Physics formulas')
     # from laboratory-frame EFG components, at many random orientations (and 16 rotor phases
     # under MAS), then max and min.  Dense sampling approaches the exact extremes from inside.
     from powderspin.distributions import _MAGIC_COS  # the magic-angle cosine 1/sqrt(3)

@@ -3,13 +3,13 @@
 Check sources (named again beside each test):
 
 * exact diagonalisation with plain numpy (``tests/reference/exact_numpy.py``);
-* the design.md section 2 level energies written literally
+* the DEVELOPERS.md, 'Physics formulas' level energies written literally
   (``tests/reference/perturbative_numpy.py``) and the textbook
   Rayleigh-Schroedinger second-order sum (same file);
 * first-order quadrupolar splitting: A. Abragam, *The Principles of Nuclear
   Magnetism* (1961), ch. VII;
 * eta = 0 static central-transition singularities and the quadrupolar-induced
-  shift of the centre of gravity: design.md section 5 ("standard result") and
+  shift of the centre of gravity: DEVELOPERS.md, 'Physics formulas' ("standard result") and
   A. Samoson, Chem. Phys. Lett. 119 (1985) 29;
 * magic-angle averaging of rank-2 terms: P2(cos theta_m) = 0 (common practice).
 
@@ -153,7 +153,7 @@ def test_exact_intensities_reduce_to_high_field_values(spin):
 @pytest.mark.parametrize("spin", [0.5] + SPINS)
 @pytest.mark.parametrize("second_order", [True, False])
 def test_perturbative_kernel_matches_literal_formulas(spin, second_order):
-    # Source: design.md section 2 E1/E2 written literally with V_xz, V_yz, V_xx - V_yy,
+    # Source: DEVELOPERS.md, 'Physics formulas' E1/E2 written literally with V_xz, V_yz, V_xx - V_yy,
     # V_xy of the explicitly rotated EFG (tests/reference/perturbative_numpy.py).
     rng = np.random.default_rng(int(20 * spin) + second_order)
     eta = float(rng.random())
@@ -195,7 +195,7 @@ def test_perturbative_kernel_spinning_matches_literal_formulas(spin):
 def test_second_order_formula_equals_rayleigh_schroedinger_sum(spin):
     # Source: textbook second-order perturbation theory, E2(m) = sum_{m'} |<m'|H_Q|m>|^2 /
     # (nu0 (m - m')), with explicit matrices (tests/reference/perturbative_numpy.py);
-    # checks the design.md section 2 E2 formula itself, for every level.
+    # checks the DEVELOPERS.md, 'Physics formulas' E2 formula itself, for every level.
     rng = np.random.default_rng(5)
     cq, eta = 0.02 * NU0, 0.7
     for b in _random_dirs(rng, 4):
@@ -207,7 +207,7 @@ def test_second_order_formula_equals_rayleigh_schroedinger_sum(spin):
 
 
 # ---------------------------------------------------------------------------
-# exact vs perturbative: the size of the neglected terms (design.md section 2)
+# exact vs perturbative: the size of the neglected terms (DEVELOPERS.md, 'Physics formulas')
 
 
 def _loglog_slope(x, y):
@@ -216,7 +216,7 @@ def _loglog_slope(x, y):
 
 @pytest.mark.parametrize("spin", SPINS)
 def test_perturbative_error_scaling(spin):
-    # Source: design.md section 2 (measured against exact diagonalisation): the satellite
+    # Source: DEVELOPERS.md, 'Physics formulas' (measured against exact diagonalisation): the satellite
     # error falls as (C_Q/nu0)^3 and the central-transition error as (C_Q/nu0)^4.  Exact
     # levels from tests/reference/exact_numpy.py and the exact kernel.  For integer spin there
     # is no central transition and both members of each satellite pair m, 1-m must follow
@@ -268,7 +268,7 @@ def test_first_order_satellite_splitting_at_theta_zero(spin):
 
 @pytest.mark.parametrize("spin", [1.5, 2.5, 3.5, 4.5])
 def test_static_central_transition_singularities(spin):
-    # Source: design.md section 5 "standard result" (derivable from second-order
+    # Source: DEVELOPERS.md, 'Physics formulas' "standard result" (derivable from second-order
     # perturbation theory): for eta = 0 the static CT sits at +a nu_Q^2 / (16 nu0) for
     # theta = 90 deg and at -a nu_Q^2 / (9 nu0) for cos^2 theta = 5/9, a = I(I+1) - 3/4.
     cq = 0.01 * NU0
@@ -293,7 +293,7 @@ def test_static_central_transition_singularities(spin):
 @pytest.mark.parametrize("spin", [1.5, 2.5, 4.5])
 @pytest.mark.parametrize("eta", [0.0, 0.5, 1.0])
 def test_central_transition_centre_of_gravity(spin, eta):
-    # Source: quadrupolar-induced shift of the CT centre of gravity (design.md section 2;
+    # Source: quadrupolar-induced shift of the CT centre of gravity (DEVELOPERS.md, 'Physics formulas';
     # A. Samoson, Chem. Phys. Lett. 119 (1985) 29):
     #   nu_QIS = -(3/40) P_Q^2 / nu0 * [I(I+1) - 3/4] / [I^2 (2I-1)^2],  P_Q = C_Q sqrt(1 + eta^2/3).
     # The powder average is done with a product rule (Gauss-Legendre in cos theta, uniform
@@ -314,7 +314,7 @@ def test_central_transition_centre_of_gravity(spin, eta):
 def test_magic_angle_removes_first_order_anisotropy():
     # Source: P2(cos theta_m) = 0, so the rotor average of any rank-2 first-order term
     # vanishes at the magic angle (common practice); 5 or more equally spaced phases
-    # average a degree-2 trigonometric polynomial exactly (design.md section 2).
+    # average a degree-2 trigonometric polynomial exactly (DEVELOPERS.md, 'Physics formulas').
     rng = np.random.default_rng(4)
     delta = _random_shift_tensor(rng)
     iso = np.trace(delta) / 3

@@ -88,7 +88,7 @@ def test_band_summary_matches_numpy_twin():
 
 
 def test_pair_coefficients_match_literal_level_energies():
-    """_pair_coefficients against E1/E2 written literally (design.md section 2) for random invariants."""
+    """_pair_coefficients against E1/E2 written literally (DEVELOPERS.md, 'Physics formulas') for random invariants."""
     from tests.reference import perturbative_numpy as pn
 
     spin, cq, nu0 = 2.5, 4.0e6, 104.2e6
@@ -107,7 +107,7 @@ def test_pair_coefficients_match_literal_level_energies():
 
 
 def _e2(spin, cq, nu0, m, a, b):
-    # design.md section 2: E2(m) = -(K^2/(2 nu0)) m [(4X - 8m^2 - 1) A - (2X - 2m^2 - 1) B / 4]
+    # DEVELOPERS.md, 'Physics formulas': E2(m) = -(K^2/(2 nu0)) m [(4X - 8m^2 - 1) A - (2X - 2m^2 - 1) B / 4]
     k = cq / (2 * spin * (2 * spin - 1))
     x = spin * (spin + 1)
     return -(k * k / (2 * nu0)) * m * ((4 * x - 8 * m * m - 1) * a - (2 * x - 2 * m * m - 1) * b / 4)

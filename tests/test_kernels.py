@@ -259,7 +259,7 @@ def test_tent_binning_matches_random_sampling():
 
 
 def test_tent_binning_degenerate_triangles():
-    # Source: design.md section 5 (degenerate triangles f1 = f3 fall into one bin) and exact
+    # Source: DEVELOPERS.md, 'Physics formulas' (degenerate triangles f1 = f3 fall into one bin) and exact
     # polygon clipping for two equal frequencies (tests/reference/binning_numpy.py).
     x0, dx, nb = 0.0, 1.0, 20
     amp = np.ones((3, 1, 1))

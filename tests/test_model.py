@@ -1,4 +1,4 @@
-"""Model files: keys, ranges and clear errors (design.md section 4 names)."""
+"""Model files: keys, ranges and clear errors (the key table in powderspin/schema.py)."""
 
 from __future__ import annotations
 

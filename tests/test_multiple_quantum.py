@@ -47,7 +47,7 @@ def test_exact_mq_matches_numpy_twin(spin, m):
 
 @pytest.mark.parametrize("spin,m", [(1.5, 1.5), (2.5, 1.5), (2.5, 2.5), (3.5, 3.5), (4.5, 1.5)])
 def test_mq_second_order_is_twice_e2_and_converges(spin, m):
-    """First order cancels for m <-> -m (design.md section 2); the perturbative error shrinks at
+    """First order cancels for m <-> -m (DEVELOPERS.md, 'Physics formulas'); the perturbative error shrinks at
     least as fast as (C_Q/nu0)^3 (exact diagonalisation as the reference)."""
     rng = np.random.default_rng(3)
     dirs = rng.normal(size=(60, 3))

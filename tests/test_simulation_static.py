@@ -19,7 +19,7 @@ def _model(nucleus, meas, sites):
 
 def _qis_ppm(spin, cq_hz, eta, nu0):
     # quadrupolar-induced shift of the CT centre of gravity:
-    # A. Samoson, Chem. Phys. Lett. 119 (1985) 29 (design.md section 2)
+    # A. Samoson, Chem. Phys. Lett. 119 (1985) 29 (DEVELOPERS.md, 'Physics formulas')
     pq = cq_hz * math.sqrt(1 + eta * eta / 3)
     return -(3 / 40) * (pq / nu0) ** 2 * (spin * (spin + 1) - 0.75) / (spin**2 * (2 * spin - 1) ** 2) * 1e6
 
@@ -64,7 +64,7 @@ def test_static_ct_first_moment_is_qis(spin_nuc, cq_mhz, eta):
 @pytest.mark.parametrize("nuc", ["23Na", "27Al"])
 def test_static_ct_eta0_singularities(nuc):
     """eta = 0 static CT: horns at +a nu_Q^2/(16 nu0) (theta = 90 deg) and -a nu_Q^2/(9 nu0)
-    (cos^2 theta = 5/9), a = I(I+1) - 3/4 (standard second-order result, design.md section 5)."""
+    (cos^2 theta = 5/9), a = I(I+1) - 3/4 (standard second-order result, DEVELOPERS.md, 'Physics formulas')."""
     cq = 3.0e6
     m = _model(nuc, {"field_tesla": 9.4, "points": 4096, "orientations": "fine", "method": "perturbation"},
                [{"cq_mhz": cq / 1e6, "eta_q": 0.0}])
@@ -88,7 +88,7 @@ def test_static_ct_eta0_singularities(nuc):
 @pytest.mark.parametrize("eta", [0.0, 0.5, 1.0])
 @pytest.mark.parametrize("nuc,cq_mhz", [("23Na", 4.0), ("27Al", 5.0)])
 def test_static_ct_perturbative_matches_exact_at_small_ratio(nuc, cq_mhz, eta):
-    """Second-order theory vs exact diagonalisation (design.md section 5) for C_Q/nu0 < 0.05."""
+    """Second-order theory vs exact diagonalisation (DEVELOPERS.md, 'Physics formulas') for C_Q/nu0 < 0.05."""
     base = {"field_tesla": 9.4, "points": 2048, "lorentz_hz": 200.0}
     site = [{"shift_ppm": 5.0, "cq_mhz": cq_mhz, "eta_q": eta, "span_ppm": 30.0, "skew": 0.5,
              "euler_deg": [10.0, 40.0, 70.0]}]
@@ -210,7 +210,7 @@ def test_relative_orientation_is_irrelevant_without_quadrupole_coupling():
 
 
 def test_octant_reduction_matches_full_sphere_for_coaxial_tensors():
-    """Symmetry reduction (design.md section 5 orientation sets): the octant set used for coaxial
+    """Symmetry reduction (DEVELOPERS.md, 'Symmetry and orientation sets'): the octant set used for coaxial
     tensors gives the same spectrum as an explicit full-sphere triangulation."""
     from powderspin.orientations import triangulated
 

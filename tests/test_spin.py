@@ -7,7 +7,7 @@ Outside references:
   powderspin's order (m = I, I-1, ..., -I) explicitly, so the test does not
   depend on sympy's ordering.
 * sympy.physics.matrices.msigma (Pauli matrices; I = sigma/2 for spin 1/2).
-* Spin-1/2 operator actions from design.md section 5 (a fact of the trade,
+* Spin-1/2 operator actions from DEVELOPERS.md, 'Physics formulas' (a fact of the trade,
   common practice): Iz a = a/2, Iz b = -b/2, Ix a = b/2, Ix b = a/2,
   Iy a = (i/2) b, Iy b = -(i/2) a, <Iz> = (|c_a|^2 - |c_b|^2)/2.
 * Angular-momentum algebra (common practice): [Ix, Iy] = i Iz and cyclic,
@@ -67,7 +67,7 @@ def test_spin_half_against_pauli_matrices():
 
 
 def test_spin_half_actions():
-    # Source: design.md sec. 5 (fact of the trade, common practice).
+    # Source: DEVELOPERS.md, 'Physics formulas' (fact of the trade, common practice).
     ops = spin_operators(0.5)
     a = np.array([1.0, 0.0], dtype=complex)  # m = +1/2 is index 0
     b = np.array([0.0, 1.0], dtype=complex)
@@ -92,7 +92,7 @@ def test_spin_half_actions():
 
 @pytest.mark.parametrize("spin", SPINS)
 def test_commutators_casimir_ladder_hermiticity(spin):
-    # Source: angular-momentum algebra (design.md sec. 5; common practice).
+    # Source: angular-momentum algebra (DEVELOPERS.md, 'Physics formulas'; common practice).
     ops = spin_operators(spin)
     x, y, z = ops.x, ops.y, ops.z
     n = int(round(2 * spin)) + 1

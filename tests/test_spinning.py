@@ -20,7 +20,7 @@ Check sources (named again beside each test):
 * infinite-rate central transition: quadrupolar-induced shift
   delta_QIS (A. Samoson, Chem. Phys. Lett. 119 (1985) 29), the eta = 0
   magic-angle line edges derived in :func:`test_infinite_rate_ct_eta0_edges`
-  from the second-order level shifts of design.md section 2, and exact
+  from the second-order level shifts of DEVELOPERS.md, 'Physics formulas', and exact
   diagonalisation with numpy (below, :func:`_numpy_rotor_average`);
 * off-magic-angle spinning at infinite rate scales a rank-2 pattern by
   P2(cos theta_R) (spherical-harmonic addition theorem, common practice);
@@ -84,7 +84,7 @@ def _band_moments(sl):
 
 
 def _qis_ppm(spin, cq_hz, eta, nu0_hz):
-    # A. Samoson, Chem. Phys. Lett. 119 (1985) 29 (design.md section 2)
+    # A. Samoson, Chem. Phys. Lett. 119 (1985) 29 (DEVELOPERS.md, 'Physics formulas')
     pq = cq_hz * math.sqrt(1 + eta * eta / 3)
     return -(3 / 40) * (pq / nu0_hz) ** 2 * (spin * (spin + 1) - 0.75) / (spin**2 * (2 * spin - 1) ** 2) * 1e6
 
@@ -179,9 +179,9 @@ def test_maricq_waugh_moments_quadrupolar_satellites(rate_hz):
     """Maricq and Waugh (1979) for a first-order quadrupolar satellite manifold (2H, spin 1).
 
     First order: the offset of m -> m-1 is (nu_Q/2)(2m-1) V_zz(lab) with
-    nu_Q = 3 C_Q / (2I(2I-1)) (design.md section 2), so the static second moment
+    nu_Q = 3 C_Q / (2I(2I-1)) (DEVELOPERS.md, 'Physics formulas'), so the static second moment
     is (nu_Q (2m-1)/2)^2 <V_zz^2> = (nu_Q (2m-1)/2)^2 (3 + eta^2)/15.  The first
-    moment is second order only: averaging design.md's E2(m) with
+    moment is second order only: averaging the E2(m) of DEVELOPERS.md with
     <V_xz^2 + V_yz^2> = <((V_xx - V_yy)^2 + 4 V_xy^2)/4> = tr(V^2)/5 (each
     spherical component of a rank-2 tensor carries tr/5 on average; common
     practice) gives <E2(m)> = -(K^2 / 2 nu0) (tr V^2 / 5) m (2X - 6 m^2),
@@ -458,7 +458,7 @@ def test_infinite_rate_ct_centre_of_gravity_is_qis(nucleus, cq_mhz, eta):
 def test_infinite_rate_ct_eta0_edges(nucleus, cq_mhz):
     """eta = 0 CT line shape at infinite MAS rate: rank-0 + P4 terms only; edges derived here.
 
-    Derivation (from design.md section 2, second-order level shifts).  For
+    Derivation (from DEVELOPERS.md, 'Physics formulas', second-order level shifts).  For
     eta = 0 the EFG is V = (3/2) e e^T - (1/2) 1, e the unique axis; with
     c = cos(theta), theta the angle between e and B0, the lab components give
     A = V_xz^2 + V_yz^2 = (9/4) c^2 (1 - c^2) and

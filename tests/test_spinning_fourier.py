@@ -1,6 +1,6 @@
 """Rotor-frame Fourier components of transition offsets: engine against the Wigner route.
 
-``powderspin.spinning.rotor_fourier_components`` samples the design.md
+``powderspin.spinning.rotor_fourier_components`` samples the DEVELOPERS.md
 section 2 offsets at 16 rotor phases and takes an FFT.  Check sources (named
 again beside each test):
 
@@ -18,7 +18,7 @@ again beside each test):
   harmonics from scipy.special.sph_harm_y (outside references);
 * the powder average of the CT rotor average equals the static CT centre of
   gravity, the quadrupolar-induced shift of A. Samoson, Chem. Phys. Lett. 119
-  (1985) 29 (formula as given in design.md section 2), integrated with
+  (1985) 29 (formula as given in DEVELOPERS.md, 'Physics formulas'), integrated with
   scipy.integrate.lebedev_rule (outside reference).
 """
 
@@ -208,7 +208,7 @@ def _ct_rotor_average(spin, quad_constant_hz, nu0_hz, eta, axes, theta):
 def test_ct_rotor_average_rank_decomposition(nucleus, cq_mhz, eta):
     r"""CT rotor average = rank-0 + P2(cos theta_R) rank-2 + P4(cos theta_R) rank-4 terms.
 
-    Derivation (design.md section 2 levels; X = I(I+1), a = X - 3/4, K = nu_Q/3).
+    Derivation (DEVELOPERS.md, 'Physics formulas' levels; X = I(I+1), a = X - 3/4, K = nu_Q/3).
     For m = 1/2, E2(1/2) = -E2(-1/2) and
     nu_CT = 2 E2(1/2) = -(K^2/(2 nu0)) [(4X - 3) A - (2X - 3/2) B] = -(2 a K^2/nu0)(A - B/2),
     with A = -V_21 V_2-1 and B = V_22 V_2-2 in the lab frame
@@ -263,7 +263,7 @@ def test_ct_rotor_average_rank_decomposition(nucleus, cq_mhz, eta):
 @pytest.mark.parametrize("eta", [0.0, 0.4, 1.0])
 @pytest.mark.parametrize("nucleus,cq_mhz", QUADRUPOLAR)
 def test_powder_average_of_ct_rotor_average_is_qis(nucleus, cq_mhz, eta, theta):
-    # source: A. Samoson, Chem. Phys. Lett. 119 (1985) 29 (design.md section 2 form):
+    # source: A. Samoson, Chem. Phys. Lett. 119 (1985) 29 (DEVELOPERS.md, 'Physics formulas' form):
     # delta_QIS = -(3/40) (P_Q/nu0)^2 [I(I+1) - 3/4] / [I^2 (2I-1)^2] * nu0 (Hz), P_Q = C_Q sqrt(1 + eta^2/3).
     # The CT rotor average is a polynomial of degree 4 in the rotor-axis components, so a
     # Lebedev rule of degree >= 5 (scipy.integrate.lebedev_rule) integrates it exactly; its

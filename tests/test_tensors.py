@@ -1,7 +1,7 @@
 """Tests for powderspin.tensors: shift-tensor conventions, EFG, Euler angles, spherical parts.
 
 Sources used below:
-* the definitions in design.md section 2 and the tensors.py module docstring
+* the definitions in DEVELOPERS.md, 'Physics formulas' and the tensors.py module docstring
   (IUPAC d11 >= d22 >= d33; Haeberlen iso, aniso = d_zz - iso,
   eta = (d_yy - d_xx)/aniso, |d_zz - iso| >= |d_xx - iso| >= |d_yy - iso|;
   span Omega = d11 - d33, skew kappa = 3 (d22 - iso)/Omega); the closed forms
@@ -42,7 +42,7 @@ def _haeberlen_from_principal(p):
     """Slow, obvious Haeberlen assignment straight from the definitions.
 
     Sort the deviations from iso by magnitude: largest -> z, next -> x,
-    smallest -> y (design.md section 2).  Used only where there is no tie.
+    smallest -> y (DEVELOPERS.md, 'Physics formulas').  Used only where there is no tie.
     """
     p = np.asarray(p, dtype=float)
     iso = p.mean()
@@ -57,7 +57,7 @@ def _haeberlen_from_principal(p):
 # --------------------------------------------------------------------------
 
 def test_iupac_round_trip_random():
-    # Source: definitions (design.md sec. 2); principal values must be preserved.
+    # Source: definitions (DEVELOPERS.md, 'Physics formulas'); principal values must be preserved.
     rng = np.random.default_rng(RNG_SEED)
     for p in _random_principal(rng, 500):
         t = ShiftTensor.from_principal(p)
@@ -98,7 +98,7 @@ def test_haeberlen_round_trip_random():
 
 
 def test_span_skew_round_trip_random():
-    # Source: Herzfeld-Berger definitions (design.md sec. 2).
+    # Source: Herzfeld-Berger definitions (DEVELOPERS.md, 'Physics formulas').
     rng = np.random.default_rng(RNG_SEED + 2)
     for _ in range(500):
         iso = rng.uniform(-300.0, 300.0)
@@ -117,7 +117,7 @@ def test_span_skew_round_trip_random():
 
 
 def test_haeberlen_span_skew_closed_forms():
-    # Derived from the definitions (design.md sec. 2):
+    # Derived from the definitions (DEVELOPERS.md, 'Physics formulas'):
     #   aniso > 0 (z = d11): Omega = aniso (3 + eta)/2, kappa = -3 (1 - eta)/(3 + eta);
     #   aniso < 0 (z = d33): Omega = |aniso| (3 + eta)/2, kappa = +3 (1 - eta)/(3 + eta).
     rng = np.random.default_rng(RNG_SEED + 3)
@@ -310,7 +310,7 @@ def test_shift_tensor_is_frozen():
 
 @pytest.mark.parametrize("eta", [0.0, 0.1, 0.37, 0.5, 0.9, 1.0])
 def test_efg_principal_conventions(eta):
-    # Source: design.md sec. 2: V = diag(-(1-eta)/2, -(1+eta)/2, 1),
+    # Source: DEVELOPERS.md, 'Physics formulas': V = diag(-(1-eta)/2, -(1+eta)/2, 1),
     # |Vzz| >= |Vyy| >= |Vxx|, eta = (Vxx - Vyy)/Vzz, traceless (Laplace).
     v = efg_principal(eta)
     assert v.shape == (3,)
@@ -372,7 +372,7 @@ def test_rotation_matrix_explicit_zyz_composition():
 
 
 def test_beta_90_swaps_expected_principal_axes():
-    # Source: worked example in the tensors.py docstring (design.md sec. 2 asks
+    # Source: worked example in the tensors.py docstring (DEVELOPERS.md, 'Physics formulas' asks
     # for it): euler (0, 90 deg, 0) carries the shift z axis onto the EFG x
     # axis, so in the EFG frame delta[0, 0] = d_zz, delta[2, 2] = d_xx and
     # delta[1, 1] = d_yy, with no off-diagonal part.

@@ -15,7 +15,7 @@ For each B0 direction ``b`` (a unit vector in the crystallite frame):
    m = I, I-1, ..., -I;
 3. ``H = nu0 (1 + 1e-6 d_zz) Iz + K sum_ab V_ab I_a I_b`` with
    ``K = C_Q / (2I(2I-1))`` and ``V = diag(-(1-eta)/2, -(1+eta)/2, 1)`` in the
-   EFG principal (crystallite) frame (design.md section 2);
+   EFG principal (crystallite) frame (DEVELOPERS.md, 'Physics formulas');
 4. ``numpy.linalg.eigh``; levels labelled by their expectation value <Iz>
    (largest first = m = I); offset of m -> m-1 is ``E(m) - E(m-1) - nu0`` and
    the intensity is ``|<m|I+|m-1>|^2`` between the eigenvectors.
@@ -45,7 +45,7 @@ def spin_matrices(spin: float):
 
 
 def efg_principal_values(eta_q: float) -> np.ndarray:
-    """EFG principal values (V_xx, V_yy, V_zz) in units of V_zz (design.md section 2)."""
+    """EFG principal values (V_xx, V_yy, V_zz) in units of V_zz (DEVELOPERS.md, 'Physics formulas')."""
     return np.array([-(1 - eta_q) / 2, -(1 + eta_q) / 2, 1.0])
 
 

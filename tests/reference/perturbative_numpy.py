@@ -4,7 +4,7 @@ Twin of ``powderspin._kernels._perturbative_offsets``.  The kernel evaluates
 the second-order term through rotation invariants of the EFG; here the
 laboratory-frame EFG is built explicitly (``R^T V R`` with the rotation of
 :mod:`tests.reference.exact_numpy`), its rank-2 spherical components are
-formed, and the level energies of design.md section 2 are written literally:
+formed, and the level energies of DEVELOPERS.md, 'Physics formulas' are written literally:
 
     E1(m) = (C_Q / (4I(2I-1))) V_zz (3 m^2 - X)
     E2(m) = -(K^2 / (2 nu0)) m [ (4X - 8m^2 - 1) (V_xz^2 + V_yz^2)
@@ -47,13 +47,13 @@ def lab_efg_spherical(eta_q, b):
 
 
 def level_energy_first(spin, cq_hz, m, vzz):
-    """E1(m) (Hz), design.md section 2."""
+    """E1(m) (Hz), DEVELOPERS.md, 'Physics formulas'."""
     x = spin * (spin + 1)
     return cq_hz / (4 * spin * (2 * spin - 1)) * vzz * (3 * m * m - x)
 
 
 def level_energy_second(spin, cq_hz, nu0_hz, m, comp):
-    """E2(m) (Hz), design.md section 2, with |V_{2,1}|^2 and |V_{2,2}|^2 from the spherical components."""
+    """E2(m) (Hz), DEVELOPERS.md, 'Physics formulas', with |V_{2,1}|^2 and |V_{2,2}|^2 from the spherical components."""
     x = spin * (spin + 1)
     k = cq_hz / (2 * spin * (2 * spin - 1))
     v1sq = abs(comp[1]) ** 2  # = V_xz^2 + V_yz^2

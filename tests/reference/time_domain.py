@@ -14,7 +14,7 @@ is made the way an experiment makes it, by adding up free induction decays.
    the rotor phase and ``theta_R`` the rotor angle (so the rotor axis,
    ``M^T Ry(theta_R) e_z``, is n, and B0 makes the angle theta_R with it).
 3. Frequency of the transition m -> m-1 at each time (Hz), the high-field
-   perturbation formulas of design.md section 2 written out
+   perturbation formulas of DEVELOPERS.md, 'Physics formulas' written out
    literally with the laboratory-frame EFG components (X = I(I+1),
    K = C_Q / (2I(2I-1))):
    ``E1(m) = C_Q / (4I(2I-1)) V_zz (3 m^2 - X)``,

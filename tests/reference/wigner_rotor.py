@@ -1,7 +1,7 @@
 """Rotor-frame Fourier components of transition offsets by Wigner rotations (slow, analytic).
 
 An independent route to ``powderspin.spinning.rotor_fourier_components``.  The
-engine evaluates the design.md section 2 level formulas at 16 rotor phases on
+engine evaluates the DEVELOPERS.md, 'Physics formulas' level formulas at 16 rotor phases on
 the cone of B0 directions about the rotor axis and takes an FFT; here nothing
 is sampled: the lab-frame spherical components are written as explicit
 trigonometric polynomials of the rotor phase through Wigner rotation matrices,
@@ -51,7 +51,7 @@ components in the two frames are related by (docstring of
 Frames
 ------
 * P: the shift tensor's principal frame.  Its axes, written in the crystallite
-  frame C, are the columns of ``rotation_matrix(*shift_euler_rad)`` (design.md
+  frame C, are the columns of ``rotation_matrix(*shift_euler_rad)`` (DEVELOPERS.md,
   section 2), so the shift components in C follow from the P components by the
   "G from F" rule.
 * C: the crystallite frame = the EFG principal frame.
@@ -82,7 +82,7 @@ for p = -4..4.
 
 Transition offsets
 ------------------
-design.md section 2, X = I(I+1), K = C_Q / (2I(2I-1)), EFG in units of the
+DEVELOPERS.md, 'Physics formulas', X = I(I+1), K = C_Q / (2I(2I-1)), EFG in units of the
 principal V_zz, A = V_xz^2 + V_yz^2 = -V^L_21 V^L_2,-1,
 B = ((V_xx - V_yy)^2 + 4 V_xy^2)/4 = V^L_22 V^L_2,-2 (lab frame)::
 
