@@ -52,7 +52,7 @@ Frames
 ------
 * P: the shift tensor's principal frame.  Its axes, written in the crystallite
   frame C, are the columns of ``rotation_matrix(*shift_euler_rad)`` (DEVELOPERS.md,
-  section 2), so the shift components in C follow from the P components by the
+  "Physics formulas"), so the shift components in C follow from the P components by the
   "G from F" rule.
 * C: the crystallite frame = the EFG principal frame.
 * R: the rotor frame, axes (u, v, n) written in C: n the rotor axis, u the
