@@ -790,8 +790,14 @@ class _Producer:
             w[a:b] = w_c
             if store:
                 amp[a:b] = a_c
-            i_c, p_c, x_c = _k._band_summary(np.ascontiguousarray(a_c), np.ascontiguousarray(oset.weights[a:b, None] * w_c),
-                                             np.ascontiguousarray(m_c))
+            wv = oset.weights[a:b, None] * w_c
+            if p_out == 1:  # one band: plain sums (a parallel kernel is not worth starting)
+                i_c = np.array([wv.sum()])
+                p_c = np.array([(wv * m_c).sum()])
+                x_c = np.ones(1)
+            else:
+                i_c, p_c, x_c = _k._band_summary(np.ascontiguousarray(a_c), np.ascontiguousarray(wv),
+                                                 np.ascontiguousarray(m_c))
             inten += i_c
             pos += p_c
             np.maximum(amax, x_c, out=amax)
