@@ -325,6 +325,11 @@ def _sideband_amplitudes(traj, rate_hz):
 # outside 0 .. nb-1 is lost.
 
 
+# straight stretches of a tent shorter than this many points (plus one) are
+# left to the rolling second differences (a speed choice; the result is the same)
+_TENT_RUN = 4.0
+
+
 @njit(cache=True, inline="always")
 def _split_line(buf, v, w, nb):
     """Share weight w of a sharp line at point coordinate v between points floor(v), floor(v) + 1."""
@@ -339,44 +344,84 @@ def _split_line(buf, v, w, nb):
 
 
 @njit(cache=True, inline="always")
-def _tent_second_integral(t, a, d, b, cen, w):
-    """Second antiderivative R(t) of a triangle density of area w on [0, d], peak at a (b = d - a).
+def _tent_second_integral(t, a, d, ca, cb, cen, w):
+    """Second antiderivative R(t) of a triangle density of area w on [0, d], peak at a.
 
     The density rises linearly on [0, a] and falls on [a, d]; cen = (a + d) / 3
-    is its centroid.  R is 0 for t <= 0, w t^3 / (3 d a) on the rising side,
-    w (t - cen) + w (d - t)^3 / (3 d b) on the falling side and w (t - cen)
-    beyond d.  No branch divides by a zero width.
+    is its centroid, ca = w / (3 d a) and cb = w / (3 d b) with b = d - a.
+    R is 0 for t <= 0, ca t^3 on the rising side, w (t - cen) + cb (d - t)^3
+    on the falling side and w (t - cen) beyond d; a side of zero width is
+    never evaluated, so its coefficient may be anything finite.
     """
-    if t <= 0.0:
-        return 0.0
-    if t <= a:
-        return w * t * t * t / (3.0 * d * a)
-    if t < d:
-        s = d - t
-        return w * (t - cen) + w * s * s * s / (3.0 * d * b)
-    return w * (t - cen)
+    p = t if t > 0.0 else 0.0
+    q = d - t if t < d else 0.0
+    rise = ca * p * p * p
+    fall = w * (t - cen) + cb * q * q * q
+    return rise if t <= a else fall
 
 
 @njit(cache=True, inline="always")
-def _tent_corner_points(buf, kfrom, kto, v1, a, d, b, w):
+def _tent_corner_points(buf, kfrom, kto, v1, a, d, b, ca, cb, w):
     """Hat integrals of a tent (see ``_add_tent``) at points kfrom <= k < kto, from R.
 
-    Each point's second difference of R is taken from the nearer end of the
-    tent; it does not change under t -> d - t with a and b swapped.
+    ca = w / (3 d a), cb = w / (3 d b) (anything finite for a side of zero
+    width).  The second differences of R are taken from the end of the tent
+    nearer these points (they do not change under t -> d - t with a and b
+    swapped), so rounding stays at the size of the values used.
     """
-    cen_l = (a + d) / 3.0
-    cen_r = (b + d) / 3.0
-    for k in range(kfrom, kto):
-        t = k - v1
-        if t <= d - t:
-            buf[k] += (_tent_second_integral(t + 1.0, a, d, b, cen_l, w)
-                       - 2.0 * _tent_second_integral(t, a, d, b, cen_l, w)
-                       + _tent_second_integral(t - 1.0, a, d, b, cen_l, w))
-        else:
-            s = d - t
-            buf[k] += (_tent_second_integral(s + 1.0, b, d, a, cen_r, w)
-                       - 2.0 * _tent_second_integral(s, b, d, a, cen_r, w)
-                       + _tent_second_integral(s - 1.0, b, d, a, cen_r, w))
+    if kto <= kfrom:
+        return
+    t = kfrom - v1
+    if t + 0.5 * (kto - 1 - kfrom) <= 0.5 * d:
+        cen = (a + d) / 3.0
+        r0 = _tent_second_integral(t - 1.0, a, d, ca, cb, cen, w)
+        r1 = _tent_second_integral(t, a, d, ca, cb, cen, w)
+        for k in range(kfrom, kto):
+            r2 = _tent_second_integral(k + 1.0 - v1, a, d, ca, cb, cen, w)
+            buf[k] += r2 - 2.0 * r1 + r0
+            r0 = r1
+            r1 = r2
+    else:
+        cen = (b + d) / 3.0
+        v3 = v1 + d
+        r0 = _tent_second_integral(v3 - kfrom + 1.0, b, d, cb, ca, cen, w)
+        r1 = _tent_second_integral(v3 - kfrom, b, d, cb, ca, cen, w)
+        for k in range(kfrom, kto):
+            r2 = _tent_second_integral(v3 - k - 1.0, b, d, cb, ca, cen, w)
+            buf[k] += r2 - 2.0 * r1 + r0
+            r0 = r1
+            r1 = r2
+
+
+@njit(cache=True, inline="always")
+def _split_tent_at_point(buf, x1, x2, x3, kc, w, nb):
+    """Hat integrals of a tent that crosses one point kc and reaches no other.
+
+    x1 <= x2 <= x3 are the vertices relative to point kc, -1 <= x1 < 0 < x3 <= 1.
+    The hats are linear between neighbouring points, so each of the two pieces
+    of the tent (left and right of kc) is shared from its own centroid: with
+    first moments ml <= 0 and mr >= 0 about kc (ml + mr = w (x1 + x2 + x3) / 3),
+    point kc - 1 gets -ml, point kc + 1 gets mr and point kc the rest.  The
+    piece cut off by kc is a triangle with its apex at an end of the tent:
+    ml = w x1^3 / (3 d a) when the cut is on the rising side, else
+    mr = w x3^3 / (3 d b) (d = x3 - x1, a = x2 - x1, b = x3 - x2); written
+    as products of ratios in [-1, 1] so that no product of small widths
+    underflows.
+    """
+    d = x3 - x1
+    m = w * (x1 + x2 + x3) / 3.0
+    if x2 >= 0.0:
+        ml = w * x1 * (x1 / d) * (x1 / (x2 - x1)) / 3.0
+        mr = m - ml
+    else:
+        mr = w * x3 * (x3 / d) * (x3 / (x3 - x2)) / 3.0
+        ml = m - mr
+    if 0 <= kc - 1 < nb:
+        buf[kc - 1] -= ml
+    if 0 <= kc < nb:
+        buf[kc] += w + ml - mr
+    if 0 <= kc + 1 < nb:
+        buf[kc + 1] += mr
 
 
 @njit(cache=True)
@@ -392,7 +437,9 @@ def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
     2 w (d - t) / (d b) falling, which is what is used there; the cubic is
     only evaluated within one point of a corner (``_tent_corner_points``).
     A tent that lies between two neighbouring points is shared linearly from
-    its centroid (f1 + f2 + f3) / 3, which is the same rule in closed form.
+    its centroid (f1 + f2 + f3) / 3, and one that crosses a single point is
+    shared piece by piece (``_split_tent_at_point``): the same rule in closed
+    form for the narrow tents that dominate sideband spectra.
     """
     if f1 > f2:
         f1, f2 = f2, f1
@@ -407,34 +454,45 @@ def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
     if v3 <= -1.0 or v1 >= nb:
         return
     fl = math.floor(v1)
-    if v3 <= fl + 1.0:
-        _split_line(buf, (v1 + v2 + v3) / 3.0, w, nb)
+    if v3 <= fl + 1.0:  # between points fl and fl + 1: split from the centroid
+        r = (v1 + v2 + v3) / 3.0 - fl
+        j = int(fl)
+        if j >= 0:
+            buf[j] += w * (1.0 - r)
+        if j + 1 < nb:
+            buf[j + 1] += w * r
+        return
+    if v3 <= fl + 2.0:
+        _split_tent_at_point(buf, v1 - fl - 1.0, v2 - fl - 1.0, v3 - fl - 1.0, int(fl) + 1, w, nb)
         return
     klo = int(fl) if fl > 0.0 else 0
     khi = nb - 1 if v3 >= nb - 1.0 else int(math.floor(v3)) + 1
     d = v3 - v1
     a = v2 - v1
     b = v3 - v2
+    ca = w / (3.0 * d * a) if a > 0.0 else 0.0
+    cb = w / (3.0 * d * b) if b > 0.0 else 0.0
     k = klo
-    # straight rising side: points with 1 <= t <= a - 1
+    # straight rising side: points with 1 <= t <= a - 1 (only worth a loop of its
+    # own when it is long: each corner run costs two extra evaluations of R)
     lo = max(float(klo), math.ceil(v1 + 1.0))
     hi = min(float(khi), math.floor(v2 - 1.0))
-    if lo <= hi:
-        _tent_corner_points(buf, k, int(lo), v1, a, d, b, w)
-        up = 2.0 * w / (d * a)
+    if hi - lo >= _TENT_RUN:
+        _tent_corner_points(buf, k, int(lo), v1, a, d, b, ca, cb, w)
+        up = 6.0 * ca  # the density 2 w t / (d a)
         for j in range(int(lo), int(hi) + 1):
             buf[j] += up * (j - v1)
         k = int(hi) + 1
     # straight falling side: points with a + 1 <= t <= d - 1
     lo = max(float(k), math.ceil(v2 + 1.0))
     hi = min(float(khi), math.floor(v3 - 1.0))
-    if lo <= hi:
-        _tent_corner_points(buf, k, int(lo), v1, a, d, b, w)
-        down = 2.0 * w / (d * b)
+    if hi - lo >= _TENT_RUN:
+        _tent_corner_points(buf, k, int(lo), v1, a, d, b, ca, cb, w)
+        down = 6.0 * cb  # the density 2 w (d - t) / (d b)
         for j in range(int(lo), int(hi) + 1):
             buf[j] += down * (v3 - j)
         k = int(hi) + 1
-    _tent_corner_points(buf, k, khi + 1, v1, a, d, b, w)
+    _tent_corner_points(buf, k, khi + 1, v1, a, d, b, ca, cb, w)
 
 
 @njit(parallel=True, cache=True)
@@ -483,11 +541,18 @@ def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cu
 
 @njit(cache=True)
 def _bin_histogram(mean, amp, weights_t, vert_w, rate_hz, x0, dx, nb):
-    """Each vertex's lines shared linearly between the two axis points around them."""
+    """Each vertex's lines shared linearly between the two axis points around them.
+
+    A line at point coordinate v (point k at v = k, the bin centre
+    x0 + (k + 0.5) dx) gives 1 - r of its weight to point floor(v) and r to
+    floor(v) + 1, r = v - floor(v); shares of points off the axis are lost
+    (the work array has one guard point at either end).
+    """
     nv, nt = mean.shape
     p = amp.shape[2]
-    out = np.zeros(nb)
+    pad = np.zeros(nb + 2)  # pad[k + 1] is point k
     inv = 1.0 / dx
+    top = float(nb)
     for i in range(nv):
         for t in range(nt):
             for s in range(p):
@@ -496,8 +561,13 @@ def _bin_histogram(mean, amp, weights_t, vert_w, rate_hz, x0, dx, nb):
                     continue
                 n = s if s < (p + 1) // 2 else s - p
                 off = n * rate_hz if p > 1 else 0.0
-                _split_line(out, (mean[i, t] + off - x0) * inv - 0.5, w, nb)
-    return out
+                v = (mean[i, t] + off - x0) * inv + 0.5  # one more than the point coordinate
+                if v > 0.0 and v < top + 1.0:
+                    j = int(v)
+                    r = v - j
+                    pad[j] += w * (1.0 - r)
+                    pad[j + 1] += w * r
+    return pad[1:nb + 1].copy()
 
 
 # ---------------------------------------------------------------------------
