@@ -424,6 +424,28 @@ def _split_tent_at_point(buf, x1, x2, x3, kc, w, nb):
         buf[kc + 1] += mr
 
 
+@njit(cache=True, inline="always")
+def _tent_kink_points(buf, kfrom, kto, v1, tau, jump, a, d, up, down):
+    """Hat integrals of a tent at points kfrom <= k < kto whose hats meet one corner only.
+
+    The density (up * t rising, down * (d - t) falling, 0 outside) changes
+    slope by ``jump`` at t = tau.  Over a hat that holds only this corner the
+    density is a straight line plus jump * (t - tau)_+, and a ramp
+    integrated against the hat centred at t_k gives its value at t_k plus
+    (1 - |t_k - tau|)^3 / 6, so the point gets
+    rho(t_k) + jump * (1 - |t_k - tau|)_+^3 / 6.
+    """
+    for k in range(kfrom, kto):
+        t = k - v1
+        rho = up * t if t <= a else down * (d - t)
+        if rho < 0.0:
+            rho = 0.0
+        s = 1.0 - abs(t - tau)
+        if s > 0.0:
+            rho += jump * s * s * s / 6.0
+        buf[k] += rho
+
+
 @njit(cache=True)
 def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
     """Add one triangular density (vertices f1, f2, f3 in Hz, area w) to the axis points.
@@ -472,14 +494,16 @@ def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
     b = v3 - v2
     ca = w / (3.0 * d * a) if a > 0.0 else 0.0
     cb = w / (3.0 * d * b) if b > 0.0 else 0.0
+    up = 6.0 * ca  # the density is up * t on the rising side
+    down = 6.0 * cb  # and down * (d - t) on the falling side
     k = klo
     # straight rising side: points with 1 <= t <= a - 1 (only worth a loop of its
     # own when it is long: each corner run costs two extra evaluations of R)
     lo = max(float(klo), math.ceil(v1 + 1.0))
     hi = min(float(khi), math.floor(v2 - 1.0))
-    if hi - lo >= _TENT_RUN:
-        _tent_corner_points(buf, k, int(lo), v1, a, d, b, ca, cb, w)
-        up = 6.0 * ca  # the density 2 w t / (d a)
+    rising = hi - lo >= _TENT_RUN
+    if rising:
+        _tent_kink_points(buf, k, int(lo), v1, 0.0, up, a, d, up, down)
         for j in range(int(lo), int(hi) + 1):
             buf[j] += up * (j - v1)
         k = int(hi) + 1
@@ -487,12 +511,16 @@ def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
     lo = max(float(k), math.ceil(v2 + 1.0))
     hi = min(float(khi), math.floor(v3 - 1.0))
     if hi - lo >= _TENT_RUN:
-        _tent_corner_points(buf, k, int(lo), v1, a, d, b, ca, cb, w)
-        down = 6.0 * cb  # the density 2 w (d - t) / (d b)
+        if rising:
+            _tent_kink_points(buf, k, int(lo), v1, a, -(up + down), a, d, up, down)
+        else:
+            _tent_corner_points(buf, k, int(lo), v1, a, d, b, ca, cb, w)
         for j in range(int(lo), int(hi) + 1):
             buf[j] += down * (v3 - j)
         k = int(hi) + 1
-    _tent_corner_points(buf, k, khi + 1, v1, a, d, b, ca, cb, w)
+        _tent_kink_points(buf, k, khi + 1, v1, d, down, a, d, up, down)
+    else:
+        _tent_corner_points(buf, k, khi + 1, v1, a, d, b, ca, cb, w)
 
 
 @njit(parallel=True, cache=True)

@@ -241,6 +241,25 @@ def test_tent_binning_random_triangles_with_sidebands_and_chunks():
     assert got_c.sum() < got.sum()
 
 
+def test_tent_binning_every_width_and_shape_matches_clipping():
+    # Source: exact polygon clipping (tests/reference/binning_numpy.py).  The kernel uses
+    # different closed forms for tents between two points, across one point, with short
+    # sides and with long straight sides; widths from 0 to 40 points, peaks anywhere from
+    # the low end to the high end, at quarter-step offsets, inside the axis and across
+    # both of its ends, reach each of them.
+    x0, dx, nb = -1.0, 0.8, 60
+    points = _points(x0, dx, nb)
+    for width in (0.0, 0.3, 0.999, 1.0, 1.5, 1.999, 2.0, 2.5, 5.0, 9.0, 14.0, 40.0):
+        for peak in (0.0, 0.02, 0.3, 0.5, 0.98, 1.0):
+            for start in (0.1, 0.35, 0.6, 0.85, 20.0, 20.25, -3.3, nb - 2.2, -width * 0.5, nb - width * 0.5):
+                f1 = x0 + start * dx
+                f = np.array([f1 + peak * width * dx, f1 + width * dx, f1])  # vertex order mixed
+                got = _tent(f[:, None], np.ones((3, 1, 1)), np.ones((3, 1)), np.array([[0, 1, 2]]),
+                            np.array([1.0]), 0.0, x0, dx, nb)
+                ref = triangle_weights_clipped(f, points)
+                np.testing.assert_allclose(got, ref, rtol=0, atol=1e-13, err_msg=f"{width} {peak} {start}")
+
+
 def test_tent_binning_matches_random_sampling():
     # Source: the definition sampled directly: uniform random points in each triangle,
     # frequency interpolated linearly, histogrammed (tests/reference/binning_numpy.py).
