@@ -325,24 +325,6 @@ def _sideband_amplitudes(traj, rate_hz):
 # outside 0 .. nb-1 is lost.
 
 
-# straight stretches of a tent shorter than this many points (plus one) are
-# left to the rolling second differences (a speed choice; the result is the same)
-_TENT_RUN = 4.0
-
-
-@njit(cache=True, inline="always")
-def _split_line(buf, v, w, nb):
-    """Share weight w of a sharp line at point coordinate v between points floor(v), floor(v) + 1."""
-    if v <= -1.0 or v >= nb:
-        return
-    j = int(math.floor(v))
-    r = v - j
-    if j >= 0:
-        buf[j] += w * (1.0 - r)
-    if j + 1 < nb:
-        buf[j + 1] += w * r
-
-
 @njit(cache=True, inline="always")
 def _tent_second_integral(t, a, d, ca, cb, cen, w):
     """Second antiderivative R(t) of a triangle density of area w on [0, d], peak at a.
@@ -456,8 +438,10 @@ def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
     antiderivative R (piecewise cubic; ``_tent_second_integral``).  Where the
     hat lies on one straight side of the tent R is one cubic and the second
     difference is the density itself, 2 w t / (d a) rising or
-    2 w (d - t) / (d b) falling, which is what is used there; the cubic is
-    only evaluated within one point of a corner (``_tent_corner_points``).
+    2 w (d - t) / (d b) falling, which is what is used there on long sides;
+    next to a corner of a long side the density plus the corner's kink term
+    (``_tent_kink_points``), elsewhere the rolling second differences of R
+    (``_tent_corner_points``).
     A tent that lies between two neighbouring points is shared linearly from
     its centroid (f1 + f2 + f3) / 3, and one that crosses a single point is
     shared piece by piece (``_split_tent_at_point``): the same rule in closed
@@ -492,16 +476,20 @@ def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
     d = v3 - v1
     a = v2 - v1
     b = v3 - v2
-    ca = w / (3.0 * d * a) if a > 0.0 else 0.0
-    cb = w / (3.0 * d * b) if b > 0.0 else 0.0
+    # d > 1 here; a side narrower than 1e-150 points holds R below 1e-300 w, so it
+    # counts as zero width (no overflow of w / (3 d a), no inf * 0)
+    ca = w / (3.0 * d * a) if a > 1e-150 else 0.0
+    cb = w / (3.0 * d * b) if b > 1e-150 else 0.0
     up = 6.0 * ca  # the density is up * t on the rising side
     down = 6.0 * cb  # and down * (d - t) on the falling side
     k = klo
-    # straight rising side: points with 1 <= t <= a - 1 (only worth a loop of its
-    # own when it is long: each corner run costs two extra evaluations of R)
+    # straight rising side: points with 1 <= t <= a - 1.  A side gets a loop of its own
+    # (density values, closed forms at its corners) when it holds at least 5 points;
+    # shorter ones are left to the rolling second differences (a speed choice; the
+    # result is the same to rounding)
     lo = max(float(klo), math.ceil(v1 + 1.0))
     hi = min(float(khi), math.floor(v2 - 1.0))
-    rising = hi - lo >= _TENT_RUN
+    rising = hi - lo >= 4.0
     if rising:
         _tent_kink_points(buf, k, int(lo), v1, 0.0, up, a, d, up, down)
         for j in range(int(lo), int(hi) + 1):
@@ -510,7 +498,7 @@ def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
     # straight falling side: points with a + 1 <= t <= d - 1
     lo = max(float(k), math.ceil(v2 + 1.0))
     hi = min(float(khi), math.floor(v3 - 1.0))
-    if hi - lo >= _TENT_RUN:
+    if hi - lo >= 4.0:
         if rising:
             _tent_kink_points(buf, k, int(lo), v1, a, -(up + down), a, d, up, down)
         else:
