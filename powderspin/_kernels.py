@@ -484,12 +484,12 @@ def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
     down = 6.0 * cb  # and down * (d - t) on the falling side
     k = klo
     # straight rising side: points with 1 <= t <= a - 1.  A side gets a loop of its own
-    # (density values, closed forms at its corners) when it holds at least 5 points;
+    # (density values, closed forms at its corners) when it holds at least 3 points;
     # shorter ones are left to the rolling second differences (a speed choice; the
     # result is the same to rounding)
     lo = max(float(klo), math.ceil(v1 + 1.0))
     hi = min(float(khi), math.floor(v2 - 1.0))
-    rising = hi - lo >= 4.0
+    rising = hi - lo >= 2.0
     if rising:
         _tent_kink_points(buf, k, int(lo), v1, 0.0, up, a, d, up, down)
         for j in range(int(lo), int(hi) + 1):
@@ -498,7 +498,7 @@ def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
     # straight falling side: points with a + 1 <= t <= d - 1
     lo = max(float(k), math.ceil(v2 + 1.0))
     hi = min(float(khi), math.floor(v3 - 1.0))
-    if hi - lo >= 4.0:
+    if hi - lo >= 2.0:
         if rising:
             _tent_kink_points(buf, k, int(lo), v1, a, -(up + down), a, d, up, down)
         else:
