@@ -430,7 +430,26 @@ def _tent_kink_points(buf, kfrom, kto, v1, tau, jump, a, d, up, down):
 
 @njit(cache=True)
 def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
-    """Add one triangular density (vertices f1, f2, f3 in Hz, area w) to the axis points.
+    """Add one triangular density (vertices f1, f2, f3 in Hz, any order, area w) to the axis points.
+
+    Sorts the vertices, turns them into point units and calls ``_add_tent_points``.
+    """
+    if f1 > f2:
+        f1, f2 = f2, f1
+    if f2 > f3:
+        f2, f3 = f3, f2
+    if f1 > f2:
+        f1, f2 = f2, f1
+    inv = 1.0 / dx
+    _add_tent_points(buf, (f1 - x0) * inv - 0.5, (f2 - x0) * inv - 0.5, (f3 - x0) * inv - 0.5, w, nb)
+
+
+@njit(cache=True)
+def _add_tent_points(buf, v1, v2, v3, w, nb):
+    """Add one triangular density of area w to the axis points; vertices v1 <= v2 <= v3 in point units.
+
+    Point units: v = (f - x0) / dx - 1/2, so point k (the bin centre
+    x0 + (k + 1/2) dx) sits at v = k.
 
     Point k receives the integral of the density times its hat function.  In
     point units with t = v - v1, d = v3 - v1, a = v2 - v1, b = v3 - v2 that is
@@ -443,20 +462,10 @@ def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
     (``_tent_kink_points``), elsewhere the rolling second differences of R
     (``_tent_corner_points``).
     A tent that lies between two neighbouring points is shared linearly from
-    its centroid (f1 + f2 + f3) / 3, and one that crosses a single point is
+    its centroid (v1 + v2 + v3) / 3, and one that crosses a single point is
     shared piece by piece (``_split_tent_at_point``): the same rule in closed
     form for the narrow tents that dominate sideband spectra.
     """
-    if f1 > f2:
-        f1, f2 = f2, f1
-    if f2 > f3:
-        f2, f3 = f3, f2
-    if f1 > f2:
-        f1, f2 = f2, f1
-    inv = 1.0 / dx
-    v1 = (f1 - x0) * inv - 0.5
-    v2 = (f2 - x0) * inv - 0.5
-    v3 = (f3 - x0) * inv - 0.5
     if v3 <= -1.0 or v1 >= nb:
         return
     fl = math.floor(v1)
@@ -528,6 +537,8 @@ def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cu
     p = amp.shape[2]
     bufs = np.zeros((nchunk, nb))
     step = (m + nchunk - 1) // nchunk
+    inv = 1.0 / dx
+    step_pts = rate_hz * inv  # one band further, in points
     for c in prange(nchunk):
         lo = c * step
         hi = min(m, lo + step)
@@ -537,6 +548,19 @@ def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cu
             b = tris[q, 1]
             d = tris[q, 2]
             for t in range(nt):
+                # vertex order and point coordinates once per line; bands only shift them
+                f1 = mean[a, t]
+                f2 = mean[b, t]
+                f3 = mean[d, t]
+                if f1 > f2:
+                    f1, f2 = f2, f1
+                if f2 > f3:
+                    f2, f3 = f3, f2
+                if f1 > f2:
+                    f1, f2 = f2, f1
+                u1 = (f1 - x0) * inv - 0.5
+                u2 = (f2 - x0) * inv - 0.5
+                u3 = (f3 - x0) * inv - 0.5
                 for s in range(p):
                     w = (
                         amp[a, t, s] * weights_t[a, t]
@@ -546,8 +570,8 @@ def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cu
                     if w <= cutoff:
                         continue
                     n = s if s < (p + 1) // 2 else s - p
-                    off = n * rate_hz if p > 1 else 0.0
-                    _add_tent(buf, mean[a, t] + off, mean[b, t] + off, mean[d, t] + off, w, x0, dx, nb)
+                    sh = n * step_pts if p > 1 else 0.0
+                    _add_tent_points(buf, u1 + sh, u2 + sh, u3 + sh, w, nb)
     out = np.zeros(nb)
     for c in range(nchunk):
         for k in range(nb):
