@@ -522,15 +522,15 @@ def _add_tent_points(buf, v1, v2, v3, w, nb):
 
 @njit(parallel=True, cache=True)
 def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cutoff):
-    """Triangle ("tent") interpolation of every line onto bins.
+    """Triangle ("tent") interpolation of every line onto the axis points.
 
     mean (n_v, n_t): line centres (Hz) per vertex and transition; amp
     (n_v, n_t, P): sideband intensities (P = 1 for static / infinite rate);
     weights_t (n_v, n_t): transition weights per vertex.  Each triangle
     contributes, for each line, a triangular density between its three
     vertex frequencies with area tri_w * mean vertex intensity, shared among
-    the axis points x0 + (k + 0.5) dx by their hat functions (``_add_tent``).
-    Returns (nb,) summed intensities.
+    the axis points x0 + (k + 0.5) dx by their hat functions
+    (``_add_tent_points``).  Returns (nb,) summed intensities.
     """
     m = tris.shape[0]
     nt = mean.shape[1]
