@@ -324,15 +324,125 @@ def _sideband_intensities(traj, rate_hz):
 
 # ---------------------------------------------------------------------------
 # binning
+#
+# Axis point k sits at the bin centre x0 + (k + 0.5) dx.  In point units
+# v = (f - x0) / dx - 0.5 point k sits at v = k.  Every contribution is shared
+# among the points by the linear "hat" function of each point,
+# h_k(v) = max(0, 1 - |v - k|) (linear interpolation, "cloud in cell";
+# R. W. Hockney, J. W. Eastwood, Computer Simulation Using Particles (1981),
+# from memory).  The hats sum to 1 and sum_k k h_k(v) = v, so area and
+# first moment of every contribution are kept exactly; the share of points
+# outside 0 .. nb-1 is lost.
+
+
+@njit(cache=True, inline="always")
+def _tent_second_integral(t, a, d, ca, cb, cen, w):
+    """Second antiderivative R(t) of a triangle density of area w on [0, d], peak at a.
+
+    The density rises linearly on [0, a] and falls on [a, d]; cen = (a + d) / 3
+    is its centroid, ca = w / (3 d a) and cb = w / (3 d b) with b = d - a.
+    R is 0 for t <= 0, ca t^3 on the rising side, w (t - cen) + cb (d - t)^3
+    on the falling side and w (t - cen) beyond d; a side of zero width is
+    never evaluated, so its coefficient may be anything finite.
+    """
+    p = t if t > 0.0 else 0.0
+    q = d - t if t < d else 0.0
+    rise = ca * p * p * p
+    fall = w * (t - cen) + cb * q * q * q
+    return rise if t <= a else fall
+
+
+@njit(cache=True, inline="always")
+def _tent_corner_points(buf, kfrom, kto, v1, a, d, b, ca, cb, w):
+    """Hat integrals of a tent (see ``_add_tent``) at points kfrom <= k < kto, from R.
+
+    ca = w / (3 d a), cb = w / (3 d b) (anything finite for a side of zero
+    width).  The second differences of R are taken from the end of the tent
+    nearer these points (they do not change under t -> d - t with a and b
+    swapped), so rounding stays at the size of the values used.
+    """
+    if kto <= kfrom:
+        return
+    t = kfrom - v1
+    if t + 0.5 * (kto - 1 - kfrom) <= 0.5 * d:
+        cen = (a + d) / 3.0
+        r0 = _tent_second_integral(t - 1.0, a, d, ca, cb, cen, w)
+        r1 = _tent_second_integral(t, a, d, ca, cb, cen, w)
+        for k in range(kfrom, kto):
+            r2 = _tent_second_integral(k + 1.0 - v1, a, d, ca, cb, cen, w)
+            buf[k] += r2 - 2.0 * r1 + r0
+            r0 = r1
+            r1 = r2
+    else:
+        cen = (b + d) / 3.0
+        v3 = v1 + d
+        r0 = _tent_second_integral(v3 - kfrom + 1.0, b, d, cb, ca, cen, w)
+        r1 = _tent_second_integral(v3 - kfrom, b, d, cb, ca, cen, w)
+        for k in range(kfrom, kto):
+            r2 = _tent_second_integral(v3 - k - 1.0, b, d, cb, ca, cen, w)
+            buf[k] += r2 - 2.0 * r1 + r0
+            r0 = r1
+            r1 = r2
+
+
+@njit(cache=True, inline="always")
+def _split_tent_at_point(buf, x1, x2, x3, kc, w, nb):
+    """Hat integrals of a tent that crosses one point kc and reaches no other.
+
+    x1 <= x2 <= x3 are the vertices relative to point kc, -1 <= x1 < 0 < x3 <= 1.
+    The hats are linear between neighbouring points, so each of the two pieces
+    of the tent (left and right of kc) is shared from its own centroid: with
+    first moments ml <= 0 and mr >= 0 about kc (ml + mr = w (x1 + x2 + x3) / 3),
+    point kc - 1 gets -ml, point kc + 1 gets mr and point kc the rest.  The
+    piece cut off by kc is a triangle with its apex at an end of the tent:
+    ml = w x1^3 / (3 d a) when the cut is on the rising side, else
+    mr = w x3^3 / (3 d b) (d = x3 - x1, a = x2 - x1, b = x3 - x2); written
+    as products of ratios in [-1, 1] so that no product of small widths
+    underflows.
+    """
+    d = x3 - x1
+    m = w * (x1 + x2 + x3) / 3.0
+    if x2 >= 0.0:
+        ml = w * x1 * (x1 / d) * (x1 / (x2 - x1)) / 3.0
+        mr = m - ml
+    else:
+        mr = w * x3 * (x3 / d) * (x3 / (x3 - x2)) / 3.0
+        ml = m - mr
+    if 0 <= kc - 1 < nb:
+        buf[kc - 1] -= ml
+    if 0 <= kc < nb:
+        buf[kc] += w + ml - mr
+    if 0 <= kc + 1 < nb:
+        buf[kc + 1] += mr
+
+
+@njit(cache=True, inline="always")
+def _tent_kink_points(buf, kfrom, kto, v1, tau, jump, a, d, up, down):
+    """Hat integrals of a tent at points kfrom <= k < kto whose hats meet one corner only.
+
+    The density (up * t rising, down * (d - t) falling, 0 outside) changes
+    slope by ``jump`` at t = tau.  Over a hat that holds only this corner the
+    density is a straight line plus jump * (t - tau)_+, and a ramp
+    integrated against the hat centred at t_k gives its value at t_k plus
+    (1 - |t_k - tau|)^3 / 6, so the point gets
+    rho(t_k) + jump * (1 - |t_k - tau|)_+^3 / 6.
+    """
+    for k in range(kfrom, kto):
+        t = k - v1
+        rho = up * t if t <= a else down * (d - t)
+        if rho < 0.0:
+            rho = 0.0
+        s = 1.0 - abs(t - tau)
+        if s > 0.0:
+            rho += jump * s * s * s / 6.0
+        buf[k] += rho
 
 
 @njit(cache=True)
 def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
-    """Add the exact bin integrals of one triangular density (area w) to buf.
+    """Add one triangular density (vertices f1, f2, f3 in Hz, any order, area w) to the axis points.
 
-    The cumulative weight is (u - u1)^2 w / (D A) on the rising side and
-    w - (u3 - u)^2 w / (D B) on the falling side (u in bin units, D = u3 - u1,
-    A = u2 - u1, B = u3 - u2); each bin gets the difference at its edges.
+    Sorts the vertices, turns them into point units and calls ``_add_tent_points``.
     """
     if f1 > f2:
         f1, f2 = f2, f1
@@ -341,59 +451,104 @@ def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
     if f1 > f2:
         f1, f2 = f2, f1
     inv = 1.0 / dx
-    u1 = (f1 - x0) * inv
-    u2 = (f2 - x0) * inv
-    u3 = (f3 - x0) * inv
-    if u3 < 0.0 or u1 >= nb:
+    _add_tent_points(buf, (f1 - x0) * inv - 0.5, (f2 - x0) * inv - 0.5, (f3 - x0) * inv - 0.5, w, nb)
+
+
+@njit(cache=True)
+def _add_tent_points(buf, v1, v2, v3, w, nb):
+    """Add one triangular density of area w to the axis points; vertices v1 <= v2 <= v3 in point units.
+
+    Point units: v = (f - x0) / dx - 1/2, so point k (the bin centre
+    x0 + (k + 1/2) dx) sits at v = k.
+
+    Point k receives the integral of the density times its hat function.  In
+    point units with t = v - v1, d = v3 - v1, a = v2 - v1, b = v3 - v2 that is
+    the second difference R(t+1) - 2 R(t) + R(t-1) of the density's second
+    antiderivative R (piecewise cubic; ``_tent_second_integral``).  Where the
+    hat lies on one straight side of the tent R is one cubic and the second
+    difference is the density itself, 2 w t / (d a) rising or
+    2 w (d - t) / (d b) falling, which is what is used there on long sides;
+    next to a corner of a long side the density plus the corner's kink term
+    (``_tent_kink_points``), elsewhere the rolling second differences of R
+    (``_tent_corner_points``).
+    A tent that lies between two neighbouring points is shared linearly from
+    its centroid (v1 + v2 + v3) / 3, and one that crosses a single point is
+    shared piece by piece (``_split_tent_at_point``): the same rule in closed
+    form for the narrow tents that dominate sideband spectra.
+    """
+    if v3 <= -1.0 or v1 >= nb:
         return
-    k0 = int(math.floor(u1))
-    k1 = int(math.floor(u3))
-    if k1 == k0 or u3 - u1 < 1e-9:
-        if 0 <= k0 < nb:
-            buf[k0] += w
+    fl = math.floor(v1)
+    if v3 <= fl + 1.0:  # between points fl and fl + 1: split from the centroid
+        r = (v1 + v2 + v3) / 3.0 - fl
+        j = int(fl)
+        if j >= 0:
+            buf[j] += w * (1.0 - r)
+        if j + 1 < nb:
+            buf[j + 1] += w * r
         return
-    d = u3 - u1
-    ra = w / (d * (u2 - u1)) if u2 > u1 else 0.0
-    rb = w / (d * (u3 - u2)) if u3 > u2 else 0.0
-    prev = 0.0
-    kstart = k0
-    if k0 < 0:
-        kstart = 0
-        e = 0.0
-        prev = ra * (e - u1) * (e - u1) if e < u2 else w - rb * (u3 - e) * (u3 - e)
-    kend = k1 if k1 < nb else nb - 1
-    for k in range(kstart, kend):
-        e = k + 1.0
-        if e < u2:
-            c = ra * (e - u1) * (e - u1)
+    if v3 <= fl + 2.0:
+        _split_tent_at_point(buf, v1 - fl - 1.0, v2 - fl - 1.0, v3 - fl - 1.0, int(fl) + 1, w, nb)
+        return
+    klo = int(fl) if fl > 0.0 else 0
+    khi = nb - 1 if v3 >= nb - 1.0 else int(math.floor(v3)) + 1
+    d = v3 - v1
+    a = v2 - v1
+    b = v3 - v2
+    # d > 1 here; a side narrower than 1e-150 points holds R below 1e-300 w, so it
+    # counts as zero width (no overflow of w / (3 d a), no inf * 0)
+    ca = w / (3.0 * d * a) if a > 1e-150 else 0.0
+    cb = w / (3.0 * d * b) if b > 1e-150 else 0.0
+    up = 6.0 * ca  # the density is up * t on the rising side
+    down = 6.0 * cb  # and down * (d - t) on the falling side
+    k = klo
+    # straight rising side: points with 1 <= t <= a - 1.  A side gets a loop of its own
+    # (density values, closed forms at its corners) when it holds at least 3 points;
+    # shorter ones are left to the rolling second differences (a speed choice; the
+    # result is the same to rounding)
+    lo = max(float(klo), math.ceil(v1 + 1.0))
+    hi = min(float(khi), math.floor(v2 - 1.0))
+    rising = hi - lo >= 2.0
+    if rising:
+        _tent_kink_points(buf, k, int(lo), v1, 0.0, up, a, d, up, down)
+        for j in range(int(lo), int(hi) + 1):
+            buf[j] += up * (j - v1)
+        k = int(hi) + 1
+    # straight falling side: points with a + 1 <= t <= d - 1
+    lo = max(float(k), math.ceil(v2 + 1.0))
+    hi = min(float(khi), math.floor(v3 - 1.0))
+    if hi - lo >= 2.0:
+        if rising:
+            _tent_kink_points(buf, k, int(lo), v1, a, -(up + down), a, d, up, down)
         else:
-            c = w - rb * (u3 - e) * (u3 - e)
-        buf[k] += c - prev
-        prev = c
-    if kend == k1:
-        buf[kend] += w - prev
+            _tent_corner_points(buf, k, int(lo), v1, a, d, b, ca, cb, w)
+        for j in range(int(lo), int(hi) + 1):
+            buf[j] += down * (v3 - j)
+        k = int(hi) + 1
+        _tent_kink_points(buf, k, khi + 1, v1, d, down, a, d, up, down)
     else:
-        e = kend + 1.0
-        c = ra * (e - u1) * (e - u1) if e < u2 else w - rb * (u3 - e) * (u3 - e)
-        buf[kend] += c - prev
+        _tent_corner_points(buf, k, khi + 1, v1, a, d, b, ca, cb, w)
 
 
 @njit(parallel=True, cache=True)
 def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cutoff):
-    """Triangle ("tent") interpolation of every line onto bins.
+    """Triangle ("tent") interpolation of every line onto the axis points.
 
     mean (n_v, n_t): line centres (Hz) per vertex and transition; amp
     (n_v, n_t, P): sideband intensities (P = 1 for static / infinite rate);
     weights_t (n_v, n_t): transition weights per vertex.  Each triangle
     contributes, for each line, a triangular density between its three
-    vertex frequencies with area tri_w * mean vertex intensity; bins have
-    left edge x0 + k dx.  Returns (nb,) summed intensities.
+    vertex frequencies with area tri_w * mean vertex intensity, shared among
+    the axis points x0 + (k + 0.5) dx by their hat functions
+    (``_add_tent_points``).  Returns (nb,) summed intensities.
     """
     m = tris.shape[0]
     nt = mean.shape[1]
     p = amp.shape[2]
     bufs = np.zeros((nchunk, nb))
     step = (m + nchunk - 1) // nchunk
+    inv = 1.0 / dx
+    step_pts = rate_hz * inv  # one band further, in points
     for c in prange(nchunk):
         lo = c * step
         hi = min(m, lo + step)
@@ -403,6 +558,19 @@ def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cu
             b = tris[q, 1]
             d = tris[q, 2]
             for t in range(nt):
+                # vertex order and point coordinates once per line; bands only shift them
+                f1 = mean[a, t]
+                f2 = mean[b, t]
+                f3 = mean[d, t]
+                if f1 > f2:
+                    f1, f2 = f2, f1
+                if f2 > f3:
+                    f2, f3 = f3, f2
+                if f1 > f2:
+                    f1, f2 = f2, f1
+                u1 = (f1 - x0) * inv - 0.5
+                u2 = (f2 - x0) * inv - 0.5
+                u3 = (f3 - x0) * inv - 0.5
                 for s in range(p):
                     w = (
                         amp[a, t, s] * weights_t[a, t]
@@ -412,8 +580,8 @@ def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cu
                     if w <= cutoff:
                         continue
                     n = s if s < (p + 1) // 2 else s - p
-                    off = n * rate_hz if p > 1 else 0.0
-                    _add_tent(buf, mean[a, t] + off, mean[b, t] + off, mean[d, t] + off, w, x0, dx, nb)
+                    sh = n * step_pts if p > 1 else 0.0
+                    _add_tent_points(buf, u1 + sh, u2 + sh, u3 + sh, w, nb)
     out = np.zeros(nb)
     for c in range(nchunk):
         for k in range(nb):
@@ -423,10 +591,18 @@ def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cu
 
 @njit(cache=True)
 def _bin_histogram(mean, amp, weights_t, vert_w, rate_hz, x0, dx, nb):
-    """Plain histogram: each vertex's lines drop into the bin they fall in."""
+    """Each vertex's lines shared linearly between the two axis points around them.
+
+    A line at point coordinate v (point k at v = k, the bin centre
+    x0 + (k + 0.5) dx) gives 1 - r of its weight to point floor(v) and r to
+    floor(v) + 1, r = v - floor(v); shares of points off the axis are lost
+    (the work array has one guard point at either end).
+    """
     nv, nt = mean.shape
     p = amp.shape[2]
-    out = np.zeros(nb)
+    pad = np.zeros(nb + 2)  # pad[k + 1] is point k
+    inv = 1.0 / dx
+    top = float(nb)
     for i in range(nv):
         for t in range(nt):
             for s in range(p):
@@ -435,10 +611,13 @@ def _bin_histogram(mean, amp, weights_t, vert_w, rate_hz, x0, dx, nb):
                     continue
                 n = s if s < (p + 1) // 2 else s - p
                 off = n * rate_hz if p > 1 else 0.0
-                k = int(math.floor((mean[i, t] + off - x0) / dx))
-                if 0 <= k < nb:
-                    out[k] += w
-    return out
+                v = (mean[i, t] + off - x0) * inv + 0.5  # one more than the point coordinate
+                if v > 0.0 and v < top + 1.0:
+                    j = int(v)
+                    r = v - j
+                    pad[j] += w * (1.0 - r)
+                    pad[j + 1] += w * r
+    return pad[1:nb + 1].copy()
 
 
 # ---------------------------------------------------------------------------
