@@ -579,6 +579,7 @@ class _Problem:
         self.hi = np.array([p.max for p in self.params], dtype=float)
         n_jobs = len(model.sites) * len(model.measurements)
         self.memo = _Memo(4 * (len(self.params) + 3) * n_jobs)
+        self.render_memo = _Memo(4 * (len(self.params) + 3) * n_jobs)
         self.basis = []
         for ax, mk in zip(axes, masks):
             u = (ax.hz - ax.center_hz) / (0.5 * ax.width_hz)
@@ -596,8 +597,8 @@ class _Problem:
     def _simulate(self, theta):
         try:
             m = self.model_at(theta)
-            specs = [simulate(m, measurement=j, axis=self.axes[j], lines_memo=self.memo, methods=self.methods[j])
-                     for j in range(len(self.axes))]
+            specs = [simulate(m, measurement=j, axis=self.axes[j], lines_memo=self.memo, methods=self.methods[j],
+                              render_memo=self.render_memo) for j in range(len(self.axes))]
         except ModelError as e:
             vals = ", ".join(f"{p.name} = {v:.6g}" for p, v in zip(self.params, theta))
             raise FitError(f"the model cannot be simulated at {vals}: {e}; narrow the parameters' min/max") from None

@@ -77,7 +77,7 @@ def _widest_broadening_hz(model: Model, meas) -> float:
 
 def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None = None, progress=None,
              allow_strong_coupling: bool = False, lines_memo: dict | None = None, axis: Axis | None = None,
-             methods=None) -> Spectrum:
+             methods=None, render_memo: dict | None = None) -> Spectrum:
     """Simulate the spectrum of a model (one measurement).
 
     Parameters
@@ -105,6 +105,10 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
         The producer of each site (``"perturbation"`` or ``"exact"``),
         overriding the ``method = "auto"`` decision (a fit fixes it once, so
         that its objective does not jump between producers).
+    render_memo : dict, optional
+        Memo of binned lines shared between calls (see
+        :func:`~powderspin.site_lines.render_lines`): a fit passes one so that
+        a site whose lines and translation did not change is not binned again.
 
     Returns
     -------
@@ -191,7 +195,7 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
     sidebands: list[SidebandRow] = []
     for site, sl, sh in zip(model.sites, lines, shifts):
         r = render_lines(sl, axis, shift_hz=sh, weight=site.weight, lorentz_hz=site.lorentz_hz + meas.lorentz_hz,
-                         gauss_hz=math.hypot(site.gauss_hz, meas.gauss_hz), binning=meas.binning)
+                         gauss_hz=math.hypot(site.gauss_hz, meas.gauss_hz), binning=meas.binning, memo=render_memo)
         ys.append(r.intensity)
         if r.lost_fraction > LOST_NOTE_FRACTION and site.weight > 0:
             notes.append(f"site '{site.label}': {r.lost_fraction:.2%} of its intensity lies outside the axis "
