@@ -51,20 +51,23 @@ def report_figure(result):
     from matplotlib.figure import Figure
 
     n = len(result.spectra)
-    fig = Figure(figsize=(10.5, 3.6 * n + 0.6), layout="constrained")
-    gs = fig.add_gridspec(2 * n, 2, width_ratios=(3.2, 1.25), height_ratios=[3, 1] * n)
+    fig = Figure(figsize=(10.5, 3.4 * n + 0.5))
+    gs = fig.add_gridspec(n, 2, width_ratios=(3.2, 1.2), left=0.08, right=0.99, top=0.95, bottom=0.07,
+                          wspace=0.08, hspace=0.32)
     colours = matplotlib.colormaps["Dark2"].colors
     for j, spec in enumerate(result.spectra):
-        ax = fig.add_subplot(gs[2 * j, 0])
-        axr = fig.add_subplot(gs[2 * j + 1, 0], sharex=ax)
+        inner = gs[j, 0].subgridspec(2, 1, height_ratios=(3, 1), hspace=0.06)
+        ax = fig.add_subplot(inner[0])
+        axr = fig.add_subplot(inner[1], sharex=ax)
         ppm = spec.ppm
         data = np.asarray(result.data[j].intensity)
         mk = np.asarray(result.masks[j])
         ax.plot(ppm, data, color=_DATA, lw=0.8, label="data")
         for k, label in enumerate(spec.site_labels):
-            ax.plot(ppm, spec.site_intensities[k], color=colours[k % len(colours)], lw=1.0, ls=(0, (4, 2)),
-                    label=label)
-        ax.plot(ppm, spec.intensity, color=_FIT, lw=1.3, label="fit")
+            c = colours[k % len(colours)]
+            ax.fill_between(ppm, 0.0, spec.site_intensities[k], color=c, alpha=0.25, lw=0)
+            ax.plot(ppm, spec.site_intensities[k], color=c, lw=0.9, label=label)
+        ax.plot(ppm, spec.intensity, color=_FIT, lw=1.0, ls=(0, (5, 2)), label="fit")
         resid = data - spec.intensity
         axr.axhline(0.0, color="0.75", lw=0.6)
         axr.plot(ppm, np.where(mk, resid, np.nan), color=_RESID, lw=0.7)
@@ -84,6 +87,7 @@ def report_figure(result):
         ax.set_xlim(ppm.max(), ppm.min())
         ax.legend(fontsize=8, frameon=False, loc="upper right")
     tab = fig.add_subplot(gs[:, 1])
+    tab.set_navigate(False)
     tab.axis("off")
     tab.text(0.0, 1.0, _table_text(result), va="top", ha="left", family="monospace", fontsize=7.5,
              transform=tab.transAxes)
