@@ -1267,10 +1267,16 @@ def _sample_posterior(problem: _Problem, x, free, cov, derived, walkers, steps, 
         raise FitError(f"posterior: steps = {steps} must be at least 10 and burn = {burn} in [0, steps)")
     lo, hi = problem.lo, problem.hi
 
+    interrupted = []
+
     def log_prob(theta):
-        if np.any(theta < lo) or np.any(theta > hi):
+        if interrupted or np.any(theta < lo) or np.any(theta > hi):
             return -np.inf
-        ev = problem.evaluate(theta)
+        try:
+            ev = problem.evaluate(theta)
+        except KeyboardInterrupt:  # raised again outside the sampler, which would print a traceback
+            interrupted.append(True)
+            return -np.inf
         return -0.5 * float(ev.residual @ ev.residual) - 0.5 * ev.logdet
 
     rng = np.random.default_rng(seed)
@@ -1282,6 +1288,8 @@ def _sample_posterior(problem: _Problem, x, free, cov, derived, walkers, steps, 
     sampler = emcee.EnsembleSampler(nw, p, log_prob)
     sampler.random_state = np.random.RandomState(seed).get_state()
     for i, _ in enumerate(sampler.sample(p0, iterations=steps)):
+        if interrupted:
+            raise KeyboardInterrupt
         if progress is not None:
             progress("posterior", i + 1, steps)
     chain = sampler.get_chain(discard=burn, flat=True)
