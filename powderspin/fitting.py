@@ -800,7 +800,7 @@ def _sobol_starts(lo, hi, n: int, seed: int) -> np.ndarray:
 def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=None, axis: str | None = None,
         global_search: bool = False, starts: int | None = None, seed: int = 0, posterior: bool = False,
         walkers: int | None = None, steps: int = DEFAULT_STEPS, burn: int | None = None, progress=None,
-        max_evaluations: int | None = None) -> FitResult:
+        max_evaluations: int | None = None, threads: int | None = 1) -> FitResult:
     """Fit a model with free parameters to one or more measured spectra.
 
     Parameters
@@ -844,6 +844,12 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
         while sampling.
     max_evaluations : int, optional
         Limit on the objective evaluations of each least-squares run.
+    threads : int or None, optional
+        Threads of the compiled kernels during the fit (default 1; None
+        keeps numba's setting).  A fit makes thousands of small kernel
+        calls, for which starting parallel work costs more than it saves,
+        badly so on a busy machine (``benchmarks/bench_fit.py`` measures
+        both).
 
     Returns
     -------
@@ -891,6 +897,22 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
     >>> round(r.scales[0], 1)
     5.0
     """
+    if threads is None:
+        return _fit(model, data, regions, noise_region, baseline_order, axis, global_search, starts, seed,
+                    posterior, walkers, steps, burn, progress, max_evaluations)
+    import numba
+
+    before = numba.get_num_threads()
+    numba.set_num_threads(max(1, min(int(threads), numba.config.NUMBA_NUM_THREADS)))
+    try:
+        return _fit(model, data, regions, noise_region, baseline_order, axis, global_search, starts, seed,
+                    posterior, walkers, steps, burn, progress, max_evaluations)
+    finally:
+        numba.set_num_threads(before)
+
+
+def _fit(model, data, regions, noise_region, baseline_order, axis, global_search, starts, seed, posterior,
+         walkers, steps, burn, progress, max_evaluations) -> FitResult:
     t_start = time.perf_counter()
     model = _as_model(model)
     n_meas = len(model.measurements)
