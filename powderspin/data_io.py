@@ -114,7 +114,7 @@ from typing import Mapping
 import numpy as np
 
 from .nuclides import UnknownNuclideError, get_nuclide
-from .spectrum import OutputExistsError
+from .files import OutputExistsError
 
 __all__ = [
     "DataError",

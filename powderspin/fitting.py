@@ -78,17 +78,16 @@ import math
 import os
 import time
 import warnings as _warnings
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 from types import MappingProxyType
-from typing import Any, Mapping, Sequence
+from typing import Mapping, Sequence
 
 import numpy as np
 
 from .lineshape import Axis, make_axis
 from .model import FitSettings, FreeParameter, Model, ModelError, ParameterAddress
 from .simulation import simulate
-from .spectrum import Spectrum
 
 __all__ = [
     "FitError",
@@ -121,14 +120,7 @@ _DIFF_STEP = 1e-6
 #: fewest points a noise region must hold in every measurement
 _MIN_NOISE_POINTS = 8
 
-try:  # the measured-spectrum reader (powderspin.data_io)
-    from .data_io import DataError, read_spectrum
-except ImportError:  # pragma: no cover - replaced by the reader when it is present
-    DataError = ValueError  # type: ignore[misc,assignment]
-
-    def read_spectrum(path, *, axis=None, nu_ref_hz=None, nucleus=None, field_tesla=None, resample=False):
-        """Read a spectrum (minimal reader of powderspin's own CSV; replaced by :mod:`powderspin.data_io`)."""
-        return _read_csv_standin(path, axis=axis, nu_ref_hz=nu_ref_hz, nucleus=nucleus, field_tesla=field_tesla)
+from .data_io import DataError, compare_with_model, read_spectrum
 
 
 class FitError(ValueError):
@@ -380,69 +372,6 @@ def _fmt_value(v: float, e: float) -> str:
 # data
 
 
-def _read_csv_standin(path, *, axis=None, nu_ref_hz=None, nucleus=None, field_tesla=None):
-    """Minimal reader of a ``ppm,hz,intensity`` CSV with ``# key: value`` lines (a stand-in)."""
-    from .nuclides import get_nuclide
-
-    p = Path(path)
-    if not p.is_file():
-        raise FitError(f"data file {str(p)!r} does not exist")
-    meta: dict = {}
-    header = None
-    rows = []
-    for line in p.read_text(encoding="utf-8").splitlines():
-        s = line.strip()
-        if not s:
-            continue
-        if s.startswith("#"):
-            k, _, v = s[1:].partition(":")
-            meta[k.strip()] = v.strip()
-            continue
-        parts = [x.strip() for x in s.split(",")]
-        if header is None and not _is_float(parts[0]):
-            header = [x.lower() for x in parts]
-            continue
-        rows.append([float(x) for x in parts])
-    a = np.array(rows, dtype=float)
-    header = header or [axis or "ppm", "intensity"]
-    if "nu_ref_hz" in meta:
-        nu = float(meta["nu_ref_hz"])
-    elif nu_ref_hz is not None:
-        nu = float(nu_ref_hz)
-    else:
-        nu = get_nuclide(nucleus).larmor_hz(float(field_tesla))
-    col = header.index("intensity")
-    if "hz" in header:
-        hz = a[:, header.index("hz")]
-    elif "khz" in header:
-        hz = a[:, header.index("khz")] * 1e3
-    else:
-        hz = a[:, header.index("ppm")] * nu * 1e-6
-    order = np.argsort(hz)
-    return _Measured(hz[order], hz[order] / nu * 1e6, a[order, col], None, nu, str(path), nucleus, field_tesla, {})
-
-
-def _is_float(t: str) -> bool:
-    try:
-        float(t)
-        return True
-    except ValueError:
-        return False
-
-
-@dataclass(frozen=True)
-class _Measured:  # the fields of powderspin.data_io.MeasuredSpectrum used here
-    hz: np.ndarray
-    ppm: np.ndarray
-    intensity: np.ndarray
-    imag: Any
-    nu_ref_hz: float
-    source: str
-    nucleus: Any = None
-    field_tesla: Any = None
-    metadata: Mapping = field(default_factory=dict)
-
-
 def _is_spectrum(x) -> bool:
     return all(hasattr(x, a) for a in ("hz", "ppm", "intensity", "nu_ref_hz"))
 
@@ -486,10 +415,6 @@ def _read_one(item, model: Model, j: int, axis_unit: str | None):
 
 
 def _compare(spec, model: Model, j: int) -> list[str]:
-    try:
-        from .data_io import compare_with_model
-    except ImportError:  # pragma: no cover - the reader module is absent
-        return []
     return [f"measurement {j + 1}: {t}" for t in compare_with_model(spec, model.nucleus.name,
                                                                        model.measurements[j].field_tesla)]
 
@@ -810,7 +735,7 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
         parameters, or the path of a model file.  Site parameters are shared
         by all measurements; broadening, ``shift_offset_ppm`` and the scale
         belong to each measurement.
-    data : sequence of (path or MeasuredSpectrum), optional
+    data : sequence of (path or powderspin.data_io.MeasuredSpectrum), optional
         One measured spectrum per measurement, in model order; by default
         each measurement's ``data`` file (relative to the model file).
     regions : sequence of (ppm, ppm), optional
@@ -882,12 +807,12 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
 
     >>> import numpy as np
     >>> import powderspin as ps
-    >>> from powderspin.fitting import _Measured
+    >>> from powderspin.data_io import MeasuredSpectrum
     >>> truth = ps.make_model("31P", {"field_tesla": 9.4, "points": 256, "center_ppm": 0.0,
     ...                                "width_ppm": 40.0}, [{"label": "P", "shift_ppm": 3.0, "lorentz_hz": 300.0}])
     >>> s = ps.simulate(truth)
     >>> y = 5.0 * s.intensity + np.random.default_rng(1).normal(0.0, 0.01, s.hz.size)
-    >>> data = _Measured(s.hz, s.ppm, y, None, s.nu_ref_hz, "synthetic")
+    >>> data = MeasuredSpectrum(s.hz, s.ppm, y, None, s.nu_ref_hz, "synthetic")
     >>> start = ps.make_model("31P", {"field_tesla": 9.4},
     ...                       [{"label": "P", "shift_ppm": {"start": 0.0, "min": -10.0, "max": 10.0},
     ...                         "lorentz_hz": {"start": 200.0, "min": 10.0, "max": 2000.0}}])
@@ -1572,7 +1497,7 @@ def write_result(result: FitResult, path, *, force: bool = False, protect=()) ->
     >>> import tempfile, pathlib
     >>> import numpy as np
     >>> import powderspin as ps
-    >>> from powderspin.fitting import _Measured
+    >>> from powderspin.data_io import MeasuredSpectrum
     >>> truth = ps.make_model("31P", {"field_tesla": 9.4, "points": 128, "center_ppm": 0.0, "width_ppm": 40.0},
     ...                       [{"label": "P", "shift_ppm": 2.0, "lorentz_hz": 400.0}])
     >>> s = ps.simulate(truth)
@@ -1580,7 +1505,7 @@ def write_result(result: FitResult, path, *, force: bool = False, protect=()) ->
     >>> start = ps.make_model("31P", {"field_tesla": 9.4},
     ...                       [{"label": "P", "shift_ppm": {"start": 0.0, "min": -5.0, "max": 5.0},
     ...                         "lorentz_hz": 400.0}])
-    >>> r = ps.fit(start, [_Measured(s.hz, s.ppm, y, None, s.nu_ref_hz, "synthetic")])
+    >>> r = ps.fit(start, [MeasuredSpectrum(s.hz, s.ppm, y, None, s.nu_ref_hz, "synthetic")])
     >>> with tempfile.TemporaryDirectory() as d:
     ...     files = write_result(r, pathlib.Path(d) / "fit.toml")
     ...     again = ps.simulate(ps.load_model(files[0]))

@@ -31,7 +31,8 @@ from powderspin.data_io import (
     write_spectrum_text,
 )
 from powderspin.nuclides import UnknownNuclideError, get_nuclide
-from powderspin.spectrum import OutputExistsError, Spectrum
+from powderspin.files import OutputExistsError
+from powderspin.spectrum import Spectrum
 
 BAD = Path(__file__).resolve().parent / "bad_inputs" / "data"
 NU_AL_94 = get_nuclide("27Al").larmor_hz(9.4)  # nu_ref of 27Al at 9.4 T from the nuclide table

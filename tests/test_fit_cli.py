@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import csv
-import os
 import shutil
 import signal
 import subprocess
@@ -14,8 +13,6 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-
-import powderspin as ps
 
 ROOT = Path(__file__).resolve().parent.parent
 BAD = ROOT / "tests" / "bad_inputs" / "fit"
