@@ -347,13 +347,18 @@ class FitResult:
             line = f"  {n:<{w}}  {_fmt_value(v, e)}"
             if self.posterior is not None:
                 lo, hi = self.posterior.interval(n)
-                line += f"   posterior 16-84 %: [{lo:.6g}, {hi:.6g}]"
+                med = self.posterior.median[self.posterior.names.index(n)]
+                line += f"   posterior median {med:.6g}, 16-84 %: [{lo:.6g}, {hi:.6g}]"
             lines.append(line)
         head = (f"fit: reduced chi-square {self.reduced_chi_square:.4g} ({self.degrees_of_freedom} degrees of "
                 f"freedom; noise from the {self.noise_source}), {self.evaluations} evaluations, {self.time_s:.2f} s")
         if self.starts > 1:
             head += f", {self.starts_at_best} of {self.starts} starts reached the best fit"
         out = [head] + lines
+        if self.posterior is not None:
+            p = self.posterior
+            out.append(f"posterior: {p.walkers} walkers x {p.steps} steps, first {p.burn} discarded; longest "
+                       f"autocorrelation time {max(p.autocorrelation_steps):.3g} steps; acceptance {p.acceptance:.2f}")
         out += [f"note: {t}" for t in self.notes]
         out += [f"warning: {t}" for t in self.warnings]
         return "\n".join(out) + "\n"
