@@ -386,6 +386,13 @@ def _caused_by_interrupt(error: BaseException) -> bool:
     return False
 
 
+class _Parser(argparse.ArgumentParser):
+    """An argument parser whose usage errors are one line, like every other error of the command."""
+
+    def error(self, message):  # noqa: D401 - argparse's hook
+        self.exit(2, f"error: {self.prog}: {message} (see {self.prog} --help)\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser of the ``powderspin`` command.
 
@@ -400,9 +407,9 @@ def build_parser() -> argparse.ArgumentParser:
     """
     from . import __version__
 
-    p = argparse.ArgumentParser(prog="powderspin", description="Solid-state NMR powder patterns: simulate and fit.")
+    p = _Parser(prog="powderspin", description="Solid-state NMR powder patterns: simulate and fit.")
     p.add_argument("--version", action="version", version=f"powderspin {__version__}")
-    sub = p.add_subparsers(dest="command", required=True)
+    sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
 
     s = sub.add_parser("simulate", help="simulate the spectrum of a TOML model file")
     s.add_argument("model", help="model file (TOML)")

@@ -76,7 +76,51 @@ def test_model_paths_that_are_not_model_files(what, tmp_path, capsys):
     (["nuclide", "27Al", "--field", "0"], ["field_tesla = 0", "allowed range"]),
     (["nuclide", "129Xf", "--field", "9.4"], ["129Xf", "did you mean"]),
     (["nuclide"], ["nucleus", "--list"]),
+    (["simulate"], ["the following arguments are required", "--help"]),
+    (["fit", "m.toml", "--axis", "mhz"], ["--axis", "invalid choice", "--help"]),
+    (["wobble"], ["invalid choice", "--help"]),
 ])
 def test_bad_nuclide_commands(argv, words, capsys):
     status, err = _run(argv, capsys)
     _check(status, err, words)
+
+
+DATA = Path(__file__).resolve().parent / "bad_inputs" / "data"
+# with a model, a ppm axis takes its reference frequency from the model's nucleus and field, so a
+# file that states none is not an error for `fit`; every other case is
+DATA_CASES = [c for c in tomllib.loads((DATA / "cases.toml").read_text())["case"]
+              if set(c.get("options", {})) <= {"axis"} and c["file"] != "ppm_no_reference.csv"]
+#: the fit command checks a missing file itself, with its own words
+DATA_WORDS = {"missing.csv": ["does not exist"]}
+FIT_MODEL = """nucleus = "27Al"
+[measurement]
+field_tesla = 9.4
+[[site]]
+label = "Al"
+shift_ppm = { start = 0.0, min = -10.0, max = 10.0 }
+gauss_hz = { start = 300.0, min = 10.0, max = 3000.0 }
+"""
+
+
+@pytest.mark.parametrize("case", DATA_CASES, ids=[c["file"] for c in DATA_CASES])
+def test_bad_data_files_through_the_fit_command(case, tmp_path, capsys):
+    """The bad measured-spectrum files of tests/bad_inputs/data/ given to `powderspin fit` on the command line."""
+    model = tmp_path / "model.toml"
+    model.write_text(FIT_MODEL)
+    data = DATA / case["file"]
+    before = _snapshot(tmp_path)
+    argv = ["fit", str(model), str(data), "-o", str(tmp_path / "result.toml"), "-q"]
+    if "axis" in case.get("options", {}):
+        argv += ["--axis", case["options"]["axis"]]
+    status, err = _run(argv, capsys)
+    axis = case.get("options", {}).get("axis")
+    if axis is not None and axis not in ("ppm", "hz", "khz"):
+        words = ["--axis", axis]  # refused by the command line before any file is read
+    else:
+        words = [case["file"].split("/")[-1]] + DATA_WORDS.get(case["file"], case["expect"])
+    _check(status, err, words)
+    assert _snapshot(tmp_path) == before
+
+
+def test_enough_model_and_data_cases_through_the_cli():
+    assert len(CASES) + len(DATA_CASES) >= 60
