@@ -26,7 +26,8 @@ from powderspin.frequencies import site_frame  # noqa: E402
 from powderspin.lineshape import bin_lines, make_axis  # noqa: E402
 from powderspin.model import make_model  # noqa: E402
 from powderspin.orientations import triangulated  # noqa: E402
-from powderspin.simulation import site_lines, simulate  # noqa: E402
+from powderspin.simulation import simulate  # noqa: E402
+from powderspin.site_lines import compute_lines, site_job  # noqa: E402
 
 
 def numpy_mas(frame, vecs, m, theta, p, rate):
@@ -72,12 +73,13 @@ def case_mas_ct_csa():
                                 "method": "perturbation", "orientations": 45}, [site])
     fr = site_frame(model.sites[0], model.nucleus, 14.1)
     oset = triangulated(45, fr.symmetry)
-    sl = site_lines(fr, (0.5,), model.measurement, "perturbation", oset)
+    job = site_job(model.sites[0], model.measurement, model.nucleus, "perturbation", oset, carry_shift=True)
+    sl = compute_lines(job, orientations=oset)
     axis = make_axis(4096, fr.nu0_hz, None, None, sl.frequency_range())
 
     def engine():
-        s = site_lines(fr, (0.5,), model.measurement, "perturbation", oset)
-        return bin_lines(axis, s.mean, s.amp, s.weights, oset, "interpolate", rate, 1e-12)
+        s = compute_lines(job, orientations=oset)
+        return bin_lines(axis, s.mean, s.intensity, s.weights, oset, "interpolate", rate, 1e-12)
 
     def plain():
         mean, amp = numpy_mas(fr, np.asarray(oset.vectors), 0.5, math.radians(model.measurement.rotor_angle_deg),

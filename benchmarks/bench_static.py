@@ -21,7 +21,8 @@ from powderspin.frequencies import perturbative_offsets, site_frame  # noqa: E40
 from powderspin.lineshape import bin_lines, make_axis  # noqa: E402
 from powderspin.model import make_model, selected_transitions  # noqa: E402
 from powderspin.orientations import triangulated  # noqa: E402
-from powderspin.simulation import site_lines, simulate  # noqa: E402
+from powderspin.simulation import simulate  # noqa: E402
+from powderspin.site_lines import compute_lines, site_job  # noqa: E402
 
 
 def numpy_frequencies(frame, vecs, m):
@@ -46,13 +47,14 @@ def run_case(label, nucleus, site, field=14.1, subdivisions=140, points=4096):
     frame = site_frame(model.sites[0], model.nucleus, field)
     oset = triangulated(subdivisions, frame.symmetry)
     ms = selected_transitions(model.nucleus.spin, "central")
-    lines = site_lines(frame, ms, model.measurement, "perturbation", oset)
+    job = site_job(model.sites[0], model.measurement, model.nucleus, "perturbation", oset, carry_shift=True)
+    lines = compute_lines(job, orientations=oset)
     lo, hi = lines.frequency_range()
     axis = make_axis(points, frame.nu0_hz, None, None, (lo, hi))
 
     def engine():
-        sl = site_lines(frame, ms, model.measurement, "perturbation", oset)
-        return bin_lines(axis, sl.mean, sl.amp, sl.weights, oset, "interpolate")
+        sl = compute_lines(job, orientations=oset)
+        return bin_lines(axis, sl.mean, sl.intensity, sl.weights, oset, "interpolate")
 
     def plain_numpy():
         f = numpy_frequencies(frame, np.asarray(oset.vectors), ms[0])[:, None]
