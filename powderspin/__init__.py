@@ -37,6 +37,7 @@ _EXPORTS = {
     "Spectrum": "spectrum",
     "fit": "fitting", "FitResult": "fitting", "FitError": "fitting", "write_result": "fitting",
     "read_spectrum": "fitting",
+    "plan": "planning", "Plan": "planning",
     "ShiftTensor": "tensors",
 }
 
