@@ -613,8 +613,9 @@ def _voigt_fwhm(lorentz_hz: float, gauss_hz: float) -> float:
 def candidate_rates(top_hz: float, count: int = DEFAULT_RATE_COUNT, low_hz: float = DEFAULT_MIN_RATE_HZ) -> tuple:
     """A grid of spinning rates: ``count`` values spaced evenly in log(rate) from ``low_hz`` to ``top_hz``.
 
-    Values below ``top_hz`` are rounded to two significant figures (rates
-    as a spectroscopist sets them); the top is kept exactly.
+    Values below ``top_hz`` are rounded as a spectroscopist sets rates: to
+    100 Hz below 10 kHz, 500 Hz below 50 kHz and 1 kHz above; the top is
+    kept exactly.
 
     Parameters
     ----------
@@ -633,7 +634,7 @@ def candidate_rates(top_hz: float, count: int = DEFAULT_RATE_COUNT, low_hz: floa
     Examples
     --------
     >>> candidate_rates(24000.0, 6)
-    (2000.0, 3300.0, 5400.0, 8900.0, 15000.0, 24000.0)
+    (2000.0, 3300.0, 5400.0, 8900.0, 14500.0, 24000.0)
     """
     if not (top_hz > low_hz > 0):
         raise PlanError(f"rates: the fastest candidate rate {top_hz:g} Hz must exceed the slowest {low_hz:g} Hz")
@@ -646,8 +647,8 @@ def candidate_rates(top_hz: float, count: int = DEFAULT_RATE_COUNT, low_hz: floa
         if k == count - 1:
             v = float(top_hz)
         else:
-            d = 10 ** (math.floor(math.log10(r)) - 1)
-            v = float(round(r / d) * d)
+            d = 100.0 if r < 1e4 else (500.0 if r < 5e4 else 1000.0)
+            v = float(max(d, round(r / d) * d))
         if not out or v > out[-1]:
             out.append(v)
     return tuple(out)
@@ -925,9 +926,11 @@ class Plan:
     notes : tuple of str
     cautions : tuple of str
     timings : Mapping of str to float
-        Seconds: ``total``, ``lines`` (frequencies and sidebands),
-        ``render`` (binning and broadening of the parts) and
-        ``precision`` (the spectra of the Jacobians).
+        Seconds: ``total``; ``lines`` (the planner's own frequency and
+        sideband computations), ``render`` (its own renders of widths and
+        centrebands) and ``simulate`` (every spectrum through
+        :func:`~powderspin.simulation.simulate`: each candidate's and those of
+        its Jacobian) are the simulation; the rest is bookkeeping.
 
     Examples
     --------
@@ -1446,7 +1449,7 @@ def _render_part(lines, axis: Axis, shift_hz: float, weight: float, lorentz: flo
 
 class _Clock:
     def __init__(self):
-        self.t = {"lines": 0.0, "render": 0.0, "precision": 0.0}
+        self.t = {"lines": 0.0, "render": 0.0, "simulate": 0.0}
 
     def add(self, key, t0):
         self.t[key] += time.perf_counter() - t0
@@ -1719,6 +1722,8 @@ def _evaluate_rate(model: Model, setup: _FieldSetup, rate: float, table: RotorTa
     render_memo: dict = {}
     spec = simulate(base_model, render_memo=render_memo, **sim_opts)
     y0 = np.asarray(spec.intensity, dtype=float)
+    clock.add("simulate", t0)
+    t0 = time.perf_counter()
     # each site's centreband rendered alone; its sidebands are the rest of its simulated spectrum (binning and
     # broadening are linear)
     centre, side = [], []
@@ -1743,18 +1748,28 @@ def _evaluate_rate(model: Model, setup: _FieldSetup, rate: float, table: RotorTa
     stderr, rel, crit, wname, fisher, ld = {}, {}, math.nan, "", None, math.nan
     if params:
         cols = []
+        alone = not base_model.tied
         for q in params:
             h = _step(q)
             m_k = base_model.with_parameters({q.address: q.value + h})
-            yk = np.asarray(simulate(m_k, render_memo=render_memo, **sim_opts).intensity, dtype=float)
-            cols.append((yk - y0) / h)
+            if alone and q.address.table == "site":
+                # only this site's spectrum changes (no ties): simulate it alone, the same way
+                k = q.address.index
+                one = replace(m_k.with_sites([m_k.sites[k]]), measurements=m_k.measurements)
+                yk = np.asarray(simulate(one, render_memo=render_memo, axis=axis, lines_memo=memo,
+                                         methods=[setup.methods_mas[k]], orientations=[setup.sets_mas[k]]).intensity,
+                                dtype=float)
+                cols.append((yk - np.asarray(spec.site_intensities[k], dtype=float)) / h)
+            else:
+                yk = np.asarray(simulate(m_k, render_memo=render_memo, **sim_opts).intensity, dtype=float)
+                cols.append((yk - y0) / h)
         jac = np.column_stack(cols + [y0])
         full = jac.T @ jac / sigma ** 2
         p = len(params)
         f_tt, f_ts, f_ss = full[:p, :p], full[:p, p], full[p, p]
         fisher = f_tt - np.outer(f_ts, f_ts) / f_ss if f_ss > 0 else f_tt
         fisher = 0.5 * (fisher + fisher.T)
-    clock.add("precision", t0)
+    clock.add("simulate", t0)
     result = RateResult(rate, True, overlap=tuple(tuple(r) for r in ov), max_overlap=float(worst_v), worst=(wi, wj),
                         sideband_fraction=frac, resolution=tuple(tuple(r) for r in res),
                         max_resolution_overlap=float(max_res), rotors=rotors, rotor_phases=int(phases),
