@@ -23,12 +23,7 @@ import numpy as np
 
 import powderspin as ps
 import powderspin.fitting as fitting
-from powderspin.fitting import _Measured
-
-try:
-    from powderspin.data_io import MeasuredSpectrum as _Spectrum
-except ImportError:
-    _Spectrum = _Measured
+from powderspin.data_io import MeasuredSpectrum as _Spectrum
 
 
 def synthetic(model_keys, sites, points, ppm_range, seed=1, snr=200.0):

@@ -20,7 +20,6 @@ from pathlib import Path
 import numpy as np
 
 import powderspin as ps
-from powderspin.lineshape import make_axis
 
 HERE = Path(__file__).resolve().parent
 PACKAGE_DATA = HERE.parent / "powderspin" / "data"

@@ -36,7 +36,7 @@ _EXPORTS = {
     "render_lines": "site_lines",
     "Spectrum": "spectrum",
     "fit": "fitting", "FitResult": "fitting", "FitError": "fitting", "write_result": "fitting",
-    "read_spectrum": "fitting",
+    "read_spectrum": "data_io", "MeasuredSpectrum": "data_io", "DataError": "data_io",
     "plan": "planning", "Plan": "planning",
     "ShiftTensor": "tensors",
 }

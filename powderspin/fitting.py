@@ -26,7 +26,9 @@ How a fit works
   the objective does not jump between producers) and checked again at the
   end: if ``method = "auto"`` would choose otherwise at the fitted values, the
   fit is refined with the new choice, so that simulating the result file
-  gives the fitted curve.
+  gives the fitted curve.  ``orientations = "auto"`` and ``rotor_phases =
+  "auto"`` are pinned at the start to what the start values get (the
+  largest over the sites) and written to the result file.
 - **Global search** (``global_search=True``): least squares from a seeded
   scrambled Sobol set of starts within the bounds (scipy.stats.qmc; I. M.
   Sobol', USSR Comput. Math. Math. Phys. 7 (1967) 86), plus the model's own
@@ -78,17 +80,16 @@ import math
 import os
 import time
 import warnings as _warnings
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 from types import MappingProxyType
-from typing import Any, Mapping, Sequence
+from typing import Mapping, Sequence
 
 import numpy as np
 
 from .lineshape import Axis, make_axis
 from .model import FitSettings, FreeParameter, Model, ModelError, ParameterAddress
 from .simulation import simulate
-from .spectrum import Spectrum
 
 __all__ = [
     "FitError",
@@ -121,14 +122,7 @@ _DIFF_STEP = 1e-6
 #: fewest points a noise region must hold in every measurement
 _MIN_NOISE_POINTS = 8
 
-try:  # the measured-spectrum reader (powderspin.data_io)
-    from .data_io import DataError, read_spectrum
-except ImportError:  # pragma: no cover - replaced by the reader when it is present
-    DataError = ValueError  # type: ignore[misc,assignment]
-
-    def read_spectrum(path, *, axis=None, nu_ref_hz=None, nucleus=None, field_tesla=None, resample=False):
-        """Read a spectrum (minimal reader of powderspin's own CSV; replaced by :mod:`powderspin.data_io`)."""
-        return _read_csv_standin(path, axis=axis, nu_ref_hz=nu_ref_hz, nucleus=nucleus, field_tesla=field_tesla)
+from .data_io import DataError, compare_with_model, read_spectrum
 
 
 class FitError(ValueError):
@@ -355,13 +349,18 @@ class FitResult:
             line = f"  {n:<{w}}  {_fmt_value(v, e)}"
             if self.posterior is not None:
                 lo, hi = self.posterior.interval(n)
-                line += f"   posterior 16-84 %: [{lo:.6g}, {hi:.6g}]"
+                med = self.posterior.median[self.posterior.names.index(n)]
+                line += f"   posterior median {med:.6g}, 16-84 %: [{lo:.6g}, {hi:.6g}]"
             lines.append(line)
         head = (f"fit: reduced chi-square {self.reduced_chi_square:.4g} ({self.degrees_of_freedom} degrees of "
                 f"freedom; noise from the {self.noise_source}), {self.evaluations} evaluations, {self.time_s:.2f} s")
         if self.starts > 1:
             head += f", {self.starts_at_best} of {self.starts} starts reached the best fit"
         out = [head] + lines
+        if self.posterior is not None:
+            p = self.posterior
+            out.append(f"posterior: {p.walkers} walkers x {p.steps} steps, first {p.burn} discarded; longest "
+                       f"autocorrelation time {max(p.autocorrelation_steps):.3g} steps; acceptance {p.acceptance:.2f}")
         out += [f"note: {t}" for t in self.notes]
         out += [f"warning: {t}" for t in self.warnings]
         return "\n".join(out) + "\n"
@@ -378,69 +377,6 @@ def _fmt_value(v: float, e: float) -> str:
 
 # ---------------------------------------------------------------------------
 # data
-
-
-def _read_csv_standin(path, *, axis=None, nu_ref_hz=None, nucleus=None, field_tesla=None):
-    """Minimal reader of a ``ppm,hz,intensity`` CSV with ``# key: value`` lines (a stand-in)."""
-    from .nuclides import get_nuclide
-
-    p = Path(path)
-    if not p.is_file():
-        raise FitError(f"data file {str(p)!r} does not exist")
-    meta: dict = {}
-    header = None
-    rows = []
-    for line in p.read_text(encoding="utf-8").splitlines():
-        s = line.strip()
-        if not s:
-            continue
-        if s.startswith("#"):
-            k, _, v = s[1:].partition(":")
-            meta[k.strip()] = v.strip()
-            continue
-        parts = [x.strip() for x in s.split(",")]
-        if header is None and not _is_float(parts[0]):
-            header = [x.lower() for x in parts]
-            continue
-        rows.append([float(x) for x in parts])
-    a = np.array(rows, dtype=float)
-    header = header or [axis or "ppm", "intensity"]
-    if "nu_ref_hz" in meta:
-        nu = float(meta["nu_ref_hz"])
-    elif nu_ref_hz is not None:
-        nu = float(nu_ref_hz)
-    else:
-        nu = get_nuclide(nucleus).larmor_hz(float(field_tesla))
-    col = header.index("intensity")
-    if "hz" in header:
-        hz = a[:, header.index("hz")]
-    elif "khz" in header:
-        hz = a[:, header.index("khz")] * 1e3
-    else:
-        hz = a[:, header.index("ppm")] * nu * 1e-6
-    order = np.argsort(hz)
-    return _Measured(hz[order], hz[order] / nu * 1e6, a[order, col], None, nu, str(path), nucleus, field_tesla, {})
-
-
-def _is_float(t: str) -> bool:
-    try:
-        float(t)
-        return True
-    except ValueError:
-        return False
-
-
-@dataclass(frozen=True)
-class _Measured:  # the fields of powderspin.data_io.MeasuredSpectrum used here
-    hz: np.ndarray
-    ppm: np.ndarray
-    intensity: np.ndarray
-    imag: Any
-    nu_ref_hz: float
-    source: str
-    nucleus: Any = None
-    field_tesla: Any = None
-    metadata: Mapping = field(default_factory=dict)
 
 
 def _is_spectrum(x) -> bool:
@@ -486,10 +422,6 @@ def _read_one(item, model: Model, j: int, axis_unit: str | None):
 
 
 def _compare(spec, model: Model, j: int) -> list[str]:
-    try:
-        from .data_io import compare_with_model
-    except ImportError:  # pragma: no cover - the reader module is absent
-        return []
     return [f"measurement {j + 1}: {t}" for t in compare_with_model(spec, model.nucleus.name,
                                                                        model.measurements[j].field_tesla)]
 
@@ -761,17 +693,35 @@ def _overlap_check(model: Model, axes, where) -> None:
                 f"{lo / nu_ref * 1e6:.6g} ppm: check the nucleus, field_tesla, shift_ppm and the data file")
 
 
-def _fixed_rotor_phases(model: Model, axes, methods) -> tuple[Model, dict]:
-    """Resolve rotor_phases = "auto" once (the largest any site needs at the start values)."""
+def _fixed_choices(model: Model, axes, methods) -> tuple[Model, dict]:
+    """Pin what a simulation would choose by itself at the start values, so the objective cannot jump.
+
+    ``orientations = "auto"`` becomes the accuracy level (subdivisions) of the
+    triangulated sets the sites got (the largest), and ``rotor_phases =
+    "auto"`` under finite-rate spinning the largest number of phases any site
+    needs.  Both are written to the result, so simulating it makes the same
+    choice.  Returns the model and the measurements whose phases were pinned.
+    """
     memo: dict = {}
-    changed = {}
+    phases = {}
     for j, meas in enumerate(model.measurements):
-        if meas.rotor_phases == "auto" and meas.spinning_hz > 0 and math.isfinite(meas.spinning_hz):
-            spec = simulate(model, measurement=j, axis=axes[j], lines_memo=memo, methods=methods[j])
-            p = max(int(v) for v in spec.metadata["rotor_phases"].values())
-            model = model.with_measurement(j, rotor_phases=p)
-            changed[j] = p
-    return model, changed
+        finite = meas.spinning_hz > 0 and math.isfinite(meas.spinning_hz)
+        pin_phases = meas.rotor_phases == "auto" and finite
+        pin_sets = meas.orientations == "auto"
+        if not (pin_phases or pin_sets):
+            continue
+        spec = simulate(model, measurement=j, axis=axes[j], lines_memo=memo, methods=methods[j])
+        changes = {}
+        if pin_phases:
+            changes["rotor_phases"] = phases[j] = max(int(v) for v in spec.metadata["rotor_phases"].values())
+        if pin_sets:
+            names = [str(v).split(" ")[0] for v in spec.metadata["orientations"].values()]
+            levels = [int(n.rsplit("-", 1)[1]) for n in names if n.startswith("tri-") and n.rsplit("-", 1)[1].isdigit()]
+            if levels and len(levels) == len(names):
+                changes["orientations"] = max(levels)
+        if changes:
+            model = model.with_measurement(j, **changes)
+    return model, phases
 
 
 def _methods_at(model: Model, axes) -> list[list[str]]:
@@ -810,7 +760,7 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
         parameters, or the path of a model file.  Site parameters are shared
         by all measurements; broadening, ``shift_offset_ppm`` and the scale
         belong to each measurement.
-    data : sequence of (path or MeasuredSpectrum), optional
+    data : sequence of (path or powderspin.data_io.MeasuredSpectrum), optional
         One measured spectrum per measurement, in model order; by default
         each measurement's ``data`` file (relative to the model file).
     regions : sequence of (ppm, ppm), optional
@@ -882,12 +832,12 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
 
     >>> import numpy as np
     >>> import powderspin as ps
-    >>> from powderspin.fitting import _Measured
+    >>> from powderspin.data_io import MeasuredSpectrum
     >>> truth = ps.make_model("31P", {"field_tesla": 9.4, "points": 256, "center_ppm": 0.0,
     ...                                "width_ppm": 40.0}, [{"label": "P", "shift_ppm": 3.0, "lorentz_hz": 300.0}])
     >>> s = ps.simulate(truth)
     >>> y = 5.0 * s.intensity + np.random.default_rng(1).normal(0.0, 0.01, s.hz.size)
-    >>> data = _Measured(s.hz, s.ppm, y, None, s.nu_ref_hz, "synthetic")
+    >>> data = MeasuredSpectrum(s.hz, s.ppm, y, None, s.nu_ref_hz, "synthetic")
     >>> start = ps.make_model("31P", {"field_tesla": 9.4},
     ...                       [{"label": "P", "shift_ppm": {"start": 0.0, "min": -10.0, "max": 10.0},
     ...                         "lorentz_hz": {"start": 200.0, "min": 10.0, "max": 2000.0}}])
@@ -987,7 +937,7 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
         base = base.with_measurement(j, scale=1.0, baseline=(), center_ppm=None, width_ppm=None)
     _overlap_check(base, axes, where)
     methods = _methods_at(base, axes)
-    base, fixed_phases = _fixed_rotor_phases(base, axes, methods)
+    base, fixed_phases = _fixed_choices(base, axes, methods)
     problem = _Problem(base, free, axes, ys, masks, sigmas, methods, order, progress)
     x0 = np.array([p.start for p in free], dtype=float)
     # -- least squares (local or multi-start)
@@ -1243,7 +1193,8 @@ def _fitted_model(problem: _Problem, x, e: _Eval, derived, axes, centers, widths
             data = str(paths[j])
         m = m.with_measurement(j, points=ax.points, center_ppm=centers[j], width_ppm=widths[j],
                                scale=float(c[0] * ssum), baseline=tuple(float(v) for v in c[1:]), data=data,
-                               rotor_phases=problem.model.measurements[j].rotor_phases)
+                               rotor_phases=problem.model.measurements[j].rotor_phases,
+                               orientations=problem.model.measurements[j].orientations)
     return m
 
 
@@ -1572,7 +1523,7 @@ def write_result(result: FitResult, path, *, force: bool = False, protect=()) ->
     >>> import tempfile, pathlib
     >>> import numpy as np
     >>> import powderspin as ps
-    >>> from powderspin.fitting import _Measured
+    >>> from powderspin.data_io import MeasuredSpectrum
     >>> truth = ps.make_model("31P", {"field_tesla": 9.4, "points": 128, "center_ppm": 0.0, "width_ppm": 40.0},
     ...                       [{"label": "P", "shift_ppm": 2.0, "lorentz_hz": 400.0}])
     >>> s = ps.simulate(truth)
@@ -1580,7 +1531,7 @@ def write_result(result: FitResult, path, *, force: bool = False, protect=()) ->
     >>> start = ps.make_model("31P", {"field_tesla": 9.4},
     ...                       [{"label": "P", "shift_ppm": {"start": 0.0, "min": -5.0, "max": 5.0},
     ...                         "lorentz_hz": 400.0}])
-    >>> r = ps.fit(start, [_Measured(s.hz, s.ppm, y, None, s.nu_ref_hz, "synthetic")])
+    >>> r = ps.fit(start, [MeasuredSpectrum(s.hz, s.ppm, y, None, s.nu_ref_hz, "synthetic")])
     >>> with tempfile.TemporaryDirectory() as d:
     ...     files = write_result(r, pathlib.Path(d) / "fit.toml")
     ...     again = ps.simulate(ps.load_model(files[0]))

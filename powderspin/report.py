@@ -145,7 +145,7 @@ def save_report(result, path, *, force: bool = False, protect=()) -> Path:
     >>> import tempfile, pathlib
     >>> import numpy as np
     >>> import powderspin as ps
-    >>> from powderspin.fitting import _Measured
+    >>> from powderspin.data_io import MeasuredSpectrum
     >>> truth = ps.make_model("31P", {"field_tesla": 9.4, "points": 128, "center_ppm": 0.0, "width_ppm": 40.0},
     ...                       [{"label": "P", "shift_ppm": 2.0, "lorentz_hz": 400.0}])
     >>> s = ps.simulate(truth)
@@ -153,7 +153,7 @@ def save_report(result, path, *, force: bool = False, protect=()) -> Path:
     >>> start = ps.make_model("31P", {"field_tesla": 9.4},
     ...                       [{"label": "P", "shift_ppm": {"start": 0.0, "min": -5.0, "max": 5.0},
     ...                         "lorentz_hz": 400.0}])
-    >>> r = ps.fit(start, [_Measured(s.hz, s.ppm, y, None, s.nu_ref_hz, "synthetic")])
+    >>> r = ps.fit(start, [MeasuredSpectrum(s.hz, s.ppm, y, None, s.nu_ref_hz, "synthetic")])
     >>> with tempfile.TemporaryDirectory() as d:
     ...     save_report(r, pathlib.Path(d) / "fit.png").stat().st_size > 1000
     True

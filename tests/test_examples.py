@@ -86,6 +86,7 @@ def test_readme_python_block(tmp_path, monkeypatch):
     matplotlib.use("Agg")
     monkeypatch.chdir(tmp_path)
     for b in blocks:
+        b = b.replace('"examples/', f'"{ROOT / "examples"}/')  # README paths are relative to the repository
         exec(compile(b, "README.md", "exec"), {})
 
 

@@ -19,7 +19,6 @@ the method rather than the engine's powder error; trials start at the truth
 from __future__ import annotations
 
 import functools
-import math
 
 import numpy as np
 import pytest
@@ -30,10 +29,7 @@ from powderspin.lineshape import make_axis
 from tests.reference import fit_spectra as fr
 from tests.reference import herzfeld_berger as hb
 
-try:
-    from powderspin.data_io import MeasuredSpectrum as _Spectrum
-except ImportError:  # the data reader lands separately
-    from powderspin.fitting import _Measured as _Spectrum
+from powderspin.data_io import MeasuredSpectrum as _Spectrum
 
 TRIALS = 20
 
@@ -284,7 +280,6 @@ def test_posterior_intervals_agree_with_jacobian_errors():
     half-width equals the standard error (common practice).  The sampling
     error of that half-width with ~300 independent samples is a few percent.
     """
-    case = CASES["static-ct"]
     axis, y0 = _reference("static-ct")
     y = y0 + np.random.default_rng(21).normal(0.0, 0.01, y0.size)
     m = ps.make_model("27Al", {"field_tesla": 9.4, "orientations": "coarse", "method": "perturbation",
