@@ -157,7 +157,7 @@ from dataclasses import dataclass, field, replace
 from importlib import resources
 from pathlib import Path
 from types import MappingProxyType
-from typing import Any, Mapping, Sequence
+from typing import Any, Mapping
 
 import numpy as np
 
@@ -1488,7 +1488,6 @@ def _setup_field(model: Model, meas: Measurement, field_t: float, dx: float, slo
         inf = replace(inf, orientations=orientations)
     methods, sets, summaries = [], [], []
     for s in model.sites:
-        lz, gs = _site_broadening(s, meas)
         m_static, _ = choose_method(s, static, nuc, 0.5 * axis.dx_hz)
         m_mas, note = choose_method(s, inf, nuc, 0.5 * axis.dx_hz)
         if note:
@@ -1646,7 +1645,7 @@ def _covariance(f: np.ndarray) -> np.ndarray:
     return cov
 
 
-def _errors(cov_theta: np.ndarray, info: list, g: np.ndarray, params: list, refs: dict):
+def _errors(cov_theta: np.ndarray, info: list, g: np.ndarray, refs: dict):
     finite = np.isfinite(np.diag(cov_theta))
     c = np.where(np.outer(finite, finite), cov_theta, 0.0)
     q = g @ c @ g.T
@@ -1793,13 +1792,13 @@ def _resolution(a, b) -> float:
     return float(np.minimum(a, b).sum() / small)
 
 
-def _with_precision(r: RateResult, info, g, params, refs, skip) -> RateResult:
+def _with_precision(r: RateResult, info, g, refs, skip, prefs) -> RateResult:
     if r.fisher is None:
         return r
     cov = _covariance(r.fisher)
-    stderr, rel = _errors(cov, info, g, params, refs)
+    stderr, rel = _errors(cov, info, g, refs)
     crit, name = _criterion(rel, skip)
-    ld = _log_det(cov, [refs.get(q.name, 1.0) for q in params])
+    ld = _log_det(cov, prefs)
     rc = crit / r.relative_signal if r.relative_signal > 0 else math.inf
     return replace(r, stderr=stderr, relative=rel, criterion=crit, worst_parameter=name, log_det=ld,
                    rotor_criterion=rc)
@@ -1979,9 +1978,9 @@ def _plan(model, fields, rotors, rotor_table, max_rate_hz, rates_hz, n_rates, mi
         if skip:
             notes.append("left out of the ranking (on an edge of their allowed range, where the Fisher information "
                          "says little): " + ", ".join(sorted(skip)))
-        pref = {q.name: refs.get(q.name, max(abs(q.value), _floor(q.address.key)[1])) for q in params}
+        prefs = [refs.get(q.name, max(abs(q.value), _floor(q.address.key)[1])) for q in params]
         for k, (setup, results, spectra) in enumerate(field_plans):
-            field_plans[k] = (setup, [_with_precision(r, info, g, params, refs, skip) for r in results], spectra)
+            field_plans[k] = (setup, [_with_precision(r, info, g, refs, skip, prefs) for r in results], spectra)
     # -- recommendation per field
     fplans = []
     for setup, results, spectra in field_plans:
@@ -1992,7 +1991,7 @@ def _plan(model, fields, rotors, rotor_table, max_rate_hz, rates_hz, n_rates, mi
         ranking = tuple(sorted(((f.field_tesla, r.rate_hz, r.rotor_criterion, r.worst_parameter)
                                 for f in fplans for r in f.rates if r.computed),
                                key=lambda t: (_sort_key(t[2]), t[1], -t[0])))
-        pairs = _best_pairs(fplans, threshold, info, g, params, refs, skip, notes)
+        pairs = _best_pairs(fplans, threshold, info, g, refs, skip, prefs, notes)
     timings = {"total": time.perf_counter() - t_start, **clock.t}
     cautions = CAUTIONS  # printed with every plan: it names rotors and rates even when it recommends none
     return Plan(model=model, source=source, fields=tuple(fplans), rates_hz=tuple(rates), threshold=threshold,
@@ -2016,7 +2015,7 @@ def _field_plan(setup: _FieldSetup, results: list, spectra: dict, threshold: flo
             worst = max(lower, key=lambda r: r.rate_hz)
             why = (f"lowest candidate rate at which every sideband-on-centreband overlap is below "
                    f"{threshold:.3g} (here {rec.max_overlap:.3g}); at {worst.rate_hz:g} Hz "
-                   + (f"the largest is {worst.max_overlap:.3g}" if worst.computed else f"it could not be computed"))
+                   + (f"the largest is {worst.max_overlap:.3g}" if worst.computed else "it could not be computed"))
         else:
             why = (f"the slowest candidate rate already keeps every overlap below {threshold:.3g} (here "
                    f"{rec.max_overlap:.3g}); slower rates were not tried")
@@ -2064,7 +2063,7 @@ def _best_field(fplans: list) -> tuple[float, str]:
     return best.field_tesla, why
 
 
-def _best_pairs(fplans, threshold, info, g, params, refs, skip, notes, keep: int = 10) -> tuple:
+def _best_pairs(fplans, threshold, info, g, refs, skip, prefs, notes, keep: int = 10) -> tuple:
     cands = [(f, r) for f in fplans for r in f.rates if r.computed and r.fisher is not None]
     clean = [(f, r) for f, r in cands if r.passes(threshold)]
     pool = clean if len(clean) >= 2 else cands
@@ -2080,9 +2079,9 @@ def _best_pairs(fplans, threshold, info, g, params, refs, skip, notes, keep: int
             if not (ra.relative_signal > 0 and rb.relative_signal > 0):
                 continue
             cov = _covariance(ra.fisher * ra.relative_signal ** 2 + rb.fisher * rb.relative_signal ** 2)
-            stderr, rel = _errors(cov, info, g, params, refs)
+            stderr, rel = _errors(cov, info, g, refs)
             crit, name = _criterion(rel, skip)
-            ld = _log_det(cov, [refs.get(q.name, 1.0) for q in params])
+            ld = _log_det(cov, prefs)
             out.append({"fields_tesla": [fa.field_tesla, fb.field_tesla], "rates_hz": [ra.rate_hz, rb.rate_hz],
                         "rotors": [ra.rotors[0] if ra.rotors else None, rb.rotors[0] if rb.rotors else None],
                         "relative_signal": [ra.relative_signal, rb.relative_signal], "criterion": crit, "worst_parameter": name, "log_det_covariance": ld, "stderr": stderr})

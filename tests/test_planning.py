@@ -476,3 +476,16 @@ def test_ctrl_c_stops_a_plan_at_once_with_130_and_no_output(tmp_path):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["slow.toml"]
     # a candidate takes a fraction of a second on an idle machine; allow for a loaded one
     assert stopped_after < 30.0, f"took {stopped_after:.1f} s to stop"
+
+
+def test_readme_rotor_table_example_is_a_valid_table(tmp_path):
+    # Source: the README's own example of a laboratory's rotor table must read as it says.
+    import re
+
+    readme = (Path(__file__).resolve().parent.parent / "README.md").read_text()
+    blocks = [b for b in re.findall(r"```toml\n(.*?)```", readme, flags=re.S) if "[[rotor]]" in b]
+    assert len(blocks) == 1
+    p = tmp_path / "lab.toml"
+    p.write_text(blocks[0])
+    t = load_rotor_table(p)
+    assert [(r.name, r.max_rate_hz, r.sample_volume_ul) for r in t.rotors] == [("4 mm", 14000.0, 50.0)]
