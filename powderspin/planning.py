@@ -742,7 +742,13 @@ class RateResult:
 
     Examples
     --------
-    See :func:`plan`.
+    >>> import powderspin as ps
+    >>> m = ps.make_model("31P", {"field_tesla": 9.4, "orientations": 8, "lorentz_hz": 300.0},
+    ...                   [{"label": "P", "span_ppm": 100.0, "skew": 0.0}])
+    >>> p = ps.plan(m, [9.4], rates_hz=[5000, 20000], precision=False)
+    >>> r = p.fields[0].rate(20000.0)
+    >>> r.computed, r.passes(p.threshold), r.rotors[0]
+    (True, True, '3.2 mm')
     """
 
     rate_hz: float
@@ -821,7 +827,13 @@ class FieldPlan:
 
     Examples
     --------
-    See :func:`plan`.
+    >>> import powderspin as ps
+    >>> m = ps.make_model("31P", {"field_tesla": 9.4, "orientations": 8, "lorentz_hz": 300.0},
+    ...                   [{"label": "P", "span_ppm": 100.0, "skew": 0.0}])
+    >>> p = ps.plan(m, [9.4], rates_hz=[5000, 20000], precision=False)
+    >>> f = p.fields[0]
+    >>> f.recommended_rate_hz, f.recommended_rotors[:2]
+    (20000.0, ('3.2 mm', '2.5 mm'))
     """
 
     field_tesla: float
@@ -855,7 +867,12 @@ class FieldPlan:
 
         Examples
         --------
-        See :func:`plan`.
+        >>> import powderspin as ps
+        >>> m = ps.make_model("31P", {"field_tesla": 9.4, "orientations": 8, "lorentz_hz": 300.0},
+        ...                   [{"label": "P", "span_ppm": 100.0, "skew": 0.0}])
+        >>> p = ps.plan(m, [9.4], rates_hz=[5000, 20000], precision=False)
+        >>> p.fields[0].rate(5000.0).rate_hz
+        5000.0
         """
         for r in self.rates:
             if abs(r.rate_hz - rate_hz) <= 1e-9 * max(1.0, rate_hz):
@@ -934,7 +951,12 @@ class Plan:
 
     Examples
     --------
-    See :func:`plan`.
+    >>> import powderspin as ps
+    >>> m = ps.make_model("31P", {"field_tesla": 9.4, "orientations": 8, "lorentz_hz": 300.0},
+    ...                   [{"label": "P", "span_ppm": 100.0, "skew": 0.0}])
+    >>> p = ps.plan(m, [9.4], rates_hz=[5000, 20000], precision=False)
+    >>> [f.field_tesla for f in p.fields], p.rates_hz
+    ([9.4], (5000.0, 20000.0))
     """
 
     model: Model
@@ -971,7 +993,12 @@ class Plan:
 
         Examples
         --------
-        See :func:`plan`.
+        >>> import powderspin as ps
+        >>> m = ps.make_model("31P", {"field_tesla": 9.4, "orientations": 8, "lorentz_hz": 300.0},
+        ...                   [{"label": "P", "span_ppm": 100.0, "skew": 0.0}])
+        >>> p = ps.plan(m, [9.4], rates_hz=[5000, 20000], precision=False)
+        >>> p.field(9.4).nu_ref_hz > 0
+        True
         """
         for f in self.fields:
             if abs(f.field_tesla - field_tesla) < 1e-9:
@@ -988,7 +1015,12 @@ class Plan:
 
         Examples
         --------
-        See :func:`plan`.
+        >>> import powderspin as ps
+        >>> m = ps.make_model("31P", {"field_tesla": 9.4, "orientations": 8, "lorentz_hz": 300.0},
+        ...                   [{"label": "P", "span_ppm": 100.0, "skew": 0.0}])
+        >>> p = ps.plan(m, [9.4], rates_hz=[5000, 20000], precision=False)
+        >>> p.recommends
+        True
         """
         return any(f.recommended_rate_hz is not None for f in self.fields)
 
@@ -1007,7 +1039,13 @@ class Plan:
 
         Examples
         --------
-        See :func:`plan`.
+        >>> import powderspin as ps
+        >>> m = ps.make_model("31P", {"field_tesla": 9.4, "orientations": 8, "lorentz_hz": 300.0},
+        ...                   [{"label": "P", "span_ppm": 100.0, "skew": 0.0}])
+        >>> p = ps.plan(m, [9.4], rates_hz=[5000, 20000], precision=False)
+        >>> d = p.to_dict()
+        >>> d["fields"][0]["recommended_rate_hz"], d["cautions"] == list(CAUTIONS)
+        (20000.0, True)
         """
         from .simulation import package_version
 
@@ -1062,7 +1100,13 @@ class Plan:
 
         Examples
         --------
-        See :func:`plan`.
+        >>> import powderspin as ps
+        >>> m = ps.make_model("31P", {"field_tesla": 9.4, "orientations": 8, "lorentz_hz": 300.0},
+        ...                   [{"label": "P", "span_ppm": 100.0, "skew": 0.0}])
+        >>> p = ps.plan(m, [9.4], rates_hz=[5000, 20000], precision=False)
+        >>> import json
+        >>> json.loads(p.json_text())["format"]
+        'powderspin plan 1'
         """
         return json.dumps(self.to_dict(), indent=1, allow_nan=False) + "\n"
 
@@ -1082,7 +1126,15 @@ class Plan:
 
         Examples
         --------
-        See :func:`plan`.
+        >>> import powderspin as ps
+        >>> m = ps.make_model("31P", {"field_tesla": 9.4, "orientations": 8, "lorentz_hz": 300.0},
+        ...                   [{"label": "P", "span_ppm": 100.0, "skew": 0.0}])
+        >>> p = ps.plan(m, [9.4], rates_hz=[5000, 20000], precision=False)
+        >>> import tempfile, pathlib, json
+        >>> with tempfile.TemporaryDirectory() as d:
+        ...     out = p.write_json(pathlib.Path(d) / "plan.json")
+        ...     json.loads(out.read_text())["fields"][0]["recommended_rate_hz"]
+        20000.0
         """
         from .files import write_text_atomic
 
@@ -1103,7 +1155,14 @@ class Plan:
 
         Examples
         --------
-        See :func:`plan`.
+        >>> import powderspin as ps
+        >>> m = ps.make_model("31P", {"field_tesla": 9.4, "orientations": 8, "lorentz_hz": 300.0},
+        ...                   [{"label": "P", "span_ppm": 100.0, "skew": 0.0}])
+        >>> p = ps.plan(m, [9.4], rates_hz=[5000, 20000], precision=False)
+        >>> import tempfile, pathlib
+        >>> with tempfile.TemporaryDirectory() as d:
+        ...     p.save_plot(pathlib.Path(d) / "plan.png").stat().st_size > 0
+        True
         """
         from .files import check_outputs, write_via
         from .plotting import PLOT_SUFFIXES
@@ -1132,7 +1191,12 @@ class Plan:
 
         Examples
         --------
-        See :func:`plan`.
+        >>> import powderspin as ps
+        >>> m = ps.make_model("31P", {"field_tesla": 9.4, "orientations": 8, "lorentz_hz": 300.0},
+        ...                   [{"label": "P", "span_ppm": 100.0, "skew": 0.0}])
+        >>> p = ps.plan(m, [9.4], rates_hz=[5000, 20000], precision=False)
+        >>> "recommended: 20 kHz" in p.table_text()
+        True
         """
         return _table_text(self)
 
@@ -1469,14 +1533,26 @@ class _FieldSetup:
 
 def _setup_field(model: Model, meas: Measurement, field_t: float, dx: float, slowest: float, orientations,
                  clock: _Clock) -> _FieldSetup:
-    from .site_lines import check_high_field, choose_method, choose_orientations, compute_lines, site_job
+    from .site_lines import (
+        STRONG_COUPLING_LIMIT_RATIO,
+        check_high_field,
+        choose_method,
+        choose_orientations,
+        compute_lines,
+        quadrupole_to_zeeman_ratio,
+        site_job,
+    )
 
     nuc = model.nucleus
     notes: list = []
-    try:
-        high = check_high_field(model.sites, nuc, field_t)
-    except ModelError as e:
-        raise PlanError(f"fields: at {field_t:g} T {e}") from None
+    for s in model.sites:
+        ratio = quadrupole_to_zeeman_ratio(s, nuc, field_t)
+        if ratio > STRONG_COUPLING_LIMIT_RATIO:
+            raise PlanError(
+                f"fields: at {field_t:g} T site '{s.label}' has nu_Q/nu0 = {ratio:.2g} (C_Q = {s.cq_mhz:g} MHz), "
+                f"beyond {STRONG_COUPLING_LIMIT_RATIO:g}, where a high-field NMR spectrum no longer describes it; "
+                f"leave {field_t:g} T out or check cq_mhz")
+    high = check_high_field(model.sites, nuc, field_t)
     notes.extend(f"{field_t:g} T: {t}" for t in high)
     axis = _field_axis(model, meas, field_t, dx, slowest, notes)
     nu_ref = axis.nu_ref_hz
@@ -2204,7 +2280,15 @@ def plot_plan(p: Plan, fig=None):
 
     Examples
     --------
-    See :func:`plan`; ``Plan.save_plot`` writes the figure.
+    >>> import powderspin as ps
+    >>> m = ps.make_model("31P", {"field_tesla": 9.4, "orientations": 8, "lorentz_hz": 300.0},
+    ...                   [{"label": "P", "span_ppm": 100.0, "skew": 0.0}])
+    >>> p = ps.plan(m, [9.4], rates_hz=[5000, 20000], precision=False)
+    >>> import matplotlib
+    >>> matplotlib.use("Agg")
+    >>> fig = plot_plan(p)
+    >>> len(fig.axes)
+    1
     """
     import matplotlib.pyplot as plt
 
