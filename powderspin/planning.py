@@ -1622,11 +1622,17 @@ class _Param:
 def _precision_parameters(model: Model) -> tuple[list, str]:
     if model.free:
         free = list(model.free)
+        other = [q.name for q in free if q.address.table == "measurement" and q.address.index != 0]
+        free = [q for q in free if not (q.address.table == "measurement" and q.address.index != 0)]
         weights = [p for p in free if p.address.table == "site" and p.address.key == "weight"]
         tied_w = {t.address.index for t in model.tied if t.address.table == "site" and t.address.key == "weight"}
         fixed = [i for i in range(len(model.sites))
                  if not any(p.address.index == i for p in weights) and i not in tied_w]
         text = "the model's free parameters"
+        if other:
+            text += " (" + ", ".join(other) + " left out: they belong to other measurements than the one planned)"
+        if not free:
+            return [], text + "; none is left"
         if weights and not fixed:
             free.remove(weights[0])
             text += (f" ({weights[0].name} held at its value: weights are relative and the scale absorbs their "
