@@ -37,6 +37,7 @@ _EXPORTS = {
     "Spectrum": "spectrum",
     "fit": "fitting", "FitResult": "fitting", "FitError": "fitting", "write_result": "fitting",
     "read_spectrum": "data_io", "MeasuredSpectrum": "data_io", "DataError": "data_io",
+    "plan": "planning", "Plan": "planning",
     "ShiftTensor": "tensors",
 }
 

@@ -3,6 +3,9 @@
     powderspin simulate MODEL.toml -o OUT.csv [--plot OUT.png] [--sidebands [FILE]] [--force] [-q]
     powderspin fit MODEL.toml [DATA ...] -o RESULT.toml [--report FIT.png] [--global] [--posterior]
                    [--region A:B]... [--noise-region A:B] [--axis ppm|hz|khz] [--force] [-q]
+    powderspin plan MODEL.toml [--fields T ...] [--rotors NAME ...] [--rotor-table FILE] [--max-rate HZ]
+                    [--rates HZ ...] [--threshold 0.01] [--snr 100] [--json OUT.json] [--plot OUT.png]
+                    [--force] [-q]
     powderspin nuclide 27Al --field 14.1 | --list
     powderspin demo [--out DIR]
     powderspin --version
@@ -374,6 +377,125 @@ def _cmd_demo(args) -> int:
     return 0
 
 
+# ---------------------------------------------------------------------------
+# plan
+
+
+def _numbers(values, what: str, unit: str) -> list | None:
+    """Numbers of a multi-valued option, parsed here so that a bad one is a one-line error."""
+    if values is None:
+        return None
+    out = []
+    for v in values:
+        try:
+            x = float(v)
+        except ValueError:
+            raise CliError(f"{what}: {v!r} is not a number ({unit})") from None
+        out.append(x)
+    return out
+
+
+class _PlanProgress:
+    """One progress bar over the plan's candidate experiments, shown after two seconds."""
+
+    def __init__(self, quiet: bool):
+        self.quiet = quiet
+        self.bar = None
+
+    def __call__(self, done, total):
+        if self.quiet:
+            return
+        if self.bar is None:
+            from tqdm import tqdm
+
+            self.bar = tqdm(total=total, desc="plan", unit="experiments", delay=2.0, leave=False, file=sys.stderr)
+        self.bar.update(done - self.bar.n)
+
+    def close(self):
+        if self.bar is not None:
+            self.bar.close()
+            self.bar = None
+
+
+def _cmd_plan(args) -> int:
+    from .files import STDOUT, check_outputs
+    from .modelfile import load_model
+    from .plotting import PLOT_SUFFIXES
+
+    model_path = Path(args.model)
+    protect = [model_path] + ([Path(args.rotor_table)] if args.rotor_table else [])
+    outputs = []
+    if args.json:
+        outputs.append((args.json, "JSON output"))
+    if args.plot:
+        outputs.append((args.plot, "plot", PLOT_SUFFIXES))
+    check_outputs(outputs, force=args.force, protect=protect)
+    fields = _numbers(args.fields, "--fields", "tesla")
+    rates = _numbers(args.rates, "--rates", "Hz")
+    model = load_model(model_path)
+    from .planning import load_rotor_table, plan
+
+    table = load_rotor_table(args.rotor_table) if args.rotor_table else None
+    _compile_note(args)
+    progress = _PlanProgress(args.quiet)
+    try:
+        result = plan(model, fields, rotors=args.rotors, rotor_table=table, max_rate_hz=args.max_rate,
+                      rates_hz=rates, n_rates=args.rate_count, threshold=args.threshold, snr=args.snr,
+                      precision=not args.no_precision, progress=progress)
+    finally:
+        progress.close()
+    stream = sys.stderr if args.json == STDOUT else sys.stdout
+    print(result.table_text(), end="", file=stream)
+    if args.json:
+        result.write_json(args.json, force=args.force, protect=protect)
+        if args.json != STDOUT:
+            print(f"wrote {args.json}", file=sys.stderr)
+    if args.plot:
+        result.save_plot(args.plot, force=args.force, protect=protect)
+        print(f"wrote {args.plot}", file=sys.stderr)
+    return 0
+
+
+def _add_plan_parser(sub) -> None:
+    from .planning import DEFAULT_MIN_RATE_HZ, DEFAULT_RATE_COUNT, DEFAULT_SNR, DEFAULT_THRESHOLD
+
+    p = sub.add_parser("plan", help="choose field, rotor and spinning rate by simulation, with the precision "
+                                    "each choice gives")
+    p.add_argument("model", help="model file (TOML): the sample's sites and broadening")
+    p.add_argument("--fields", nargs="*", metavar="T",
+                   help="fields to consider in tesla (default 9.4 14.1 18.8 and the model's own)")
+    p.add_argument("--rotors", nargs="*", metavar="NAME", help="rotors to consider, e.g. 3.2 1.3 (default all)")
+    p.add_argument("--rotor-table", metavar="FILE", help="TOML rotor table replacing the built-in typical values")
+    p.add_argument("--max-rate", type=str, metavar="HZ", help="fastest candidate spinning rate in Hz")
+    p.add_argument("--rates", nargs="*", metavar="HZ", help="candidate spinning rates in Hz (default: a grid)")
+    p.add_argument("--rate-count", type=str, default=str(DEFAULT_RATE_COUNT), metavar="N",
+                   help=f"rates in the default grid, log-spaced from {DEFAULT_MIN_RATE_HZ:g} Hz (default "
+                        f"{DEFAULT_RATE_COUNT})")
+    p.add_argument("--threshold", type=str, default=str(DEFAULT_THRESHOLD),
+                   help="largest sideband-on-centreband overlap allowed (default 0.01)")
+    p.add_argument("--snr", type=str, default=str(DEFAULT_SNR),
+                   help="signal-to-noise ratio: tallest point / noise per point (default 100)")
+    p.add_argument("--no-precision", action="store_true", help="skip the standard errors and the ranking")
+    p.add_argument("--json", metavar="OUT.json", help="write every number behind the plan as JSON ('-': stdout)")
+    p.add_argument("--plot", metavar="OUT.png", help="write a figure (.png, .pdf or .svg)")
+    p.add_argument("--force", action="store_true", help="overwrite existing output files")
+    p.add_argument("-q", "--quiet", action="store_true", help="no progress bar (the cautions are always printed)")
+    p.set_defaults(func=_cmd_plan_checked)
+
+
+def _cmd_plan_checked(args) -> int:
+    for name, what, unit in (("max_rate", "--max-rate", "Hz"), ("threshold", "--threshold", ""),
+                             ("snr", "--snr", "")):
+        v = getattr(args, name)
+        if v is not None:
+            setattr(args, name, _numbers([v], what, unit or "a number")[0])
+    try:
+        args.rate_count = int(args.rate_count)
+    except ValueError:
+        raise CliError(f"--rate-count: {args.rate_count!r} is not a whole number") from None
+    return _cmd_plan(args)
+
+
 def _caused_by_interrupt(error: BaseException) -> bool:
     """True when a KeyboardInterrupt is anywhere in the chain of causes (compiled kernels wrap it)."""
     seen = set()
@@ -450,6 +572,8 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--force", action="store_true", help="overwrite existing output files")
     f.add_argument("-q", "--quiet", action="store_true", help="no progress bars")
     f.set_defaults(func=_cmd_fit)
+
+    _add_plan_parser(sub)
 
     n = sub.add_parser("nuclide", help="print the NMR data of a nucleus, or list them all")
     n.add_argument("name", nargs="?", help="nucleus, e.g. 27Al")

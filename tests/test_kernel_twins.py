@@ -36,7 +36,9 @@ def test_every_kernel_is_in_the_developers_table():
     start = text.index("<!-- kernel table: start -->")
     end = text.index("<!-- kernel table: end -->")
     table = text[start:end]
-    listed = set(re.findall(r"^\| `(\w+)` \|", table, flags=re.M))
+    rows = re.findall(r"^\| `(\w+)` \|", table, flags=re.M)
+    listed = set(rows)
+    assert len(rows) == len(listed), "a kernel has more than one row"
     kernels = _kernel_names()
     assert kernels, "no kernels found: the pattern above no longer matches _kernels.py"
     assert kernels - listed == set(), f"kernels missing from the DEVELOPERS.md table: {sorted(kernels - listed)}"
