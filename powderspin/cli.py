@@ -457,7 +457,10 @@ def _cmd_plan(args) -> int:
 
 
 def _add_plan_parser(sub) -> None:
-    from .planning import DEFAULT_MIN_RATE_HZ, DEFAULT_RATE_COUNT, DEFAULT_SNR, DEFAULT_THRESHOLD
+    from .schema import PLAN_DEFAULT_MIN_RATE_HZ as DEFAULT_MIN_RATE_HZ
+    from .schema import PLAN_DEFAULT_RATE_COUNT as DEFAULT_RATE_COUNT
+    from .schema import PLAN_DEFAULT_SNR as DEFAULT_SNR
+    from .schema import PLAN_DEFAULT_THRESHOLD as DEFAULT_THRESHOLD
 
     p = sub.add_parser("plan", help="choose field, rotor and spinning rate by simulation, with the precision "
                                     "each choice gives")

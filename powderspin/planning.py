@@ -164,6 +164,7 @@ import numpy as np
 from .lineshape import Axis
 from .model import Measurement, Model, ModelError, ParameterAddress, check_number
 from .schema import key_spec
+from .schema import PLAN_DEFAULT_MIN_RATE_HZ, PLAN_DEFAULT_RATE_COUNT, PLAN_DEFAULT_SNR, PLAN_DEFAULT_THRESHOLD
 
 __all__ = [
     "PlanError",
@@ -194,13 +195,13 @@ __all__ = [
 #: fields considered when none are given (T; 400, 600 and 800 MHz for 1H), with the model's own field
 DEFAULT_FIELDS_T = (9.4, 14.1, 18.8)
 #: largest sideband-on-centreband overlap a recommended rate allows
-DEFAULT_THRESHOLD = 0.01
+DEFAULT_THRESHOLD = PLAN_DEFAULT_THRESHOLD
 #: signal-to-noise ratio (tallest point / noise standard deviation per point)
-DEFAULT_SNR = 100.0
+DEFAULT_SNR = PLAN_DEFAULT_SNR
 #: candidate rates in the default grid
-DEFAULT_RATE_COUNT = 20
+DEFAULT_RATE_COUNT = PLAN_DEFAULT_RATE_COUNT
 #: slowest rate of the default grid (Hz); slower magic-angle spinning is seldom stable (common practice)
-DEFAULT_MIN_RATE_HZ = 2000.0
+DEFAULT_MIN_RATE_HZ = PLAN_DEFAULT_MIN_RATE_HZ
 #: Lorentzian FWHM (Hz) given for planning to a site with no broadening at all
 DEFAULT_LINEWIDTH_HZ = 100.0
 #: share of a lineshape's intensity its width holds (the central 99 %)

@@ -224,6 +224,13 @@ KEYS: tuple[KeySpec, ...] = (
             doc="what a fit found (chi-square, correlations, warnings, ...); written by a fit, not used"),
 )
 
+#: defaults of the planner's options (here, so that the command line can show them without
+#: importing the planner and the compiled kernels behind it)
+PLAN_DEFAULT_THRESHOLD = 0.01
+PLAN_DEFAULT_SNR = 100.0
+PLAN_DEFAULT_RATE_COUNT = 20
+PLAN_DEFAULT_MIN_RATE_HZ = 2000.0
+
 _BY_TABLE: dict[str, dict[str, KeySpec]] = {}
 for _k in KEYS:
     _BY_TABLE.setdefault(_k.table, {})[_k.name] = _k

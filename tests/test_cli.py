@@ -106,3 +106,18 @@ def test_output_that_is_a_folder_is_a_clear_error(tmp_path, capsys):
     assert main(["simulate", str(model), "-o", str(folder), "--force"]) == 2
     assert "error:" in capsys.readouterr().err
     assert (folder / "keep.txt").read_text() == "x"
+
+
+def test_nuclide_and_help_do_not_load_the_compiled_kernels():
+    """`powderspin nuclide` and `--help` start quickly: numba (and the kernels) are not imported."""
+    import subprocess
+    import sys
+
+    code = ("import sys, contextlib, io\n"
+            "from powderspin.cli import main\n"
+            "with contextlib.redirect_stdout(io.StringIO()):\n"
+            "    main(['nuclide', '27Al', '--field', '9.4'])\n"
+            "    main(['simulate', '--help'])\n"
+            "print('numba' in sys.modules, 'powderspin._kernels' in sys.modules)\n")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert out.stdout.strip() == "False False", out.stderr
