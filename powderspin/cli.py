@@ -1,7 +1,9 @@
 """Command line: a thin layer over the Python API.
 
     powderspin simulate MODEL.toml -o OUT.csv [--plot OUT.png] [--sidebands [FILE]] [--force] [-q]
+                        [--cache DIR | --no-cache]
     powderspin nuclide 27Al --field 14.1 | --list
+    powderspin cache info | path | clear [--cache DIR]
     powderspin demo [--out DIR]
     powderspin --version
 
@@ -79,7 +81,8 @@ class _Progress:
         if label != self.label:
             self.close()
             self.label = label
-            self.bar = tqdm(total=total, desc=f"site {label}", unit="orientations", delay=2.0, leave=False,
+            unit = "line shapes" if str(label).endswith(": kernel grid") else "orientations"
+            self.bar = tqdm(total=total, desc=f"site {label}", unit=unit, delay=2.0, leave=False,
                             file=sys.stderr)
         if self.bar.total != total:
             self.bar.total = total
@@ -153,12 +156,13 @@ def _cmd_simulate(args) -> int:
                                      allow_strong_coupling=args.allow_strong_coupling):
             print(f"note: {text}", file=sys.stderr)
     _compile_note(args)
+    store = _kernel_store(args)
     progress = _Progress(args.quiet)
     spectra = []
     try:
         for j in which:
             spectra.append((j, simulate(model, measurement=j, progress=progress,
-                                        allow_strong_coupling=args.allow_strong_coupling)))
+                                        allow_strong_coupling=args.allow_strong_coupling, kernel_store=store)))
     finally:
         progress.close()
     for j, spec in spectra:
@@ -189,6 +193,42 @@ def _cmd_simulate(args) -> int:
         if args.sidebands is True or sidebands_file:
             stream = sys.stderr if args.output == STDOUT else sys.stdout
             print(spec.sideband_table(), end="", file=stream)
+    return 0
+
+
+def _library(args):
+    """The lineshape library named by --cache (else $POWDERSPIN_CACHE, else the user cache folder)."""
+    from .cache import LineshapeLibrary
+
+    path = getattr(args, "cache", None)
+    if path is not None:
+        p = Path(path)
+        if p.exists() and not p.is_dir():
+            raise CliError(f"--cache {path!r} is a file; give a folder for the lineshape library")
+    return LineshapeLibrary(path)
+
+
+def _kernel_store(args):
+    """The kernel store of a command: --no-cache keeps kernels in memory only."""
+    from .disorder import KernelStore, default_kernel_store
+
+    if getattr(args, "no_cache", False):
+        return KernelStore(None)
+    lib = _library(args)
+    return default_kernel_store(lib.path)
+
+
+def _cmd_cache(args) -> int:
+    from .cache import cache_summary_text
+
+    lib = _library(args)
+    if args.action == "path":
+        print(lib.path)
+    elif args.action == "info":
+        print(cache_summary_text(lib))
+    else:
+        removed = lib.clear()
+        print(f"removed {removed} entr{'y' if removed == 1 else 'ies'} from {lib.path}")
     return 0
 
 
@@ -258,6 +298,25 @@ def _cmd_demo(args) -> int:
     return 0
 
 
+def _add_cache_options(p) -> None:
+    g = p.add_mutually_exclusive_group()
+    g.add_argument("--cache", metavar="DIR",
+                   help="lineshape library folder for distributed-site kernels (default $POWDERSPIN_CACHE or the "
+                        "user cache folder; see 'powderspin cache path')")
+    g.add_argument("--no-cache", action="store_true", help="do not read or write the lineshape library")
+
+
+def _interrupted(e: BaseException) -> bool:
+    """True when a KeyboardInterrupt is somewhere in the cause/context chain of ``e``."""
+    seen = set()
+    while e is not None and id(e) not in seen:
+        if isinstance(e, KeyboardInterrupt):
+            return True
+        seen.add(id(e))
+        e = e.__cause__ or e.__context__
+    return False
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser of the ``powderspin`` command.
 
@@ -290,7 +349,14 @@ def build_parser() -> argparse.ArgumentParser:
                    help="compute sites whose nu_Q exceeds half the Larmor frequency (refused by default)")
     s.add_argument("--force", action="store_true", help="overwrite existing output files")
     s.add_argument("-q", "--quiet", action="store_true", help="no progress bars or cautions")
+    _add_cache_options(s)
     s.set_defaults(func=_cmd_simulate)
+
+    c = sub.add_parser("cache", help="the lineshape library: where it is, what it holds, clear it")
+    c.add_argument("action", choices=("info", "path", "clear"),
+                   help="info: entries and size; path: the folder; clear: remove every entry")
+    c.add_argument("--cache", metavar="DIR", help="library folder (default $POWDERSPIN_CACHE or the user cache folder)")
+    c.set_defaults(func=_cmd_cache)
 
     n = sub.add_parser("nuclide", help="print the NMR data of a nucleus, or list them all")
     n.add_argument("name", nargs="?", help="nucleus, e.g. 27Al")
@@ -354,8 +420,8 @@ def main(argv=None) -> int:
 
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 0
-    except SystemError as e:  # an interrupt that arrives inside a compiled kernel
-        if isinstance(e.__cause__ or e.__context__, KeyboardInterrupt):
+    except SystemError as e:  # an interrupt that arrives inside a compiled kernel (possibly chained twice)
+        if _interrupted(e):
             print("interrupted; no output was written for the unfinished step", file=sys.stderr)
             return 130
         raise
