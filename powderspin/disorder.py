@@ -116,7 +116,7 @@ import contextlib
 import functools
 import math
 from collections import OrderedDict
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy import optimize
@@ -130,11 +130,9 @@ from .distributions import (
     ct_spin_factor,
     czjzek_cell_mass,
     czjzek_cq_cdf,
-    efg_from_components,
 )
 from .lineshape import Axis, broaden
 from .model import Model, ModelError, Site, selected_transitions
-from .nuclides import Nuclide
 from .schema import key_spec
 from .site_lines import (
     BIN_CUTOFF,
@@ -152,21 +150,21 @@ from .tensors import ShiftTensor
 __all__ = [
     "GRID_FRACTION",
     "MAX_CQ_CELLS",
+    "MAX_DIRECT_KERNELS",
     "MAX_ETA_CELLS",
     "MAX_GRID_NODES",
-    "MAX_DIRECT_KERNELS",
     "MAX_OVERSAMPLING",
+    "DistributedSite",
     "EfgDistribution",
     "KernelGrid",
     "KernelSet",
     "KernelStore",
-    "DistributedSite",
     "check_model_distributions",
-    "shift_fwhm_hz",
-    "plan_grid",
-    "oversampling",
     "default_kernel_store",
+    "oversampling",
     "parameter_range",
+    "plan_grid",
+    "shift_fwhm_hz",
 ]
 
 #: largest move of a CT pattern edge between neighbouring sub-samples, as a
@@ -375,7 +373,7 @@ class EfgDistribution:
     eta_weights: tuple = ()
 
     @classmethod
-    def of_site(cls, site: Site, *, cq_variable: bool = False) -> "EfgDistribution":
+    def of_site(cls, site: Site, *, cq_variable: bool = False) -> EfgDistribution:
         """The distribution of a site (``cq_variable``: a free ``cq_mhz`` makes a Czjzek site extended).
 
         Parameters

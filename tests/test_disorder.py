@@ -48,7 +48,6 @@ from powderspin.disorder import (
 from powderspin.distributions import (
     czjzek_cell_mass,
     efg_from_components,
-    mean_quadrupolar_induced_shift_ppm,
     principal_cq_eta,
     quadrupolar_induced_shift_ppm,
     sample_czjzek,
@@ -56,7 +55,6 @@ from powderspin.distributions import (
 from powderspin.lineshape import broaden, make_axis
 from powderspin.model import ModelError, ParameterAddress, Site
 from powderspin.modelfile import model_to_toml, parse_model
-
 from tests.reference import distribution_numpy as ref
 
 ROOT = Path(__file__).resolve().parent.parent

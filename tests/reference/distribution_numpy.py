@@ -27,7 +27,7 @@ import numpy as np
 from .exact_numpy import efg_principal_values
 from .perturbative_numpy import level_energy_second
 
-__all__ = ["random_unit_vectors", "lab_rotations", "ct_offsets", "histogram_spectrum", "gaussian_convolution"]
+__all__ = ["ct_offsets", "gaussian_convolution", "histogram_spectrum", "lab_rotations", "random_unit_vectors"]
 
 
 def random_unit_vectors(n, rng):
