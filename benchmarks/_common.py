@@ -20,32 +20,35 @@ def best_time(fn, repeat: int = 7, number: int = 1) -> float:
 
 
 def numpy_tent(freqs, tri, tri_w, amp, x0, dx, nb):
-    """Straightforward numpy triangle interpolation: freqs (n_v, L), amp (n_v, L) -> (nb,)."""
+    """Straightforward numpy triangle interpolation: freqs (n_v, L), amp (n_v, L) -> (nb,).
+
+    Same rule as the engine: point k (at x0 + (k + 0.5) dx) gets the tent density
+    integrated against its linear hat function, the second difference of the
+    density's second antiderivative R at the points.
+    """
     out = np.zeros(nb)
     f = freqs[tri]  # (M, 3, L)
     w = amp[tri].mean(axis=1) * tri_w[:, None]  # (M, L)
     f = np.sort(f, axis=1)
-    u1, u2, u3 = [(f[:, k, :] - x0) / dx for k in range(3)]
-    u1, u2, u3, w = u1.ravel(), u2.ravel(), u3.ravel(), w.ravel()
-    keep = w > 0
-    u1, u2, u3, w = u1[keep], u2[keep], u3[keep], w[keep]
-    k0 = np.clip(np.floor(u1).astype(int), 0, nb - 1)
-    k1 = np.clip(np.floor(u3).astype(int), 0, nb - 1)
+    v1, v2, v3 = [(f[:, k, :] - x0) / dx - 0.5 for k in range(3)]
+    v1, v2, v3, w = v1.ravel(), v2.ravel(), v3.ravel(), w.ravel()
+    keep = (w > 0) & (v3 > -1.0) & (v1 < nb)
+    v1, v2, v3, w = v1[keep], v2[keep], v3[keep], w[keep]
+    k0 = np.clip(np.floor(v1).astype(int), 0, nb - 1)
+    k1 = np.clip(np.floor(v3).astype(int) + 1, 0, nb - 1)
     cnt = k1 - k0 + 1
-    rep = np.repeat(np.arange(u1.size), cnt)
+    rep = np.repeat(np.arange(v1.size), cnt)
     kk = k0[rep] + (np.arange(rep.size) - np.repeat(np.cumsum(cnt) - cnt, cnt))
 
-    def cdf(u, a, b, c):
-        out = np.where(u >= c, 1.0, 0.0)
-        span = np.maximum(c - a, 1e-300)
-        r1 = np.where(u < b, (u - a) ** 2 / (span * np.maximum(b - a, 1e-300)), 0.0)
-        r2 = np.where(u >= b, 1.0 - (c - u) ** 2 / (span * np.maximum(c - b, 1e-300)), 0.0)
-        inside = (u > a) & (u < c)
-        return np.where(inside, r1 + r2, out)
+    a, d, ww = (v2 - v1)[rep], (v3 - v1)[rep], w[rep]
+    b, cen = d - a, (a + d) / 3.0
 
-    a, b, c = u1[rep], u2[rep], u3[rep]
-    degenerate = (c - a) < 1e-9
-    val = np.where(degenerate, (kk == np.floor(a)).astype(float),
-                   cdf(kk + 1.0, a, b, c) - cdf(kk.astype(float), a, b, c))
-    np.add.at(out, kk, w[rep] * val)
+    def second_integral(t):
+        rise = ww * t**3 / np.maximum(3.0 * d * a, 1e-300)
+        fall = ww * (t - cen) + ww * (d - t) ** 3 / np.maximum(3.0 * d * b, 1e-300)
+        return np.where(t <= 0.0, 0.0, np.where(t <= a, rise, np.where(t < d, fall, ww * (t - cen))))
+
+    t = kk - v1[rep]
+    val = second_integral(t + 1.0) - 2.0 * second_integral(t) + second_integral(t - 1.0)
+    np.add.at(out, kk, val)
     return out

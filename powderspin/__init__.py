@@ -35,6 +35,8 @@ _EXPORTS = {
     "SiteJob": "site_lines", "SiteLines": "site_lines", "site_job": "site_lines", "compute_lines": "site_lines",
     "render_lines": "site_lines",
     "Spectrum": "spectrum",
+    "fit": "fitting", "FitResult": "fitting", "FitError": "fitting", "write_result": "fitting",
+    "read_spectrum": "data_io", "MeasuredSpectrum": "data_io", "DataError": "data_io",
     "ShiftTensor": "tensors",
 }
 

@@ -324,15 +324,85 @@ def _sideband_intensities(traj, rate_hz):
 
 # ---------------------------------------------------------------------------
 # binning
+#
+# Axis point k sits at the bin centre x0 + (k + 0.5) dx.  In point units
+# v = (f - x0) / dx - 0.5 point k sits at v = k.  Every contribution is shared
+# among the points by the linear "hat" function of each point,
+# h_k(v) = max(0, 1 - |v - k|) (linear interpolation, "cloud in cell";
+# R. W. Hockney, J. W. Eastwood, Computer Simulation Using Particles (1981),
+# from memory).  The hats sum to 1 and sum_k k h_k(v) = v, so area and
+# first moment of every contribution are kept exactly; the share of points
+# outside 0 .. nb-1 is lost.
+
+
+@njit(cache=True, inline="always")
+def _split_line(buf, v, w, nb):
+    """Share weight w of a sharp line at point coordinate v between points floor(v), floor(v) + 1."""
+    if v <= -1.0 or v >= nb:
+        return
+    j = int(math.floor(v))
+    r = v - j
+    if j >= 0:
+        buf[j] += w * (1.0 - r)
+    if j + 1 < nb:
+        buf[j + 1] += w * r
+
+
+@njit(cache=True, inline="always")
+def _tent_second_integral(t, a, d, b, cen, w):
+    """Second antiderivative R(t) of a triangle density of area w on [0, d], peak at a (b = d - a).
+
+    The density rises linearly on [0, a] and falls on [a, d]; cen = (a + d) / 3
+    is its centroid.  R is 0 for t <= 0, w t^3 / (3 d a) on the rising side,
+    w (t - cen) + w (d - t)^3 / (3 d b) on the falling side and w (t - cen)
+    beyond d.  No branch divides by a zero width.
+    """
+    if t <= 0.0:
+        return 0.0
+    if t <= a:
+        return w * t * t * t / (3.0 * d * a)
+    if t < d:
+        s = d - t
+        return w * (t - cen) + w * s * s * s / (3.0 * d * b)
+    return w * (t - cen)
+
+
+@njit(cache=True, inline="always")
+def _tent_corner_points(buf, kfrom, kto, v1, a, d, b, w):
+    """Hat integrals of a tent (see ``_add_tent``) at points kfrom <= k < kto, from R.
+
+    Each point's second difference of R is taken from the nearer end of the
+    tent; it does not change under t -> d - t with a and b swapped.
+    """
+    cen_l = (a + d) / 3.0
+    cen_r = (b + d) / 3.0
+    for k in range(kfrom, kto):
+        t = k - v1
+        if t <= d - t:
+            buf[k] += (_tent_second_integral(t + 1.0, a, d, b, cen_l, w)
+                       - 2.0 * _tent_second_integral(t, a, d, b, cen_l, w)
+                       + _tent_second_integral(t - 1.0, a, d, b, cen_l, w))
+        else:
+            s = d - t
+            buf[k] += (_tent_second_integral(s + 1.0, b, d, a, cen_r, w)
+                       - 2.0 * _tent_second_integral(s, b, d, a, cen_r, w)
+                       + _tent_second_integral(s - 1.0, b, d, a, cen_r, w))
 
 
 @njit(cache=True)
 def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
-    """Add the exact bin integrals of one triangular density (area w) to buf.
+    """Add one triangular density (vertices f1, f2, f3 in Hz, area w) to the axis points.
 
-    The cumulative weight is (u - u1)^2 w / (D A) on the rising side and
-    w - (u3 - u)^2 w / (D B) on the falling side (u in bin units, D = u3 - u1,
-    A = u2 - u1, B = u3 - u2); each bin gets the difference at its edges.
+    Point k receives the integral of the density times its hat function.  In
+    point units with t = v - v1, d = v3 - v1, a = v2 - v1, b = v3 - v2 that is
+    the second difference R(t+1) - 2 R(t) + R(t-1) of the density's second
+    antiderivative R (piecewise cubic; ``_tent_second_integral``).  Where the
+    hat lies on one straight side of the tent R is one cubic and the second
+    difference is the density itself, 2 w t / (d a) rising or
+    2 w (d - t) / (d b) falling, which is what is used there; the cubic is
+    only evaluated within one point of a corner (``_tent_corner_points``).
+    A tent that lies between two neighbouring points is shared linearly from
+    its centroid (f1 + f2 + f3) / 3, which is the same rule in closed form.
     """
     if f1 > f2:
         f1, f2 = f2, f1
@@ -341,41 +411,40 @@ def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
     if f1 > f2:
         f1, f2 = f2, f1
     inv = 1.0 / dx
-    u1 = (f1 - x0) * inv
-    u2 = (f2 - x0) * inv
-    u3 = (f3 - x0) * inv
-    if u3 < 0.0 or u1 >= nb:
+    v1 = (f1 - x0) * inv - 0.5
+    v2 = (f2 - x0) * inv - 0.5
+    v3 = (f3 - x0) * inv - 0.5
+    if v3 <= -1.0 or v1 >= nb:
         return
-    k0 = int(math.floor(u1))
-    k1 = int(math.floor(u3))
-    if k1 == k0 or u3 - u1 < 1e-9:
-        if 0 <= k0 < nb:
-            buf[k0] += w
+    fl = math.floor(v1)
+    if v3 <= fl + 1.0:
+        _split_line(buf, (v1 + v2 + v3) / 3.0, w, nb)
         return
-    d = u3 - u1
-    ra = w / (d * (u2 - u1)) if u2 > u1 else 0.0
-    rb = w / (d * (u3 - u2)) if u3 > u2 else 0.0
-    prev = 0.0
-    kstart = k0
-    if k0 < 0:
-        kstart = 0
-        e = 0.0
-        prev = ra * (e - u1) * (e - u1) if e < u2 else w - rb * (u3 - e) * (u3 - e)
-    kend = k1 if k1 < nb else nb - 1
-    for k in range(kstart, kend):
-        e = k + 1.0
-        if e < u2:
-            c = ra * (e - u1) * (e - u1)
-        else:
-            c = w - rb * (u3 - e) * (u3 - e)
-        buf[k] += c - prev
-        prev = c
-    if kend == k1:
-        buf[kend] += w - prev
-    else:
-        e = kend + 1.0
-        c = ra * (e - u1) * (e - u1) if e < u2 else w - rb * (u3 - e) * (u3 - e)
-        buf[kend] += c - prev
+    klo = int(fl) if fl > 0.0 else 0
+    khi = nb - 1 if v3 >= nb - 1.0 else int(math.floor(v3)) + 1
+    d = v3 - v1
+    a = v2 - v1
+    b = v3 - v2
+    k = klo
+    # straight rising side: points with 1 <= t <= a - 1
+    lo = max(float(klo), math.ceil(v1 + 1.0))
+    hi = min(float(khi), math.floor(v2 - 1.0))
+    if lo <= hi:
+        _tent_corner_points(buf, k, int(lo), v1, a, d, b, w)
+        up = 2.0 * w / (d * a)
+        for j in range(int(lo), int(hi) + 1):
+            buf[j] += up * (j - v1)
+        k = int(hi) + 1
+    # straight falling side: points with a + 1 <= t <= d - 1
+    lo = max(float(k), math.ceil(v2 + 1.0))
+    hi = min(float(khi), math.floor(v3 - 1.0))
+    if lo <= hi:
+        _tent_corner_points(buf, k, int(lo), v1, a, d, b, w)
+        down = 2.0 * w / (d * b)
+        for j in range(int(lo), int(hi) + 1):
+            buf[j] += down * (v3 - j)
+        k = int(hi) + 1
+    _tent_corner_points(buf, k, khi + 1, v1, a, d, b, w)
 
 
 @njit(parallel=True, cache=True)
@@ -386,8 +455,9 @@ def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cu
     (n_v, n_t, P): sideband intensities (P = 1 for static / infinite rate);
     weights_t (n_v, n_t): transition weights per vertex.  Each triangle
     contributes, for each line, a triangular density between its three
-    vertex frequencies with area tri_w * mean vertex intensity; bins have
-    left edge x0 + k dx.  Returns (nb,) summed intensities.
+    vertex frequencies with area tri_w * mean vertex intensity, shared among
+    the axis points x0 + (k + 0.5) dx by their hat functions (``_add_tent``).
+    Returns (nb,) summed intensities.
     """
     m = tris.shape[0]
     nt = mean.shape[1]
@@ -423,10 +493,11 @@ def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cu
 
 @njit(cache=True)
 def _bin_histogram(mean, amp, weights_t, vert_w, rate_hz, x0, dx, nb):
-    """Plain histogram: each vertex's lines drop into the bin they fall in."""
+    """Each vertex's lines shared linearly between the two axis points around them."""
     nv, nt = mean.shape
     p = amp.shape[2]
     out = np.zeros(nb)
+    inv = 1.0 / dx
     for i in range(nv):
         for t in range(nt):
             for s in range(p):
@@ -435,9 +506,7 @@ def _bin_histogram(mean, amp, weights_t, vert_w, rate_hz, x0, dx, nb):
                     continue
                 n = s if s < (p + 1) // 2 else s - p
                 off = n * rate_hz if p > 1 else 0.0
-                k = int(math.floor((mean[i, t] + off - x0) / dx))
-                if 0 <= k < nb:
-                    out[k] += w
+                _split_line(out, (mean[i, t] + off - x0) * inv - 0.5, w, nb)
     return out
 
 

@@ -2,6 +2,9 @@
 
     powderspin simulate MODEL.toml -o OUT.csv [--plot OUT.png] [--sidebands [FILE]] [--force] [-q]
                         [--cache DIR | --no-cache]
+    powderspin fit MODEL.toml [DATA ...] -o RESULT.toml [--report FIT.png] [--global] [--posterior]
+                   [--region A:B]... [--noise-region A:B] [--axis ppm|hz|khz] [--force] [-q]
+                   [--cache DIR | --no-cache]
     powderspin nuclide 27Al --field 14.1 | --list
     powderspin cache info | path | clear [--cache DIR]
     powderspin demo [--out DIR]
@@ -232,6 +235,117 @@ def _cmd_cache(args) -> int:
     return 0
 
 
+class _FitProgress:
+    """Progress of a fit (evaluations, lowest chi-square) and of posterior sampling, shown after a second."""
+
+    def __init__(self, quiet: bool):
+        self.quiet = quiet
+        self.bar = None
+        self.stage = None
+
+    def __call__(self, stage, done, value):
+        if self.quiet:
+            return
+        from tqdm import tqdm
+
+        if stage != self.stage:
+            self.close()
+            self.stage = stage
+            common = dict(delay=1.0, leave=False, file=sys.stderr, disable=None)  # None: only on a terminal
+            if stage == "posterior":
+                self.bar = tqdm(total=int(value), desc="posterior", unit="steps", **common)
+            else:
+                self.bar = tqdm(desc="fit", unit="evaluations", **common)
+        if stage != "posterior":
+            self.bar.set_postfix_str(f"chi-square {value:.6g}", refresh=False)
+        if done > self.bar.n:
+            self.bar.update(done - self.bar.n)
+
+    def close(self):
+        if self.bar is not None:
+            self.bar.close()
+            self.bar = None
+
+
+def _fit_outputs(args, n_meas: int):
+    """Every file the fit command writes: (path, role, suffixes)."""
+    from .fitting import csv_paths
+    from .report import REPORT_SUFFIXES
+
+    out = Path(args.output)
+    if out.suffix.lower() != ".toml":
+        raise CliError(f"-o {args.output!r}: the result is a model file; give a name ending in .toml")
+    files = [(out, "result file")] + [(c, "fit CSV") for c in csv_paths(out, n_meas)]
+    if args.report:
+        files.append((Path(args.report), "report", REPORT_SUFFIXES))
+    if args.posterior:
+        base = Path(args.report) if args.report else out.with_suffix(".png")
+        files.append((base.with_name(f"{base.stem}-corner{base.suffix}"), "corner plot", REPORT_SUFFIXES))
+    return files
+
+
+def _run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool):
+    """Fit, then write every output; if one write fails, remove what this run wrote."""
+    from .fitting import fit, write_result
+    from .report import save_corner, save_report
+
+    regions = [_parse_range(r, "--region") for r in args.region] if args.region else None
+    noise = _parse_range(args.noise_region, "--noise-region")
+    progress = _FitProgress(quiet)
+    try:
+        result = fit(model, data, regions=regions, noise_region=noise, axis=args.axis,
+                     global_search=args.global_search, starts=args.starts, seed=args.seed,
+                     posterior=args.posterior, walkers=args.walkers, steps=args.steps, burn=args.burn,
+                     progress=progress)
+    finally:
+        progress.close()
+    written = []
+    try:
+        written += write_result(result, outputs[0][0], force=force, protect=protect)
+        for path, role, *_ in outputs:
+            if role == "report":
+                written.append(save_report(result, path, force=force, protect=protect))
+            elif role == "corner plot":
+                written.append(save_corner(result, path, force=force, protect=protect))
+    except BaseException:
+        for p in written:
+            try:
+                Path(p).unlink()
+            except OSError:
+                pass
+        raise
+    return result, written
+
+
+def _cmd_fit(args) -> int:
+    from .files import check_outputs
+    from .fitting import FitError, _data_paths
+    from .modelfile import load_model
+
+    model_path = Path(args.model)
+    model = load_model(model_path)
+    n_meas = len(model.measurements)
+    if args.data and len(args.data) != n_meas:
+        raise FitError(f"{len(args.data)} data file(s) given for {n_meas} measurement(s); give one per measurement, "
+                       "in the order of the [[measurement]] tables")
+    if not model.free:
+        raise FitError(f"{args.model}: the model has no free parameters: mark at least one as "
+                       "{ start = ..., min = ..., max = ... }, e.g. cq_mhz = { start = 3.0, min = 1.0, max = 8.0 }")
+    data = _data_paths(model, list(args.data) if args.data else None)
+    for p in data:
+        if not Path(p).exists():
+            raise FitError(f"data file {str(p)!r} does not exist")
+    outputs = _fit_outputs(args, n_meas)
+    protect = [model_path] + [Path(p) for p in data]
+    check_outputs(outputs, force=args.force, protect=protect)
+    _compile_note(args)
+    result, written = _run_fit(model, data, args, outputs, protect, force=args.force, quiet=args.quiet)
+    print(result.summary(), end="")
+    for p in written:
+        print(f"wrote {p}", file=sys.stderr)
+    return 0
+
+
 def _cmd_nuclide(args) -> int:
     from . import nuclides as nuc_mod
 
@@ -256,7 +370,7 @@ def _cmd_nuclide(args) -> int:
 
 
 def _demo_model_path() -> Path:
-    return Path(__file__).resolve().parent / "data" / "demo.toml"
+    return Path(__file__).resolve().parent / "data" / "demo_fit.toml"
 
 
 def _demo_folder(requested: str) -> Path:
@@ -272,28 +386,32 @@ def _demo_folder(requested: str) -> Path:
 
 def _cmd_demo(args) -> int:
     from .files import check_outputs, write_text_atomic
+    from .fitting import csv_paths
     from .modelfile import load_model
-    from .plotting import save_plot
-    from .simulation import simulate
 
     outdir = _demo_folder(args.out)
     if outdir != Path(args.out):
         print(f"note: {args.out!r} holds files the demo did not make; writing to {str(outdir)!r} instead",
               file=sys.stderr)
-    csv, png = outdir / "demo_spectrum.csv", outdir / "demo_spectrum.png"
-    check_outputs([(csv, "output"), (png, "plot", (".png",))], force=True)
+    result_path, png = outdir / "demo_fit.toml", outdir / "demo_fit.png"
     model = load_model(_demo_model_path())
+    outputs = [(result_path, "result file")] + [(c, "fit CSV") for c in csv_paths(result_path, len(model.measurements))]
+    outputs.append((png, "report", (".png",)))
+    check_outputs(outputs, force=True)
     _compile_note(args)
-    print(f"demo: {model.nucleus.name}, {len(model.sites)} sites, {model.measurement.field_tesla} T, "
-          f"{model.measurement.spinning_hz / 1e3:g} kHz MAS (model: {_demo_model_path()})")
-    spec = simulate(model)
+    fields = " and ".join(f"{m.field_tesla:g} T" for m in model.measurements)
+    print(f"demo: fit {len(model.sites)} {model.nucleus.name} sites to two SYNTHETIC spectra (an invented "
+          f"aluminophosphate) at {fields}, {model.measurement.spinning_hz / 1e3:g} kHz MAS; model: "
+          f"{_demo_model_path()}")
     outdir.mkdir(parents=True, exist_ok=True)
     write_text_atomic(outdir / DEMO_MARKER, "made by powderspin demo; its files may be replaced by a rerun\n",
                       force=True)
-    spec.write_csv(csv, force=True)
-    save_plot(spec, png, force=True)
-    print(spec.sideband_table(), end="")
-    print(f"wrote {csv} and {png}")
+    ns = argparse.Namespace(region=None, noise_region=None, axis=None, global_search=False, starts=None, seed=0,
+                            posterior=False, walkers=None, steps=2000, burn=None)
+    result, written = _run_fit(model, None, ns, outputs, [_demo_model_path()], force=True, quiet=args.quiet)
+    print(result.summary(), end="")
+    print("wrote " + ", ".join(str(p) for p in written))
+    print(f"check: powderspin simulate {result_path} -o fitted.csv   (gives the fitted curves)")
     _note(args, SPINNING_CAUTION)
     return 0
 
@@ -331,7 +449,7 @@ def build_parser() -> argparse.ArgumentParser:
     """
     from . import __version__
 
-    p = argparse.ArgumentParser(prog="powderspin", description="Solid-state NMR powder patterns: simulate.")
+    p = argparse.ArgumentParser(prog="powderspin", description="Solid-state NMR powder patterns: simulate and fit.")
     p.add_argument("--version", action="version", version=f"powderspin {__version__}")
     sub = p.add_subparsers(dest="command", required=True)
 
@@ -358,6 +476,31 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--cache", metavar="DIR", help="library folder (default $POWDERSPIN_CACHE or the user cache folder)")
     c.set_defaults(func=_cmd_cache)
 
+    f = sub.add_parser("fit", help="fit a model with free parameters to measured spectra")
+    f.add_argument("model", help="model file (TOML) with free parameters { start, min, max }")
+    f.add_argument("data", nargs="*", help="measured spectrum per measurement, in order (overrides data = ...)")
+    f.add_argument("-o", "--output", required=True,
+                   help="result file to write (.toml, a model file); the CSV goes beside it")
+    f.add_argument("--report", help="also write the report figure (.png, .pdf or .svg)")
+    f.add_argument("--global", dest="global_search", action="store_true",
+                   help="least squares from many starts within the bounds (Sobol set); keep the best")
+    f.add_argument("--starts", type=int, help="number of starts with --global (default max(8, 4 x free parameters))")
+    f.add_argument("--seed", type=int, default=0, help="seed of the --global starts and the posterior sampler")
+    f.add_argument("--posterior", action="store_true",
+                   help="also sample the posterior (emcee) and write a corner plot beside the report")
+    f.add_argument("--walkers", type=int, help="posterior walkers (default max(16, 4 x free parameters))")
+    f.add_argument("--steps", type=int, default=2000, help="posterior steps per walker (default 2000)")
+    f.add_argument("--burn", type=int, help="posterior steps discarded (default a quarter of --steps)")
+    f.add_argument("--region", action="append", metavar="A:B",
+                   help="fit region in ppm (repeatable); overrides [fit] regions")
+    f.add_argument("--noise-region", metavar="A:B", help="signal-free region in ppm for the noise level")
+    f.add_argument("--axis", choices=("ppm", "hz", "khz"),
+                   help="unit of the data files' axis column when the files do not name it")
+    f.add_argument("--force", action="store_true", help="overwrite existing output files")
+    f.add_argument("-q", "--quiet", action="store_true", help="no progress bars")
+    _add_cache_options(f)
+    f.set_defaults(func=_cmd_fit)
+
     n = sub.add_parser("nuclide", help="print the NMR data of a nucleus, or list them all")
     n.add_argument("name", nargs="?", help="nucleus, e.g. 27Al")
     n.add_argument("--field", type=float, help="magnetic field in tesla (required with a nucleus)")
@@ -365,9 +508,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="list every nucleus in the table (frequencies at --field, default 1 T)")
     n.set_defaults(func=_cmd_nuclide)
 
-    d = sub.add_parser("demo", help="simulate the bundled example and write a CSV and a PNG")
+    d = sub.add_parser("demo", help="fit the bundled example (two synthetic spectra) and write the result and a report")
     d.add_argument("--out", default="powderspin-demo", help="output folder (default ./powderspin-demo)")
-    d.add_argument("-q", "--quiet", action="store_true", help="no cautions")
+    d.add_argument("-q", "--quiet", action="store_true", help="no progress bar or cautions")
     d.add_argument("--force", action="store_true", help=argparse.SUPPRESS)  # accepted; the demo owns its folder
     d.set_defaults(func=_cmd_demo)
     return p

@@ -78,12 +78,15 @@ sub-sample is a :class:`~powderspin.site_lines.SiteJob` computed and binned
 as an ordinary site.
 
 **Translation.**  Kernels live on an axis ``q`` times finer than the output
-(``q`` = :func:`oversampling`, 1 to :data:`MAX_OVERSAMPLING`) whose edges are
-whole multiples of its step from 0 Hz; a translation moves each fine bin by
-the whole number of fine steps and shares it linearly between the two fine
-bins it straddles, and ``q`` fine bins make one output bin.  The linear
-share adds a spread of at most half a fine step (standard deviation), which
-``q`` keeps below a tenth of the smallest Gaussian broadening's.
+(``q`` = :func:`oversampling`, 1 to :data:`MAX_OVERSAMPLING`) whose points
+are whole multiples of its step from 0 Hz (plus half a step), independent of
+the shift.  After the sum, each kernel point is moved by the shift and its
+mass shared linearly between the two output points around its new position,
+the same hat sharing :func:`powderspin.lineshape.bin_lines` gives every line.
+Compared with binning the lines directly at the shifted position this adds
+the kernel axis's own sharing, a spread of at most half a fine step
+(standard deviation), which ``q`` keeps below a tenth of the smallest
+Gaussian broadening's.
 
 **Fits.**  The grid extent comes from the *upper* bound of a free sigma (and
 the range of a free ``cq_mhz``/``eta_q``), the spacing from the *lower*
@@ -1007,18 +1010,19 @@ class KernelSet:
         q = self.oversampling
         # einsum, not BLAS: a multi-threaded BLAS call costs far more than this small product on a busy machine
         combined = np.einsum("i,ij->j", np.ascontiguousarray(weights.T).reshape(-1), self.matrix)
+        # kernel point m sits at first + (m + 1/2) step + shift; in output-point units (point k at
+        # left + (k + 1/2) dx) that is p = (d + m + 1/2) / q - 1/2; its mass is shared linearly between
+        # the two output points around p (the hat sharing of powderspin.lineshape.bin_lines)
         d = (self.first_edge_hz + shift_hz - axis.left_edge_hz) / self.step_hz
-        n0 = math.floor(d)
-        phi = d - n0
-        nf = axis.points * q
-        fine = np.zeros(nf)
-        # kernel bin j goes to fine output bin j + n0 (share 1 - phi) and j + n0 + 1 (share phi)
-        for extra, share in ((0, 1.0 - phi), (1, phi)):
-            lo = max(0, -(n0 + extra))
-            hi = min(self.points, nf - (n0 + extra))
-            if hi > lo and share != 0.0:
-                fine[lo + n0 + extra:hi + n0 + extra] += share * combined[lo:hi]
-        return fine.reshape(axis.points, q).sum(axis=1)
+        p = (d + np.arange(self.points) + 0.5) / q - 0.5
+        k0 = np.floor(p)
+        frac = p - k0
+        k0 = k0.astype(np.int64)
+        out = np.zeros(axis.points)
+        for k, share in ((k0, 1.0 - frac), (k0 + 1, frac)):
+            ok = (k >= 0) & (k < axis.points)
+            out += np.bincount(k[ok], weights=share[ok] * combined[ok], minlength=axis.points)
+        return out
 
 
 def _kernel_axis(axis: Axis, q: int, shift_range_hz, support_hz) -> tuple[float, float, int]:
@@ -1087,6 +1091,30 @@ def _method_cached(template_site, label, meas, nucleus, c_hi, eta_extent, half_s
         if method == "exact":
             return "exact", note.replace("second-order", "at the largest C_Q of the distribution, second-order")
     return "perturbation", ""
+
+
+def _scaled_hat_shares(s, first, step, a, b, u0, du, cdf, g_edges) -> np.ndarray:
+    """Hat shares at kernel points a <= m < b of a unit pattern scaled by each s, averaged over s.
+
+    The unit pattern has the cumulative function ``cdf`` (piecewise linear on the unit
+    edges ``u0 + j du``) with integral ``G`` (``g_edges`` at the edges, piecewise
+    quadratic between).  Scaled by s, the pattern's cumulative function is F(f) =
+    cdf(f / s) and the integral of F is s G(f / s); the share of point c (hat of
+    half-width ``step``) is the second difference ``s [G((c+h)/s) - 2 G(c/s) +
+    G((c-h)/s)] / h`` with h = ``step`` (hat = box * box).
+    """
+    pos = first + (np.arange(a - 1, b + 1) + 0.5) * step            # points a-1 .. b
+    x = pos[None, :] / s[:, None]
+    n = len(cdf) - 1
+    j = np.clip(np.floor((x - u0) / du).astype(np.int64), 0, n - 1)
+    t = x - (u0 + j * du)
+    slope = (cdf[j + 1] - cdf[j]) / du
+    g = g_edges[j] + cdf[j] * t + 0.5 * slope * t * t
+    g = np.where(x <= u0, 0.0, g)
+    top = u0 + n * du
+    g = np.where(x >= top, g_edges[-1] + (x - top) * cdf[-1], g)
+    shares = s[:, None] * (g[:, 2:] - 2.0 * g[:, 1:-1] + g[:, :-2]) / step
+    return shares.mean(axis=0)
 
 
 class DistributedSite:
@@ -1351,18 +1379,19 @@ class DistributedSite:
                 uaxis = Axis(0.5 * (u_lo + u_hi) * UNIT_CQ_MHZ ** 2, nu * du * UNIT_CQ_MHZ ** 2, nu, self.nu_ref)
                 frac = render_lines(lines, uaxis, binning=self.meas.binning, cutoff=BIN_CUTOFF).intensity \
                     * uaxis.dx_ppm
-                cdf = np.concatenate([[0.0], np.cumsum(frac)])
-                u_edges = (uaxis.left_edge_hz + np.arange(nu + 1) * uaxis.dx_hz) / UNIT_CQ_MHZ ** 2
+                cdf = np.concatenate([[0.0], np.cumsum(frac)])  # unit pattern, uniform within each unit bin
+                u0, du = uaxis.left_edge_hz / UNIT_CQ_MHZ ** 2, uaxis.dx_hz / UNIT_CQ_MHZ ** 2
+                g_edges = np.concatenate([[0.0], np.cumsum(0.5 * (cdf[1:] + cdf[:-1]) * du)])
+                step, first = kaxis.dx_hz, kaxis.left_edge_hz
                 for i in range(k):
-                    s = cq_sub[i] ** 2
-                    a = np.searchsorted(edges, min(s.min() * u_lo, s.max() * u_lo), side="right") - 1
-                    b = np.searchsorted(edges, max(s.min() * u_hi, s.max() * u_hi), side="left") + 1
-                    a, b = max(a, 0), min(b, kaxis.points)
+                    s = np.maximum(cq_sub[i] ** 2, 1e-300)
+                    lo = min(s.min() * u_lo, s.max() * u_lo)
+                    hi = max(s.min() * u_hi, s.max() * u_hi)
+                    a = max(0, math.floor((lo - first) / step - 0.5) - 1)
+                    b = min(kaxis.points, math.ceil((hi - first) / step - 0.5) + 2)
                     if b <= a:  # this cell's lines lie outside the kernel window
                         continue
-                    e = edges[a:b + 1]
-                    f = np.interp(e[None, :] / np.maximum(s, 1e-300)[:, None], u_edges, cdf, left=0.0, right=cdf[-1])
-                    rows[i, a:b] += w_eta * np.diff(f, axis=1).mean(axis=0)
+                    rows[i, a:b] += w_eta * _scaled_hat_shares(s, first, step, a, b, u0, du, cdf, g_edges)
                 store.stats.line_shapes += cq_sub.size
                 done[0] += cq_sub.size
                 if progress is not None:

@@ -469,6 +469,15 @@ class Measurement:
         Referencing offset added to every shift of this measurement (ppm).
     data : str or None
         Measured spectrum for fitting (path, relative to the model file).
+    scale : float
+        Factor applied to the simulated spectrum (data units per density per
+        ppm); 1 by default.  A fit solves it and writes it to its result file,
+        so that simulating the result gives the fitted curve.
+    baseline : tuple of float
+        Coefficients (b0, b1, ...) of a polynomial baseline added to the
+        spectrum, ``sum_k b_k u**k`` with ``u = (nu - nu_c) / (W / 2)`` running
+        from -1 to 1 across the axis (centre nu_c, full width W); empty for
+        none.  Written by a fit.
 
     References
     ----------
@@ -497,6 +506,8 @@ class Measurement:
     gauss_hz: float = 0.0
     shift_offset_ppm: float = 0.0
     data: str | None = None
+    scale: float = 1.0
+    baseline: tuple = ()
 
     def __post_init__(self):
         w = "measurement"
@@ -557,6 +568,9 @@ class Measurement:
         object.__setattr__(self, "transitions", _check_transitions(self.transitions))
         if self.data is not None and not isinstance(self.data, str):
             raise ModelError(f"measurement: data = {self.data!r} must be a file path (text)")
+        object.__setattr__(self, "scale", check_number(w, "scale", self.scale, w))
+        object.__setattr__(self, "baseline", _check_baseline(self.baseline))
+
     @property
     def is_static(self) -> bool:
         """True for a static sample (spinning_hz == 0 Hz).
@@ -591,6 +605,21 @@ class Measurement:
         True
         """
         return math.isinf(self.spinning_hz)
+
+
+#: most coefficients a baseline may have (order 5, as ``[fit] baseline_order``)
+MAX_BASELINE_COEFFICIENTS = 6
+
+
+def _check_baseline(b) -> tuple:
+    if b is None:
+        return ()
+    if isinstance(b, (str, bytes)) or not hasattr(b, "__len__"):
+        raise ModelError(f"measurement: baseline = {b!r} must be a list of numbers [b0, b1, ...]")
+    if len(b) > MAX_BASELINE_COEFFICIENTS:
+        raise ModelError(f"measurement: baseline has {len(b)} coefficients; allowed are at most "
+                         f"{MAX_BASELINE_COEFFICIENTS} (order 5)")
+    return tuple(check_number("measurement", "baseline", x, "measurement") for x in b)
 
 
 def _check_orientations(o):

@@ -145,6 +145,9 @@ def parse_site_table(i: int, t: Any, where_default: str | None = None):
         raise ModelError(f"{where} must be a table of site keys, got {type(t).__name__}")
     allowed = keys_of("site")
     _unknown(t.keys(), allowed, where)
+    for k in ("stderr", "interval"):
+        if k in t:
+            _check_written_table(t[k], f"{where_default or f'site {i + 1}'}.{k}")
     label = t.get("label", f"site {i + 1}")
     if not isinstance(label, str) or not label.strip():
         raise ModelError(f"{where}: label = {label!r} must be a non-empty text")
@@ -255,6 +258,12 @@ def _parse_measurement(j: int, t: Any, where: str, free: list):
             if not isinstance(v, str):
                 raise ModelError(f"{where}: {k} must be text, got {v!r}")
             kw[k] = v
+        elif spec.kind == "numbers":
+            if not isinstance(v, list) or not all(_is_number(x) for x in v):
+                raise ModelError(f"{where}: {k} must be a list of numbers, e.g. [0.0, 1.5], got {v!r}")
+            kw[k] = tuple(float(x) for x in v)
+        elif spec.kind == "table":
+            _check_written_table(v, f"{where}.{k}")
         else:  # pragma: no cover - every measurement kind is handled above
             kw[k] = v
     try:
@@ -266,10 +275,18 @@ def _parse_measurement(j: int, t: Any, where: str, free: list):
         raise ModelError(msg) from None
 
 
+def _check_written_table(v: Any, where: str) -> None:
+    """A sub-table a fit writes (stderr, interval, result): accepted on reading, not used."""
+    if not isinstance(v, dict):
+        raise ModelError(f"{where} must be a table (it holds what a fit wrote), got {type(v).__name__}")
+
+
 def _parse_fit(t: Any) -> FitSettings:
     if not isinstance(t, dict):
         raise ModelError(f"[fit] must be a table, got {type(t).__name__}")
     _unknown(t.keys(), keys_of("fit"), "fit")
+    if "result" in t:
+        _check_written_table(t["result"], "fit.result")
     regions = t.get("regions", [])
     if not isinstance(regions, list) or not all(isinstance(r, list) for r in regions):
         raise ModelError("fit: regions must be a list of [ppm_hi, ppm_lo] pairs, e.g. [[90.0, 40.0], [20.0, -30.0]]")
@@ -510,6 +527,8 @@ def load_model(path) -> Model:
 def _measurement_table(meas: Measurement) -> dict:
     t: dict = {}
     for k, spec in keys_of("measurement").items():
+        if spec.kind == "table":
+            continue
         v = getattr(meas, k)
         if k == "spinning_hz":
             t[k] = "inf" if math.isinf(v) else v
@@ -524,6 +543,12 @@ def _measurement_table(meas: Measurement) -> dict:
             t[k] = v if isinstance(v, str) else list(v)
             continue
         if k in ("shift_offset_ppm",) and v == 0.0:
+            continue
+        if k == "scale" and v == 1.0:
+            continue
+        if k == "baseline":
+            if v:
+                t[k] = list(v)
             continue
         t[k] = v
     return t

@@ -8,7 +8,10 @@ physically sensible, not just what the code can compute; the reason for each
 limit is part of the table and appears in the error message.
 
 Tables of a model file: the top level (``nucleus``), ``[measurement]`` (or
-several ``[[measurement]]``), ``[[site]]`` and ``[fit]``.
+several ``[[measurement]]``), ``[[site]]`` and ``[fit]``.  A fit's result file
+is a model file with a few more entries: ``scale`` and ``baseline`` in each
+measurement (applied by every simulation), and ``stderr`` / ``interval``
+sub-tables and ``[fit.result]``, which are read and ignored.
 """
 
 from __future__ import annotations
@@ -50,7 +53,9 @@ class KeySpec:
         ``"number"``, ``"integer"``, ``"choice"``, ``"text"``, ``"angles"``
         (3 numbers), ``"principal"`` (3 numbers), ``"transitions"``,
         ``"orientations"``, ``"rotor_phases"``, ``"regions"``, ``"region"``,
-        ``"distribution"`` (an inline table ``{ values = [...], weights = [...] }``).
+        ``"numbers"`` (a list of numbers), ``"table"`` (a sub-table a fit
+        writes, accepted on reading and not used), ``"distribution"`` (an
+        inline table ``{ values = [...], weights = [...] }``).
     unit : str
         Unit (``""`` for dimensionless or text).
     default : object
@@ -156,6 +161,17 @@ KEYS: tuple[KeySpec, ...] = (
             why="a referencing error beyond 1e4 ppm is a wrong nucleus or field"),
     KeySpec("measurement", "data", "text", "", None,
             doc="measured spectrum for fitting (path relative to the model file)"),
+    KeySpec("measurement", "scale", "number", "", 1.0, -1.0e30, 1.0e30,
+            doc="factor on the simulated spectrum (data units per density per ppm; a fit writes it)",
+            why="a factor beyond 1e30 is a unit mistake"),
+    KeySpec("measurement", "baseline", "numbers", "", None, -1.0e30, 1.0e30,
+            doc="polynomial baseline [b0, b1, ...] added to the spectrum: sum b_k u^k with u running "
+                "from -1 to 1 across the axis (a fit writes it)",
+            why="coefficients beyond 1e30 are a unit mistake; at most 6 (order 5)"),
+    KeySpec("measurement", "stderr", "table", "", None,
+            doc="standard errors of this measurement's fitted values (written by a fit; not used)"),
+    KeySpec("measurement", "interval", "table", "", None,
+            doc="16/84 % posterior intervals of this measurement's fitted values (written by a fit; not used)"),
     # ---- site
     KeySpec("site", "label", "text", "", None, doc="unique site name (default \"site N\")"),
     KeySpec("site", "weight", "number", "", 1.0, 0.0, 1.0e6, free=True,
@@ -207,6 +223,10 @@ KEYS: tuple[KeySpec, ...] = (
     KeySpec("site", "eta_distribution", "distribution", "", None, 0.0, 1.0,
             doc="explicit eta_Q distribution { values = [...], weights = [...] } (replaces eta_q)",
             why="|V_zz| >= |V_yy| >= |V_xx| by convention"),
+    KeySpec("site", "stderr", "table", "", None,
+            doc="standard errors of this site's fitted values (written by a fit; not used)"),
+    KeySpec("site", "interval", "table", "", None,
+            doc="16/84 % posterior intervals of this site's fitted values (written by a fit; not used)"),
     # ---- fit
     KeySpec("fit", "regions", "regions", "ppm", None,
             doc="fit regions [[ppm_hi, ppm_lo], ...]; the whole data axis when absent"),
@@ -215,6 +235,8 @@ KEYS: tuple[KeySpec, ...] = (
     KeySpec("fit", "baseline_order", "integer", "", None, 0, 5,
             doc="order of a polynomial baseline solved with the scale; none when absent",
             why="higher orders follow the lineshape instead of the baseline"),
+    KeySpec("fit", "result", "table", "", None,
+            doc="what a fit found (chi-square, correlations, warnings, ...); written by a fit, not used"),
 )
 
 _BY_TABLE: dict[str, dict[str, KeySpec]] = {}
@@ -262,6 +284,6 @@ def keys_of(table: str) -> dict[str, KeySpec]:
     Examples
     --------
     >>> list(keys_of("fit"))
-    ['regions', 'noise_region', 'baseline_order']
+    ['regions', 'noise_region', 'baseline_order', 'result']
     """
     return dict(_BY_TABLE.get(table, {}))

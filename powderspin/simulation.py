@@ -14,6 +14,7 @@ One representation, two producers, one consumer (DEVELOPERS.md):
 
 from __future__ import annotations
 
+import functools
 import math
 from pathlib import Path
 
@@ -34,12 +35,13 @@ from .site_lines import (
 )
 from .spectrum import SidebandRow, Spectrum
 
-__all__ = ["simulate", "simulate_all", "package_version", "LOST_NOTE_FRACTION"]
+__all__ = ["simulate", "simulate_all", "package_version", "baseline_values", "LOST_NOTE_FRACTION"]
 
 #: a note is added when more than this fraction of a site's intensity lies off the axis
 LOST_NOTE_FRACTION = 1e-3
 
 
+@functools.lru_cache(maxsize=1)
 def package_version() -> str:
     """The installed package version (``importlib.metadata``), or ``"unknown"`` from a bare source tree.
 
@@ -78,7 +80,7 @@ def _widest_broadening_hz(model: Model, meas) -> float:
 
 def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None = None, progress=None,
              allow_strong_coupling: bool = False, lines_memo: dict | None = None, axis: Axis | None = None,
-             methods=None, kernel_store=None) -> Spectrum:
+             methods=None, render_memo: dict | None = None, kernel_store=None) -> Spectrum:
     """Simulate the spectrum of a model (one measurement).
 
     Parameters
@@ -106,6 +108,10 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
         The producer of each site (``"perturbation"`` or ``"exact"``),
         overriding the ``method = "auto"`` decision (a fit fixes it once, so
         that its objective does not jump between producers).
+    render_memo : dict, optional
+        Memo of binned lines shared between calls (see
+        :func:`~powderspin.site_lines.render_lines`): a fit passes one so that
+        a site whose lines and translation did not change is not binned again.
     kernel_store : powderspin.disorder.KernelStore, optional
         Where the kernels of sites with an EFG distribution are kept and
         looked up (default: the process-wide store of the lineshape library,
@@ -119,7 +125,10 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
     Spectrum
         Axis in Hz and ppm, per-site and summed intensities (densities per ppm;
         each site integrates to its weight), the metadata that made it and,
-        under finite-rate spinning, the sideband table.
+        under finite-rate spinning, the sideband table.  A measurement's
+        ``scale`` (default 1) multiplies every site, and its ``baseline``
+        polynomial (default none) is added to the sum: this is how a fit's
+        result file reproduces the fitted curve.
 
     See Also
     --------
@@ -225,7 +234,7 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
                                       lorentz_hz=site.lorentz_hz + meas.lorentz_hz, gauss_hz=gauss, progress=cb)
         else:
             r = render_lines(sl, axis, shift_hz=sh, weight=site.weight, lorentz_hz=site.lorentz_hz + meas.lorentz_hz,
-                             gauss_hz=gauss, binning=meas.binning)
+                             gauss_hz=gauss, binning=meas.binning, memo=render_memo)
         ys.append(r.intensity)
         if r.lost_fraction > LOST_NOTE_FRACTION and site.weight > 0:
             notes.append(f"site '{site.label}': {r.lost_fraction:.2%} of its intensity lies outside the axis "
@@ -233,6 +242,12 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
         if sl is not None and sl.phases > 1:
             sidebands.extend(sideband_rows(site.label, site.weight, sl, nu_ref, sh))
     ys = np.array(ys)
+    total = ys.sum(axis=0)
+    if meas.scale != 1.0:
+        ys = ys * meas.scale
+        total = total * meas.scale
+    if meas.baseline:
+        total = total + baseline_values(meas.baseline, axis)
     m_upper = selected_transitions(nuc.spin, meas.transitions)
     meta = {
         "powderspin_version": package_version(),
@@ -260,12 +275,44 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
     }
     if distributed:
         meta["distributions"] = {model.sites[k].label: d.describe() for k, d in distributed.items()}
+    if meas.scale != 1.0:
+        meta["scale"] = meas.scale
+    if meas.baseline:
+        meta["baseline"] = list(meas.baseline)
     if len(model.measurements) > 1:
         meta["measurement"] = f"{measurement + 1} of {len(model.measurements)}"
     if model.source:
         meta["model"] = model.source
-    return Spectrum(axis.hz, axis.ppm, ys.sum(axis=0), tuple(s.label for s in model.sites), ys, meta,
+    return Spectrum(axis.hz, axis.ppm, total, tuple(s.label for s in model.sites), ys, meta,
                     tuple(sidebands))
+
+
+def baseline_values(coefficients, axis: Axis) -> np.ndarray:
+    """A polynomial baseline on an axis: ``sum_k b_k u**k``, u from -1 to 1 across the axis.
+
+    Parameters
+    ----------
+    coefficients : sequence of float
+        (b0, b1, ...), in the units of the spectrum's intensity.
+    axis : Axis
+        ``u = (hz - center_hz) / (width_hz / 2)``: -1 and 1 at the axis
+        edges, whatever its unit or position.
+
+    Returns
+    -------
+    numpy.ndarray, shape (axis.points,)
+
+    Examples
+    --------
+    >>> ax = Axis(center_hz=0.0, width_hz=4.0, points=4, nu_ref_hz=100e6)
+    >>> baseline_values([1.0, 2.0], ax).tolist()   # u = -0.75, -0.25, 0.25, 0.75
+    [-0.5, 0.5, 1.5, 2.5]
+    """
+    u = (axis.hz - axis.center_hz) / (0.5 * axis.width_hz)
+    out = np.zeros(axis.points)
+    for b in reversed(tuple(coefficients)):  # Horner
+        out = out * u + float(b)
+    return out
 
 
 def _has_distribution(model: Model, k: int) -> bool:

@@ -824,7 +824,7 @@ class RenderedSite:
 
 def render_lines(lines: SiteLines, axis: Axis, *, shift_hz: float = 0.0, weight: float = 1.0,
                  lorentz_hz: float = 0.0, gauss_hz: float = 0.0, binning: str = "interpolate",
-                 cutoff: float = BIN_CUTOFF) -> RenderedSite:
+                 cutoff: float = BIN_CUTOFF, memo: dict | None = None) -> RenderedSite:
     """Turn lines into a lineshape: bin, weigh, translate and broaden.
 
     Parameters
@@ -841,6 +841,10 @@ def render_lines(lines: SiteLines, axis: Axis, *, shift_hz: float = 0.0, weight:
     binning : {"interpolate", "histogram"}
     cutoff : float, optional
         Triangle contributions at or below this fraction are skipped.
+    memo : dict, optional
+        Memo of binned lines shared between calls, keyed by the job, the
+        translated axis and the binning: a fit that changes only weights or
+        broadening bins each site once.
 
     Returns
     -------
@@ -869,11 +873,17 @@ def render_lines(lines: SiteLines, axis: Axis, *, shift_hz: float = 0.0, weight:
     """
     shifted = replace(axis, center_hz=axis.center_hz - float(shift_hz))
     rate = lines.rate_hz if math.isfinite(lines.rate_hz) else 0.0
-    if lines.intensity is not None:
-        frac = bin_lines(shifted, lines.mean, lines.intensity, lines.weights, lines.orientations, binning, rate,
-                         cutoff)
-    else:
-        frac = _render_streamed(lines, shifted, binning, rate, cutoff)
+    key = ("binned", lines.job, shifted, binning, cutoff)
+    frac = memo.get(key) if memo is not None else None
+    if frac is None:
+        if lines.intensity is not None:
+            frac = bin_lines(shifted, lines.mean, lines.intensity, lines.weights, lines.orientations, binning, rate,
+                             cutoff)
+        else:
+            frac = _render_streamed(lines, shifted, binning, rate, cutoff)
+        if memo is not None:
+            frac.flags.writeable = False
+            memo[key] = frac
     inside = float(frac.sum())
     y = frac * weight / axis.dx_ppm
     y = broaden(y, axis.dx_hz, lorentz_hz, gauss_hz)

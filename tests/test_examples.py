@@ -23,7 +23,13 @@ def test_example_models_simulate(toml, tmp_path):
     r = _run(["simulate", str(toml), "-o", str(tmp_path / "out.csv"), "--plot", str(tmp_path / "out.png")],
              tmp_path)
     assert r.returncode == 0, r.stderr
-    assert (tmp_path / "out.csv").read_text().count("\n") > 100
+    import tomllib
+
+    meas = tomllib.loads(toml.read_text())["measurement"]
+    names = [f"out-m{j + 1}.csv" for j in range(len(meas))] if isinstance(meas, list) and len(meas) > 1 else \
+        ["out.csv"]
+    for name in names:
+        assert (tmp_path / name).read_text().count("\n") > 100
 
 
 def test_quickstart_script(tmp_path):
@@ -36,17 +42,39 @@ def test_quickstart_script(tmp_path):
 def test_demo_command(tmp_path):
     r = _run(["demo", "--out", str(tmp_path / "d")], tmp_path)
     assert r.returncode == 0, r.stderr
-    assert (tmp_path / "d" / "demo_spectrum.csv").exists() and (tmp_path / "d" / "demo_spectrum.png").exists()
+    d = tmp_path / "d"
+    for name in ("demo_fit.toml", "demo_fit-m1.csv", "demo_fit-m2.csv", "demo_fit.png"):
+        assert (d / name).exists(), name
+    assert "SYNTHETIC" in r.stdout and "reduced chi-square" in r.stdout
+    # the result file reproduces the fitted curves (CSV precision: 10-12 significant digits)
+    r_sim = _run(["simulate", str(d / "demo_fit.toml"), "-o", str(tmp_path / "again.csv"), "-q"], tmp_path)
+    assert r_sim.returncode == 0, r_sim.stderr
+    for j in (1, 2):
+        fit_rows = [l for l in (d / f"demo_fit-m{j}.csv").read_text().splitlines() if not l.startswith("#")]
+        sim_rows = [l for l in (tmp_path / f"again-m{j}.csv").read_text().splitlines() if not l.startswith("#")]
+        col = fit_rows[0].split(",").index("fit")
+        fitted = [float(r.split(",")[col]) for r in fit_rows[1:]]
+        again = [float(r.split(",")[2]) for r in sim_rows[1:]]
+        top = max(abs(x) for x in fitted)
+        assert max(abs(a - b) for a, b in zip(fitted, again)) <= 1e-9 * top
     # the demo owns its folder: a rerun replaces its own files without --force ...
-    r2 = _run(["demo", "--out", str(tmp_path / "d")], tmp_path)
+    r2 = _run(["demo", "--out", str(d)], tmp_path)
     assert r2.returncode == 0, r2.stderr
     # ... but never touches a folder it did not make
     (tmp_path / "mine").mkdir()
-    (tmp_path / "mine" / "demo_spectrum.csv").write_text("precious")
+    (tmp_path / "mine" / "demo_fit.toml").write_text("precious")
     r3 = _run(["demo", "--out", str(tmp_path / "mine")], tmp_path)
     assert r3.returncode == 0, r3.stderr
-    assert (tmp_path / "mine" / "demo_spectrum.csv").read_text() == "precious"
-    assert (tmp_path / "mine-2" / "demo_spectrum.csv").exists()
+    assert (tmp_path / "mine" / "demo_fit.toml").read_text() == "precious"
+    assert (tmp_path / "mine-2" / "demo_fit.toml").exists()
+
+
+def test_demo_data_are_the_examples():
+    """The demo fits the packaged copies of the example's synthetic spectra and model."""
+    pkg = ROOT / "powderspin" / "data"
+    for name in ("alpo_27al_9p4T.csv", "alpo_27al_14p1T.csv"):
+        assert (pkg / name).read_bytes() == (ROOT / "examples" / name).read_bytes()
+    assert (pkg / "demo_fit.toml").read_bytes() == (ROOT / "examples" / "alpo_fit.toml").read_bytes()
 
 
 def test_readme_python_block(tmp_path, monkeypatch):
@@ -58,6 +86,7 @@ def test_readme_python_block(tmp_path, monkeypatch):
     matplotlib.use("Agg")
     monkeypatch.chdir(tmp_path)
     for b in blocks:
+        b = b.replace('"examples/', f'"{ROOT / "examples"}/')  # README paths are relative to the repository
         exec(compile(b, "README.md", "exec"), {})
 
 

@@ -10,8 +10,10 @@ Check sources (named again beside each test):
   result of frequency modulation), Bessel functions from scipy.special.jv;
 * triangle interpolation from its definition (frequency linear over the
   triangle, intensity uniform in area; D. W. Alderman, M. S. Solum, D. M.
-  Grant, J. Chem. Phys. 84 (1986) 3717) by exact polygon clipping and by
-  random sampling (``tests/reference/binning_numpy.py``), and numpy.histogram;
+  Grant, J. Chem. Phys. 84 (1986) 3717), shared among the axis points by
+  their linear hat functions, by exact polygon clipping and by random
+  sampling, and sharp lines split by a dense hat matrix
+  (``tests/reference/binning_numpy.py``);
 * unit-area Lorentzian, Gaussian and Voigt profiles (scipy.special.voigt_profile).
 
 Section numbers of textbooks are given from memory; every check here is against a
@@ -32,7 +34,7 @@ from powderspin.lineshape import broaden
 from powderspin.spinning import rotor_lines
 from powderspin.tensors import efg_principal
 
-from tests.reference.binning_numpy import bin_triangles, histogram_lines, triangle_fractions_clipped
+from tests.reference.binning_numpy import bin_triangles, hat_weights, histogram_lines, triangle_weights_clipped
 from tests.reference.perturbative_numpy import perturbative_transitions
 from tests.reference.sidebands_numpy import gamma_averaged_fid, sideband_intensities, trig_interpolant
 
@@ -148,8 +150,9 @@ def test_rotor_lines_rejects_bad_input(p, rate):
 # binning
 
 
-def _edges(x0, dx, nb):
-    return x0 + dx * np.arange(nb + 1)
+def _points(x0, dx, nb):
+    # axis point k sits at the centre of bin k
+    return x0 + dx * (np.arange(nb) + 0.5)
 
 
 def _tent(mean, amp, wt, tris, tw, rate, x0, dx, nb, nchunk=1, cutoff=0.0):
@@ -207,7 +210,7 @@ def test_tent_binning_of_a_static_shift_pattern_on_a_sphere_mesh():
     wt = np.ones((len(v), 1))
     x0, dx, nb = -80.0, 1.7, 100
     got = _tent(freq, amp, wt, tris, tw, 0.0, x0, dx, nb)
-    ref = bin_triangles(freq, amp, wt, tris, tw, 0.0, _edges(x0, dx, nb))
+    ref = bin_triangles(freq, amp, wt, tris, tw, 0.0, _points(x0, dx, nb))
     np.testing.assert_allclose(got, ref, rtol=0, atol=1e-12)
     assert got.sum() == pytest.approx(1.0, abs=1e-12)
 
@@ -226,14 +229,14 @@ def test_tent_binning_random_triangles_with_sidebands_and_chunks():
     tw = rng.random(ntri)
     rate, x0, dx, nb = 11.3, -70.0, 1.3, 110
     got = _tent(mean, amp, wt, tris, tw, rate, x0, dx, nb)
-    ref = bin_triangles(mean, amp, wt, tris, tw, rate, _edges(x0, dx, nb))
+    ref = bin_triangles(mean, amp, wt, tris, tw, rate, _points(x0, dx, nb))
     np.testing.assert_allclose(got, ref, rtol=0, atol=1e-12)
     for nchunk in (3, 8):
         np.testing.assert_allclose(_tent(mean, amp, wt, tris, tw, rate, x0, dx, nb, nchunk), got, rtol=0, atol=1e-12)
     # cutoff: contributions at or below it are left out
     cut = float(np.median(tw) * 0.08)
     got_c = _tent(mean, amp, wt, tris, tw, rate, x0, dx, nb, 1, cut)
-    ref_c = bin_triangles(mean, amp, wt, tris, tw, rate, _edges(x0, dx, nb), cutoff=cut)
+    ref_c = bin_triangles(mean, amp, wt, tris, tw, rate, _points(x0, dx, nb), cutoff=cut)
     np.testing.assert_allclose(got_c, ref_c, rtol=0, atol=1e-12)
     assert got_c.sum() < got.sum()
 
@@ -252,53 +255,62 @@ def test_tent_binning_matches_random_sampling():
     x0, dx, nb = -4.0, 0.8, 22
     samples = 200_000
     got = _tent(mean, amp, wt, tris, tw, 0.0, x0, dx, nb)
-    ref = bin_triangles(mean, amp, wt, tris, tw, 0.0, _edges(x0, dx, nb), method="sampled",
+    ref = bin_triangles(mean, amp, wt, tris, tw, 0.0, _points(x0, dx, nb), method="sampled",
                         samples=samples, rng=rng)
     sigma = np.sqrt(tw.max() * np.maximum(got, 1e-4) / samples)
     assert np.all(np.abs(got - ref) < 5 * sigma + 1e-12)
 
 
 def test_tent_binning_degenerate_triangles():
-    # Source: design.md section 5 (degenerate triangles f1 = f3 fall into one bin) and exact
-    # polygon clipping for two equal frequencies (tests/reference/binning_numpy.py).
-    x0, dx, nb = 0.0, 1.0, 20
+    # Source: a flat triangle (f1 = f3) is a sharp line, split linearly between its two
+    # neighbouring points (the hat functions' definition, tests/reference/binning_numpy.py;
+    # linear interpolation keeps area and first moment); two equal frequencies against
+    # exact polygon clipping (tests/reference/binning_numpy.py).
+    x0, dx, nb = 0.0, 1.0, 20  # points at 0.5, 1.5, ...
     amp = np.ones((3, 1, 1))
     wt = np.ones((3, 1))
     tris = np.array([[0, 1, 2]])
     tw = np.array([0.7])
-    # all three equal -> one bin, whole weight
+    # all three equal: 5.3 lies 0.8 of the way from point 4 (4.5) to point 5 (5.5)
     got = _tent(np.array([[5.3], [5.3], [5.3]]), amp, wt, tris, tw, 0.0, x0, dx, nb)
     expected = np.zeros(nb)
-    expected[5] = 0.7
+    expected[4], expected[5] = 0.7 * 0.2, 0.7 * 0.8
     np.testing.assert_allclose(got, expected, rtol=0, atol=1e-15)
-    # equal to within rounding -> still one bin
+    # equal to within rounding: the same split about the centroid
     got = _tent(np.array([[9.6], [9.6 + 1e-13], [9.6 - 1e-13]]), amp, wt, tris, tw, 0.0, x0, dx, nb)
-    assert got[9] == pytest.approx(0.7, abs=1e-15) and got.sum() == pytest.approx(0.7, abs=1e-15)
+    assert got[9] == pytest.approx(0.7 * 0.9, abs=1e-12) and got[10] == pytest.approx(0.7 * 0.1, abs=1e-12)
+    assert got.sum() == pytest.approx(0.7, abs=1e-15)
+    # a tiny triangle across a point: no jump from the sharp-line split
+    for f in ([7.5 - 1e-10, 7.5, 7.5 + 2e-10], [7.5 - 3e-11, 7.5 - 3e-11, 7.5 + 1e-11]):
+        got = _tent(np.array(f)[:, None], amp, wt, tris, tw, 0.0, x0, dx, nb)
+        np.testing.assert_allclose(got, 0.7 * hat_weights(np.mean(f), _points(x0, dx, nb)), rtol=0, atol=1e-9)
     # two equal (lower pair, upper pair), in every vertex order
     for f in ([2.2, 2.2, 8.9], [2.2, 8.9, 8.9], [8.9, 2.2, 2.2], [8.9, 2.2, 8.9]):
         mean = np.array(f)[:, None]
         got = _tent(mean, amp, wt, tris, tw, 0.0, x0, dx, nb)
-        ref = 0.7 * triangle_fractions_clipped(f, _edges(x0, dx, nb))
+        ref = 0.7 * triangle_weights_clipped(f, _points(x0, dx, nb))
         np.testing.assert_allclose(got, ref, rtol=0, atol=1e-14)
         assert got.sum() == pytest.approx(0.7, abs=1e-14)
 
 
 def test_tent_binning_lines_partly_off_the_axis():
-    # Source: exact polygon clipping on the axis bins only (tests/reference/binning_numpy.py);
-    # the part of a triangle beyond either end of the axis is dropped, not piled at the edge.
-    x0, dx, nb = 0.0, 0.5, 30  # axis [0, 15]
+    # Source: exact polygon clipping (tests/reference/binning_numpy.py); the share of the
+    # points beyond either end of the axis is dropped, not piled onto the end points: each
+    # axis point gets what it gets on a longer axis with the same points.
+    x0, dx, nb = 0.0, 0.5, 30  # axis [0, 15], points 0.25 ... 14.75
     amp = np.ones((3, 1, 1))
     wt = np.ones((3, 1))
     tris = np.array([[0, 1, 2]])
     tw = np.array([1.0])
-    for f in ([-4.0, 3.0, 9.0], [6.0, 13.0, 21.0], [-5.0, 7.0, 20.0], [-9.0, -5.0, -1.0], [16.0, 18.0, 30.0]):
+    wide_points = _points(-20.0, dx, 120)  # -19.75 ... 39.75, the axis points among them
+    on_axis = (wide_points > 0.0) & (wide_points < 15.0)
+    for f in ([-4.0, 3.0, 9.0], [6.0, 13.0, 21.0], [-5.0, 7.0, 20.0], [-9.0, -5.0, -1.0], [16.0, 18.0, 30.0],
+              [-0.3, -0.1, 0.2], [14.6, 14.9, 15.2]):
         mean = np.array(f)[:, None]
         got = _tent(mean, amp, wt, tris, tw, 0.0, x0, dx, nb)
-        edges = _edges(x0, dx, nb)
-        ref = triangle_fractions_clipped(f, edges)
+        ref = triangle_weights_clipped(f, _points(x0, dx, nb))
         np.testing.assert_allclose(got, ref, rtol=0, atol=1e-14)
-        wide = triangle_fractions_clipped(f, np.linspace(-20.0, 40.0, 121))
-        inside = wide[(np.linspace(-20.0, 40.0, 121)[:-1] >= 0.0) & (np.linspace(-20.0, 40.0, 121)[1:] <= 15.0)]
+        inside = triangle_weights_clipped(f, wide_points)[on_axis]
         assert got.sum() == pytest.approx(inside.sum(), abs=1e-13)
 
 
@@ -314,11 +326,11 @@ def test_histogram_binning_matches_numpy_histogram():
     vw = rng.random(nv)
     rate, x0, dx, nb = 7.7, -50.0, 0.9, 100
     got = _k._bin_histogram(mean, amp, wt, vw, rate, x0, dx, nb)
-    ref = histogram_lines(mean, amp, wt, vw, rate, _edges(x0, dx, nb))
+    ref = histogram_lines(mean, amp, wt, vw, rate, _points(x0, dx, nb))
     np.testing.assert_allclose(got, ref, rtol=0, atol=1e-12)
     # static (one band)
     got1 = _k._bin_histogram(mean, amp[:, :, :1].copy(), wt, vw, rate, x0, dx, nb)
-    ref1 = histogram_lines(mean, amp[:, :, :1], wt, vw, rate, _edges(x0, dx, nb))
+    ref1 = histogram_lines(mean, amp[:, :, :1], wt, vw, rate, _points(x0, dx, nb))
     np.testing.assert_allclose(got1, ref1, rtol=0, atol=1e-12)
 
 
