@@ -40,18 +40,21 @@ the sum, and the isotropic shift is a translation of every line
 (:mod:`powderspin.site_lines`), so kernels depend on neither and stay valid
 while a fit changes them; only the weights change with sigma.
 
-**Cells and sub-samples.**  The grid has K x M *cells* (at most
-:data:`MAX_CQ_CELLS` x :data:`MAX_ETA_CELLS`), uniform in C_Q^2 and, in eta,
-uniform in the motion of the pattern edges.  A cell's kernel is the average
-of the line shapes at its *sub-samples*, placed so that the spacing
-criterion below holds between neighbouring sub-samples (for the pure model,
-J sub-samples per C_Q cell equally spaced in C_Q^2; in eta the nodes of
-:func:`powderspin.distributions.czjzek_grid`'s spacing that fall in the
-cell, weighted by their eta widths).  The cell weights are exact cell masses
-(pure Czjzek, :func:`~powderspin.distributions.czjzek_cell_mass`), the
-linear share of a seeded sample of random tensors (extended Czjzek, smooth in
-the parameters because every sample is shared linearly between the two
-neighbouring cell centres in C_Q^2 and in eta), or the user's weights.
+**Nodes and sub-samples.**  The distribution's density is represented by
+its values at K x M *nodes*, equally spaced in C_Q (:data:`NODES_PER_SIGMA`
+per smallest sigma, :data:`MIN_CQ_NODES` to :data:`MAX_CQ_NODES`) and in eta
+(:data:`ETA_NODES`), joined linearly (hat functions): the sum over nodes of
+``density x hat area x kernel`` integrates the interpolated density against
+the line shapes, an error of second order in the node spacing.  A node's
+kernel is the hat-weighted average of the line shapes at the *sub-samples*
+around it; the sub-samples are spaced by the criterion below (uniform in
+C_Q^2 and, in eta, uniform in the motion of the pattern edges), with gaps
+wider than half a node spacing filled.  The node weights are the
+closed-form Czjzek density at the nodes times the hat areas (pure Czjzek),
+the linear share of a seeded sample of random tensors between the
+neighbouring nodes (extended Czjzek: the hats' projection of the density,
+smooth in the parameters because the same sample serves every call), or the
+user's weights (explicit grids, whose values are the nodes themselves).
 
 **Spacing criterion.**  Between neighbouring sub-samples each edge of the
 second-order central-transition pattern moves by at most
@@ -65,7 +68,7 @@ by at most one resolution element, and summing them under that broadening
 leaves a ripple of about 1e-6 for a Gaussian (Poisson summation, see
 :mod:`powderspin.distributions`) and below 0.4 % for a Lorentzian.
 
-**Two ways to compute a kernel row.**  ``"scaled"``: for the second-order
+**Two ways to compute the line shapes.**  ``"scaled"``: for the second-order
 central transition, static or infinitely fast MAS, perturbation theory and no
 shift anisotropy, every crystallite's offset is ``-(a C_Q^2/(2 nu0)) g``,
 so the whole pattern scales exactly with C_Q^2.  One unit pattern per eta
@@ -127,11 +130,11 @@ from scipy import optimize
 from .cache import LineshapeLibrary, canonical_key_json, default_library_path
 from .distributions import (
     DistributionError,
+    czjzek_pdf,
     _g_table,
     _uniform_in_measure,
     ct_edges_hz,
     ct_spin_factor,
-    czjzek_cell_mass,
     czjzek_cq_cdf,
 )
 from .lineshape import Axis, broaden
@@ -152,9 +155,11 @@ from .tensors import ShiftTensor
 
 __all__ = [
     "GRID_FRACTION",
-    "MAX_CQ_CELLS",
+    "MAX_CQ_NODES",
     "MAX_DIRECT_KERNELS",
-    "MAX_ETA_CELLS",
+    "MIN_CQ_NODES",
+    "NODES_PER_SIGMA",
+    "ETA_NODES",
     "MAX_GRID_NODES",
     "MAX_OVERSAMPLING",
     "DistributedSite",
@@ -173,10 +178,13 @@ __all__ = [
 #: largest move of a CT pattern edge between neighbouring sub-samples, as a
 #: fraction of the resolution (see the module docstring)
 GRID_FRACTION = 0.5
-#: most C_Q cells of a kernel grid (rows of the kernel matrix per eta cell)
-MAX_CQ_CELLS = 48
-#: most eta cells of a kernel grid
-MAX_ETA_CELLS = 16
+#: C_Q nodes per smallest sigma of a Czjzek grid (the nodes are equally spaced in C_Q)
+NODES_PER_SIGMA = 6
+#: fewest and most C_Q nodes of a kernel grid (rows of the kernel matrix per eta node)
+MIN_CQ_NODES = 24
+MAX_CQ_NODES = 160
+#: eta nodes of a Czjzek kernel grid
+ETA_NODES = 17
 #: most sub-samples (line shapes) the spacing criterion may ask for on the scaled path
 MAX_GRID_NODES = 250_000
 #: most sub-samples on the direct path (each is a full site computation, ~1-50 ms)
@@ -480,63 +488,98 @@ def _extended_samples(sigma: float, cq0: float, eta0: float, n: int = EXTENDED_S
 
 @dataclass(frozen=True, eq=False)
 class KernelGrid:
-    """Cells of a (C_Q, eta) kernel grid and the sub-samples each cell's kernel averages.
+    """Nodes of a (C_Q, eta) kernel grid, and the sub-samples whose line shapes make each node's kernel.
+
+    The distribution's density is represented by its values at the nodes,
+    joined linearly (hat functions in C_Q and in eta): node (i, j) has the
+    weight ``density(C_i, eta_j) A_i B_j`` with ``A_i``, ``B_j`` the areas of
+    its hats, and its kernel is the hat-weighted average of the sub-samples'
+    line shapes (so the sum over nodes integrates the interpolated density
+    against the line shapes; the error is second order in the node spacing).
+    The sub-samples are spaced by the criterion of the module docstring.
+    Explicit grids have point nodes (each value its own sub-sample).
 
     Parameters
     ----------
     kind : {"czjzek", "extended", "explicit"}
-    cq_edges_mhz : numpy.ndarray (K+1,) or None
-        Cell edges in C_Q (uniform in C_Q^2); None for explicit grids.
     cq_mhz : numpy.ndarray (K,)
-        Cell centres (in C_Q^2) or the explicit values.
-    eta_edges : numpy.ndarray (M+1,) or None
+        C_Q nodes (MHz), equally spaced (explicit: the values).
     eta : numpy.ndarray (M,)
-        Cell midpoints or explicit values.
-    cq_samples_mhz : numpy.ndarray (K, J)
-        Sub-samples of each C_Q cell (equally weighted, equally spaced in C_Q^2).
-    eta_samples, eta_sample_weights : tuple of numpy.ndarray
-        Sub-samples of each eta cell and their weights (summing to 1).
+        eta nodes, equally spaced (explicit: the values).
+    cq_samples_mhz : numpy.ndarray (L,)
+        C_Q sub-samples, increasing.
+    cq_left : numpy.ndarray (L,) of int
+        The node at or left of each sub-sample; it shares its quadrature weight
+        between that node (``cq_w_left``) and the next (``cq_w_right``).
+    cq_w_left, cq_w_right : numpy.ndarray (L,)
+    eta_samples, eta_left, eta_w_left, eta_w_right : numpy.ndarray (Mf,)
+        The same in eta.
     explicit_weights : numpy.ndarray (K, M) or None
     resolution_hz, fraction : float
         The spacing criterion (NaN for explicit grids).
     criterion_shape : tuple of 2 int
-        Sub-samples the criterion asked for in C_Q and in eta.
+        Sub-samples the criterion asked for in C_Q^2 and in eta.
     tail_mass : float
         Probability the extent leaves out.
+    sigma_resolved_mhz : float
+        Smallest sigma the node spacing follows (at least NODES_PER_SIGMA
+        nodes per sigma); 0 for explicit grids.
 
     Examples
     --------
     >>> g = plan_grid(EfgDistribution("czjzek", 2.0), 2.5, 104.26e6, 500.0)
-    >>> g.shape, g.criterion_shape, g.cq_samples_mhz.shape
-    ((48, 13), (63, 13), (48, 2))
+    >>> g.shape, g.criterion_shape
+    ((30, 17), (63, 13))
     """
 
     kind: str
-    cq_edges_mhz: np.ndarray | None
     cq_mhz: np.ndarray
-    eta_edges: np.ndarray | None
     eta: np.ndarray
     cq_samples_mhz: np.ndarray
-    eta_samples: tuple
-    eta_sample_weights: tuple
+    cq_left: np.ndarray
+    cq_w_left: np.ndarray
+    cq_w_right: np.ndarray
+    eta_samples: np.ndarray
+    eta_left: np.ndarray
+    eta_w_left: np.ndarray
+    eta_w_right: np.ndarray
     explicit_weights: np.ndarray | None = None
     resolution_hz: float = math.nan
     fraction: float = math.nan
     criterion_shape: tuple = (0, 0)
     tail_mass: float = 0.0
+    sigma_resolved_mhz: float = 0.0
 
     @property
     def shape(self) -> tuple[int, int]:
-        """(C_Q cells, eta cells)."""
+        """(C_Q nodes, eta nodes)."""
         return (len(self.cq_mhz), len(self.eta))
 
     @property
     def line_shapes(self) -> int:
         """Number of sub-sample line shapes behind the kernels."""
-        return int(self.cq_samples_mhz.size * sum(len(e) for e in self.eta_samples))
+        return int(len(self.cq_samples_mhz) * len(self.eta_samples))
+
+    def cq_norms(self) -> np.ndarray:
+        """Total sub-sample weight of each C_Q node (the kernels are divided by it)."""
+        k = len(self.cq_mhz)
+        return (np.bincount(self.cq_left, self.cq_w_left, minlength=k)
+                + np.bincount(np.minimum(self.cq_left + 1, k - 1), self.cq_w_right, minlength=k))
+
+    def eta_norms(self) -> np.ndarray:
+        """Total sub-sample weight of each eta node."""
+        m = len(self.eta)
+        return (np.bincount(self.eta_left, self.eta_w_left, minlength=m)
+                + np.bincount(np.minimum(self.eta_left + 1, m - 1), self.eta_w_right, minlength=m))
 
     def weights(self, dist: EfgDistribution) -> np.ndarray:
-        """Cell weights (K, M), summing to 1, for the distribution's current values.
+        """Node weights (K, M), summing to 1, for the distribution's current values.
+
+        Pure Czjzek: the closed-form density at the nodes times the hat
+        areas.  Extended Czjzek: a seeded sample of random tensors (the same
+        one for every call) shared linearly between the neighbouring nodes
+        (the hats' projection of the density; smooth in the parameters).
+        Explicit: the given weights.
 
         Parameters
         ----------
@@ -552,38 +595,32 @@ class KernelGrid:
         >>> g = plan_grid(d, 2.5, 104.26e6, 500.0)
         >>> w = g.weights(d)
         >>> w.shape, round(float(w.sum()), 12), bool((w >= 0).all())
-        ((48, 13), 1.0, True)
+        ((30, 17), 1.0, True)
         """
         k, m = self.shape
         if self.kind == "explicit":
             return self.explicit_weights
-        if self.kind == "czjzek":
-            if dist.sigma_mhz <= 0:
-                w = np.zeros((k, m))
-                w[0, 0] = 1.0
-                return w
-            mass = czjzek_cell_mass(self.cq_edges_mhz, self.eta_edges, dist.sigma_mhz)
-            total = float(mass.sum())
-            if not total > 0:
-                raise ModelError(f"czjzek_sigma_mhz = {dist.sigma_mhz:g} puts no probability inside the kernel grid")
-            return mass / total
-        # extended: seeded sample shared linearly between neighbouring cell centres (smooth in the parameters)
         if dist.sigma_mhz <= 0:
-            cq, eta = np.array([dist.cq0_mhz]), np.array([dist.eta0])
+            cq, eta = np.array([dist.cq0_mhz if self.kind == "extended" else 0.0]), np.array([dist.eta0])
+        elif self.kind == "czjzek":
+            w = czjzek_pdf(self.cq_mhz[:, None], self.eta[None, :], dist.sigma_mhz) \
+                * _hat_areas(self.cq_mhz)[:, None] * _hat_areas(self.eta)[None, :]
+            total = float(w.sum())
+            if not total > 0:
+                raise ModelError(f"czjzek_sigma_mhz = {dist.sigma_mhz:g} puts no probability on the kernel grid "
+                                 f"(C_Q {self.cq_mhz[0]:.4g} ... {self.cq_mhz[-1]:.4g} MHz)")
+            return w / total
         else:
             cq, eta = _extended_samples(dist.sigma_mhz, dist.cq0_mhz, dist.eta0)
-        s = cq * cq
-        s_edges = self.cq_edges_mhz ** 2
-        keep = (s >= s_edges[0]) & (s <= s_edges[-1]) & (eta >= self.eta_edges[0]) & (eta <= self.eta_edges[-1])
+        x = (cq - self.cq_mhz[0]) / max(self.cq_mhz[-1] - self.cq_mhz[0], 1e-300) * (k - 1) if k > 1 else 0 * cq
+        y = (eta - self.eta[0]) / max(self.eta[-1] - self.eta[0], 1e-300) * (m - 1) if m > 1 else 0 * eta
+        keep = (x >= -1e-9) & (x <= k - 1 + 1e-9) & (y >= -1e-9) & (y <= m - 1 + 1e-9)
         if not keep.any():
             raise ModelError(
                 f"the extended Czjzek distribution (C_Q = {dist.cq0_mhz:g} MHz, eta = {dist.eta0:g}, sigma = "
-                f"{dist.sigma_mhz:g} MHz) lies outside its kernel grid (C_Q {self.cq_edges_mhz[0]:.4g} ... "
-                f"{self.cq_edges_mhz[-1]:.4g} MHz); give cq_mhz/eta_q/czjzek_sigma_mhz ranges that contain it")
-        s, eta = s[keep], eta[keep]
-        ds = (s_edges[-1] - s_edges[0]) / k
-        x = np.clip((s - s_edges[0]) / ds - 0.5, 0.0, k - 1.0)
-        y = np.clip(np.interp(eta, self.eta, np.arange(m, dtype=float)), 0.0, m - 1.0)
+                f"{dist.sigma_mhz:g} MHz) lies outside its kernel grid (C_Q {self.cq_mhz[0]:.4g} ... "
+                f"{self.cq_mhz[-1]:.4g} MHz); give cq_mhz/eta_q/czjzek_sigma_mhz ranges that contain it")
+        x, y = np.clip(x[keep], 0.0, k - 1.0), np.clip(y[keep], 0.0, m - 1.0)
         i0 = np.minimum(np.floor(x).astype(np.int64), max(k - 2, 0))
         j0 = np.minimum(np.floor(y).astype(np.int64), max(m - 2, 0))
         fx, fy = x - i0, y - j0
@@ -598,13 +635,34 @@ class KernelGrid:
 
     def __str__(self) -> str:
         k, m = self.shape
-        lines = [f"kernel grid ({self.kind}): {k} x {m} cells, {self.line_shapes} sub-sample line shapes"]
-        if self.cq_edges_mhz is not None:
-            lines.append(f"  C_Q {self.cq_edges_mhz[0]:.4g} ... {self.cq_edges_mhz[-1]:.4g} MHz, eta "
-                         f"{self.eta_edges[0]:.3g} ... {self.eta_edges[-1]:.3g}; criterion {self.criterion_shape[0]} x "
-                         f"{self.criterion_shape[1]} sub-samples for edge moves <= {self.fraction:g} x "
-                         f"{self.resolution_hz:.4g} Hz")
+        lines = [f"kernel grid ({self.kind}): {k} x {m} nodes, {self.line_shapes} sub-sample line shapes"]
+        if self.kind != "explicit":
+            lines.append(f"  C_Q {self.cq_mhz[0]:.4g} ... {self.cq_mhz[-1]:.4g} MHz, eta {self.eta[0]:.3g} ... "
+                         f"{self.eta[-1]:.3g}; criterion {self.criterion_shape[0]} x {self.criterion_shape[1]} "
+                         f"sub-samples for edge moves <= {self.fraction:g} x {self.resolution_hz:.4g} Hz")
         return "\n".join(lines)
+
+
+def _hat_areas(nodes: np.ndarray) -> np.ndarray:
+    """Areas of the hat functions on equally spaced nodes (half at the two ends)."""
+    if len(nodes) == 1:
+        return np.ones(1)
+    h = (nodes[-1] - nodes[0]) / (len(nodes) - 1)
+    a = np.full(len(nodes), h)
+    a[0] = a[-1] = 0.5 * h
+    return a
+
+
+def _hat_shares(samples: np.ndarray, weights: np.ndarray, nodes: np.ndarray):
+    """Left node index and the shares of each sample's quadrature weight for it and the next node."""
+    n = len(nodes)
+    if n == 1:
+        return np.zeros(len(samples), dtype=np.int64), weights.copy(), np.zeros(len(samples))
+    x = (samples - nodes[0]) / (nodes[-1] - nodes[0]) * (n - 1)
+    x = np.clip(x, 0.0, n - 1.0)
+    left = np.minimum(np.floor(x).astype(np.int64), n - 2)
+    f = x - left
+    return left, weights * (1.0 - f), weights * f
 
 
 def _cq_quantile(sigma: float, tail: float) -> float:
@@ -639,9 +697,57 @@ def _extent_cached(kind: str, sigma_max: float, cq0_range, eta0_range, tail: flo
     return c_lo, c_hi, e_lo, e_hi
 
 
+def _c4_ratio(dist: EfgDistribution, sigma_max: float, cq0_range, eta0_range, c_ref: float) -> float:
+    """<C_Q^4> / c_ref^4 over the distribution (the largest over the parameter ranges)."""
+    if c_ref <= 0:
+        return 0.0
+    if dist.kind == "explicit":
+        w = np.asarray(dist.cq_weights, float)
+        return float((w / w.sum()) @ (np.asarray(dist.cq_values_mhz, float) ** 4)) / c_ref ** 4
+    corners = [(0.0, 0.0)] if dist.kind == "czjzek" else [(c, e) for c in set(cq0_range) for e in set(eta0_range)]
+    return max(_c4_cached(float(sigma_max), float(c), float(e)) for c, e in corners) / c_ref ** 4
+
+
 @functools.lru_cache(maxsize=64)
-def _plan_cached(dist_kind, spin, larmor_hz, resolution_hz, sigma_max, cq0_range, eta0_range, experiment, fraction,
-                 tail, max_cells, max_nodes, explicit):
+def _c4_cached(sigma: float, cq0: float, eta0: float) -> float:
+    cq, _ = _extended_samples(sigma, abs(cq0), eta0)
+    return float(np.mean(cq ** 4))
+
+
+def _fill_gaps(x: np.ndarray, lo: float, hi: float, max_gap: float) -> np.ndarray:
+    """Sorted points x in [lo, hi] with evenly spaced points added wherever a gap (ends included) exceeds max_gap."""
+    x = np.sort(np.asarray(x, dtype=float))
+    out = []
+    prev, first = lo, True
+    for v in list(x) + [None]:
+        end = hi if v is None else v
+        gap = end - prev
+        # the gap before the first point and after the last count half (they end at the interval's edges)
+        limit = 0.5 * max_gap if (first or v is None) else max_gap
+        n_add = max(0, math.ceil(gap / limit - 1e-9) - 1) if gap > limit else 0
+        if n_add:
+            if first and v is not None:
+                out.extend(end - (np.arange(n_add, 0, -1)) * gap / (n_add + 0.5))
+            elif v is None:
+                out.extend(prev + np.arange(1, n_add + 1) * gap / (n_add + 0.5))
+            else:
+                out.extend(prev + np.arange(1, n_add + 1) * gap / (n_add + 1))
+        if v is not None:
+            out.append(v)
+        prev, first = end, False
+    return np.array(out)
+
+
+def _voronoi_widths(x: np.ndarray, lo: float, hi: float) -> np.ndarray:
+    """Widths of the cells around sorted points x inside [lo, hi] (midpoints between neighbours)."""
+    mid = 0.5 * (x[1:] + x[:-1])
+    edges = np.concatenate([[lo], mid, [hi]])
+    return np.diff(edges)
+
+
+@functools.lru_cache(maxsize=64)
+def _plan_cached(dist_kind, spin, larmor_hz, resolution_hz, sigma_max, sigma_min, cq0_range, eta0_range, experiment,
+                 fraction, tail, max_nodes, node_limits, explicit):
     if dist_kind == "explicit":
         cq_v, cq_w, eta_v, eta_w = explicit
         oc, oe = np.argsort(cq_v, kind="stable"), np.argsort(eta_v, kind="stable")
@@ -650,8 +756,9 @@ def _plan_cached(dist_kind, spin, larmor_hz, resolution_hz, sigma_max, cq0_range
         wc = np.asarray(cq_w, float)[oc]
         we = np.asarray(eta_w, float)[oe]
         w = np.outer(wc / wc.sum(), we / we.sum())
-        return KernelGrid("explicit", None, cq, None, eta, cq[:, None].copy(), tuple(np.array([e]) for e in eta),
-                          tuple(np.array([1.0]) for _ in eta), w)
+        k, m = len(cq), len(eta)
+        return KernelGrid("explicit", cq, eta, cq.copy(), np.arange(k), np.ones(k), np.zeros(k),
+                          eta.copy(), np.arange(m), np.ones(m), np.zeros(m), w)
     dist = EfgDistribution(dist_kind, sigma_max)
     a = ct_spin_factor(spin)
     c_lo, c_hi, e_lo, e_hi = _extent(dist, sigma_max, cq0_range, eta0_range, tail)
@@ -660,46 +767,50 @@ def _plan_cached(dist_kind, spin, larmor_hz, resolution_hz, sigma_max, cq0_range
     g_abs = float(np.max(np.maximum(np.abs(gmin_t[inside]), np.abs(gmax_t[inside]))))
     edge_per_s = a * 1e12 / (2 * larmor_hz) * g_abs  # Hz of edge move per MHz^2 of C_Q^2
     s_lo, s_hi = c_lo ** 2, c_hi ** 2
-    k_crit = max(2, math.ceil((s_hi - s_lo) * edge_per_s / (fraction * resolution_hz)))
+    delta_s = fraction * resolution_hz / edge_per_s  # largest C_Q^2 step between sub-samples
+    k_crit = max(2, math.ceil((s_hi - s_lo) / delta_s))
     slope = np.maximum(np.abs(np.gradient(gmin_t, eta_t)), np.abs(np.gradient(gmax_t, eta_t)))
     scale_hi = a * (c_hi * 1e6) ** 2 / (2 * larmor_hz)
     density = scale_hi * slope + 1e-9 * fraction * resolution_hz
     t_table = np.concatenate([[0.0], np.cumsum(0.5 * (density[1:] + density[:-1]) * np.diff(eta_t))])
     t_span = float(np.diff(np.interp([e_lo, e_hi], eta_t, t_table))[0])
     m_crit = max(2, math.ceil(t_span / (fraction * resolution_hz)))
-    if k_crit * m_crit > max_nodes:
+    # nodes: equally spaced, NODES_PER_SIGMA per smallest sigma in C_Q (within the limits), eta fixed count
+    k_min, k_max, m_nodes = node_limits
+    s_res = max(sigma_min, (c_hi - c_lo) / (NODES_PER_SIGMA * (k_max - 1)))
+    k = int(min(k_max, max(k_min, math.ceil(NODES_PER_SIGMA * (c_hi - c_lo) / s_res) + 1)))
+    cq_nodes = np.linspace(c_lo, c_hi, k)
+    m = m_nodes
+    eta_nodes = np.linspace(e_lo, e_hi, m)
+    h_c = (c_hi - c_lo) / (k - 1)
+    h_e = (e_hi - e_lo) / (m - 1)
+    # C_Q sub-samples: the criterion's (uniform in C_Q^2), gaps wider than half a node spacing filled
+    s_pts = s_lo + (np.arange(k_crit) + 0.5) * (s_hi - s_lo) / k_crit
+    cq_samples = _fill_gaps(np.sqrt(s_pts), c_lo, c_hi, 0.5 * h_c)
+    cq_q = _voronoi_widths(cq_samples, c_lo, c_hi)
+    # eta sub-samples: the criterion's (uniform in edge motion), gaps wider than half a node spacing filled
+    _, fine_nodes = _uniform_in_measure(t_table, eta_t, e_lo, e_hi, m_crit)
+    eta_samples = _fill_gaps(fine_nodes, e_lo, e_hi, 0.5 * h_e)
+    eta_q = _voronoi_widths(eta_samples, e_lo, e_hi)
+    total = len(cq_samples) * len(eta_samples)
+    if total > max_nodes:
         raise DistributionError(
-            f"the kernel grid would need {k_crit} x {m_crit} = {k_crit * m_crit} line shapes (C_Q up to {c_hi:.3g} "
-            f"MHz; each pattern edge may move at most {fraction:g} x {resolution_hz:.4g} Hz between neighbours), more "
-            f"than the limit {max_nodes}")
-    k = min(k_crit, max_cells[0])
-    j = math.ceil(k_crit / k)
-    s_edges = np.linspace(s_lo, s_hi, k + 1)
-    sub = s_edges[:-1, None] + (np.arange(j)[None, :] + 0.5) / j * (s_edges[1] - s_edges[0])
-    cq_samples = np.sqrt(sub)
-    cq_edges = np.sqrt(s_edges)
-    cq_nodes = np.sqrt(0.5 * (s_edges[1:] + s_edges[:-1]))
-    fine_edges, fine_nodes = _uniform_in_measure(t_table, eta_t, e_lo, e_hi, m_crit)
-    m = min(m_crit, max_cells[1])
-    cut = np.round(np.linspace(0, m_crit, m + 1)).astype(int)
-    eta_edges = fine_edges[cut]
-    samples, weights = [], []
-    for q in range(m):
-        nodes = fine_nodes[cut[q]:cut[q + 1]]
-        widths = np.diff(fine_edges[cut[q]:cut[q + 1] + 1])
-        samples.append(nodes.copy())
-        weights.append(widths / widths.sum())
-    eta_nodes = 0.5 * (eta_edges[1:] + eta_edges[:-1])
-    return KernelGrid(dist_kind, cq_edges, cq_nodes, eta_edges, eta_nodes, cq_samples, tuple(samples),
-                      tuple(weights), None, float(resolution_hz), float(fraction), (int(k_crit), int(m_crit)),
-                      float(tail))
+            f"the kernel grid would need {len(cq_samples)} x {len(eta_samples)} = {total} line shapes (C_Q up to "
+            f"{c_hi:.3g} MHz; each pattern edge may move at most {fraction:g} x {resolution_hz:.4g} Hz between "
+            f"neighbours), more than the limit {max_nodes}")
+    cl, cwl, cwr = _hat_shares(cq_samples, cq_q, cq_nodes)
+    el, ewl, ewr = _hat_shares(eta_samples, eta_q, eta_nodes)
+    return KernelGrid(dist_kind, cq_nodes, eta_nodes, cq_samples, cl, cwl, cwr, eta_samples, el, ewl, ewr, None,
+                      float(resolution_hz), float(fraction), (int(k_crit), int(m_crit)), float(tail),
+                      float(s_res))
 
 
 def plan_grid(dist: EfgDistribution, spin: float, larmor_hz: float, resolution_hz: float, *,
-              sigma_max_mhz: float | None = None, cq0_range_mhz=None, eta0_range=None, experiment: str = "mas",
-              fraction: float = GRID_FRACTION, tail_mass: float = TAIL_MASS,
-              max_cells: tuple = (MAX_CQ_CELLS, MAX_ETA_CELLS), max_nodes: int = MAX_GRID_NODES) -> KernelGrid:
-    """The cells and sub-samples of a distribution's kernel grid (the spacing criterion of the module docstring).
+              sigma_max_mhz: float | None = None, sigma_min_mhz: float | None = None, cq0_range_mhz=None,
+              eta0_range=None, experiment: str = "mas", fraction: float = GRID_FRACTION, tail_mass: float = TAIL_MASS,
+              max_nodes: int = MAX_GRID_NODES, node_limits: tuple = (MIN_CQ_NODES, MAX_CQ_NODES, ETA_NODES)
+              ) -> KernelGrid:
+    """The nodes and sub-samples of a distribution's kernel grid (the criterion of the module docstring).
 
     Parameters
     ----------
@@ -710,8 +821,10 @@ def plan_grid(dist: EfgDistribution, spin: float, larmor_hz: float, resolution_h
         nu0 (Hz).
     resolution_hz : float
         max(axis step, smallest total broadening FWHM) (Hz).
-    sigma_max_mhz : float, optional
-        Largest sigma the grid must hold (default the distribution's own).
+    sigma_max_mhz, sigma_min_mhz : float, optional
+        Largest sigma the grid must hold (its extent) and smallest it must
+        resolve (its node spacing: :data:`NODES_PER_SIGMA` nodes per sigma);
+        default the distribution's own.
     cq0_range_mhz, eta0_range : (float, float), optional
         Ranges of the fixed tensor of the extended model (default its values).
     experiment : {"mas", "static"}
@@ -720,10 +833,10 @@ def plan_grid(dist: EfgDistribution, spin: float, larmor_hz: float, resolution_h
         Largest edge move between neighbouring sub-samples / resolution.
     tail_mass : float
         Probability left outside the grid.
-    max_cells : (int, int)
-        Most cells in C_Q and in eta.
     max_nodes : int
-        Refuse criterion grids with more sub-samples than this.
+        Refuse grids with more sub-samples than this.
+    node_limits : (int, int, int)
+        Fewest and most C_Q nodes, and the number of eta nodes.
 
     Returns
     -------
@@ -743,20 +856,24 @@ def plan_grid(dist: EfgDistribution, spin: float, larmor_hz: float, resolution_h
     --------
     >>> g = plan_grid(EfgDistribution("czjzek", 2.0), 2.5, 104.26e6, 200.0)
     >>> g.shape, g.criterion_shape
-    ((48, 16), (157, 32))
+    ((30, 17), (157, 32))
+    >>> plan_grid(EfgDistribution("czjzek", 2.0), 2.5, 104.26e6, 200.0, sigma_min_mhz=1.0).shape
+    (59, 17)
     """
     if dist.kind == "explicit":
         explicit = (dist.cq_values_mhz, dist.cq_weights, dist.eta_values, dist.eta_weights)
-        return _plan_cached("explicit", 0.0, 0.0, 0.0, 0.0, (), (), "", 0.0, 0.0, (), 0, explicit)
+        return _plan_cached("explicit", 0.0, 0.0, 0.0, 0.0, 0.0, (), (), "", 0.0, 0.0, 0, (), explicit)
     smax = float(dist.sigma_mhz if sigma_max_mhz is None else sigma_max_mhz)
+    smin = float(dist.sigma_mhz if sigma_min_mhz is None else sigma_min_mhz)
     if not smax > 0:
         raise DistributionError("czjzek_sigma_mhz: the grid needs a sigma > 0 (or a free sigma with max > 0)")
     cr = tuple(float(x) for x in (cq0_range_mhz or (dist.cq0_mhz, dist.cq0_mhz)))
     er = tuple(float(x) for x in (eta0_range or (dist.eta0, dist.eta0)))
     if dist.kind == "czjzek":
         cr, er = (0.0, 0.0), (0.0, 0.0)
-    return _plan_cached(dist.kind, float(spin), float(larmor_hz), float(resolution_hz), smax, cr, er, experiment,
-                        float(fraction), float(tail_mass), tuple(max_cells), int(max_nodes), None)
+    return _plan_cached(dist.kind, float(spin), float(larmor_hz), float(resolution_hz), smax, max(0.0, min(smin, smax)),
+                        cr, er, experiment, float(fraction), float(tail_mass), int(max_nodes), tuple(node_limits),
+                        None)
 
 
 def oversampling(axis_step_hz: float, min_fwhm_hz: float) -> int:
@@ -975,7 +1092,7 @@ class KernelSet:
     oversampling : int
         Output step / kernel step.
     matrix : numpy.ndarray (K*M, points)
-        Row ``j * K + i`` is cell (C_Q i, eta j).
+        Row ``j * K + i`` is node (C_Q i, eta j).
     path : {"scaled", "direct"}
     method : str
     orientations : str
@@ -1083,25 +1200,44 @@ def _span_cached(path, cq_extent, eta_extent, template_site, meas, nucleus, expe
 
 
 @functools.lru_cache(maxsize=64)
-def _method_cached(template_site, label, meas, nucleus, c_hi, eta_extent, half_step_hz):
-    """The producer of a distributed site: exact if perturbation theory fails at the largest C_Q."""
+def _method_cached(template_site, label, meas, nucleus, c_ref, c4_ratio, eta_extent, half_step_hz):
+    """The producer of a distributed site for ``method = "auto"``.
+
+    The CT error of second-order perturbation theory grows as C_Q^4 (design notes,
+    section 2), so over the distribution its intensity-weighted mean is the error at
+    ``c_ref`` times ``c4_ratio = <C_Q^4> / c_ref^4``.  The exact route is chosen when
+    that mean exceeds half an axis point: the few crystallites far out in the tail move
+    by more, but they carry little intensity spread over a wide range.
+    """
+    from .frequencies import perturbation_error_hz, site_frame
+
+    worst = 0.0
+    m_upper = selected_transitions(nucleus.spin, meas.transitions)
     for e in (eta_extent[0], eta_extent[1]):
-        s = replace(template_site, label=label, cq_mhz=min(c_hi, 1e3), eta_q=e)
-        method, note = choose_method(s, meas, nucleus, half_step_hz)
-        if method == "exact":
-            return "exact", note.replace("second-order", "at the largest C_Q of the distribution, second-order")
+        site = replace(template_site, label=label, cq_mhz=min(c_ref, 1e3), eta_q=e)
+        frame = site_frame(site, nucleus, meas.field_tesla)
+        if meas.is_static:
+            err = perturbation_error_hz(frame, m_upper)
+        else:
+            err = perturbation_error_hz(frame, m_upper, rotor_angle_rad=math.radians(meas.rotor_angle_deg), phases=8)
+        worst = max(worst, err)
+    mean_err = worst * c4_ratio
+    if mean_err > half_step_hz:
+        return "exact", (f"site '{label}': second-order perturbation theory is off by {mean_err:.3g} Hz on average "
+                         f"over the C_Q distribution ({worst:.3g} Hz at C_Q = {c_ref:.3g} MHz), more than half a "
+                         f"point ({half_step_hz:.3g} Hz); using exact diagonalisation for every kernel")
     return "perturbation", ""
 
 
-def _scaled_hat_shares(s, first, step, a, b, u0, du, cdf, g_edges) -> np.ndarray:
-    """Hat shares at kernel points a <= m < b of a unit pattern scaled by each s, averaged over s.
+def _scaled_hat_shares(s, weights, first, step, a, b, u0, du, cdf, g_edges) -> np.ndarray:
+    """Weighted sums of the hat shares at kernel points a <= m < b of a unit pattern scaled by each s.
 
     The unit pattern has the cumulative function ``cdf`` (piecewise linear on the unit
     edges ``u0 + j du``) with integral ``G`` (``g_edges`` at the edges, piecewise
     quadratic between).  Scaled by s, the pattern's cumulative function is F(f) =
     cdf(f / s) and the integral of F is s G(f / s); the share of point c (hat of
-    half-width ``step``) is the second difference ``s [G((c+h)/s) - 2 G(c/s) +
-    G((c-h)/s)] / h`` with h = ``step`` (hat = box * box).
+    half-width h = ``step``) is the second difference ``s [G((c+h)/s) - 2 G(c/s) +
+    G((c-h)/s)] / h`` (hat = box * box).  ``weights`` (R, len(s)) combine the samples.
     """
     pos = first + (np.arange(a - 1, b + 1) + 0.5) * step            # points a-1 .. b
     x = pos[None, :] / s[:, None]
@@ -1114,7 +1250,7 @@ def _scaled_hat_shares(s, first, step, a, b, u0, du, cdf, g_edges) -> np.ndarray
     top = u0 + n * du
     g = np.where(x >= top, g_edges[-1] + (x - top) * cdf[-1], g)
     shares = s[:, None] * (g[:, 2:] - 2.0 * g[:, 1:-1] + g[:, :-2]) / step
-    return shares.mean(axis=0)
+    return np.einsum("rl,lp->rp", weights, shares)
 
 
 class DistributedSite:
@@ -1183,6 +1319,9 @@ class DistributedSite:
             c_lo, c_hi, e_lo, e_hi = _extent(self.dist, self.sigma_range[1], self.cq0_range, self.eta0_range,
                                              TAIL_MASS)
             self.cq_extent, self.eta_extent = (c_lo, c_hi), (e_lo, e_hi)
+        # "auto" weighs the perturbative error (growing as C_Q^4) over the distribution
+        self.cq_for_method = self.cq_extent[1]
+        self.c4_ratio = _c4_ratio(self.dist, self.sigma_range[1], self.cq0_range, self.eta0_range, self.cq_extent[1])
         self.notes += check_high_field([Site(label=site.label, cq_mhz=min(self.cq_extent[1], 1e3))], nuc,
                                        meas.field_tesla,
                                        allow_strong_coupling=allow_strong_coupling)
@@ -1247,7 +1386,8 @@ class DistributedSite:
             self.method = meas.method
         else:
             self.method, note = _method_cached(self._template_site, self.label, meas, self.nucleus,
-                                               float(self.cq_extent[1]), tuple(self.eta_extent), 0.5 * axis.dx_hz)
+                                               float(self.cq_for_method), float(self.c4_ratio),
+                                               tuple(self.eta_extent), 0.5 * axis.dx_hz)
             if note:
                 self.notes.append(note)
         if self.method == "exact":
@@ -1256,14 +1396,14 @@ class DistributedSite:
 
     # -- the grid and kernels
 
-    def grid(self, axis: Axis, *, fraction: float = GRID_FRACTION, max_cells=(MAX_CQ_CELLS, MAX_ETA_CELLS),
+    def grid(self, axis: Axis, *, fraction: float = GRID_FRACTION, node_limits=None,
              max_nodes: int | None = None) -> KernelGrid:
         """Plan the kernel grid for an output axis (resolution = max(axis step, smallest broadening)).
 
         Parameters
         ----------
         axis : Axis
-        fraction, max_cells, max_nodes
+        fraction, node_limits, max_nodes
             As :func:`plan_grid` (``max_nodes`` defaults by path).
 
         Returns
@@ -1280,25 +1420,31 @@ class DistributedSite:
         res = max(axis.dx_hz, self.min_fwhm_hz())
         limit = max_nodes if max_nodes is not None else (MAX_GRID_NODES if self.path == "scaled"
                                                           else MAX_DIRECT_KERNELS)
+        limits = node_limits if node_limits is not None else (MIN_CQ_NODES, MAX_CQ_NODES, ETA_NODES)
         try:
             g = plan_grid(self.dist, self.nucleus.spin, self.nu_ref, res, sigma_max_mhz=self.sigma_range[1],
-                          cq0_range_mhz=self.cq0_range, eta0_range=self.eta0_range, experiment=self.experiment,
-                          fraction=fraction, max_cells=max_cells, max_nodes=limit)
+                          sigma_min_mhz=self.sigma_range[0], cq0_range_mhz=self.cq0_range,
+                          eta0_range=self.eta0_range, experiment=self.experiment, fraction=fraction,
+                          max_nodes=limit, node_limits=limits)
         except DistributionError as e:
-            free = "the upper bound of a free czjzek_sigma_mhz, " if self.sigma_range[1] > self.sigma_range[0] else ""
+            free = ("lower the upper bound of the free czjzek_sigma_mhz" if self.sigma_range[1] > self.sigma_range[0]
+                    else "lower czjzek_sigma_mhz")
             raise ModelError(
                 f"site '{self.label}': {e}; the resolution {res:.4g} Hz is the larger of the axis step and the "
                 "smallest broadening the site can have (lorentz_hz + gauss_hz with shift_fwhm_ppm, lower bounds if "
-                f"free): raise that broadening or its lower bound, lower {free}czjzek_sigma_mhz"
-                + ("" if self.path == "scaled" else ", or use spinning_hz = \"inf\" or static without shift "
+                f"free): raise that broadening or its lower bound, or {free}"
+                + ("" if self.path == "scaled" else ", or use spinning_hz = \"inf\" or a static sample without shift "
                    "anisotropy (the fast scaled path)")) from None
-        if g.kind != "explicit" and self.path == "direct" and g.line_shapes > limit:
-            raise ModelError(f"site '{self.label}': the kernel grid needs {g.line_shapes} line shapes, more than "
-                             f"{limit} on this path; raise the smallest broadening or use spinning_hz = \"inf\"")
+        if g.kind != "explicit" and g.sigma_resolved_mhz > self.sigma_range[0] * (1 + 1e-9):
+            note = (f"site '{self.label}': the kernel grid spaces its C_Q nodes for sigma >= "
+                    f"{g.sigma_resolved_mhz:.3g} MHz; below that (czjzek_sigma_mhz down to {self.sigma_range[0]:g}) "
+                    "the distribution is represented coarsely: narrow the czjzek_sigma_mhz range")
+            if note not in self.notes:
+                self.notes.append(note)
         return g
 
     def kernels(self, axis: Axis, store: KernelStore, *, progress=None, fraction: float = GRID_FRACTION,
-                max_cells=(MAX_CQ_CELLS, MAX_ETA_CELLS)) -> KernelSet:
+                node_limits=None) -> KernelSet:
         """Fetch or build the kernel set for an output axis.
 
         Parameters
@@ -1307,14 +1453,14 @@ class DistributedSite:
         store : KernelStore
         progress : callable, optional
             ``progress(done, total)`` in line shapes while kernels are built.
-        fraction, max_cells
+        fraction, node_limits
             As :func:`plan_grid`.
 
         Returns
         -------
         KernelSet
         """
-        grid = self.grid(axis, fraction=fraction, max_cells=max_cells)
+        grid = self.grid(axis, fraction=fraction, node_limits=node_limits)
         q = oversampling(axis.dx_hz, self.min_fwhm_hz())
         first, step, n = _kernel_axis(axis, q, self.shift_range_hz(), self.span_hz())
         template = site_job(self._template_site, self.meas, self.nucleus, self.method)
@@ -1326,53 +1472,72 @@ class DistributedSite:
         k, m = grid.shape
         kaxis = Axis(first + 0.5 * n * step, n * step, n, self.nu_ref)
         matrix = np.zeros((m * k, n))
+        n_cq = len(grid.cq_samples_mhz)
+        groups = [np.flatnonzero(grid.eta_left == jl) for jl in range(m)]
         total = grid.line_shapes
         done = [0]
-        rows_key_base = {
-            "what": "powderspin distributed-site kernel row",
+        base_key = {
+            "what": "powderspin distributed-site kernel entry",
             "scheme": KERNEL_SCHEME,
             "path": self.path,
             "job": template.key(),
+            "cq_nodes_mhz": grid.cq_mhz.tolist(),
             "cq_samples_mhz": grid.cq_samples_mhz.tolist(),
+            "cq_weights": [grid.cq_w_left.tolist(), grid.cq_w_right.tolist()],
             "axis": {"center_hz": kaxis.center_hz, "width_hz": kaxis.width_hz, "points": n,
                      "nu_ref_hz": self.nu_ref},
             "binning": self.meas.binning,
         }
         if self.path == "scaled":
-            rows_key_base["unit"] = {"cq_mhz": UNIT_CQ_MHZ, "oversampling": UNIT_OVERSAMPLING}
-        for jc in range(m):
-            key = dict(rows_key_base, eta_samples=grid.eta_samples[jc].tolist(),
-                       eta_sample_weights=grid.eta_sample_weights[jc].tolist())
+            base_key["unit"] = {"cq_mhz": UNIT_CQ_MHZ, "oversampling": UNIT_OVERSAMPLING}
+        for jl, idx in enumerate(groups):
+            if idx.size == 0:
+                continue
+            key = dict(base_key, eta_nodes=[float(grid.eta[jl]), float(grid.eta[min(jl + 1, m - 1)])],
+                       eta_samples=grid.eta_samples[idx].tolist(),
+                       eta_weights=[grid.eta_w_left[idx].tolist(), grid.eta_w_right[idx].tolist()])
 
-            def build(jc=jc):
-                rows = self._build_row(grid, jc, template, kaxis, store, progress, done, total)
-                return _trimmed(rows)
+            def build(idx=idx):
+                left, right = self._build_entry(grid, idx, template, kaxis, store, progress, done, total)
+                out = {"left_" + k_: v for k_, v in _trimmed(left).items()}
+                out.update({"right_" + k_: v for k_, v in _trimmed(right).items()})
+                return out
 
-            arrays = store.row(key, build, description=f"kernel row {jc + 1}/{m} of site '{self.label}' "
-                                                       f"({self.dist.describe()})")
-            matrix[jc * k:(jc + 1) * k] = _untrimmed(arrays, k, n)
+            arrays = store.row(key, build, description=f"kernels of eta nodes {jl + 1}-{min(jl + 2, m)} of {m}, "
+                                                       f"site '{self.label}' ({self.dist.describe()})")
+            matrix[jl * k:(jl + 1) * k] += _untrimmed({k_[5:]: v for k_, v in arrays.items()
+                                                       if k_.startswith("left_")}, k, n)
+            if jl + 1 < m:
+                matrix[(jl + 1) * k:(jl + 2) * k] += _untrimmed({k_[6:]: v for k_, v in arrays.items()
+                                                                 if k_.startswith("right_")}, k, n)
             if progress is not None:
-                done[0] = max(done[0], sum(grid.cq_samples_mhz.size * len(grid.eta_samples[x]) for x in range(jc + 1)))
+                done[0] = max(done[0], n_cq * int(sum(g.size for g in groups[:jl + 1])))
                 progress(done[0], total)
+        norm = np.outer(grid.eta_norms(), grid.cq_norms()).reshape(-1)
+        matrix /= np.where(norm > 0, norm, 1.0)[:, None]
         kset = KernelSet(grid, first, step, n, q, matrix, self.path, self.method, template.orientations)
         store._remember(memo_key, kset, matrix.nbytes)
         return kset
 
-    def _build_row(self, grid: KernelGrid, jc: int, template: SiteJob, kaxis: Axis, store: KernelStore, progress,
-                   done: list, total: int) -> np.ndarray:
+    def _build_entry(self, grid: KernelGrid, idx: np.ndarray, template: SiteJob, kaxis: Axis, store: KernelStore,
+                     progress, done: list, total: int) -> tuple[np.ndarray, np.ndarray]:
+        """Un-normalised kernel sums of the eta sub-samples ``idx`` for their left and right eta nodes."""
         k = grid.shape[0]
-        rows = np.zeros((k, kaxis.points))
-        cq_sub = grid.cq_samples_mhz
-        nsub = cq_sub.shape[1]
-        edges = kaxis.left_edge_hz + np.arange(kaxis.points + 1) * kaxis.dx_hz
-        for eta, w_eta in zip(grid.eta_samples[jc], grid.eta_sample_weights[jc]):
+        left = np.zeros((k, kaxis.points))
+        right = np.zeros((k, kaxis.points))
+        cq = grid.cq_samples_mhz
+        cl, cwl, cwr = grid.cq_left, grid.cq_w_left, grid.cq_w_right
+        blocks = [np.flatnonzero(cl == i) for i in range(k)]
+        for e_i in idx:
+            eta = float(grid.eta_samples[e_i])
+            wl_e, wr_e = float(grid.eta_w_left[e_i]), float(grid.eta_w_right[e_i])
+            acc = np.zeros((k, kaxis.points))  # this eta sub-sample's sums for each C_Q node
             if self.path == "scaled":
-                job = replace(template, cq_mhz=UNIT_CQ_MHZ, eta_q=float(eta))
+                job = replace(template, cq_mhz=UNIT_CQ_MHZ, eta_q=eta)
                 lines = compute_lines(job)
                 store.stats.producer_calls += 1
-                u_lo, u_hi = lines.frequency_range()
-                u_lo, u_hi = u_lo / UNIT_CQ_MHZ ** 2, u_hi / UNIT_CQ_MHZ ** 2
-                s_max = float(np.max(cq_sub)) ** 2
+                u_lo, u_hi = (x / UNIT_CQ_MHZ ** 2 for x in lines.frequency_range())
+                s_max = float(cq.max()) ** 2
                 span = max(u_hi - u_lo, 1e-12)
                 nu = int(min(MAX_UNIT_POINTS, max(64, math.ceil(span * s_max * UNIT_OVERSAMPLING / kaxis.dx_hz) + 4)))
                 du = span * (1 + 4.0 / nu) / nu
@@ -1380,37 +1545,46 @@ class DistributedSite:
                 frac = render_lines(lines, uaxis, binning=self.meas.binning, cutoff=BIN_CUTOFF).intensity \
                     * uaxis.dx_ppm
                 cdf = np.concatenate([[0.0], np.cumsum(frac)])  # unit pattern, uniform within each unit bin
-                u0, du = uaxis.left_edge_hz / UNIT_CQ_MHZ ** 2, uaxis.dx_hz / UNIT_CQ_MHZ ** 2
-                g_edges = np.concatenate([[0.0], np.cumsum(0.5 * (cdf[1:] + cdf[:-1]) * du)])
+                u0, du_ = uaxis.left_edge_hz / UNIT_CQ_MHZ ** 2, uaxis.dx_hz / UNIT_CQ_MHZ ** 2
+                g_edges = np.concatenate([[0.0], np.cumsum(0.5 * (cdf[1:] + cdf[:-1]) * du_)])
                 step, first = kaxis.dx_hz, kaxis.left_edge_hz
-                for i in range(k):
-                    s = np.maximum(cq_sub[i] ** 2, 1e-300)
+                for i, b in enumerate(blocks):
+                    if b.size == 0:
+                        continue
+                    s = np.maximum(cq[b] ** 2, 1e-300)
                     lo = min(s.min() * u_lo, s.max() * u_lo)
                     hi = max(s.min() * u_hi, s.max() * u_hi)
-                    a = max(0, math.floor((lo - first) / step - 0.5) - 1)
-                    b = min(kaxis.points, math.ceil((hi - first) / step - 0.5) + 2)
-                    if b <= a:  # this cell's lines lie outside the kernel window
+                    a0 = max(0, math.floor((lo - first) / step - 0.5) - 1)
+                    b0 = min(kaxis.points, math.ceil((hi - first) / step - 0.5) + 2)
+                    if b0 <= a0:  # these sub-samples' lines lie outside the kernel window
                         continue
-                    rows[i, a:b] += w_eta * _scaled_hat_shares(s, first, step, a, b, u0, du, cdf, g_edges)
-                store.stats.line_shapes += cq_sub.size
-                done[0] += cq_sub.size
+                    w2 = np.stack([cwl[b], cwr[b]])
+                    part = _scaled_hat_shares(s, w2, first, step, a0, b0, u0, du_, cdf, g_edges)
+                    acc[i, a0:b0] += part[0]
+                    if i + 1 < k:
+                        acc[i + 1, a0:b0] += part[1]
+                store.stats.line_shapes += len(cq)
+                done[0] += len(cq)
                 if progress is not None:
                     progress(done[0], total)
             else:
-                for i in range(k):
-                    acc = np.zeros(kaxis.points)
-                    for c in cq_sub[i]:
-                        job = replace(template, cq_mhz=float(c), eta_q=float(eta))
+                for i, b in enumerate(blocks):
+                    for l_ in b:
+                        job = replace(template, cq_mhz=float(cq[l_]), eta_q=eta)
                         lines = compute_lines(job)
                         store.stats.producer_calls += 1
                         store.stats.line_shapes += 1
-                        acc += render_lines(lines, kaxis, binning=self.meas.binning, cutoff=BIN_CUTOFF).intensity \
+                        y = render_lines(lines, kaxis, binning=self.meas.binning, cutoff=BIN_CUTOFF).intensity \
                             * kaxis.dx_ppm
-                    rows[i] += w_eta * acc / nsub
-                    done[0] += nsub
+                        acc[i] += cwl[l_] * y
+                        if i + 1 < k:
+                            acc[i + 1] += cwr[l_] * y
+                    done[0] += b.size
                     if progress is not None:
                         progress(done[0], total)
-        return rows
+            left += wl_e * acc
+            right += wr_e * acc
+        return left, right
 
     def render(self, axis: Axis, *, shift_hz: float, store: KernelStore, weight: float | None = None,
                lorentz_hz: float | None = None, gauss_hz: float | None = None, progress=None) -> RenderedSite:
@@ -1461,7 +1635,7 @@ class DistributedSite:
         ks = getattr(self, "kernel_set", None)
         if ks is not None:
             g = ks.grid
-            text += (f"; kernel grid {g.shape[0]} x {g.shape[1]} cells ({g.line_shapes} line shapes, {ks.path} path, "
+            text += (f"; kernel grid {g.shape[0]} x {g.shape[1]} nodes ({g.line_shapes} line shapes, {ks.path} path, "
                      f"kernel step {ks.step_hz:.4g} Hz)")
             if g.kind != "explicit":
                 text += f"; criterion: pattern edges move <= {g.fraction:g} x {g.resolution_hz:.4g} Hz"

@@ -46,7 +46,6 @@ from powderspin.disorder import (
     plan_grid,
 )
 from powderspin.distributions import (
-    czjzek_cell_mass,
     efg_from_components,
     principal_cq_eta,
     quadrupolar_induced_shift_ppm,
@@ -226,15 +225,15 @@ def _kernel_spectrum(model, axis, store, **kw):
 
 @pytest.mark.parametrize("spinning, sigma, gauss", [("inf", 2.0, 150.0), (0, 1.5, 500.0)])
 def test_grid_converges_under_refinement(spinning, sigma, gauss):
-    # Halving the edge-move fraction and doubling the cells changes the spectrum by far less than
+    # Halving the edge-move fraction and doubling the nodes changes the spectrum by far less than
     # the 0.5 % (of the maximum, RMS) this test allows.
     m = ps.make_model("27Al", {"field_tesla": 9.4, "spinning_hz": spinning},
                       [{"czjzek_sigma_mhz": sigma, "gauss_hz": gauss, "shift_ppm": 3.3}])
     ax = make_axis(512, m.larmor_hz, center_ppm=-10.0, width_ppm=160.0 if spinning == "inf" else 300.0)
     store = KernelStore(None)
     y0, k0 = _kernel_spectrum(m, ax, store)
-    y1, k1 = _kernel_spectrum(m, ax, store, fraction=0.25, max_cells=(96, 32))
-    print(f"grid {k0.grid.shape} cells, criterion {k0.grid.criterion_shape}; refined {k1.grid.shape}, "
+    y1, k1 = _kernel_spectrum(m, ax, store, fraction=0.25, node_limits=(48, 320, 33))
+    print(f"grid {k0.grid.shape} nodes, criterion {k0.grid.criterion_shape}; refined {k1.grid.shape}, "
           f"{k1.grid.criterion_shape}; change {_rms(y0, y1):.2e}")
     assert k1.grid.criterion_shape[0] >= 2 * k0.grid.criterion_shape[0] - 1
     assert _rms(y0, y1) < 5e-3
@@ -256,19 +255,26 @@ def test_scaled_path_equals_direct_path():
     assert _rms(ys[0], ys[1]) < 1e-5
 
 
-def test_grid_nodes_follow_the_criterion_and_the_weights_are_cell_masses():
+def test_grid_follows_the_criterion_and_its_weights_the_czjzek_moments():
     d = EfgDistribution("czjzek", 2.0)
     g = plan_grid(d, 2.5, 104.26e6, 200.0)
-    # criterion grid of distributions.czjzek_grid at the same resolution (the same spacing rule)
+    # the same spacing rule as distributions.czjzek_grid at the same resolution
     from powderspin.distributions import czjzek_grid
 
     ref_grid = czjzek_grid(2.0, 2.5, 104.26e6, 200.0)
     assert g.criterion_shape == ref_grid.shape
-    s = g.cq_samples_mhz.ravel() ** 2
-    assert np.max(np.diff(np.sort(s))) <= (ref_grid.cq_edges_mhz[-1] ** 2) / ref_grid.shape[0] * (1 + 1e-9)
-    w = g.weights(d)
-    mass = czjzek_cell_mass(g.cq_edges_mhz, g.eta_edges, 2.0)
-    np.testing.assert_allclose(w, mass / mass.sum(), rtol=1e-12)
+    s = np.concatenate([[0.0], np.sort(g.cq_samples_mhz) ** 2])
+    assert np.max(np.diff(s)) <= ref_grid.cq_edges_mhz[-1] ** 2 / ref_grid.shape[0] * (1 + 1e-9)
+    h = g.cq_mhz[1] - g.cq_mhz[0]
+    assert np.max(np.diff(np.concatenate([[g.cq_mhz[0]], g.cq_samples_mhz, [g.cq_mhz[-1]]]))) <= 0.5 * h + 1e-12
+    # <P_Q^2> = 5 sigma^2 (five component variances; Czjzek 1981) from the node weights, for the sigma the
+    # grid was made for and for a smaller one on the same grid (the tail left out holds 1e-4 of the mass)
+    g2 = plan_grid(d, 2.5, 104.26e6, 200.0, sigma_min_mhz=0.8)
+    for sigma in (2.0, 1.3, 0.8):
+        w = g2.weights(EfgDistribution("czjzek", sigma))
+        pq2 = float((w * g2.cq_mhz[:, None] ** 2 * (1 + g2.eta[None, :] ** 2 / 3)).sum())
+        assert w.sum() == pytest.approx(1.0) and (w >= 0).all()
+        assert pq2 == pytest.approx(5 * sigma**2, rel=1e-3)
     # extended weights: seeded tensors; their principal values from the closed form agree with eigvalsh
     u = np.random.default_rng(3).normal(size=(5000, 5)) * 1.3 + [3.0, 0.2, 0, 0, 0]
     c1, e1 = _principal_cq_eta_fast(u)
