@@ -130,12 +130,12 @@ from scipy import optimize
 from .cache import LineshapeLibrary, canonical_key_json, default_library_path
 from .distributions import (
     DistributionError,
-    czjzek_pdf,
     _g_table,
     _uniform_in_measure,
     ct_edges_hz,
     ct_spin_factor,
     czjzek_cq_cdf,
+    czjzek_pdf,
 )
 from .lineshape import Axis, broaden
 from .model import Model, ModelError, Site, selected_transitions
@@ -145,7 +145,6 @@ from .site_lines import (
     RenderedSite,
     SiteJob,
     check_high_field,
-    choose_method,
     compute_lines,
     estimate_span_hz,
     render_lines,
@@ -154,14 +153,14 @@ from .site_lines import (
 from .tensors import ShiftTensor
 
 __all__ = [
+    "ETA_NODES",
     "GRID_FRACTION",
     "MAX_CQ_NODES",
     "MAX_DIRECT_KERNELS",
-    "MIN_CQ_NODES",
-    "NODES_PER_SIGMA",
-    "ETA_NODES",
     "MAX_GRID_NODES",
     "MAX_OVERSAMPLING",
+    "MIN_CQ_NODES",
+    "NODES_PER_SIGMA",
     "DistributedSite",
     "EfgDistribution",
     "KernelGrid",
