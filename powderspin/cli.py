@@ -254,9 +254,11 @@ class _FitProgress:
             common = dict(delay=1.0, leave=False, file=sys.stderr, disable=None)  # None: only on a terminal
             if stage == "posterior":
                 self.bar = tqdm(total=int(value), desc="posterior", unit="steps", **common)
+            elif stage == "kernels":
+                self.bar = tqdm(total=int(value), desc="kernel grid", unit="line shapes", **common)
             else:
                 self.bar = tqdm(desc="fit", unit="evaluations", **common)
-        if stage != "posterior":
+        if stage not in ("posterior", "kernels"):
             self.bar.set_postfix_str(f"chi-square {value:.6g}", refresh=False)
         if done > self.bar.n:
             self.bar.update(done - self.bar.n)
@@ -296,7 +298,7 @@ def _run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool):
         result = fit(model, data, regions=regions, noise_region=noise, axis=args.axis,
                      global_search=args.global_search, starts=args.starts, seed=args.seed,
                      posterior=args.posterior, walkers=args.walkers, steps=args.steps, burn=args.burn,
-                     progress=progress)
+                     progress=progress, kernel_store=_kernel_store(args))
     finally:
         progress.close()
     written = []
