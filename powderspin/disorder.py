@@ -942,12 +942,16 @@ class KernelStore:
         The persistent library (None: memory only, as ``--no-cache``).
     memory_bytes : int, optional
         Bytes of kernels kept in memory.
-    build_threads : int or None, optional
-        Threads of the compiled kernels while kernel rows are built (default
-        1; None leaves numba's setting).  A grid is many small computations,
-        for which thread start-up and synchronisation cost more than they
-        save, above all on a busy machine (``benchmarks/bench_disorder.py``
-        measures both).
+    build_threads : int, "auto" or None, optional
+        Threads of the compiled kernels while kernels are built.  ``"auto"``
+        (default): all of numba's threads when the machine is otherwise idle
+        (1-minute load average below the number of cores less one half), else
+        1; None leaves numba's setting.  A grid is many small computations: on
+        an idle 2-core machine two threads built a 40 x 20 grid 1.5 times
+        faster than one, but on a busy machine (other processes on both cores)
+        they made it 3-4 times slower, because each small parallel call waits
+        for a descheduled thread (``benchmarks/bench_disorder.py`` measures
+        both; a pool of worker processes gained nothing).
 
     Examples
     --------
@@ -957,7 +961,7 @@ class KernelStore:
     """
 
     def __init__(self, library: LineshapeLibrary | None, *, memory_bytes: int = MEMORY_BUDGET_BYTES,
-                 build_threads: int | None = 1):
+                 build_threads: int | str | None = "auto"):
         self.library = library if (library is None or library.enabled) else None
         self.memory_bytes = int(memory_bytes)
         self.build_threads = build_threads
@@ -1032,14 +1036,30 @@ class KernelStore:
         return got
 
 
+def _auto_threads() -> int:
+    """All of numba's threads on an otherwise idle machine, else 1 (see KernelStore)."""
+    import os
+
+    import numba
+
+    cores = os.cpu_count() or 1
+    try:
+        load = os.getloadavg()[0]
+    except (AttributeError, OSError):  # no load average on this platform: the safe choice
+        return 1
+    return numba.config.NUMBA_NUM_THREADS if load < cores - 0.5 else 1
+
+
 @contextlib.contextmanager
-def _kernel_threads(n: int | None):
-    """Run the compiled kernels with ``n`` threads inside the block (None: unchanged)."""
+def _kernel_threads(n: int | str | None):
+    """Run the compiled kernels with ``n`` threads inside the block (None: unchanged; "auto": see KernelStore)."""
     if n is None:
         yield
         return
     import numba
 
+    if n == "auto":
+        n = _auto_threads()
     old = numba.get_num_threads()
     numba.set_num_threads(max(1, min(int(n), numba.config.NUMBA_NUM_THREADS)))
     try:

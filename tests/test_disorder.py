@@ -550,3 +550,17 @@ def test_bad_input(case, tmp_path, capsys):
         assert word in err, f"{word!r} not in {err!r}"
     assert not out.exists() and not (tmp_path / "lib").exists()
     assert model.read_text() == src.read_text()
+
+
+def test_readme_key_table_matches_the_schema():
+    # the README's table of the distribution keys states each key's unit and allowed range as schema.KEYS does
+    from powderspin.schema import key_spec
+
+    text = (ROOT / "README.md").read_text()
+    for key in ("shift_fwhm_ppm", "czjzek_sigma_mhz", "cq_distribution_mhz", "eta_distribution"):
+        row = next(line for line in text.splitlines() if line.startswith(f"| `{key}` |"))
+        cells = [c.strip() for c in row.strip("|").split("|")]
+        spec = key_spec("site", key)
+        assert cells[1] == spec.unit, row
+        assert cells[2].endswith(f"{spec.low:g} to {spec.high:g}"), row
+        assert (spec.free and "may be free" in cells[3]) or (not spec.free and "may be free" not in cells[3]), row
