@@ -26,7 +26,9 @@ How a fit works
   the objective does not jump between producers) and checked again at the
   end: if ``method = "auto"`` would choose otherwise at the fitted values, the
   fit is refined with the new choice, so that simulating the result file
-  gives the fitted curve.
+  gives the fitted curve.  ``orientations = "auto"`` and ``rotor_phases =
+  "auto"`` are pinned at the start to what the start values get (the
+  largest over the sites) and written to the result file.
 - **Global search** (``global_search=True``): least squares from a seeded
   scrambled Sobol set of starts within the bounds (scipy.stats.qmc; I. M.
   Sobol', USSR Comput. Math. Math. Phys. 7 (1967) 86), plus the model's own
@@ -353,7 +355,8 @@ class FitResult:
             line = f"  {n:<{w}}  {_fmt_value(v, e)}"
             if self.posterior is not None:
                 lo, hi = self.posterior.interval(n)
-                line += f"   posterior 16-84 %: [{lo:.6g}, {hi:.6g}]"
+                med = self.posterior.median[self.posterior.names.index(n)]
+                line += f"   posterior median {med:.6g}, 16-84 %: [{lo:.6g}, {hi:.6g}]"
             lines.append(line)
         head = (f"fit: reduced chi-square {self.reduced_chi_square:.4g} ({self.degrees_of_freedom} degrees of "
                 f"freedom; noise from the {self.noise_source}), {self.evaluations} evaluations, {self.time_s:.2f} s")
@@ -362,6 +365,10 @@ class FitResult:
         out = [head] + lines
         for n, (v, e) in self.derived.items():
             out.append(f"  {n:<{w}}  {_fmt_value(v, e)}   (derived)")
+        if self.posterior is not None:
+            p = self.posterior
+            out.append(f"posterior: {p.walkers} walkers x {p.steps} steps, first {p.burn} discarded; longest "
+                       f"autocorrelation time {max(p.autocorrelation_steps):.3g} steps; acceptance {p.acceptance:.2f}")
         out += [f"note: {t}" for t in self.notes]
         out += [f"warning: {t}" for t in self.warnings]
         return "\n".join(out) + "\n"
@@ -701,21 +708,37 @@ def _overlap_check(model: Model, axes, where) -> None:
                 f"{lo / nu_ref * 1e6:.6g} ppm: check the nucleus, field_tesla, shift_ppm and the data file")
 
 
-def _fixed_rotor_phases(model: Model, axes, methods, kernel_store=None) -> tuple[Model, dict]:
-    """Resolve rotor_phases = "auto" once (the largest any site needs at the start values)."""
+def _fixed_choices(model: Model, axes, methods, kernel_store=None) -> tuple[Model, dict]:
+    """Pin what a simulation would choose by itself at the start values, so the objective cannot jump.
+
+    ``orientations = "auto"`` becomes the accuracy level (subdivisions) of the
+    triangulated sets the sites got (the largest), and ``rotor_phases =
+    "auto"`` under finite-rate spinning the largest number of phases any site
+    needs.  Both are written to the result, so simulating it makes the same
+    choice.  Returns the model and the measurements whose phases were pinned.
+    """
     memo: dict = {}
-    changed = {}
+    phases = {}
     for j, meas in enumerate(model.measurements):
-        if meas.rotor_phases == "auto" and meas.spinning_hz > 0 and math.isfinite(meas.spinning_hz):
-            spec = simulate(model, measurement=j, axis=axes[j], lines_memo=memo, methods=methods[j],
-                            kernel_store=kernel_store)
-            found = [int(v) for v in spec.metadata["rotor_phases"].values()]
-            if not found:  # only sites with an EFG distribution, whose kernels choose their own
-                continue
-            p = max(found)
-            model = model.with_measurement(j, rotor_phases=p)
-            changed[j] = p
-    return model, changed
+        finite = meas.spinning_hz > 0 and math.isfinite(meas.spinning_hz)
+        pin_phases = meas.rotor_phases == "auto" and finite
+        pin_sets = meas.orientations == "auto"
+        if not (pin_phases or pin_sets):
+            continue
+        spec = simulate(model, measurement=j, axis=axes[j], lines_memo=memo, methods=methods[j],
+                        kernel_store=kernel_store)
+        changes = {}
+        found = [int(v) for v in spec.metadata["rotor_phases"].values()]
+        if pin_phases and found:  # (sites with an EFG distribution have no entry: their kernels choose their own)
+            changes["rotor_phases"] = phases[j] = max(found)
+        if pin_sets:
+            names = [str(v).split(" ")[0] for v in spec.metadata["orientations"].values()]
+            levels = [int(n.rsplit("-", 1)[1]) for n in names if n.startswith("tri-") and n.rsplit("-", 1)[1].isdigit()]
+            if levels and len(levels) == len(names):
+                changes["orientations"] = max(levels)
+        if changes:
+            model = model.with_measurement(j, **changes)
+    return model, phases
 
 
 def _methods_at(model: Model, axes) -> list[list[str]]:
@@ -937,7 +960,7 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
         base = base.with_measurement(j, scale=1.0, baseline=(), center_ppm=None, width_ppm=None)
     _overlap_check(base, axes, where)
     methods = _methods_at(base, axes)
-    base, fixed_phases = _fixed_rotor_phases(base, axes, methods, kernel_store)
+    base, fixed_phases = _fixed_choices(base, axes, methods, kernel_store)
     problem = _Problem(base, free, axes, ys, masks, sigmas, methods, order, progress, kernel_store)
     x0 = np.array([p.start for p in free], dtype=float)
     # -- least squares (local or multi-start)
@@ -1198,7 +1221,8 @@ def _fitted_model(problem: _Problem, x, e: _Eval, derived, axes, centers, widths
             data = str(paths[j])
         m = m.with_measurement(j, points=ax.points, center_ppm=centers[j], width_ppm=widths[j],
                                scale=float(c[0] * ssum), baseline=tuple(float(v) for v in c[1:]), data=data,
-                               rotor_phases=problem.model.measurements[j].rotor_phases)
+                               rotor_phases=problem.model.measurements[j].rotor_phases,
+                               orientations=problem.model.measurements[j].orientations)
     return m
 
 

@@ -95,3 +95,20 @@ def test_ctrl_c_stops_with_130_and_leaves_nothing(tmp_path):
     lines = err.strip().splitlines()
     assert len(lines) == 1 and "interrupted" in lines[0]
     assert sorted(x.name for x in tmp_path.iterdir()) == ["good.toml", "line.csv"]
+
+
+def test_data_on_the_command_line_and_global_search(tmp_path):
+    """DATA arguments override data = ...; --global reports its starts; the result names the file used."""
+    shutil.copy(BAD / "no_data.toml", tmp_path / "model.toml")
+    shutil.copy(BAD / "line.csv", tmp_path / "spectrum.csv")
+    r = _run(["fit", "model.toml", "spectrum.csv", "-o", "out/res.toml", "--global", "--starts", "4", "--region",
+              "15:-15", "-q"], tmp_path)
+    assert r.returncode == 0, r.stderr
+    assert "of 4 starts reached the best fit" in r.stdout
+    doc = tomllib.loads((tmp_path / "out" / "res.toml").read_text())
+    assert doc["measurement"]["data"] == str(Path("..") / "spectrum.csv")
+    assert doc["fit"]["regions"] == [[15.0, -15.0]] and doc["fit"]["result"]["starts"] == 4
+    cols = _csv_columns(tmp_path / "out" / "res.csv")
+    inside = cols["in_fit"] == 1
+    assert inside.any() and not inside.all()
+    assert np.all(np.abs(cols["ppm"][inside]) <= 15.0)

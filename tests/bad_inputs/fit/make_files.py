@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 
 HERE = Path(__file__).resolve().parent
-NU_REF_HZ = 161976300.0  # 31P at 9.4 T (approximately; the files state it)
+NU_REF_HZ = 162015384.535488  # 31P at 9.4 T (the nuclide table's value; the files state it)
 
 
 def write(name, ppm, y):
