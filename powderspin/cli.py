@@ -89,8 +89,8 @@ class _Progress:
                             file=sys.stderr)
         if self.bar.total != total:
             self.bar.total = total
-        self.bar.n = done
-        self.bar.refresh()
+        if done > self.bar.n:  # update(), not refresh(): refresh() would show the bar before its delay
+            self.bar.update(done - self.bar.n)
 
     def close(self):
         if self.bar is not None:
@@ -229,6 +229,7 @@ def _cmd_cache(args) -> int:
         print(lib.path)
     elif args.action == "info":
         print(cache_summary_text(lib))
+        print("  on the command line: --cache DIR (simulate, fit, cache) or --no-cache (simulate, fit)")
     else:
         removed = lib.clear()
         print(f"removed {removed} entr{'y' if removed == 1 else 'ies'} from {lib.path}")
