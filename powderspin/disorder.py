@@ -96,13 +96,14 @@ the range of a free ``cq_mhz``/``eta_q``), the spacing from the *lower*
 bounds of free broadening, and the kernel axis from the range of a free
 isotropic shift, so the same kernels serve every step of a fit.
 
-**The lineshape library.**  Kernel rows (one per eta cell) are kept in memory
+**The lineshape library.**  Kernel entries (one per eta interval) are kept in memory
 per process and in the HDF5 library (:class:`powderspin.cache.LineshapeLibrary`),
-keyed by everything that changes them: the row's
+keyed by everything that changes them: the template
 :meth:`~powderspin.site_lines.SiteJob.key` (with its C_Q and eta set to the
-reference values and the sub-samples listed), the kernel axis (centre,
-width, points, nu_ref), the binning and the computing scheme; the library
-adds the package version.  :class:`KernelStore` counts what it computes and
+reference values), the nodes, the sub-samples and their weights (by the
+sha256 of their canonical JSON), the kernel axis (centre, width, points,
+nu_ref), the binning and the computing scheme; the library adds the package
+version.  :class:`KernelStore` counts what it computes and
 what it finds.
 
 Examples
@@ -1177,6 +1178,13 @@ def _kernel_axis(axis: Axis, q: int, shift_range_hz, support_hz) -> tuple[float,
     return j_lo * step, step, j_hi - j_lo
 
 
+def _digest(value) -> str:
+    """sha256 of the canonical JSON of a value (floats by repr: exact)."""
+    import hashlib
+
+    return hashlib.sha256(canonical_key_json({"v": value}).encode("ascii")).hexdigest()
+
+
 def _trimmed(rows: np.ndarray) -> dict:
     """Rows (K, n) as start/stop indices and the concatenated nonzero spans (the library stores these)."""
     starts, stops, parts = [], [], []
@@ -1502,9 +1510,12 @@ class DistributedSite:
             "scheme": KERNEL_SCHEME,
             "path": self.path,
             "job": template.key(),
-            "cq_nodes_mhz": grid.cq_mhz.tolist(),
-            "cq_samples_mhz": grid.cq_samples_mhz.tolist(),
-            "cq_weights": [grid.cq_w_left.tolist(), grid.cq_w_right.tolist()],
+            "cq_nodes_mhz": [float(grid.cq_mhz[0]), float(grid.cq_mhz[-1]), int(k)],
+            # the sub-samples and their weights, by the sha256 of their canonical JSON (exact, and keeps keys
+            # short: canonicalising thousands of floats per lookup cost more than reading the entry)
+            "cq_samples_sha256": _digest({"nodes": grid.cq_mhz.tolist(), "samples": grid.cq_samples_mhz.tolist(),
+                                          "left": grid.cq_left.tolist(), "w": [grid.cq_w_left.tolist(),
+                                                                               grid.cq_w_right.tolist()]}),
             "axis": {"center_hz": kaxis.center_hz, "width_hz": kaxis.width_hz, "points": n,
                      "nu_ref_hz": self.nu_ref},
             "binning": self.meas.binning,
@@ -1515,8 +1526,9 @@ class DistributedSite:
             if idx.size == 0:
                 continue
             key = dict(base_key, eta_nodes=[float(grid.eta[jl]), float(grid.eta[min(jl + 1, m - 1)])],
-                       eta_samples=grid.eta_samples[idx].tolist(),
-                       eta_weights=[grid.eta_w_left[idx].tolist(), grid.eta_w_right[idx].tolist()])
+                       eta_samples_sha256=_digest({"samples": grid.eta_samples[idx].tolist(),
+                                                   "w": [grid.eta_w_left[idx].tolist(),
+                                                         grid.eta_w_right[idx].tolist()]}))
 
             def build(idx=idx):
                 left, right = self._build_entry(grid, idx, template, kaxis, store, progress, done, total)
