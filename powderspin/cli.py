@@ -1,12 +1,15 @@
 """Command line: a thin layer over the Python API.
 
     powderspin simulate MODEL.toml -o OUT.csv [--plot OUT.png] [--sidebands [FILE]] [--force] [-q]
+                        [--cache DIR | --no-cache]
     powderspin fit MODEL.toml [DATA ...] -o RESULT.toml [--report FIT.png] [--global] [--posterior]
                    [--region A:B]... [--noise-region A:B] [--axis ppm|hz|khz] [--force] [-q]
+                   [--cache DIR | --no-cache]
     powderspin plan MODEL.toml [--fields T ...] [--rotors NAME ...] [--rotor-table FILE] [--max-rate HZ]
                     [--rates HZ ...] [--threshold 0.01] [--snr 100] [--json OUT.json] [--plot OUT.png]
                     [--force] [-q]
     powderspin nuclide 27Al --field 14.1 | --list
+    powderspin cache info | path | clear [--cache DIR]
     powderspin demo [--out DIR]
     powderspin --version
 
@@ -84,11 +87,13 @@ class _Progress:
         if label != self.label:
             self.close()
             self.label = label
-            self.bar = tqdm(total=total, desc=f"site {label}", unit="orientations", delay=2.0, leave=False,
+            unit = "line shapes" if str(label).endswith(": kernel grid") else "orientations"
+            self.bar = tqdm(total=total, desc=f"site {label}", unit=unit, delay=2.0, leave=False,
                             file=sys.stderr)
         if self.bar.total != total:
             self.bar.total = total
-        self.bar.update(done - self.bar.n)  # shown only once the work has taken longer than the delay
+        if done > self.bar.n:  # update(), not refresh(): refresh() would show the bar before its delay
+            self.bar.update(done - self.bar.n)
 
     def close(self):
         if self.bar is not None:
@@ -157,12 +162,13 @@ def _cmd_simulate(args) -> int:
                                      allow_strong_coupling=args.allow_strong_coupling):
             print(f"note: {text}", file=sys.stderr)
     _compile_note(args)
+    store = _kernel_store(args)
     progress = _Progress(args.quiet)
     spectra = []
     try:
         for j in which:
             spectra.append((j, simulate(model, measurement=j, progress=progress,
-                                        allow_strong_coupling=args.allow_strong_coupling)))
+                                        allow_strong_coupling=args.allow_strong_coupling, kernel_store=store)))
     finally:
         progress.close()
     for j, spec in spectra:
@@ -196,6 +202,43 @@ def _cmd_simulate(args) -> int:
     return 0
 
 
+def _library(args):
+    """The lineshape library named by --cache (else $POWDERSPIN_CACHE, else the user cache folder)."""
+    from .cache import LineshapeLibrary
+
+    path = getattr(args, "cache", None)
+    if path is not None:
+        p = Path(path)
+        if p.exists() and not p.is_dir():
+            raise CliError(f"--cache {path!r} is a file; give a folder for the lineshape library")
+    return LineshapeLibrary(path)
+
+
+def _kernel_store(args):
+    """The kernel store of a command: --no-cache keeps kernels in memory only."""
+    from .disorder import KernelStore, default_kernel_store
+
+    if getattr(args, "no_cache", False):
+        return KernelStore(None)
+    lib = _library(args)
+    return default_kernel_store(lib.path)
+
+
+def _cmd_cache(args) -> int:
+    from .cache import cache_summary_text
+
+    lib = _library(args)
+    if args.action == "path":
+        print(lib.path)
+    elif args.action == "info":
+        print(cache_summary_text(lib))
+        print("  on the command line: --cache DIR (simulate, fit, cache) or --no-cache (simulate, fit)")
+    else:
+        removed = lib.clear()
+        print(f"removed {removed} entr{'y' if removed == 1 else 'ies'} from {lib.path}")
+    return 0
+
+
 class _FitProgress:
     """Progress of a fit (evaluations, lowest chi-square) and of posterior sampling, shown after a second."""
 
@@ -215,9 +258,11 @@ class _FitProgress:
             common = dict(delay=1.0, leave=False, file=sys.stderr, disable=None)  # None: only on a terminal
             if stage == "posterior":
                 self.bar = tqdm(total=int(value), desc="posterior", unit="steps", **common)
+            elif stage == "kernels":
+                self.bar = tqdm(total=int(value), desc="kernel grid", unit="line shapes", **common)
             else:
                 self.bar = tqdm(desc="fit", unit="evaluations", **common)
-        if stage != "posterior":
+        if stage not in ("posterior", "kernels"):
             self.bar.set_postfix_str(f"chi-square {value:.6g}", refresh=False)
         if done > self.bar.n:
             self.bar.update(done - self.bar.n)
@@ -257,7 +302,7 @@ def _run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool):
         result = fit(model, data, regions=regions, noise_region=noise, axis=args.axis,
                      global_search=args.global_search, starts=args.starts, seed=args.seed,
                      posterior=args.posterior, walkers=args.walkers, steps=args.steps, burn=args.burn,
-                     progress=progress)
+                     progress=progress, kernel_store=_kernel_store(args))
     finally:
         progress.close()
     written = []
@@ -499,10 +544,17 @@ def _cmd_plan_checked(args) -> int:
     return _cmd_plan(args)
 
 
-def _caused_by_interrupt(error: BaseException) -> bool:
-    """True when a KeyboardInterrupt is anywhere in the chain of causes (compiled kernels wrap it)."""
+def _add_cache_options(p) -> None:
+    g = p.add_mutually_exclusive_group()
+    g.add_argument("--cache", metavar="DIR",
+                   help="lineshape library folder for distributed-site kernels (default $POWDERSPIN_CACHE or the "
+                        "user cache folder; see 'powderspin cache path')")
+    g.add_argument("--no-cache", action="store_true", help="do not read or write the lineshape library")
+
+
+def _interrupted(e: BaseException) -> bool:
+    """True when a KeyboardInterrupt is somewhere in the cause/context chain of ``e``."""
     seen = set()
-    e = error
     while e is not None and id(e) not in seen:
         if isinstance(e, KeyboardInterrupt):
             return True
@@ -550,7 +602,14 @@ def build_parser() -> argparse.ArgumentParser:
                    help="compute sites whose nu_Q exceeds half the Larmor frequency (refused by default)")
     s.add_argument("--force", action="store_true", help="overwrite existing output files")
     s.add_argument("-q", "--quiet", action="store_true", help="no progress bars or cautions")
+    _add_cache_options(s)
     s.set_defaults(func=_cmd_simulate)
+
+    c = sub.add_parser("cache", help="the lineshape library: where it is, what it holds, clear it")
+    c.add_argument("action", choices=("info", "path", "clear"),
+                   help="info: entries and size; path: the folder; clear: remove every entry")
+    c.add_argument("--cache", metavar="DIR", help="library folder (default $POWDERSPIN_CACHE or the user cache folder)")
+    c.set_defaults(func=_cmd_cache)
 
     f = sub.add_parser("fit", help="fit a model with free parameters to measured spectra")
     f.add_argument("model", help="model file (TOML) with free parameters { start, min, max }")
@@ -574,6 +633,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="unit of the data files' axis column when the files do not name it")
     f.add_argument("--force", action="store_true", help="overwrite existing output files")
     f.add_argument("-q", "--quiet", action="store_true", help="no progress bars")
+    _add_cache_options(f)
     f.set_defaults(func=_cmd_fit)
 
     _add_plan_parser(sub)
@@ -641,7 +701,7 @@ def main(argv=None) -> int:
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 0
     except SystemError as e:  # an interrupt that arrives inside a compiled kernel
-        if _caused_by_interrupt(e):
+        if _interrupted(e):
             print("interrupted; no output was written for the unfinished step", file=sys.stderr)
             return 130
         raise

@@ -80,7 +80,7 @@ import math
 import os
 import time
 import warnings as _warnings
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from types import MappingProxyType
 from typing import Mapping, Sequence
@@ -270,6 +270,11 @@ class FitResult:
         Least-squares starts and how many reached the best chi-square.
     posterior : PosteriorSummary or None
         The posterior samples, when asked for.
+    derived : Mapping of str to (float, float)
+        Quantities derived from the fitted values, with standard errors by
+        the delta method: for each site with an EFG distribution its mean
+        C_Q and mean P_Q = C_Q (1 + eta^2/3)^(1/2) (``"LABEL.mean_cq_mhz"``,
+        ``"LABEL.mean_pq_mhz"``; :func:`powderspin.disorder.distribution_summary`).
 
     Examples
     --------
@@ -303,9 +308,10 @@ class FitResult:
     starts: int = 1
     starts_at_best: int = 1
     posterior: PosteriorSummary | None = None
+    derived: Mapping = field(default_factory=dict)
 
     def __post_init__(self):
-        for k in ("values", "stderr"):
+        for k in ("values", "stderr", "derived"):
             object.__setattr__(self, k, MappingProxyType(dict(getattr(self, k))))
         c = np.array(self.correlation, dtype=float)
         c.flags.writeable = False
@@ -357,6 +363,8 @@ class FitResult:
         if self.starts > 1:
             head += f", {self.starts_at_best} of {self.starts} starts reached the best fit"
         out = [head] + lines
+        for n, (v, e) in self.derived.items():
+            out.append(f"  {n:<{w}}  {_fmt_value(v, e)}   (derived)")
         if self.posterior is not None:
             p = self.posterior
             out.append(f"posterior: {p.walkers} walkers x {p.steps} steps, first {p.burn} discarded; longest "
@@ -498,8 +506,9 @@ class _Problem:
     """The objective of a fit: free parameters -> whitened residual with the linear parameters solved."""
 
     def __init__(self, model: Model, params: Sequence[FreeParameter], axes, ys, masks, sigmas, methods,
-                 order: int | None, progress=None):
+                 order: int | None, progress=None, kernel_store=None):
         self.model = model
+        self.kernel_store = kernel_store
         self.params = list(params)
         self.axes = axes
         self.ys = ys
@@ -522,6 +531,11 @@ class _Problem:
         self.best_cost = math.inf
         self._cache: list[_Eval] = []
 
+    def _kernel_progress(self, label, done, total):
+        """Forward the building of a distributed site's kernel grid (the first evaluation) as stage "kernels"."""
+        if self.progress is not None and str(label).endswith(": kernel grid"):
+            self.progress("kernels", done, total)
+
     # -- model at theta
     def model_at(self, theta) -> Model:
         return self.model.with_parameters({p.address: float(v) for p, v in zip(self.params, theta)})
@@ -530,7 +544,8 @@ class _Problem:
         try:
             m = self.model_at(theta)
             specs = [simulate(m, measurement=j, axis=self.axes[j], lines_memo=self.memo, methods=self.methods[j],
-                              render_memo=self.render_memo) for j in range(len(self.axes))]
+                              render_memo=self.render_memo, kernel_store=self.kernel_store,
+                              progress=self._kernel_progress) for j in range(len(self.axes))]
         except ModelError as e:
             vals = ", ".join(f"{p.name} = {v:.6g}" for p, v in zip(self.params, theta))
             raise FitError(f"the model cannot be simulated at {vals}: {e}; narrow the parameters' min/max") from None
@@ -693,7 +708,7 @@ def _overlap_check(model: Model, axes, where) -> None:
                 f"{lo / nu_ref * 1e6:.6g} ppm: check the nucleus, field_tesla, shift_ppm and the data file")
 
 
-def _fixed_choices(model: Model, axes, methods) -> tuple[Model, dict]:
+def _fixed_choices(model: Model, axes, methods, kernel_store=None) -> tuple[Model, dict]:
     """Pin what a simulation would choose by itself at the start values, so the objective cannot jump.
 
     ``orientations = "auto"`` becomes the accuracy level (subdivisions) of the
@@ -710,10 +725,12 @@ def _fixed_choices(model: Model, axes, methods) -> tuple[Model, dict]:
         pin_sets = meas.orientations == "auto"
         if not (pin_phases or pin_sets):
             continue
-        spec = simulate(model, measurement=j, axis=axes[j], lines_memo=memo, methods=methods[j])
+        spec = simulate(model, measurement=j, axis=axes[j], lines_memo=memo, methods=methods[j],
+                        kernel_store=kernel_store)
         changes = {}
-        if pin_phases:
-            changes["rotor_phases"] = phases[j] = max(int(v) for v in spec.metadata["rotor_phases"].values())
+        found = [int(v) for v in spec.metadata["rotor_phases"].values()]
+        if pin_phases and found:  # (sites with an EFG distribution have no entry: their kernels choose their own)
+            changes["rotor_phases"] = phases[j] = max(found)
         if pin_sets:
             names = [str(v).split(" ")[0] for v in spec.metadata["orientations"].values()]
             levels = [int(n.rsplit("-", 1)[1]) for n in names if n.startswith("tri-") and n.rsplit("-", 1)[1].isdigit()]
@@ -750,7 +767,7 @@ def _sobol_starts(lo, hi, n: int, seed: int) -> np.ndarray:
 def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=None, axis: str | None = None,
         global_search: bool = False, starts: int | None = None, seed: int = 0, posterior: bool = False,
         walkers: int | None = None, steps: int = DEFAULT_STEPS, burn: int | None = None, progress=None,
-        max_evaluations: int | None = None, threads: int | None = 1) -> FitResult:
+        max_evaluations: int | None = None, threads: int | None = 1, kernel_store=None) -> FitResult:
     """Fit a model with free parameters to one or more measured spectra.
 
     Parameters
@@ -791,7 +808,8 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
     progress : callable, optional
         ``progress(stage, done, value)``: ``("fit", evaluations, lowest
         chi-square)`` during least squares, ``("posterior", step, steps)``
-        while sampling.
+        while sampling, ``("kernels", line shapes, total)`` while the kernel
+        grid of a site with an EFG distribution is built.
     max_evaluations : int, optional
         Limit on the objective evaluations of each least-squares run.
     threads : int or None, optional
@@ -800,6 +818,11 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
         calls, for which starting parallel work costs more than it saves,
         badly so on a busy machine (``benchmarks/bench_fit.py`` measures
         both).
+    kernel_store : powderspin.disorder.KernelStore, optional
+        Where the kernels of sites with an EFG distribution are kept (default
+        the process-wide store of the lineshape library).  Each evaluation
+        of such a site is a weighted sum of kernels built once for the whole
+        range of its free parameters (:mod:`powderspin.disorder`).
 
     Returns
     -------
@@ -849,20 +872,20 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
     """
     if threads is None:
         return _fit(model, data, regions, noise_region, baseline_order, axis, global_search, starts, seed,
-                    posterior, walkers, steps, burn, progress, max_evaluations)
+                    posterior, walkers, steps, burn, progress, max_evaluations, kernel_store)
     import numba
 
     before = numba.get_num_threads()
     numba.set_num_threads(max(1, min(int(threads), numba.config.NUMBA_NUM_THREADS)))
     try:
         return _fit(model, data, regions, noise_region, baseline_order, axis, global_search, starts, seed,
-                    posterior, walkers, steps, burn, progress, max_evaluations)
+                    posterior, walkers, steps, burn, progress, max_evaluations, kernel_store)
     finally:
         numba.set_num_threads(before)
 
 
 def _fit(model, data, regions, noise_region, baseline_order, axis, global_search, starts, seed, posterior,
-         walkers, steps, burn, progress, max_evaluations) -> FitResult:
+         walkers, steps, burn, progress, max_evaluations, kernel_store=None) -> FitResult:
     t_start = time.perf_counter()
     model = _as_model(model)
     n_meas = len(model.measurements)
@@ -937,8 +960,8 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
         base = base.with_measurement(j, scale=1.0, baseline=(), center_ppm=None, width_ppm=None)
     _overlap_check(base, axes, where)
     methods = _methods_at(base, axes)
-    base, fixed_phases = _fixed_choices(base, axes, methods)
-    problem = _Problem(base, free, axes, ys, masks, sigmas, methods, order, progress)
+    base, fixed_phases = _fixed_choices(base, axes, methods, kernel_store)
+    problem = _Problem(base, free, axes, ys, masks, sigmas, methods, order, progress, kernel_store)
     x0 = np.array([p.start for p in free], dtype=float)
     # -- least squares (local or multi-start)
     n_starts, at_best = 1, 1
@@ -985,7 +1008,8 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
                          "was refined with it")
             problem.methods = again
         for j in fixed_phases:
-            spec = simulate(fitted, measurement=j, axis=axes[j], lines_memo=problem.memo, methods=problem.methods[j])
+            spec = simulate(fitted, measurement=j, axis=axes[j], lines_memo=problem.memo, methods=problem.methods[j],
+                            kernel_store=kernel_store)
             if any("aliasing" in t for t in spec.metadata["notes"]):
                 p = 2 * problem.model.measurements[j].rotor_phases
                 problem.model = problem.model.with_measurement(j, rotor_phases=p)
@@ -1011,6 +1035,9 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     values = {n: float(v) for n, v in zip(names, derived["values"][:p])}
     stderr = {n: float(s) for n, s in zip(names, q_err[:p])}
     corr = _correlation(q_cov[:p, :p])
+    from .disorder import distribution_summary
+
+    dist_derived = distribution_summary(problem.model_at, free, x, cov[:p, :p])
     red = chi2 / dof
     warns += _parameter_warnings(free, x, values, stderr, corr, names, sol)
     if noise_source == "noise region" and red > 2.0:
@@ -1026,7 +1053,7 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
                      "construction; give a signal-free noise region to judge the fit")
     # -- the fitted model: values, normalised weights, scale and baseline, data axes
     fitted = _fitted_model(problem, x, e, derived, axes, centers, widths, paths, settings, model)
-    spectra = tuple(simulate(fitted, measurement=j) for j in range(n_meas))
+    spectra = tuple(simulate(fitted, measurement=j, kernel_store=kernel_store) for j in range(n_meas))
     site_err, meas_err = _stderr_tables(fitted, free, q_err, derived)
     post = None
     if posterior:
@@ -1043,7 +1070,8 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
         scale_stderr=tuple(derived["scale_err"]), baselines=tuple(m.baseline for m in fitted.measurements),
         baseline_stderr=tuple(derived["baseline_err"]), site_stderr=site_err, measurement_stderr=meas_err,
         warnings=tuple(warns), notes=tuple(notes), evaluations=problem.evaluations,
-        time_s=time.perf_counter() - t_start, starts=n_starts, starts_at_best=at_best, posterior=post)
+        time_s=time.perf_counter() - t_start, starts=n_starts, starts_at_best=at_best, posterior=post,
+        derived=dist_derived)
 
 
 def _schema_span(p: FreeParameter) -> float:
@@ -1354,6 +1382,9 @@ def result_to_dict(result: FitResult, path=None) -> dict:
         "warnings": list(result.warnings),
         "notes": list(result.notes),
     }
+    if result.derived:
+        res["derived"] = {n: float(v) for n, (v, _) in result.derived.items()}
+        res["derived_stderr"] = {n: float(e) for n, (_, e) in result.derived.items()}
     if result.starts > 1:
         res["starts"] = int(result.starts)
         res["starts_at_best"] = int(result.starts_at_best)

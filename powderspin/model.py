@@ -190,7 +190,7 @@ class ParameterAddress:
 
 _FREE_KEYS = {
     "site": {"weight", "shift_ppm", "cq_mhz", "eta_q", "span_ppm", "skew", "aniso_ppm", "eta_cs",
-             "euler_deg", "lorentz_hz", "gauss_hz"},
+             "euler_deg", "lorentz_hz", "gauss_hz", "shift_fwhm_ppm", "czjzek_sigma_mhz"},
     "measurement": {"lorentz_hz", "gauss_hz", "shift_offset_ppm"},
 }
 
@@ -290,6 +290,18 @@ class Site:
         The values as given in that form ((span, skew), (aniso, eta) or the
         three principal values), so that they are written back exactly;
         empty when the tensor was given as a :class:`ShiftTensor`.
+    shift_fwhm_ppm : float
+        FWHM (ppm) of a Gaussian distribution of the isotropic shift: a
+        Gaussian broadening of ``shift_fwhm_ppm * nu_ref * 1e-6`` Hz that
+        scales with the field (:mod:`powderspin.disorder`).
+    czjzek_sigma_mhz : float
+        Width sigma (MHz) of a Czjzek distribution of EFG tensors; with
+        ``cq_mhz = 0`` the pure model, otherwise the extended model around
+        (``cq_mhz``, ``eta_q``).
+    cq_distribution_mhz, eta_distribution : tuple or None
+        Explicit distributions ``(values, weights)`` of C_Q (MHz) and eta_Q;
+        each replaces ``cq_mhz`` / ``eta_q``.  Given as mappings
+        ``{"values": [...], "weights": [...]}`` or pairs of sequences.
 
     References
     ----------
@@ -313,6 +325,10 @@ class Site:
     gauss_hz: float = 0.0
     shift_form: str = "haeberlen"
     shift_given: tuple = ()
+    shift_fwhm_ppm: float = 0.0
+    czjzek_sigma_mhz: float = 0.0
+    cq_distribution_mhz: tuple | None = None
+    eta_distribution: tuple | None = None
 
     def __post_init__(self):
         if not isinstance(self.label, str) or not self.label.strip():
@@ -336,6 +352,22 @@ class Site:
             check_number(where, key, v, "site")
         if self.shift_form not in _SHIFT_FORMS:
             raise ModelError(f"{where}: shift_form = {self.shift_form!r} is not one of {', '.join(_SHIFT_FORMS)}")
+        _check_site_distributions(self, where)
+
+    @property
+    def has_efg_distribution(self) -> bool:
+        """True when the site has a distribution of EFG tensors (Czjzek or explicit grids).
+
+        Returns
+        -------
+        bool
+
+        Examples
+        --------
+        >>> Site(czjzek_sigma_mhz=2.0).has_efg_distribution, Site(shift_fwhm_ppm=5.0).has_efg_distribution
+        (True, False)
+        """
+        return self.czjzek_sigma_mhz > 0 or self.cq_distribution_mhz is not None or self.eta_distribution is not None
 
     @property
     def euler_rad(self) -> tuple[float, float, float]:
@@ -367,6 +399,39 @@ class Site:
         2500000.0
         """
         return self.cq_mhz * 1e6
+
+
+def _check_site_distributions(site: "Site", where: str) -> None:
+    """Check and normalise the distribution keys of a site (:mod:`powderspin.disorder` uses them)."""
+    for key in ("shift_fwhm_ppm", "czjzek_sigma_mhz"):
+        object.__setattr__(site, key, check_number(where, key, getattr(site, key), "site"))
+    from .distributions import DistributionError, _explicit_axis
+
+    for key, high in (("cq_distribution_mhz", key_spec("site", "cq_distribution_mhz").high), ("eta_distribution", 1.0)):
+        d = getattr(site, key)
+        if d is None:
+            continue
+        if isinstance(d, Mapping):
+            spec = d
+        elif isinstance(d, (tuple, list)) and len(d) == 2:
+            spec = {"values": d[0], "weights": d[1]}
+        else:
+            raise ModelError(f"{where}: {key} must be a table {{ values = [...], weights = [...] }}, got {d!r}")
+        try:
+            _explicit_axis(key, spec, 0.0, high)
+        except DistributionError as e:
+            raise ModelError(f"{where}: {e}") from None
+        object.__setattr__(site, key, (tuple(float(x) for x in spec["values"]),
+                                       tuple(float(x) for x in spec["weights"])))
+    if site.czjzek_sigma_mhz > 0:
+        for key in ("cq_distribution_mhz", "eta_distribution"):
+            if getattr(site, key) is not None:
+                raise ModelError(f"{where}: czjzek_sigma_mhz and {key} both describe the EFG distribution; "
+                                 "give one of them (czjzek_sigma_mhz with cq_mhz/eta_q for the extended model)")
+    if site.cq_distribution_mhz is not None and site.cq_mhz != 0.0:
+        raise ModelError(f"{where}: cq_distribution_mhz replaces cq_mhz = {site.cq_mhz:g}; give one of them")
+    if site.eta_distribution is not None and site.eta_q != 0.0:
+        raise ModelError(f"{where}: eta_distribution replaces eta_q = {site.eta_q:g}; give one of them")
 
 
 @dataclass(frozen=True)
@@ -732,6 +797,9 @@ class Model:
                         f"site '{s.label}': cq_mhz = {s.cq_mhz} but {nuc.name} has spin 1/2 "
                         "(no quadrupole moment); the allowed value is 0"
                     )
+        from .disorder import check_model_distributions
+
+        check_model_distributions(self)
         for j, m in enumerate(meas):
             where = "measurement" if len(meas) == 1 else f"measurement {j + 1}"
             try:
@@ -950,9 +1018,10 @@ def site_key_values(site: Site) -> dict:
     -------
     dict
         ``weight``, ``cq_mhz``, ``eta_q``, ``euler_deg``, ``lorentz_hz``,
-        ``gauss_hz`` and the shift keys of its form (``shift_ppm`` with
-        ``span_ppm`` + ``skew``, ``aniso_ppm`` + ``eta_cs``, or
-        ``principal_ppm``).
+        ``gauss_hz``, ``shift_fwhm_ppm``, ``czjzek_sigma_mhz``, the explicit
+        distributions when set (``{"values": [...], "weights": [...]}``) and
+        the shift keys of its form (``shift_ppm`` with ``span_ppm`` +
+        ``skew``, ``aniso_ppm`` + ``eta_cs``, or ``principal_ppm``).
 
     Examples
     --------
@@ -964,7 +1033,12 @@ def site_key_values(site: Site) -> dict:
     t = site.shift
     g = site.shift_given
     out = {"weight": site.weight, "cq_mhz": site.cq_mhz, "eta_q": site.eta_q,
-           "euler_deg": tuple(site.euler_deg), "lorentz_hz": site.lorentz_hz, "gauss_hz": site.gauss_hz}
+           "euler_deg": tuple(site.euler_deg), "lorentz_hz": site.lorentz_hz, "gauss_hz": site.gauss_hz,
+           "shift_fwhm_ppm": site.shift_fwhm_ppm, "czjzek_sigma_mhz": site.czjzek_sigma_mhz}
+    for key in ("cq_distribution_mhz", "eta_distribution"):
+        d = getattr(site, key)
+        if d is not None:
+            out[key] = {"values": list(d[0]), "weights": list(d[1])}
     if site.shift_form == "principal":
         out["principal_ppm"] = tuple(g) if len(g) == 3 else tuple(t.principal_iupac)
         return out
@@ -999,7 +1073,9 @@ def _site_from_values(v: dict, label: str, form: str) -> Site:
         raise ModelError(f"{where}: {e}") from None
     return Site(label=label, weight=v["weight"], shift=shift, cq_mhz=v["cq_mhz"], eta_q=v["eta_q"],
                 euler_deg=tuple(v["euler_deg"]), lorentz_hz=v["lorentz_hz"], gauss_hz=v["gauss_hz"],
-                shift_form=form, shift_given=given)
+                shift_form=form, shift_given=given, shift_fwhm_ppm=v.get("shift_fwhm_ppm", 0.0),
+                czjzek_sigma_mhz=v.get("czjzek_sigma_mhz", 0.0),
+                cq_distribution_mhz=v.get("cq_distribution_mhz"), eta_distribution=v.get("eta_distribution"))
 
 
 # ---------------------------------------------------------------------------

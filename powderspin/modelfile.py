@@ -174,7 +174,18 @@ def parse_site_table(i: int, t: Any, where_default: str | None = None):
         "eta_q": num("eta_q", 0.0),
         "lorentz_hz": num("lorentz_hz", 0.0),
         "gauss_hz": num("gauss_hz", 0.0),
+        "shift_fwhm_ppm": num("shift_fwhm_ppm", 0.0),
+        "czjzek_sigma_mhz": num("czjzek_sigma_mhz", 0.0),
     }
+    for key in ("cq_distribution_mhz", "eta_distribution"):  # inline tables {values, weights}; checked by Site
+        if key in t:
+            if not isinstance(t[key], dict):
+                raise ModelError(f"{where}: {key} must be a table {{ values = [...], weights = [...] }}, "
+                                 f"got {t[key]!r}")
+            if set(t[key]) & set(FREE_TABLE_KEYS + (TIE_KEY,)):
+                raise ModelError(f"{where}: {key} cannot be a fit parameter (czjzek_sigma_mhz, cq_mhz and eta_q "
+                                 "can); give { values = [...], weights = [...] }")
+            vals[key] = t[key]
     e = t.get("euler_deg", [0.0, 0.0, 0.0])
     if not isinstance(e, list) or len(e) != 3:
         raise ModelError(f"{where}: euler_deg must be a list of 3 angles in degrees, e.g. [0, 30, 0]")
@@ -565,7 +576,7 @@ def _site_table(site: Site) -> dict:
             continue
         if k in ("cq_mhz", "eta_q") and site.cq_mhz == 0.0 and site.eta_q == 0.0:
             continue
-        if k in ("lorentz_hz", "gauss_hz") and v == 0.0:
+        if k in ("lorentz_hz", "gauss_hz", "shift_fwhm_ppm", "czjzek_sigma_mhz") and v == 0.0:
             continue
         t[k] = v
     return t

@@ -55,7 +55,8 @@ class KeySpec:
         (3 numbers), ``"principal"`` (3 numbers), ``"transitions"``,
         ``"orientations"``, ``"rotor_phases"``, ``"regions"``, ``"region"``,
         ``"numbers"`` (a list of numbers), ``"table"`` (a sub-table a fit
-        writes, accepted on reading and not used).
+        writes, accepted on reading and not used), ``"distribution"`` (an
+        inline table ``{ values = [...], weights = [...] }``).
     unit : str
         Unit (``""`` for dimensionless or text).
     default : object
@@ -208,6 +209,21 @@ KEYS: tuple[KeySpec, ...] = (
     KeySpec("site", "gauss_hz", "number", "Hz", 0.0, 0.0, 1.0e7, free=True,
             doc="extra Gaussian broadening (FWHM) of this site",
             why="a width beyond 10 MHz is wider than any solid-state spectrum"),
+    # ---- site: distributions (disordered solids; powderspin.disorder)
+    KeySpec("site", "shift_fwhm_ppm", "number", "ppm", 0.0, 0.0, 1.0e4, free=True,
+            doc="Gaussian distribution of the isotropic shift (FWHM); a Gaussian broadening that scales "
+                "with the field",
+            why="a shift distribution wider than 1e4 ppm is not one site"),
+    KeySpec("site", "czjzek_sigma_mhz", "number", "MHz", 0.0, 0.0, 200.0, free=True,
+            doc="width sigma of the Czjzek distribution of EFG tensors (cq_mhz = 0: pure Czjzek; "
+                "cq_mhz, eta_q set: extended Czjzek)",
+            why="C_Q values reach about 5 sigma, and |C_Q| beyond 1000 MHz is outside solid-state NMR"),
+    KeySpec("site", "cq_distribution_mhz", "distribution", "MHz", None, 0.0, 1.0e3,
+            doc="explicit C_Q distribution { values = [...], weights = [...] } (MHz; replaces cq_mhz)",
+            why="|C_Q| beyond 1000 MHz is outside solid-state NMR"),
+    KeySpec("site", "eta_distribution", "distribution", "", None, 0.0, 1.0,
+            doc="explicit eta_Q distribution { values = [...], weights = [...] } (replaces eta_q)",
+            why="|V_zz| >= |V_yy| >= |V_xx| by convention"),
     KeySpec("site", "stderr", "table", "", None,
             doc="standard errors of this site's fitted values (written by a fit; not used)"),
     KeySpec("site", "interval", "table", "", None,

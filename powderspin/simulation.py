@@ -20,6 +20,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .disorder import DistributedSite, default_kernel_store, shift_fwhm_hz
 from .lineshape import Axis, make_axis
 from .model import Model, ModelError, selected_transitions, site_key_values
 from .orientations import OrientationSet
@@ -75,12 +76,14 @@ def _as_model(model) -> Model:
 
 
 def _widest_broadening_hz(model: Model, meas) -> float:
-    return max(s.lorentz_hz + meas.lorentz_hz + 2 * math.hypot(s.gauss_hz, meas.gauss_hz) for s in model.sites)
+    nu_ref = model.nucleus.larmor_hz(meas.field_tesla)
+    return max(s.lorentz_hz + meas.lorentz_hz + 2 * math.hypot(s.gauss_hz, meas.gauss_hz, shift_fwhm_hz(s, nu_ref))
+               for s in model.sites)
 
 
 def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None = None, progress=None,
              allow_strong_coupling: bool = False, lines_memo: dict | None = None, axis: Axis | None = None,
-             methods=None, render_memo: dict | None = None) -> Spectrum:
+             methods=None, render_memo: dict | None = None, kernel_store=None) -> Spectrum:
     """Simulate the spectrum of a model (one measurement).
 
     Parameters
@@ -113,6 +116,13 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
         Memo of binned lines shared between calls (see
         :func:`~powderspin.site_lines.render_lines`): a fit passes one so that
         a site whose lines and translation did not change is not binned again.
+    kernel_store : powderspin.disorder.KernelStore, optional
+        Where the kernels of sites with an EFG distribution are kept and
+        looked up (default: the process-wide store of the lineshape library,
+        :func:`powderspin.disorder.default_kernel_store`).  Sites with a
+        distribution are weighted sums of cached kernels
+        (:mod:`powderspin.disorder`); ``shift_fwhm_ppm`` adds a Gaussian
+        broadening of ``shift_fwhm_ppm * nu_ref * 1e-6`` Hz.
 
     Returns
     -------
@@ -162,6 +172,19 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
         hi = max(s[1] for s in spans) + 4 * widest
         return make_axis(meas.points, nu_ref, meas.center_ppm, meas.width_ppm, (lo, hi))
 
+    # sites with an EFG distribution: weighted sums of cached kernels (powderspin.disorder)
+    distributed = {k: DistributedSite(model, k, measurement, allow_strong_coupling=allow_strong_coupling)
+                   for k, site in enumerate(model.sites) if _has_distribution(model, k)}
+    for d in distributed.values():
+        notes.extend(n for n in d.notes if n not in notes)
+
+    def span_of(k, site):
+        if k in distributed:
+            lo, hi = distributed[k].span_hz()
+            return (lo + site.shift.iso_ppm * nu_ref * 1e-6 + offset_hz, hi + site.shift.iso_ppm * nu_ref * 1e-6
+                    + offset_hz)
+        return tuple(x + offset_hz for x in estimate_span_hz(site, meas, nuc))
+
     if axis is not None:
         if abs(axis.nu_ref_hz - nu_ref) > 1e-9 * nu_ref:
             raise ModelError(f"simulate: the axis has nu_ref = {axis.nu_ref_hz:.9g} Hz but the measurement's is "
@@ -169,7 +192,7 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
     elif explicit_axis:
         axis = make_axis(meas.points, nu_ref, meas.center_ppm, meas.width_ppm)
     else:
-        axis = axis_from([tuple(x + offset_hz for x in estimate_span_hz(s, meas, nuc)) for s in model.sites])
+        axis = axis_from([span_of(k, s) for k, s in enumerate(model.sites)])
     # the method is decided once per site, against half a point of the (estimated) axis
     if methods is not None and len(methods) != len(model.sites):
         raise ModelError(f"simulate: methods has {len(methods)} entries for {len(model.sites)} sites")
@@ -178,6 +201,9 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
     jobs = []
     orientation_error = {}
     for k, site in enumerate(model.sites):
+        if k in distributed:
+            jobs.append(None)
+            continue
         if methods is not None:
             method = methods[k]
         else:
@@ -192,6 +218,9 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
         jobs.append(site_job(site, meas, nuc, method, oset))
     lines: list[SiteLines] = []
     for k, (site, job) in enumerate(zip(model.sites, jobs)):
+        if job is None:
+            lines.append(None)
+            continue
         sl = memo.get(job)
         if sl is None:
             cb = None if progress is None else (lambda d, t, _l=site.label: progress(_l, d, t))
@@ -201,19 +230,29 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
             memo[job] = sl
         lines.append(sl)
         notes.extend(f"site '{site.label}': {n}" for n in sl.notes)
-    shifts = [(site.shift.iso_ppm - job.iso_ppm) * nu_ref * 1e-6 + offset_hz for site, job in zip(model.sites, jobs)]
+    shifts = [(site.shift.iso_ppm - (job.iso_ppm if job is not None else 0.0)) * nu_ref * 1e-6 + offset_hz
+              for site, job in zip(model.sites, jobs)]
     if not explicit_axis:
-        axis = axis_from([tuple(x + sh for x in sl.frequency_range()) for sl, sh in zip(lines, shifts)])
+        axis = axis_from([span_of(k, site) if sl is None else tuple(x + sh for x in sl.frequency_range())
+                          for k, (site, sl, sh) in enumerate(zip(model.sites, lines, shifts))])
+    if distributed and kernel_store is None:
+        kernel_store = default_kernel_store()
     ys = []
     sidebands: list[SidebandRow] = []
-    for site, sl, sh in zip(model.sites, lines, shifts):
-        r = render_lines(sl, axis, shift_hz=sh, weight=site.weight, lorentz_hz=site.lorentz_hz + meas.lorentz_hz,
-                         gauss_hz=math.hypot(site.gauss_hz, meas.gauss_hz), binning=meas.binning, memo=render_memo)
+    for k, (site, sl, sh) in enumerate(zip(model.sites, lines, shifts)):
+        gauss = math.hypot(site.gauss_hz, meas.gauss_hz, shift_fwhm_hz(site, nu_ref))
+        if sl is None:
+            cb = None if progress is None else (lambda d, t, _l=site.label: progress(f"{_l}: kernel grid", d, t))
+            r = distributed[k].render(axis, shift_hz=sh, store=kernel_store, weight=site.weight,
+                                      lorentz_hz=site.lorentz_hz + meas.lorentz_hz, gauss_hz=gauss, progress=cb)
+        else:
+            r = render_lines(sl, axis, shift_hz=sh, weight=site.weight, lorentz_hz=site.lorentz_hz + meas.lorentz_hz,
+                             gauss_hz=gauss, binning=meas.binning, memo=render_memo)
         ys.append(r.intensity)
         if r.lost_fraction > LOST_NOTE_FRACTION and site.weight > 0:
             notes.append(f"site '{site.label}': {r.lost_fraction:.2%} of its intensity lies outside the axis "
                          "(widen width_ppm or move center_ppm)")
-        if sl.phases > 1:
+        if sl is not None and sl.phases > 1:
             sidebands.extend(sideband_rows(site.label, site.weight, sl, nu_ref, sh))
     ys = np.array(ys)
     total = ys.sum(axis=0)
@@ -232,12 +271,14 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
         "spinning_hz": "inf" if meas.is_infinite_rate else meas.spinning_hz,
         "rotor_angle_deg": meas.rotor_angle_deg if not meas.is_static else "n/a (static)",
         "transitions": [f"{_frac(m)}:{_frac(m - 1)}" for m in m_upper],
-        "method": {s.label: sl.method for s, sl in zip(model.sites, lines)},
-        "orientations": {s.label: f"{sl.orientations.name} ({sl.orientations.size} directions)"
-                         for s, sl in zip(model.sites, lines)},
+        "method": {s.label: (sl.method if sl is not None else distributed[k].method)
+                   for k, (s, sl) in enumerate(zip(model.sites, lines))},
+        "orientations": {s.label: (f"{sl.orientations.name} ({sl.orientations.size} directions)" if sl is not None
+                                   else distributed[k].kernel_set.orientations)
+                         for k, (s, sl) in enumerate(zip(model.sites, lines))},
         "orientation_error": {label: f"{err:.2g} of the maximum, RMS (estimated; target "
                                      f"{ORIENTATION_TARGET:g})" for label, err in orientation_error.items()},
-        "rotor_phases": {s.label: sl.phases for s, sl in zip(model.sites, lines)},
+        "rotor_phases": {s.label: sl.phases for s, sl in zip(model.sites, lines) if sl is not None},
         "binning": meas.binning,
         "lorentz_hz": meas.lorentz_hz,
         "gauss_hz": meas.gauss_hz,
@@ -247,6 +288,8 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
         "intensity_units": "density per ppm; each site integrates to its weight",
         "notes": notes,
     }
+    if distributed:
+        meta["distributions"] = {model.sites[k].label: d.describe() for k, d in distributed.items()}
     if meas.scale != 1.0:
         meta["scale"] = meas.scale
     if meas.baseline:
@@ -296,6 +339,14 @@ def baseline_values(coefficients, axis: Axis) -> np.ndarray:
     for b in reversed(tuple(coefficients)):  # Horner
         out = out * u + float(b)
     return out
+
+
+def _has_distribution(model: Model, k: int) -> bool:
+    """A site rendered from kernels: an EFG distribution now, or a free/tied Czjzek width."""
+    if model.sites[k].has_efg_distribution:
+        return True
+    return any(p.address.table == "site" and p.address.index == k and p.address.key == "czjzek_sigma_mhz"
+               for p in model.free + model.tied)
 
 
 def simulate_all(model, **options) -> tuple[Spectrum, ...]:

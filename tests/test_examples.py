@@ -99,3 +99,19 @@ def test_readme_command_lines(tmp_path):
         args = [str(ROOT / a) if a.startswith("examples/") else a for a in args]
         r = _run(args, tmp_path)
         assert r.returncode == 0, (c, r.stderr)
+
+
+def test_glass_example_data_are_reproducible(tmp_path):
+    """examples/make_glass_data.py remakes the committed synthetic spectrum (fixed seed)."""
+    r = subprocess.run([sys.executable, str(ROOT / "examples" / "make_glass_data.py"), str(tmp_path)],
+                       capture_output=True, text=True, timeout=600)
+    assert r.returncode == 0, r.stderr
+    new = (tmp_path / "glass_27al_14p1T.csv").read_text().splitlines()
+    old = (ROOT / "examples" / "glass_27al_14p1T.csv").read_text().splitlines()
+    assert len(new) == len(old) and [a for a in new if a.startswith("#")] == [b for b in old if b.startswith("#")]
+    rows = [(a, b) for a, b in zip(new, old) if not a.startswith("#") and not a.startswith("ppm,")]
+    top = max(abs(float(b.split(",")[1])) for _, b in rows)
+    for a, b in rows:
+        xa, ya = (float(v) for v in a.split(","))
+        xb, yb = (float(v) for v in b.split(","))
+        assert xa == xb and abs(ya - yb) <= 1e-9 * top
