@@ -24,7 +24,7 @@ from _common import best_time, numpy_tent  # noqa: E402
 
 from powderspin.frequencies import site_frame  # noqa: E402
 from powderspin.lineshape import bin_lines, make_axis  # noqa: E402
-from powderspin.model import make_model  # noqa: E402
+from powderspin.modelfile import make_model  # noqa: E402
 from powderspin.orientations import triangulated  # noqa: E402
 from powderspin.simulation import simulate  # noqa: E402
 from powderspin.site_lines import compute_lines, site_job  # noqa: E402

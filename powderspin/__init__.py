@@ -27,7 +27,7 @@ except _metadata.PackageNotFoundError:  # pragma: no cover - an uninstalled sour
 _EXPORTS = {
     "Measurement": "model", "Model": "model", "ModelError": "model", "Site": "model", "FitSettings": "model",
     "ParameterAddress": "model", "FreeParameter": "model", "TiedParameter": "model",
-    "make_model": "model", "make_site": "model",
+    "make_model": "modelfile", "make_site": "modelfile",
     "load_model": "modelfile", "parse_model": "modelfile", "model_to_toml": "modelfile", "write_model": "modelfile",
     "Nuclide": "nuclides", "get_nuclide": "nuclides", "list_nuclides": "nuclides",
     "plot_spectrum": "plotting", "save_plot": "plotting",

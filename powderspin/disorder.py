@@ -210,86 +210,7 @@ KERNEL_SCHEME = 1
 #: bytes of kernels kept in memory per process by a KernelStore
 MEMORY_BUDGET_BYTES = 512 * 1024 * 1024
 
-_DIST_KEYS = ("czjzek_sigma_mhz", "cq_distribution_mhz", "eta_distribution")
-
-
-# --------------------------------------------------------------------------- model-level checks
-
-
-def _address_set(model: Model, kind: str) -> set:
-    return {(p.address.table, p.address.index, p.address.key) for p in getattr(model, kind)}
-
-
-def _is_variable(model: Model, index: int, key: str) -> bool:
-    a = ("site", index, key)
-    return a in _address_set(model, "free") or a in _address_set(model, "tied")
-
-
-def check_model_distributions(model: Model) -> None:
-    """Refuse distribution settings that make no sense; name the keys.
-
-    Called by :class:`~powderspin.model.Model` when it is built.
-
-    Parameters
-    ----------
-    model : Model
-
-    Raises
-    ------
-    ModelError
-        An EFG distribution on a spin-1/2 nucleus; a Czjzek distribution
-        with an integer spin or with transitions other than the central one
-        (its grid follows the central-transition pattern); a free or tied
-        ``czjzek_sigma_mhz`` together with an explicit grid; a free
-        ``cq_mhz`` / ``eta_q`` together with the explicit grid that replaces
-        it.
-
-    Examples
-    --------
-    >>> from powderspin.model import make_model
-    >>> try:
-    ...     make_model("31P", {"field_tesla": 9.4}, [{"label": "P", "czjzek_sigma_mhz": 1.0}])
-    ... except ModelError as e:
-    ...     print(e)
-    site 'P': czjzek_sigma_mhz describes a distribution of EFG tensors, but 31P has spin 1/2 (no quadrupole moment); remove czjzek_sigma_mhz or use shift_fwhm_ppm for a shift distribution
-    """
-    nuc = model.nucleus
-    for i, s in enumerate(model.sites):
-        where = f"site '{s.label}'"
-        sigma_var = _is_variable(model, i, "czjzek_sigma_mhz")
-        given = [k for k in _DIST_KEYS if (getattr(s, k) not in (None, 0.0)) or (k == "czjzek_sigma_mhz" and sigma_var)]
-        if not given:
-            continue
-        names = " and ".join(given)
-        if not nuc.is_quadrupolar:
-            raise ModelError(
-                f"{where}: {names} describe{'s' if len(given) == 1 else ''} a distribution of EFG tensors, but "
-                f"{nuc.name} has spin 1/2 (no quadrupole moment); remove {names} or use shift_fwhm_ppm for a shift "
-                "distribution")
-        explicit = s.cq_distribution_mhz is not None or s.eta_distribution is not None
-        if sigma_var and explicit:
-            raise ModelError(f"{where}: czjzek_sigma_mhz is a fit parameter, but the site has an explicit "
-                             "cq_distribution_mhz/eta_distribution; give one kind of distribution")
-        for key, dist in (("cq_mhz", "cq_distribution_mhz"), ("eta_q", "eta_distribution")):
-            if getattr(s, dist) is not None and _is_variable(model, i, key):
-                raise ModelError(f"{where}: {key} is a fit parameter, but {dist} replaces it; "
-                                 f"remove one of them")
-        if s.czjzek_sigma_mhz > 0 or sigma_var:
-            spin = nuc.spin
-            if abs(spin - round(spin)) < 1e-9:
-                raise ModelError(
-                    f"{where}: czjzek_sigma_mhz needs a half-integer spin (its grid follows the central "
-                    f"transition); {nuc.name} has spin {int(round(spin))}; use cq_distribution_mhz/eta_distribution")
-            for j, m in enumerate(model.measurements):
-                if selected_transitions(spin, m.transitions) != (0.5,):
-                    wm = "measurement" if len(model.measurements) == 1 else f"measurement {j + 1}"
-                    raise ModelError(
-                        f"{where}: czjzek_sigma_mhz needs transitions = \"central\" in {wm} (its grid spacing "
-                        "follows the central-transition pattern); for satellites give cq_distribution_mhz/"
-                        "eta_distribution")
-
-
-# --------------------------------------------------------------------------- ranges of (possibly free) values
+from .model import _DIST_KEYS, _address_set, _is_variable, check_model_distributions  # noqa: E402,F401
 
 
 def parameter_range(model: Model, table: str, index: int, key: str) -> tuple[float, float]:
@@ -309,7 +230,7 @@ def parameter_range(model: Model, table: str, index: int, key: str) -> tuple[flo
 
     Examples
     --------
-    >>> from powderspin.model import make_model
+    >>> from powderspin.modelfile import make_model
     >>> m = make_model("27Al", {"field_tesla": 9.4}, [{"czjzek_sigma_mhz": {"start": 2.0, "min": 1.0, "max": 3.0}}])
     >>> parameter_range(m, "site", 0, "czjzek_sigma_mhz"), parameter_range(m, "site", 0, "gauss_hz")
     ((1.0, 3.0), (0.0, 0.0))
@@ -1301,7 +1222,7 @@ class DistributedSite:
 
     Examples
     --------
-    >>> from powderspin.model import make_model
+    >>> from powderspin.modelfile import make_model
     >>> from powderspin.lineshape import make_axis
     >>> m = make_model("27Al", {"field_tesla": 14.1, "spinning_hz": "inf"},
     ...                [{"label": "A", "czjzek_sigma_mhz": 1.5, "gauss_hz": 300.0}])
@@ -1755,7 +1676,7 @@ def distribution_summary(model_at, params, x, cov) -> dict[str, tuple[float, flo
     Examples
     --------
     >>> import numpy as np
-    >>> from powderspin.model import make_model
+    >>> from powderspin.modelfile import make_model
     >>> m = make_model("27Al", {"field_tesla": 9.4},
     ...                [{"label": "A", "czjzek_sigma_mhz": {"start": 2.0, "min": 1.0, "max": 3.0}}])
     >>> at = lambda t: m.with_parameters({m.free[0].address: float(t[0])})

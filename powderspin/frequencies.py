@@ -67,7 +67,7 @@ class SiteFrame:
 
     Examples
     --------
-    >>> from powderspin.model import make_site
+    >>> from powderspin.modelfile import make_site
     >>> from powderspin.nuclides import get_nuclide
     >>> f = site_frame(make_site(cq_mhz=3.0, span_ppm=40.0, skew=0.2, euler_deg=[0, 30, 0]),
     ...                get_nuclide("27Al"), 14.1)

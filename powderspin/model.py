@@ -3,7 +3,7 @@
 The values are frozen dataclasses checked against the key table of
 :mod:`powderspin.schema` (units, ranges, defaults).  Reading and writing model
 files is :mod:`powderspin.modelfile`; building values from Python dicts with
-the same keys is :func:`make_model` / :func:`make_site`.
+the same keys is :func:`powderspin.modelfile.make_model` / :func:`powderspin.modelfile.make_site`.
 
 Free and tied parameters
 ------------------------
@@ -39,8 +39,6 @@ __all__ = [
     "Measurement",
     "FitSettings",
     "Model",
-    "make_model",
-    "make_site",
     "parse_transition",
     "selected_transitions",
     "site_key_values",
@@ -213,6 +211,7 @@ class FreeParameter:
 
     Examples
     --------
+    >>> from powderspin.modelfile import make_model
     >>> m = make_model("27Al", {"field_tesla": 9.4},
     ...                [{"label": "A", "cq_mhz": {"start": 3.0, "min": 0.5, "max": 8.0}}])
     >>> fp = m.free[0]
@@ -242,6 +241,7 @@ class TiedParameter:
 
     Examples
     --------
+    >>> from powderspin.modelfile import make_model
     >>> m = make_model("27Al", {"field_tesla": 9.4},
     ...                [{"label": "A", "gauss_hz": 100.0},
     ...                 {"label": "B", "gauss_hz": {"same_as": "A.gauss_hz"}}])
@@ -747,6 +747,7 @@ class Model:
 
     Examples
     --------
+    >>> from powderspin.modelfile import make_model
     >>> m = make_model("27Al", {"field_tesla": 14.1}, [{"cq_mhz": 3.0}])
     >>> m.nucleus.name, len(m.sites), m.measurement.field_tesla
     ('27Al', 1, 14.1)
@@ -797,8 +798,6 @@ class Model:
                         f"site '{s.label}': cq_mhz = {s.cq_mhz} but {nuc.name} has spin 1/2 "
                         "(no quadrupole moment); the allowed value is 0"
                     )
-        from .disorder import check_model_distributions
-
         check_model_distributions(self)
         for j, m in enumerate(meas):
             where = "measurement" if len(meas) == 1 else f"measurement {j + 1}"
@@ -839,6 +838,7 @@ class Model:
 
         Examples
         --------
+        >>> from powderspin.modelfile import make_model
         >>> make_model("23Na", {"field_tesla": 11.7}, [{"cq_mhz": 2.0}]).measurement.field_tesla
         11.7
         """
@@ -854,6 +854,7 @@ class Model:
 
         Examples
         --------
+        >>> from powderspin.modelfile import make_model
         >>> round(make_model("1H", {"field_tesla": 9.4}, [{}]).larmor_hz / 1e6, 1)
         400.2
         """
@@ -878,6 +879,7 @@ class Model:
 
         Examples
         --------
+        >>> from powderspin.modelfile import make_model
         >>> m = make_model("27Al", {"field_tesla": 14.1}, [{"cq_mhz": 3.0}])
         >>> m.with_measurement(field_tesla=18.8).measurement.field_tesla, m.measurement.field_tesla
         (18.8, 14.1)
@@ -899,6 +901,7 @@ class Model:
 
         Examples
         --------
+        >>> from powderspin.modelfile import make_model
         >>> m = make_model("27Al", {"field_tesla": 14.1}, [{"cq_mhz": 3.0}])
         >>> m.with_sites([Site(label="x", cq_mhz=5.0)]).sites[0].cq_mhz
         5.0
@@ -919,6 +922,7 @@ class Model:
 
         Examples
         --------
+        >>> from powderspin.modelfile import make_model
         >>> m = make_model("27Al", {"field_tesla": 14.1}, [{"cq_mhz": 3.0}])
         >>> m.parameter_value(ParameterAddress("site", 0, "cq_mhz"))
         3.0
@@ -950,6 +954,7 @@ class Model:
 
         Examples
         --------
+        >>> from powderspin.modelfile import make_model
         >>> m = make_model("27Al", {"field_tesla": 9.4},
         ...                [{"label": "A", "cq_mhz": {"start": 3.0, "min": 1.0, "max": 9.0},
         ...                  "gauss_hz": 50.0},
@@ -1007,6 +1012,91 @@ class Model:
         return replace(self, sites=tuple(sites), measurements=tuple(meas))
 
 
+# ---------------------------------------------------------------------------
+# distributions: settings that make no sense together
+
+_DIST_KEYS = ("czjzek_sigma_mhz", "cq_distribution_mhz", "eta_distribution")
+
+
+# --------------------------------------------------------------------------- model-level checks
+
+
+def _address_set(model: Model, kind: str) -> set:
+    return {(p.address.table, p.address.index, p.address.key) for p in getattr(model, kind)}
+
+
+def _is_variable(model: Model, index: int, key: str) -> bool:
+    a = ("site", index, key)
+    return a in _address_set(model, "free") or a in _address_set(model, "tied")
+
+
+def check_model_distributions(model: Model) -> None:
+    """Refuse distribution settings that make no sense; name the keys.
+
+    Called by :class:`~powderspin.model.Model` when it is built.
+
+    Parameters
+    ----------
+    model : Model
+
+    Raises
+    ------
+    ModelError
+        An EFG distribution on a spin-1/2 nucleus; a Czjzek distribution
+        with an integer spin or with transitions other than the central one
+        (its grid follows the central-transition pattern); a free or tied
+        ``czjzek_sigma_mhz`` together with an explicit grid; a free
+        ``cq_mhz`` / ``eta_q`` together with the explicit grid that replaces
+        it.
+
+    Examples
+    --------
+    >>> from powderspin.modelfile import make_model
+    >>> try:
+    ...     make_model("31P", {"field_tesla": 9.4}, [{"label": "P", "czjzek_sigma_mhz": 1.0}])
+    ... except ModelError as e:
+    ...     print(e)
+    site 'P': czjzek_sigma_mhz describes a distribution of EFG tensors, but 31P has spin 1/2 (no quadrupole moment); remove czjzek_sigma_mhz or use shift_fwhm_ppm for a shift distribution
+    """
+    nuc = model.nucleus
+    for i, s in enumerate(model.sites):
+        where = f"site '{s.label}'"
+        sigma_var = _is_variable(model, i, "czjzek_sigma_mhz")
+        given = [k for k in _DIST_KEYS if (getattr(s, k) not in (None, 0.0)) or (k == "czjzek_sigma_mhz" and sigma_var)]
+        if not given:
+            continue
+        names = " and ".join(given)
+        if not nuc.is_quadrupolar:
+            raise ModelError(
+                f"{where}: {names} describe{'s' if len(given) == 1 else ''} a distribution of EFG tensors, but "
+                f"{nuc.name} has spin 1/2 (no quadrupole moment); remove {names} or use shift_fwhm_ppm for a shift "
+                "distribution")
+        explicit = s.cq_distribution_mhz is not None or s.eta_distribution is not None
+        if sigma_var and explicit:
+            raise ModelError(f"{where}: czjzek_sigma_mhz is a fit parameter, but the site has an explicit "
+                             "cq_distribution_mhz/eta_distribution; give one kind of distribution")
+        for key, dist in (("cq_mhz", "cq_distribution_mhz"), ("eta_q", "eta_distribution")):
+            if getattr(s, dist) is not None and _is_variable(model, i, key):
+                raise ModelError(f"{where}: {key} is a fit parameter, but {dist} replaces it; "
+                                 f"remove one of them")
+        if s.czjzek_sigma_mhz > 0 or sigma_var:
+            spin = nuc.spin
+            if abs(spin - round(spin)) < 1e-9:
+                raise ModelError(
+                    f"{where}: czjzek_sigma_mhz needs a half-integer spin (its grid follows the central "
+                    f"transition); {nuc.name} has spin {int(round(spin))}; use cq_distribution_mhz/eta_distribution")
+            for j, m in enumerate(model.measurements):
+                if selected_transitions(spin, m.transitions) != (0.5,):
+                    wm = "measurement" if len(model.measurements) == 1 else f"measurement {j + 1}"
+                    raise ModelError(
+                        f"{where}: czjzek_sigma_mhz needs transitions = \"central\" in {wm} (its grid spacing "
+                        "follows the central-transition pattern); for satellites give cq_distribution_mhz/"
+                        "eta_distribution")
+
+
+# --------------------------------------------------------------------------- ranges of (possibly free) values
+
+
 def site_key_values(site: Site) -> dict:
     """The site's values under its model-file keys, shift tensor in the form it was given.
 
@@ -1025,6 +1115,7 @@ def site_key_values(site: Site) -> dict:
 
     Examples
     --------
+    >>> from powderspin.modelfile import make_site
     >>> s = make_site(label="P", shift_ppm=5.0, span_ppm=100.0, skew=0.5)
     >>> v = site_key_values(s)
     >>> v["shift_ppm"], round(v["span_ppm"], 9), round(v["skew"], 9)
@@ -1190,85 +1281,3 @@ def selected_transitions(spin: float, transitions) -> tuple[float, ...]:
         if hi not in out:
             out.append(hi)
     return tuple(out)
-
-
-# ---------------------------------------------------------------------------
-# building models from Python dicts (the same keys as model files)
-
-
-def make_site(**keys) -> Site:
-    """Build a :class:`Site` from the model-file keys (same names, same checks).
-
-    Parameters
-    ----------
-    **keys
-        ``[[site]]`` keys: ``label``, ``weight``, ``shift_ppm``, ``cq_mhz``,
-        ``eta_q``, one of ``span_ppm`` + ``skew`` / ``aniso_ppm`` + ``eta_cs``
-        / ``principal_ppm`` (ppm), ``euler_deg`` (degrees), ``lorentz_hz``,
-        ``gauss_hz`` (Hz).
-
-    Returns
-    -------
-    Site
-
-    References
-    ----------
-    J. Mason, Solid State Nucl. Magn. Reson. 2 (1993) 285; J. Herzfeld,
-    A. E. Berger, J. Chem. Phys. 73 (1980) 6021 (shift-tensor conventions).
-
-    Examples
-    --------
-    >>> s = make_site(label="AlO6", shift_ppm=8.0, cq_mhz=5.5, eta_q=0.6, span_ppm=20.0, skew=0.1)
-    >>> round(s.shift.span_ppm, 6)
-    20.0
-    """
-    from .modelfile import parse_site_table
-
-    site, free, tied = parse_site_table(0, dict(keys), "site")
-    if free or tied:
-        raise ModelError("make_site: free or tied parameters need a model; use make_model")
-    return site
-
-
-def make_model(nucleus, measurement=None, sites=(), fit=None) -> Model:
-    """Build a :class:`Model` from a nucleus name, measurement keys and site key dicts.
-
-    Parameters
-    ----------
-    nucleus : str or Nuclide
-        e.g. ``"27Al"``.
-    measurement : dict or Measurement or list of them
-        ``[measurement]`` keys (``field_tesla`` is required); a list gives
-        several measurements of one sample.
-    sites : sequence of dict or Site
-        Site keys as in a model file (free ``{start, min, max}`` and tied
-        ``{same_as = "LABEL.key"}`` values allowed), or ready :class:`Site`
-        values.
-    fit : dict, optional
-        ``[fit]`` keys.
-
-    Returns
-    -------
-    Model
-
-    Examples
-    --------
-    >>> m = make_model("23Na", {"field_tesla": 11.7}, [{"cq_mhz": 2.0}])
-    >>> m.measurement.field_tesla, m.sites[0].label
-    (11.7, 'site 1')
-    """
-    from .modelfile import model_from_tables
-
-    nuc = nucleus if isinstance(nucleus, Nuclide) else get_nuclide(str(nucleus))
-    if measurement is None:
-        raise ModelError("model: a measurement with field_tesla is required, e.g. {\"field_tesla\": 14.1}")
-    if isinstance(measurement, (dict, Measurement)):
-        measurement = [measurement]
-    if isinstance(sites, (dict, Site)):
-        raise ModelError(
-            "make_model: sites must be a list of site dicts (or Site values), e.g. [{\"cq_mhz\": 3.0}]; "
-            "got a single " + ("dict" if isinstance(sites, dict) else "Site") + " - wrap it in a list"
-        )
-    if isinstance(sites, str):
-        raise ModelError("make_model: sites must be a list of site dicts, got a string")
-    return model_from_tables(nuc, list(measurement), list(sites), fit or {}, source="")

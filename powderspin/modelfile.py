@@ -52,10 +52,10 @@ from .model import (
     check_number,
     MAGIC_ANGLE_DEG,
 )
-from .nuclides import get_nuclide
+from .nuclides import Nuclide, get_nuclide
 from .schema import FREE_TABLE_KEYS, KEYS, TIE_KEY, key_spec, keys_of
 
-__all__ = ["load_model", "parse_model", "model_from_tables", "parse_site_table", "model_to_dict",
+__all__ = ["load_model", "parse_model", "make_model", "make_site", "model_from_tables", "parse_site_table", "model_to_dict",
            "model_to_toml", "write_model", "MAX_MODEL_BYTES"]
 
 #: largest model file read (bytes); a model file is a few kB of text
@@ -598,7 +598,7 @@ def model_to_dict(model: Model) -> dict:
 
     Examples
     --------
-    >>> from powderspin.model import make_model
+    >>> from powderspin.modelfile import make_model
     >>> d = model_to_dict(make_model("27Al", {"field_tesla": 9.4}, [{"label": "A", "cq_mhz": 3.0}]))
     >>> d["site"][0]["cq_mhz"], d["measurement"]["field_tesla"]
     (3.0, 9.4)
@@ -668,7 +668,7 @@ def model_to_toml(model: Model, header: str = "") -> str:
     Examples
     --------
     >>> import tomllib
-    >>> from powderspin.model import make_model
+    >>> from powderspin.modelfile import make_model
     >>> m = make_model("27Al", {"field_tesla": 14.1}, [{"cq_mhz": 3.0, "eta_q": 0.4, "span_ppm": 40.0, "skew": 0.2}])
     >>> parse_model(tomllib.loads(model_to_toml(m))).sites == m.sites
     True
@@ -705,7 +705,7 @@ def write_model(model: Model, path, *, force: bool = False, protect=(), header: 
     Examples
     --------
     >>> import tempfile, pathlib
-    >>> from powderspin.model import make_model
+    >>> from powderspin.modelfile import make_model
     >>> m = make_model("31P", {"field_tesla": 9.4}, [{"span_ppm": 100.0, "skew": 0.5}])
     >>> with tempfile.TemporaryDirectory() as d:
     ...     p = write_model(m, pathlib.Path(d) / "m.toml")
@@ -714,3 +714,80 @@ def write_model(model: Model, path, *, force: bool = False, protect=(), header: 
     """
     return write_text_atomic(path, model_to_toml(model, header), force=force, protect=protect, role="model file")
 
+
+# ---------------------------------------------------------------------------
+# building models from Python dicts (the same keys as model files)
+
+
+def make_site(**keys) -> Site:
+    """Build a :class:`Site` from the model-file keys (same names, same checks).
+
+    Parameters
+    ----------
+    **keys
+        ``[[site]]`` keys: ``label``, ``weight``, ``shift_ppm``, ``cq_mhz``,
+        ``eta_q``, one of ``span_ppm`` + ``skew`` / ``aniso_ppm`` + ``eta_cs``
+        / ``principal_ppm`` (ppm), ``euler_deg`` (degrees), ``lorentz_hz``,
+        ``gauss_hz`` (Hz).
+
+    Returns
+    -------
+    Site
+
+    References
+    ----------
+    J. Mason, Solid State Nucl. Magn. Reson. 2 (1993) 285; J. Herzfeld,
+    A. E. Berger, J. Chem. Phys. 73 (1980) 6021 (shift-tensor conventions).
+
+    Examples
+    --------
+    >>> s = make_site(label="AlO6", shift_ppm=8.0, cq_mhz=5.5, eta_q=0.6, span_ppm=20.0, skew=0.1)
+    >>> round(s.shift.span_ppm, 6)
+    20.0
+    """
+    site, free, tied = parse_site_table(0, dict(keys), "site")
+    if free or tied:
+        raise ModelError("make_site: free or tied parameters need a model; use make_model")
+    return site
+
+
+def make_model(nucleus, measurement=None, sites=(), fit=None) -> Model:
+    """Build a :class:`Model` from a nucleus name, measurement keys and site key dicts.
+
+    Parameters
+    ----------
+    nucleus : str or Nuclide
+        e.g. ``"27Al"``.
+    measurement : dict or Measurement or list of them
+        ``[measurement]`` keys (``field_tesla`` is required); a list gives
+        several measurements of one sample.
+    sites : sequence of dict or Site
+        Site keys as in a model file (free ``{start, min, max}`` and tied
+        ``{same_as = "LABEL.key"}`` values allowed), or ready :class:`Site`
+        values.
+    fit : dict, optional
+        ``[fit]`` keys.
+
+    Returns
+    -------
+    Model
+
+    Examples
+    --------
+    >>> m = make_model("23Na", {"field_tesla": 11.7}, [{"cq_mhz": 2.0}])
+    >>> m.measurement.field_tesla, m.sites[0].label
+    (11.7, 'site 1')
+    """
+    nuc = nucleus if isinstance(nucleus, Nuclide) else get_nuclide(str(nucleus))
+    if measurement is None:
+        raise ModelError("model: a measurement with field_tesla is required, e.g. {\"field_tesla\": 14.1}")
+    if isinstance(measurement, (dict, Measurement)):
+        measurement = [measurement]
+    if isinstance(sites, (dict, Site)):
+        raise ModelError(
+            "make_model: sites must be a list of site dicts (or Site values), e.g. [{\"cq_mhz\": 3.0}]; "
+            "got a single " + ("dict" if isinstance(sites, dict) else "Site") + " - wrap it in a list"
+        )
+    if isinstance(sites, str):
+        raise ModelError("make_model: sites must be a list of site dicts, got a string")
+    return model_from_tables(nuc, list(measurement), list(sites), fit or {}, source="")

@@ -69,7 +69,7 @@ def plot_spectrum(spectrum, ax=None, *, show_sites: bool = True, mark_sidebands:
     --------
     >>> import matplotlib
     >>> matplotlib.use("Agg")
-    >>> from powderspin.model import make_model
+    >>> from powderspin.modelfile import make_model
     >>> from powderspin.simulation import simulate
     >>> spec = simulate(make_model("31P", {"field_tesla": 9.4, "points": 256},
     ...                            [{"span_ppm": 100.0, "skew": 0.3}]))

@@ -369,7 +369,7 @@ def simulate_all(model, **options) -> tuple[Spectrum, ...]:
 
     Examples
     --------
-    >>> from powderspin.model import make_model
+    >>> from powderspin.modelfile import make_model
     >>> m = make_model("23Na", [{"field_tesla": 9.4, "points": 256}, {"field_tesla": 18.8, "points": 256}],
     ...                [{"cq_mhz": 2.0}])
     >>> [s.metadata["field_tesla"] for s in simulate_all(m)]
@@ -422,7 +422,7 @@ def sideband_rows(label: str, weight: float, lines: SiteLines, nu_ref: float, sh
 
     Examples
     --------
-    >>> from powderspin.model import make_model
+    >>> from powderspin.modelfile import make_model
     >>> m = make_model("31P", {"field_tesla": 9.4, "spinning_hz": 5000.0, "points": 512},
     ...                [{"span_ppm": 100.0, "skew": 0.0}])
     >>> rows = simulate(m).sidebands

@@ -360,7 +360,8 @@ def choose_orientations(site: Site, meas: Measurement, nucleus: Nuclide, method:
     Examples
     --------
     >>> from powderspin.lineshape import make_axis
-    >>> from powderspin.model import Measurement, make_site
+    >>> from powderspin.model import Measurement
+    >>> from powderspin.modelfile import make_site
     >>> p = get_nuclide("31P")
     >>> ax = make_axis(1024, p.larmor_hz(9.4), center_ppm=0.0, width_ppm=300.0)
     >>> oset, err = choose_orientations(make_site(span_ppm=150.0, skew=0.3, gauss_hz=300.0),
@@ -557,7 +558,8 @@ def estimate_span_hz(site: Site, meas: Measurement, nucleus: Nuclide) -> tuple[f
 
     Examples
     --------
-    >>> from powderspin.model import Measurement, make_site
+    >>> from powderspin.model import Measurement
+    >>> from powderspin.modelfile import make_site
     >>> lo, hi = estimate_span_hz(make_site(span_ppm=100.0, skew=0.0), Measurement(9.4), get_nuclide("31P"))
     >>> lo < 0 < hi
     True

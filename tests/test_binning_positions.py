@@ -27,7 +27,7 @@ import numpy as np
 import pytest
 
 from powderspin import _kernels as _k
-from powderspin.model import make_model
+from powderspin.modelfile import make_model
 from powderspin.simulation import simulate
 
 

@@ -6,7 +6,8 @@ import math
 
 import pytest
 
-from powderspin.model import MAGIC_ANGLE_DEG, ModelError, make_model, selected_transitions
+from powderspin.model import MAGIC_ANGLE_DEG, ModelError, selected_transitions
+from powderspin.modelfile import make_model
 from powderspin.modelfile import load_model, parse_model
 
 

@@ -18,7 +18,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from powderspin.model import make_model
+from powderspin.modelfile import make_model
 from powderspin.site_lines import ORIENTATION_TARGET, ORIENTATION_TARGET_MAX
 from powderspin.simulation import simulate
 

@@ -9,7 +9,8 @@ import pytest
 
 import powderspin.site_lines as stage
 from powderspin.lineshape import Axis
-from powderspin.model import Measurement, ModelError, ParameterAddress, Site, make_model
+from powderspin.model import Measurement, ModelError, ParameterAddress, Site
+from powderspin.modelfile import make_model
 from powderspin.nuclides import get_nuclide
 from powderspin.simulation import simulate
 from powderspin.site_lines import compute_lines, render_lines, site_job

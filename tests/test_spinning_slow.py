@@ -20,7 +20,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from powderspin.model import ModelError, make_model
+from powderspin.model import ModelError
+from powderspin.modelfile import make_model
 from powderspin.simulation import simulate
 
 
