@@ -223,8 +223,9 @@ def section_library(repeat: int) -> None:
         t0 = time.perf_counter()
         ds.kernels(ax, KernelStore(lib))
         t_build = time.perf_counter() - t0
-        import h5py
         import json
+
+        import h5py
 
         keys = []
         for p in sorted(Path(d).rglob("*.h5")):

@@ -8,7 +8,6 @@ Run:  python benchmarks/bench_static.py
 
 from __future__ import annotations
 
-import math
 import sys
 from pathlib import Path
 
@@ -17,7 +16,7 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from _common import best_time, numpy_tent  # noqa: E402
 
-from powderspin.frequencies import perturbative_offsets, site_frame  # noqa: E402
+from powderspin.frequencies import site_frame  # noqa: E402
 from powderspin.lineshape import bin_lines, make_axis  # noqa: E402
 from powderspin.model import selected_transitions  # noqa: E402
 from powderspin.modelfile import make_model  # noqa: E402

@@ -92,7 +92,8 @@ def _cone_functions(n0, n1, n2, u0, u1, u2, w0, w1, w2, cos_r, cc, sn, v0, v1, v
     vzz = v0 * b0s + v1 * b1s + v2 * b2s
     a = v0 * v0 * b0s + v1 * v1 * b1s + v2 * v2 * b2s - vzz * vzz
     bq = 2.0 * t2 - 3.0 * vzz * vzz - 4.0 * a
-    dzz = shift_terms[0] * b0s + shift_terms[1] * b1s + shift_terms[2] * b2s + shift_terms[3] * b0 * b1 + shift_terms[4] * b0 * b2 + shift_terms[5] * b1 * b2
+    dzz = (shift_terms[0] * b0s + shift_terms[1] * b1s + shift_terms[2] * b2s + shift_terms[3] * b0 * b1
+           + shift_terms[4] * b0 * b2 + shift_terms[5] * b1 * b2)
     return vzz, a, bq, dzz
 
 
@@ -124,7 +125,8 @@ def _pair_coefficients(m, mm, x, quad_constant_hz, c2):
 
 
 @njit(parallel=True, cache=True)
-def _perturbative_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, m_upper, m_lower, spin, second_order):
+def _perturbative_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, m_upper,
+                          m_lower, spin, second_order):
     """Offsets (Hz) of transitions m_hi <-> m_lo for every orientation and rotor phase.
 
     The offset is E(m_hi) - E(m_lo) - (m_hi - m_lo) nu0: single-quantum
@@ -174,7 +176,8 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delt
 
 
 @njit(parallel=True, cache=True)
-def _exact_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, ops, iz_diag, iplus, upper_index,
+def _exact_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, ops, iz_diag,
+                  iplus, upper_index,
                   lower_index):
     """Exact transition offsets (Hz) and intensities |<m|I+|m-1>|^2.
 
@@ -752,7 +755,8 @@ def _fft_lanes_bitreversed(re, im, twr, twi):
 
 
 @njit(parallel=True, cache=True, fastmath=True)
-def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, m_upper, spin, second_order,
+def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, m_upper,
+                            spin, second_order,
                             rate_hz):
     """Rotor averages and sideband intensities straight from the perturbative terms.
 

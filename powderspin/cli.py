@@ -154,8 +154,8 @@ def _cmd_simulate(args) -> int:
         if sidebands_file:
             outputs.append((name_for(sidebands_file, j), "sideband table"))
     check_outputs(outputs, force=args.force, protect=[model_path])
-    from .site_lines import check_high_field
     from .simulation import simulate
+    from .site_lines import check_high_field
 
     for j in which:
         for text in check_high_field(model.sites, model.nucleus, model.measurements[j].field_tesla,

@@ -104,7 +104,6 @@ import json
 import math
 import os
 import re
-import tempfile
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -113,8 +112,8 @@ from typing import Mapping
 
 import numpy as np
 
+from .files import write_text_atomic
 from .nuclides import UnknownNuclideError, get_nuclide
-from .files import OutputExistsError, write_text_atomic
 
 __all__ = [
     "DataError",

@@ -87,6 +87,7 @@ from typing import Mapping, Sequence
 
 import numpy as np
 
+from .data_io import DataError, compare_with_model, read_spectrum
 from .lineshape import Axis, make_axis
 from .model import FitSettings, FreeParameter, Model, ModelError, ParameterAddress
 from .simulation import simulate
@@ -121,8 +122,6 @@ _SCALE_LIKE = {"weight", "cq_mhz", "eta_q", "span_ppm", "aniso_ppm", "eta_cs", "
 _DIFF_STEP = 1e-6
 #: fewest points a noise region must hold in every measurement
 _MIN_NOISE_POINTS = 8
-
-from .data_io import DataError, compare_with_model, read_spectrum
 
 
 class FitError(ValueError):
@@ -587,7 +586,10 @@ class _Problem:
         return np.where(theta + h > self.hi, -h, h)
 
     def jacobian(self, theta, full: bool = False):
-        """Forward-difference Jacobian of the projected residual (and, with ``full``, of the model at fixed linear parameters)."""
+        """Forward-difference Jacobian of the projected residual.
+
+        With ``full``, also of the model at fixed linear parameters.
+        """
         theta = np.asarray(theta, dtype=float)
         e0 = self.evaluate(theta)
         h = self.steps(theta)

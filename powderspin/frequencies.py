@@ -16,11 +16,12 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from . import _kernels as _k
-from typing import TYPE_CHECKING
+
 if TYPE_CHECKING:  # pragma: no cover
     from .model import Site
     from .nuclides import Nuclide

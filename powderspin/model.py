@@ -25,7 +25,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from .nuclides import Nuclide, get_nuclide
+from .nuclides import Nuclide
 from .schema import key_spec
 from .tensors import ShiftTensor, TensorError
 
@@ -1056,7 +1056,8 @@ def check_model_distributions(model: Model) -> None:
     ...     make_model("31P", {"field_tesla": 9.4}, [{"label": "P", "czjzek_sigma_mhz": 1.0}])
     ... except ModelError as e:
     ...     print(e)
-    site 'P': czjzek_sigma_mhz describes a distribution of EFG tensors, but 31P has spin 1/2 (no quadrupole moment); remove czjzek_sigma_mhz or use shift_fwhm_ppm for a shift distribution
+    site 'P': czjzek_sigma_mhz describes a distribution of EFG tensors, but 31P has spin 1/2 (no quadrupole
+    moment); remove czjzek_sigma_mhz or use shift_fwhm_ppm for a shift distribution
     """
     nuc = model.nucleus
     for i, s in enumerate(model.sites):

@@ -39,6 +39,8 @@ import tomli_w
 
 from .files import write_text_atomic
 from .model import (
+    _FREE_KEYS,
+    MAGIC_ANGLE_DEG,
     FitSettings,
     FreeParameter,
     Measurement,
@@ -47,15 +49,14 @@ from .model import (
     ParameterAddress,
     Site,
     TiedParameter,
-    _FREE_KEYS,
     _site_from_values,
     check_number,
-    MAGIC_ANGLE_DEG,
 )
 from .nuclides import Nuclide, get_nuclide
 from .schema import FREE_TABLE_KEYS, KEYS, TIE_KEY, key_spec, keys_of
 
-__all__ = ["load_model", "parse_model", "make_model", "make_site", "model_from_tables", "parse_site_table", "model_to_dict",
+__all__ = ["load_model", "parse_model", "make_model", "make_site", "model_from_tables", "parse_site_table",
+           "model_to_dict",
            "model_to_toml", "write_model", "MAX_MODEL_BYTES"]
 
 #: largest model file read (bytes); a model file is a few kB of text
@@ -96,7 +97,8 @@ def _parameter(table: dict, key: str, where: str, kind_table: str, free: list, t
             return None
         _unknown(v.keys(), FREE_TABLE_KEYS, f"{where}.{name}")
         if "start" not in v:
-            raise ModelError(f"{where}.{name}: a free parameter needs 'start', e.g. {{ start = 3.0, min = 1.0, max = 8.0 }}")
+            raise ModelError(f"{where}.{name}: a free parameter needs 'start', "
+                             "e.g. { start = 3.0, min = 1.0, max = 8.0 }")
         spec = key_spec(kind_table, key)
         st = check_number(where, key, v["start"], kind_table)
         lo = check_number(where, key, v["min"], kind_table) if "min" in v else spec.low

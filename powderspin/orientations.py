@@ -828,7 +828,6 @@ def _triangulated_cached(subdivisions: int, symmetry: str) -> OrientationSet:
                                face_vectors[face_triangles[:, 1]],
                                face_vectors[face_triangles[:, 2]])
     signs = np.array(_FACE_SIGNS[symmetry], dtype=np.int64)
-    n_face = face_lattice.shape[0]
     # Merge the vertices shared between faces through a table indexed by
     # the lattice point (x, y) and the side z < 0 (a zero z has no side).
     width = 2 * s + 1

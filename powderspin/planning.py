@@ -163,8 +163,13 @@ import numpy as np
 
 from .lineshape import Axis
 from .model import Measurement, Model, ModelError, ParameterAddress, check_number
-from .schema import key_spec
-from .schema import PLAN_DEFAULT_MIN_RATE_HZ, PLAN_DEFAULT_RATE_COUNT, PLAN_DEFAULT_SNR, PLAN_DEFAULT_THRESHOLD
+from .schema import (
+    PLAN_DEFAULT_MIN_RATE_HZ,
+    PLAN_DEFAULT_RATE_COUNT,
+    PLAN_DEFAULT_SNR,
+    PLAN_DEFAULT_THRESHOLD,
+    key_spec,
+)
 
 __all__ = [
     "PlanError",
@@ -1333,7 +1338,8 @@ def _check_fields(fields, model: Model) -> tuple:
         try:
             v = check_number("fields", "field_tesla", f, "measurement")
         except ModelError:
-            raise PlanError(f"fields: {f!r} T is outside the allowed range {spec.range_text()} T ({spec.why})") from None
+            raise PlanError(f"fields: {f!r} T is outside the allowed range {spec.range_text()} T "
+                            f"({spec.why})") from None
         out.append(v)
     return tuple(sorted(set(out)))
 
@@ -2167,7 +2173,8 @@ def _best_pairs(fplans, threshold, info, g, refs, skip, prefs, notes, keep: int 
             ld = _log_det(cov, prefs)
             out.append({"fields_tesla": [fa.field_tesla, fb.field_tesla], "rates_hz": [ra.rate_hz, rb.rate_hz],
                         "rotors": [ra.rotors[0] if ra.rotors else None, rb.rotors[0] if rb.rotors else None],
-                        "relative_signal": [ra.relative_signal, rb.relative_signal], "criterion": crit, "worst_parameter": name, "log_det_covariance": ld, "stderr": stderr})
+                        "relative_signal": [ra.relative_signal, rb.relative_signal], "criterion": crit,
+                        "worst_parameter": name, "log_det_covariance": ld, "stderr": stderr})
     out.sort(key=lambda d: (_sort_key(d["criterion"]), _sort_key(d["log_det_covariance"])))
     return tuple(MappingProxyType(d) for d in out[:keep])
 
@@ -2269,7 +2276,7 @@ def _table_text(p: Plan) -> str:
 
 
 def plot_plan(p: Plan, fig=None):
-    """Draw the plan: the spectrum at each field's recommended rate with its sidebands marked, and the precision ranking.
+    """Draw the plan: each field's spectrum at its recommended rate, sidebands marked, and the precision ranking.
 
     Parameters
     ----------

@@ -129,7 +129,8 @@ def plot_spectrum(spectrum, ax=None, *, show_sites: bool = True, mark_sidebands:
     if field is not None:
         title.append(f"{field:g} T")
     if rate is not None:
-        title.append("static" if rate == 0 else ("infinite rate" if rate == "inf" else f"{float(rate) / 1e3:g} kHz spinning"))
+        title.append("static" if rate == 0 else
+                     ("infinite rate" if rate == "inf" else f"{float(rate) / 1e3:g} kHz spinning"))
     if title:
         ax.set_title(", ".join(title), fontsize=10)
     ax.legend(frameon=False, fontsize=8)

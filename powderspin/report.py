@@ -47,7 +47,6 @@ def report_figure(result):
     See :func:`save_report`.
     """
     import matplotlib
-
     from matplotlib.figure import Figure
 
     n = len(result.spectra)

@@ -23,8 +23,7 @@ import numpy as np
 from .disorder import DistributedSite, default_kernel_store, shift_fwhm_hz
 from .lineshape import Axis, make_axis
 from .model import Model, ModelError, selected_transitions, site_key_values
-from .orientations import OrientationSet
-from .orientations import orientation_set_by_name
+from .orientations import OrientationSet, orientation_set_by_name
 from .site_lines import (
     ORIENTATION_TARGET,
     SiteLines,
@@ -158,7 +157,8 @@ def simulate(model, *, measurement: int = 0, orientations: OrientationSet | None
     """
     model = _as_model(model)
     if not (isinstance(measurement, int) and 0 <= measurement < len(model.measurements)):
-        raise ModelError(f"simulate: measurement = {measurement!r} must be an index in [0, {len(model.measurements) - 1}]")
+        raise ModelError(f"simulate: measurement = {measurement!r} must be an index in "
+                         f"[0, {len(model.measurements) - 1}]")
     meas = model.measurements[measurement]
     nuc = model.nucleus
     nu_ref = nuc.larmor_hz(meas.field_tesla)

@@ -41,7 +41,7 @@ from .frequencies import (
 from .lineshape import Axis, bin_lines, broaden
 from .model import Measurement, ModelError, Site, selected_transitions
 from .nuclides import Nuclide, get_nuclide
-from .orientations import OrientationSet, symmetry_rank, orientation_set_by_name, select_orientations
+from .orientations import OrientationSet, orientation_set_by_name, select_orientations, symmetry_rank
 from .spinning import MAX_ROTOR_PHASES, choose_rotor_phases, perturbative_sidebands, rotor_lines
 from .tensors import ShiftTensor
 
@@ -1011,7 +1011,6 @@ def _render_streamed(lines: SiteLines, axis: Axis, binning: str, rate: float, cu
 
     oset = lines.orientations
     prod = _Producer(lines.job, oset)
-    total = float(lines.band_intensity.sum()) if lines.band_intensity is not None else 1.0
     out = np.zeros(axis.points)
     size = prod.chunk_size(lines.phases)
     if binning == "interpolate":
@@ -1024,7 +1023,8 @@ def _render_streamed(lines: SiteLines, axis: Axis, binning: str, rate: float, cu
             local = np.searchsorted(verts, t)
             sub = _Set("chunk", "sphere", oset.vectors[verts], np.full(verts.size, 1.0 / verts.size),
                        local, tw[a:b] / tw[a:b].sum())
-            part = bin_lines(axis, m_c, amp_c, lines.weights[verts], sub, "interpolate", rate, cutoff / max(total, 1e-300))
+            part = bin_lines(axis, m_c, amp_c, lines.weights[verts], sub, "interpolate", rate,
+                             cutoff / max(float(tw[a:b].sum()), 1e-300))
             out += part * float(tw[a:b].sum())
         return out
     for a, b in _chunks(oset.size, size):

@@ -30,8 +30,8 @@ from powderspin.data_io import (
     write_jcamp,
     write_spectrum_text,
 )
-from powderspin.nuclides import UnknownNuclideError, get_nuclide
 from powderspin.files import OutputExistsError
+from powderspin.nuclides import UnknownNuclideError, get_nuclide
 from powderspin.spectrum import Spectrum
 
 BAD = Path(__file__).resolve().parent / "bad_inputs" / "data"

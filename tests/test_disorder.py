@@ -543,7 +543,8 @@ def test_bad_input(case, tmp_path, capsys):
     model = tmp_path / case["file"]
     model.write_text(src.read_text())
     out = tmp_path / "out.csv"
-    args = [str(tmp_path / a) if a.endswith(".toml") else a for a in case.get("args", ["--cache", str(tmp_path / "lib")])]
+    args = [str(tmp_path / a) if a.endswith(".toml") else a
+            for a in case.get("args", ["--cache", str(tmp_path / "lib")])]
     rc = main(["simulate", str(model), "-o", str(out), "-q", *args])
     err = capsys.readouterr().err
     assert rc == 2, err

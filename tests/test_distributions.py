@@ -376,4 +376,5 @@ def test_quadrupolar_induced_shift_formula():
     # averaged over a distribution it needs <P_Q^2>, not <P_Q>^2
     g = explicit_grid({"values": [1.0, 3.0], "weights": [1, 1]}, {"values": [0.0], "weights": [1]})
     assert mean_quadrupolar_induced_shift_ppm(g, spin, nu0) == pytest.approx(
-        0.5 * (float(quadrupolar_induced_shift_ppm(1.0, spin, nu0)) + float(quadrupolar_induced_shift_ppm(3.0, spin, nu0))))
+        0.5 * (float(quadrupolar_induced_shift_ppm(1.0, spin, nu0))
+               + float(quadrupolar_induced_shift_ppm(3.0, spin, nu0))))

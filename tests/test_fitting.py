@@ -24,12 +24,11 @@ import numpy as np
 import pytest
 
 import powderspin as ps
+from powderspin.data_io import MeasuredSpectrum as _Spectrum
 from powderspin.fitting import FitError, fit, result_to_toml, write_result
 from powderspin.lineshape import make_axis
 from tests.reference import fit_spectra as fr
 from tests.reference import herzfeld_berger as hb
-
-from powderspin.data_io import MeasuredSpectrum as _Spectrum
 
 TRIALS = 20
 

@@ -34,7 +34,6 @@ from powderspin.frequencies import (
     transition_intensity,
 )
 from powderspin.tensors import efg_principal
-
 from tests.reference.exact_numpy import exact_transitions
 from tests.reference.perturbative_numpy import (
     lab_efg_spherical,
@@ -136,7 +135,8 @@ def test_exact_kernel_spinning_matches_numpy(spin):
 
 @pytest.mark.parametrize("spin", [1.5, 2.5, 4.5])
 def test_exact_intensities_reduce_to_high_field_values(spin):
-    # Source: |<m|I+|m-1>|^2 = I(I+1) - m(m-1) for pure Zeeman states (Abragam, chapter on the motion of free spins, from memory;
+    # Source: |<m|I+|m-1>|^2 = I(I+1) - m(m-1) for pure Zeeman states (Abragam, chapter on the motion of
+    # free spins, from memory;
     # textbook angular-momentum algebra).  At C_Q/nu0 = 1e-5 the states are pure to ~1e-5.
     rng = np.random.default_rng(3)
     ms = _all_ms(spin)
@@ -249,7 +249,8 @@ def test_perturbative_error_scaling(spin):
 
 @pytest.mark.parametrize("spin", [1.5, 2.5, 3.5, 4.5])
 def test_first_order_satellite_splitting_at_theta_zero(spin):
-    # Source: A. Abragam, The Principles of Nuclear Magnetism (1961), chapter on electric quadrupole effects (from memory): the
+    # Source: A. Abragam, The Principles of Nuclear Magnetism (1961), chapter on electric quadrupole effects
+    # (from memory): the
     # first-order satellite 3/2 -> 1/2 sits at nu_Q (3 cos^2 theta - 1)/2 from the centre,
     # nu_Q = 3 C_Q / (2I(2I-1)); at theta = 0 and eta = 0 it is nu_Q.  Here H_Q commutes
     # with Iz, so the exact route gives the same value.

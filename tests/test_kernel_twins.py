@@ -20,7 +20,6 @@ from powderspin.model import MAGIC_ANGLE_DEG, Site
 from powderspin.nuclides import get_nuclide
 from powderspin.spinning import perturbative_sidebands
 from powderspin.tensors import ShiftTensor
-
 from tests.reference import mas_numpy
 
 ROOT = Path(__file__).resolve().parent.parent

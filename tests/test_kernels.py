@@ -33,7 +33,6 @@ from powderspin.frequencies import SiteFrame, perturbative_offsets
 from powderspin.lineshape import broaden
 from powderspin.spinning import rotor_lines
 from powderspin.tensors import efg_principal
-
 from tests.reference.binning_numpy import bin_triangles, hat_weights, histogram_lines, triangle_weights_clipped
 from tests.reference.perturbative_numpy import perturbative_transitions
 from tests.reference.sidebands_numpy import gamma_averaged_fid, sideband_intensities, trig_interpolant

@@ -7,8 +7,7 @@ import math
 import pytest
 
 from powderspin.model import MAGIC_ANGLE_DEG, ModelError, selected_transitions
-from powderspin.modelfile import make_model
-from powderspin.modelfile import load_model, parse_model
+from powderspin.modelfile import load_model, make_model, parse_model
 
 
 def _data(**meas):
@@ -34,14 +33,17 @@ def test_defaults_and_free_parameters():
     "mutate,needle",
     [
         (lambda d: d["site"][0].update(eta_q=1.5), "eta_q = 1.5 is outside the allowed range [0, 1]"),
-        (lambda d: d["measurement"].update(field_tesla=-2.0), "field_tesla = -2.0 is outside the allowed range [0.1, 40]"),
+        (lambda d: d["measurement"].update(field_tesla=-2.0),
+         "field_tesla = -2.0 is outside the allowed range [0.1, 40]"),
         (lambda d: d["site"][0].update(span_ppm=10.0, skew=1.4), "skew = 1.4 is outside the allowed range [-1, 1]"),
-        (lambda d: d["site"][0].update(span_ppm=-10.0, skew=0.0), "span_ppm = -10.0 is outside the allowed range [0, 100000]"),
+        (lambda d: d["site"][0].update(span_ppm=-10.0, skew=0.0),
+         "span_ppm = -10.0 is outside the allowed range [0, 100000]"),
         (lambda d: d["measurement"].update(transitions=["7/2:5/2"]), "needs |m| <= I = 5/2"),
         (lambda d: d["measurement"].update(transitions=["3/2:-1/2"]), "single-quantum"),
         (lambda d: d["measurement"].update(method="magic"), "method = 'magic' is not one of"),
         (lambda d: d["measurement"].update(spinning_hz=-5.0), "spinning_hz = -5.0 is outside the allowed range"),
-        (lambda d: d["measurement"].update(rotor_angle_deg=95.0), "rotor_angle_deg = 95.0 is outside the allowed range [0, 90]"),
+        (lambda d: d["measurement"].update(rotor_angle_deg=95.0),
+         "rotor_angle_deg = 95.0 is outside the allowed range [0, 90]"),
         (lambda d: d["measurement"].update(points=10), "points = 10 must be an integer in [16"),
         (lambda d: d["measurement"].update(rotor_phases=48), "rotor_phases = 48 must be 'auto' or a power of 2"),
         (lambda d: d["measurement"].update(feild_tesla=3.0), "unknown key 'feild_tesla' (did you mean 'field_tesla'?)"),

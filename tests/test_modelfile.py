@@ -7,9 +7,8 @@ import tomllib
 
 import pytest
 
-from powderspin.modelfile import load_model, model_to_toml, parse_model, write_model
-
 from powderspin.files import OutputExistsError
+from powderspin.modelfile import load_model, model_to_toml, parse_model, write_model
 
 
 def _model():

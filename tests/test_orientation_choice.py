@@ -19,8 +19,8 @@ import numpy as np
 import pytest
 
 from powderspin.modelfile import make_model
-from powderspin.site_lines import ORIENTATION_TARGET, ORIENTATION_TARGET_MAX
 from powderspin.simulation import simulate
+from powderspin.site_lines import ORIENTATION_TARGET, ORIENTATION_TARGET_MAX
 
 CASES = {
     # 2H, C_Q = 170 kHz, eta = 0 (a Pake doublet with sharp horns), static, 500 Hz broadening

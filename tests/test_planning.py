@@ -61,7 +61,6 @@ from powderspin.planning import (
     load_rotor_table,
     overlap_fraction,
 )
-
 from tests.reference import bloembergen_rowland as br
 from tests.reference import fit_spectra as fr
 from tests.reference import herzfeld_berger as hb

@@ -139,7 +139,8 @@ def test_check_spin_normalises_valid_values():
     np.testing.assert_array_equal(magnetic_numbers(1.5), [1.5, 0.5, -0.5, -1.5])
 
 
-@pytest.mark.parametrize("bad", [0, 0.0, 0.3, -0.5, -1, 1.25, float("nan"), float("inf"), float("-inf"), 20.5, "abc", None])
+@pytest.mark.parametrize("bad", [0, 0.0, 0.3, -0.5, -1, 1.25, float("nan"), float("inf"), float("-inf"), 20.5, "abc",
+                                 None])
 def test_invalid_spin_raises_value_error(bad):
     # Project rule: a clear ValueError naming the field, the value and the range.
     # (inf used to raise OverflowError from round().)

@@ -45,7 +45,6 @@ from powderspin.nuclides import get_nuclide
 from powderspin.orientations import orientation_set_by_name
 from powderspin.simulation import simulate
 from powderspin.site_lines import compute_lines, site_job
-
 from tests.reference import bloembergen_rowland as br
 from tests.reference import herzfeld_berger as hb
 from tests.reference import time_domain as td
@@ -653,7 +652,9 @@ def test_exact_route_chosen_and_centre_bands_match_numpy():
 
 
 def test_satellite_manifolds_and_transition_weights():
-    """27Al, all transitions, 10 kHz MAS, C_Q = 3 MHz, eta = 0 (first-order quadrupolar splitting, Abragam, chapter on electric quadrupole effects, from memory).
+    """27Al, all transitions, 10 kHz MAS, C_Q = 3 MHz, eta = 0.
+
+    First-order quadrupolar splitting: Abragam, chapter on electric quadrupole effects (from memory).
 
     The m -> m-1 satellite follows A P2(cos theta), A = (nu_Q/2)(2m-1), with
     cos theta uniform on [0, 1]: its static pattern spans [-A/2, A] (for A > 0),

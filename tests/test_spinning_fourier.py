@@ -253,7 +253,8 @@ def test_ct_rotor_average_rank_decomposition(nucleus, cq_mhz, eta):
         site = Site(shift=shift, cq_mhz=cq_mhz, eta_q=eta, euler_deg=euler)
         frame = site_frame(site, nuc, FIELD_T)
         c0 = rotor_fourier_components(frame, axes, [0.5], rotor_angle_rad=theta)[:, 0, 4]
-        expect = shift.iso_ppm * 1e-6 * frame.nu0_hz + _ct_rotor_average(spin, quad_constant_hz, frame.nu0_hz, eta, axes, theta)
+        expect = (shift.iso_ppm * 1e-6 * frame.nu0_hz
+                  + _ct_rotor_average(spin, quad_constant_hz, frame.nu0_hz, eta, axes, theta))
         scale = quad_constant_hz ** 2 / frame.nu0_hz
         np.testing.assert_allclose(c0.real, expect, rtol=0, atol=1e-9 * scale)
         assert np.max(np.abs(c0.imag)) < 1e-9 * scale

@@ -17,7 +17,6 @@ the sideband consumer, not the powder average.  Both use perturbation theory
 
 from __future__ import annotations
 
-import numpy as np
 import pytest
 
 from powderspin.model import ModelError

@@ -314,7 +314,8 @@ class MomentProblem:
         a_cols = [j for j, (i, is_w) in enumerate(owners) if is_w]
         p_cols = [j for j, (i, is_w) in enumerate(owners) if not is_w]
         a_mat = jac[:, a_cols]
-        rhs = np.zeros(a_mat.shape[0]); rhs[0] = 1.0
+        rhs = np.zeros(a_mat.shape[0])
+        rhs[0] = 1.0
         w, *_ = np.linalg.lstsq(a_mat, rhs, rcond=None)
         r = a_mat @ w - rhs
         q, _ = np.linalg.qr(a_mat)

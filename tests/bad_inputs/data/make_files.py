@@ -31,7 +31,8 @@ def write(name, text, mode="w"):
 def main():
     good = rows(HZ, Y)
     write("binary.csv", (HEAD + "hz,intensity\n" + "\n".join(good[:8]) + "\n").encode() + b"\x00\x01\x02\xff" * 8)
-    write("latin1.csv", ("# sample at 25 \u00b0C\n" + HEAD + "hz,intensity\n" + "\n".join(good) + "\n").encode("latin-1"))
+    write("latin1.csv",
+          ("# sample at 25 \u00b0C\n" + HEAD + "hz,intensity\n" + "\n".join(good) + "\n").encode("latin-1"))
     write("utf16.csv", (HEAD + "hz,intensity\n" + "\n".join(good) + "\n").encode("utf-16"))
     r = list(good)
     r[5] = r[5] + ",0.5"
