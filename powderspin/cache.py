@@ -76,7 +76,6 @@ import math
 import numbers
 import os
 import re
-import tempfile
 import warnings
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
@@ -87,6 +86,7 @@ import h5py
 import numpy as np
 
 from . import __version__
+from .files import atomic_output
 
 __all__ = [
     "DEFAULT_MAX_BYTES",
@@ -705,10 +705,10 @@ class LineshapeLibrary:
             raise CacheError(f"description must be a str, not {type(description).__name__}")
         self._ensure_folder()
         path.parent.mkdir(exist_ok=True)
-        fd, tmp_name = tempfile.mkstemp(prefix=_TMP_PREFIX, suffix=_TMP_SUFFIX, dir=path.parent)
-        os.close(fd)
-        tmp = Path(tmp_name)
-        try:
+        # the one atomic-output helper: a temporary file in the entry's folder, flushed to disk and renamed
+        # into place, so no entry is ever opened for writing where readers look (h5py issue 1864)
+        with atomic_output(path, force=True, role="lineshape-library entry", prefix=_TMP_PREFIX, suffix=_TMP_SUFFIX,
+                           sync=True, checked=False) as tmp:
             with h5py.File(tmp, "w", locking=False) as f:
                 g = f.create_group("arrays")
                 for name, a in data.items():
@@ -720,15 +720,6 @@ class LineshapeLibrary:
                 f.attrs["hash"] = path.stem
                 f.attrs["description"] = description
                 f.attrs["checksum"] = _checksum(data)
-            with open(tmp, "rb") as fh:
-                os.fsync(fh.fileno())
-            os.replace(tmp, path)
-        except BaseException:
-            try:
-                os.remove(tmp)
-            except OSError:
-                pass
-            raise
         self._evict(keep=path)
         return path
 

@@ -185,7 +185,8 @@ def check_outputs(outputs: Iterable, *, force: bool = False, protect: Iterable =
 
 @contextlib.contextmanager
 def atomic_output(path, *, force: bool = False, protect: Iterable = (), role: str = "output",
-                  suffix: str = ".part") -> Iterator[Path]:
+                  suffix: str = ".part", prefix: str | None = None, sync: bool = False,
+                  checked: bool = True) -> Iterator[Path]:
     """Give a temporary path to write; move it to ``path`` when the block succeeds.
 
     Parameters
@@ -200,6 +201,14 @@ def atomic_output(path, *, force: bool = False, protect: Iterable = (), role: st
         What the file is, for messages.
     suffix : str, optional
         Suffix of the temporary file (some writers pick the format from it).
+    prefix : str, optional
+        Prefix of the temporary file (default ``".<name>."``, hidden).
+    sync : bool, optional
+        Flush the file to disk (``fsync``) before the rename, for files that
+        other processes rely on (the lineshape library's entries).
+    checked : bool, optional
+        Check the output first (:func:`check_outputs`); a writer filling its
+        own folder (the lineshape library) may skip this.
 
     Yields
     ------
@@ -224,11 +233,13 @@ def atomic_output(path, *, force: bool = False, protect: Iterable = (), role: st
     'done'
     """
     p = Path(path)
-    check_outputs([(p, role)], force=force, protect=protect)
+    if checked:
+        check_outputs([(p, role)], force=force, protect=protect)
     try:
         if str(p.parent) and not p.parent.exists():
             p.parent.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=suffix, dir=str(p.parent if str(p.parent) else "."))
+        fd, tmp = tempfile.mkstemp(prefix=f".{p.name}." if prefix is None else prefix, suffix=suffix,
+                                   dir=str(p.parent if str(p.parent) else "."))
         os.close(fd)
     except OSError as e:
         raise OutputPathError(f"{role} {str(p)!r} cannot be written: {e.strerror or e}") from None
@@ -236,6 +247,9 @@ def atomic_output(path, *, force: bool = False, protect: Iterable = (), role: st
     try:
         yield tmp_path
         os.chmod(tmp_path, 0o666 & ~_umask())
+        if sync:
+            with open(tmp_path, "rb") as fh:
+                os.fsync(fh.fileno())
         if p.exists() and not force:  # appeared while we were writing
             raise OutputExistsError(f"{role} {str(p)!r} exists; pass --force (force=True) to overwrite it")
         os.replace(tmp_path, p)
