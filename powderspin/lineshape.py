@@ -156,10 +156,6 @@ class Axis:
         float
             ``center_hz - width_hz / 2``.
 
-        References
-        ----------
-        R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795.
-
         Examples
         --------
         >>> Axis(0.0, 1000.0, 4, 100e6).left_edge_hz
@@ -174,10 +170,6 @@ class Axis:
         Returns
         -------
         numpy.ndarray, shape (points,)
-
-        References
-        ----------
-        R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795.
 
         Examples
         --------
@@ -194,10 +186,6 @@ class Axis:
         -------
         numpy.ndarray, shape (points,)
 
-        References
-        ----------
-        R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795.
-
         Examples
         --------
         >>> Axis(0.0, 1000.0, 4, 100e6).ppm.tolist()
@@ -213,10 +201,6 @@ class Axis:
         -------
         float
             ``1e6 * dx_hz / nu_ref_hz``.
-
-        References
-        ----------
-        R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795.
 
         Examples
         --------

@@ -129,10 +129,6 @@ class Spectrum:
         -------
         float
 
-        References
-        ----------
-        R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795.
-
         Examples
         --------
         >>> spec = Spectrum(hz=[-100.0, 0.0, 100.0], ppm=[-1.0, 0.0, 1.0], intensity=[0.0, 1.0, 0.0],
@@ -150,10 +146,6 @@ class Spectrum:
         Returns
         -------
         float
-
-        References
-        ----------
-        R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795.
 
         Examples
         --------
@@ -178,11 +170,6 @@ class Spectrum:
         float
             Rectangle-rule integral over the ppm axis; each site's value is
             its weight (less what falls off the axis).
-
-        References
-        ----------
-        W. H. Press et al., *Numerical Recipes*, 3rd ed. (2007), ch. 4
-        (quadrature) (from memory).
 
         Examples
         --------
