@@ -111,7 +111,7 @@ def plot_spectrum(spectrum, ax=None, *, show_sites: bool = True, mark_sidebands:
             hz = np.array([h for _, h in mine])
             xs = hz / 1e3 if unit == "khz" else hz / nu_ref * 1e6
             y0 = -(0.035 + 0.03 * k) * top
-            thin = f", every {step}th" if step > 1 else ""
+            thin = f", one in {step}" if step > 1 else ""
             ax.plot(xs, np.full(xs.size, y0), "|", color=site_colour[label], ms=6,
                     label=f"{label} sidebands{thin}")
     lo, hi = (float(np.min(x)), float(np.max(x))) if limits is None else (min(limits), max(limits))
