@@ -22,7 +22,6 @@ The model is an invented aluminophosphate-like sample (three 27Al sites, C_Q
 from __future__ import annotations
 
 import argparse
-import sys
 import time
 
 import numpy as np
@@ -43,24 +42,18 @@ def model():
 
 
 class Bar:
-    """A tqdm bar (shown after 2 s, as on the command line)."""
+    """The command line's progress bar for a plan (shown after 2 s)."""
 
     def __init__(self, quiet):
-        self.quiet = quiet
-        self.bar = None
+        from powderspin.progress import StagedProgress
+
+        self.bars = StagedProgress(quiet, delay=2.0)
 
     def __call__(self, done, total):
-        if self.quiet:
-            return
-        if self.bar is None:
-            from tqdm import tqdm
-
-            self.bar = tqdm(total=total, desc="plan", unit="experiments", delay=2.0, leave=False, file=sys.stderr)
-        self.bar.update(done - self.bar.n)
+        self.bars.update("plan", done, total=total, unit="experiments")
 
     def close(self):
-        if self.bar is not None:
-            self.bar.close()
+        self.bars.close()
 
 
 def timed_plan(m, quiet, threads=1):

@@ -72,33 +72,19 @@ def _compile_note(args) -> None:
 
 
 class _Progress:
-    """A progress bar per site that appears only for work longer than two seconds."""
+    """Progress of simulate: a bar per site (lines) or per kernel grid, shown after two seconds."""
 
     def __init__(self, quiet: bool):
-        self.quiet = quiet
-        self.bar = None
-        self.label = None
+        from .progress import StagedProgress
+
+        self.bars = StagedProgress(quiet, delay=2.0)
 
     def __call__(self, label, done, total):
-        if self.quiet:
-            return
-        from tqdm import tqdm
-
-        if label != self.label:
-            self.close()
-            self.label = label
-            unit = "line shapes" if str(label).endswith(": kernel grid") else "orientations"
-            self.bar = tqdm(total=total, desc=f"site {label}", unit=unit, delay=2.0, leave=False,
-                            file=sys.stderr)
-        if self.bar.total != total:
-            self.bar.total = total
-        if done > self.bar.n:  # update(), not refresh(): refresh() would show the bar before its delay
-            self.bar.update(done - self.bar.n)
+        unit = "line shapes" if str(label).endswith(": kernel grid") else "orientations"
+        self.bars.update(f"site {label}", done, total=total, unit=unit)
 
     def close(self):
-        if self.bar is not None:
-            self.bar.close()
-            self.bar = None
+        self.bars.close()
 
 
 def _parse_range(text: str | None, what: str):
@@ -240,37 +226,23 @@ def _cmd_cache(args) -> int:
 
 
 class _FitProgress:
-    """Progress of a fit (evaluations, lowest chi-square) and of posterior sampling, shown after a second."""
+    """Progress of a fit (evaluations, lowest chi-square), its kernel grid and posterior sampling."""
 
     def __init__(self, quiet: bool):
-        self.quiet = quiet
-        self.bar = None
-        self.stage = None
+        from .progress import StagedProgress
+
+        self.bars = StagedProgress(quiet, delay=1.0)
 
     def __call__(self, stage, done, value):
-        if self.quiet:
-            return
-        from tqdm import tqdm
-
-        if stage != self.stage:
-            self.close()
-            self.stage = stage
-            common = dict(delay=1.0, leave=False, file=sys.stderr, disable=None)  # None: only on a terminal
-            if stage == "posterior":
-                self.bar = tqdm(total=int(value), desc="posterior", unit="steps", **common)
-            elif stage == "kernels":
-                self.bar = tqdm(total=int(value), desc="kernel grid", unit="line shapes", **common)
-            else:
-                self.bar = tqdm(desc="fit", unit="evaluations", **common)
-        if stage not in ("posterior", "kernels"):
-            self.bar.set_postfix_str(f"chi-square {value:.6g}", refresh=False)
-        if done > self.bar.n:
-            self.bar.update(done - self.bar.n)
+        if stage == "posterior":
+            self.bars.update("posterior", done, total=int(value), unit="steps")
+        elif stage == "kernels":
+            self.bars.update("kernel grid", done, total=int(value), unit="line shapes")
+        else:
+            self.bars.update("fit", done, unit="evaluations", postfix=f"chi-square {value:.6g}")
 
     def close(self):
-        if self.bar is not None:
-            self.bar.close()
-            self.bar = None
+        self.bars.close()
 
 
 def _fit_outputs(args, n_meas: int):
@@ -444,22 +416,15 @@ class _PlanProgress:
     """One progress bar over the plan's candidate experiments, shown after two seconds."""
 
     def __init__(self, quiet: bool):
-        self.quiet = quiet
-        self.bar = None
+        from .progress import StagedProgress
+
+        self.bars = StagedProgress(quiet, delay=2.0)
 
     def __call__(self, done, total):
-        if self.quiet:
-            return
-        if self.bar is None:
-            from tqdm import tqdm
-
-            self.bar = tqdm(total=total, desc="plan", unit="experiments", delay=2.0, leave=False, file=sys.stderr)
-        self.bar.update(done - self.bar.n)
+        self.bars.update("plan", done, total=total, unit="experiments")
 
     def close(self):
-        if self.bar is not None:
-            self.bar.close()
-            self.bar = None
+        self.bars.close()
 
 
 def _cmd_plan(args) -> int:

@@ -473,4 +473,8 @@ def test_several_processes_with_eviction(tmp_path):
         found = [i for i in range(60) if lib.get(_key(i)) is not None]
         for i in found:
             _assert_same(lib.get(_key(i)), _arrays(i))
-    assert 1 <= len(found) <= 13
+    # The cap holds about ten entries of this size: eviction must bring the library down to it (60 were
+    # written), and must not empty it (only the least recently used go, never the one just written; a
+    # race may at most remove one extra entry per other process).  Measured: 10 left in every run.
+    assert 7 <= len(found) <= 11, len(found)
+    assert lib.info().total_bytes <= 1.1 * 10 * size

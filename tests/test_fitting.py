@@ -191,10 +191,13 @@ def test_parameter_recovery(name, snr):
     lie within a factor 1.5 of the standard deviation of its fitted values
     over the trials (with 20 trials that standard deviation itself scatters
     by about 1/sqrt(2 x 19) = 16 %, common practice for normal samples).
+    Pooled over the parameters, the geometric mean of those ratios must lie
+    within [0.8, 1.25].
     """
     truth = _truth(CASES[name])
     fits = _trials(name, snr)
     hits = 0
+    ratios = []
     for p, t in truth.items():
         vals = np.array([f.values[p] for f in fits])
         errs = np.array([f.stderr[p] for f in fits])
@@ -206,7 +209,13 @@ def test_parameter_recovery(name, snr):
         assert inside.sum() >= 0.75 * TRIALS, (p, vals, errs)
         ratio = errs.mean() / vals.std(ddof=1)
         assert 1 / 1.5 <= ratio <= 1.5, (p, ratio)
+        ratios.append(ratio)
     assert hits >= 0.9 * TRIALS * len(truth)
+    # pooled over the case's parameters the scatter's own uncertainty averages down, so errors that are
+    # systematically mis-scaled (a wrong noise level, a missing degrees-of-freedom factor) fail a tighter
+    # band: the geometric mean of the ratios must lie within [0.8, 1.25] (measured: 0.91 to 1.14)
+    pooled = float(np.exp(np.mean(np.log(ratios))))
+    assert 0.8 <= pooled <= 1.25, (pooled, ratios)
 
 
 # ---------------------------------------------------------------------------

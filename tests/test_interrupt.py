@@ -2,11 +2,7 @@
 
 from __future__ import annotations
 
-import signal
-import subprocess
-import sys
-import threading
-import time
+from tests.interrupting import interrupt_when_busy
 
 SLOW_MODEL = """nucleus = "93Nb"
 [measurement]
@@ -27,28 +23,9 @@ def test_sigint_exits_130_with_one_line_and_no_output(tmp_path):
     model = tmp_path / "slow.toml"
     model.write_text(SLOW_MODEL)
     out = tmp_path / "out.csv"
-    proc = subprocess.Popen([sys.executable, "-m", "powderspin", "simulate", str(model), "-o", str(out)],
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    chunks: list[str] = []
-
-    def read():
-        for piece in iter(lambda: proc.stderr.read(1), ""):
-            chunks.append(piece)
-
-    reader = threading.Thread(target=read, daemon=True)
-    reader.start()
-    # wait until the progress bar shows that the lines are being computed (it appears after 2 s of work)
-    deadline = time.monotonic() + 240
-    while "orientations" not in "".join(chunks) and time.monotonic() < deadline and proc.poll() is None:
-        time.sleep(0.2)
-    assert proc.poll() is None, "the slow model finished (or failed) before it could be interrupted"
-    t0 = time.monotonic()
-    proc.send_signal(signal.SIGINT)
-    proc.wait(timeout=120)
-    stopped_after = time.monotonic() - t0
-    reader.join(timeout=10)
-    stderr = "".join(chunks).replace("\r", "\n")
-    assert proc.returncode == 130, stderr
+    # the progress bar (after 2 s of work) shows that the lines are being computed
+    code, stderr, _, stopped_after = interrupt_when_busy(["simulate", model, "-o", out], "orientations")
+    assert code == 130, stderr
     lines = [l for l in stderr.splitlines() if l.strip() and not l.startswith(("note:", "site Nb"))
              and "orientations/s" not in l and "it/s" not in l]
     assert len(lines) == 1 and "interrupted" in lines[0], stderr

@@ -562,6 +562,8 @@ def test_select_orientations_without_interpolation(symmetry, accuracy):
     assert plain.symmetry == symmetry
     ratio = plain.size / target
     assert 1 / SQRT_PHI < ratio < SQRT_PHI
+    # the chosen size is the ZCW size nearest to the target in ratio (computed here independently)
+    assert plain.size == min(zcw_sizes(symmetry).values(), key=lambda m: abs(math.log(m / target)))
     sizes = sorted(zcw_sizes(symmetry).values())
     index = sizes.index(plain.size)
     for neighbour in (sizes[index - 1], sizes[index + 1]):
