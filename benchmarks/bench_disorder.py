@@ -41,11 +41,11 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from _common import best_time, numpy_tent  # noqa: E402
 
 import powderspin as ps  # noqa: E402
-from powderspin.cache import LineshapeLibrary  # noqa: E402
-from powderspin.data_io import MeasuredSpectrum  # noqa: E402
-from powderspin.disorder import DistributedSite, KernelStore  # noqa: E402
-from powderspin.lineshape import make_axis  # noqa: E402
-from powderspin.orientations import select_orientations  # noqa: E402
+from powderspin.disorder.library import LineshapeLibrary  # noqa: E402
+from powderspin.disorder.sites import DistributedSite, KernelStore  # noqa: E402
+from powderspin.engine.lineshape import make_axis  # noqa: E402
+from powderspin.io.spectra import MeasuredSpectrum  # noqa: E402
+from powderspin.physics.orientations import select_orientations  # noqa: E402
 
 ROOT = Path(__file__).resolve().parent.parent
 GRID_CQ = np.linspace(1.0, 12.0, 40)
@@ -81,9 +81,9 @@ def _worker(path: str, groups: list[int]) -> int:
     ds.path = path
     store = KernelStore(None, build_threads=1)
     grid = ds.grid(ax)
-    from powderspin.disorder import _kernel_axis, oversampling
-    from powderspin.lineshape import Axis
-    from powderspin.site_lines import site_job
+    from powderspin.disorder.sites import _kernel_axis, oversampling
+    from powderspin.engine.lineshape import Axis
+    from powderspin.engine.site_lines import site_job
 
     q = oversampling(ax.dx_hz, ds.min_fwhm_hz())
     first, step, n = _kernel_axis(ax, q, ds.shift_range_hz(), ds.span_hz())

@@ -22,8 +22,8 @@ import time
 import numpy as np
 
 import powderspin as ps
-import powderspin.fitting as fitting
-from powderspin.data_io import MeasuredSpectrum as _Spectrum
+import powderspin.fitting.fitter as fitting
+from powderspin.io.spectra import MeasuredSpectrum as _Spectrum
 
 
 def synthetic(model_keys, sites, points, ppm_range, seed=1, snr=200.0):
@@ -121,7 +121,7 @@ def straightforward(model, data):
     """scipy's own Jacobian, the scale as a nonlinear parameter, every site recomputed at every evaluation."""
     from scipy.optimize import least_squares
 
-    from powderspin.fitting import _data_axis
+    from powderspin.fitting.fitter import _data_axis
 
     axis, _, _ = _data_axis(data[0], model.nucleus.larmor_hz(model.measurement.field_tesla), "measurement")
     y = np.asarray(data[0].intensity)

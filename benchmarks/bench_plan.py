@@ -27,7 +27,7 @@ import time
 import numpy as np
 
 import powderspin as ps
-from powderspin import planning
+from powderspin.plan import planner as planning
 
 SITES = [
     {"label": "AlO4", "weight": 0.5, "shift_ppm": 60.0, "cq_mhz": 4.5, "eta_q": 0.3},
@@ -73,7 +73,7 @@ def straightforward_per_candidate(m, p, samples=4):
     """Seconds per candidate when every Jacobian spectrum is simulated from scratch (no lines memo)."""
     f = p.fields[1]
     params, _ = planning._precision_parameters(p.model)
-    from powderspin.orientations import orientation_set_by_name
+    from powderspin.physics.orientations import orientation_set_by_name
 
     osets = [orientation_set_by_name(s.orientations) for s in f.sites]
     methods = [s.method for s in f.sites]

@@ -22,12 +22,12 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 sys.path.insert(0, str(ROOT))
 from _common import best_time, numpy_tent  # noqa: E402
 
-from powderspin.frequencies import site_frame  # noqa: E402
-from powderspin.lineshape import bin_lines, make_axis  # noqa: E402
-from powderspin.modelfile import make_model  # noqa: E402
-from powderspin.orientations import triangulated  # noqa: E402
-from powderspin.simulation import simulate  # noqa: E402
-from powderspin.site_lines import compute_lines, site_job  # noqa: E402
+from powderspin.engine.frequencies import site_frame  # noqa: E402
+from powderspin.engine.lineshape import bin_lines, make_axis  # noqa: E402
+from powderspin.engine.site_lines import compute_lines, site_job  # noqa: E402
+from powderspin.model.modelfile import make_model  # noqa: E402
+from powderspin.physics.orientations import triangulated  # noqa: E402
+from powderspin.simulator import simulate  # noqa: E402
 
 
 def numpy_mas(frame, vecs, m, theta, p, rate):

@@ -16,13 +16,13 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from _common import best_time, numpy_tent  # noqa: E402
 
-from powderspin.frequencies import site_frame  # noqa: E402
-from powderspin.lineshape import bin_lines, make_axis  # noqa: E402
-from powderspin.model import selected_transitions  # noqa: E402
-from powderspin.modelfile import make_model  # noqa: E402
-from powderspin.orientations import triangulated  # noqa: E402
-from powderspin.simulation import simulate  # noqa: E402
-from powderspin.site_lines import compute_lines, site_job  # noqa: E402
+from powderspin.engine.frequencies import site_frame  # noqa: E402
+from powderspin.engine.lineshape import bin_lines, make_axis  # noqa: E402
+from powderspin.engine.site_lines import compute_lines, site_job  # noqa: E402
+from powderspin.model.modelfile import make_model  # noqa: E402
+from powderspin.model.values import selected_transitions  # noqa: E402
+from powderspin.physics.orientations import triangulated  # noqa: E402
+from powderspin.simulator import simulate  # noqa: E402
 
 
 def numpy_frequencies(frame, vecs, m):

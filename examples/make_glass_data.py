@@ -19,8 +19,8 @@ from pathlib import Path
 import numpy as np
 
 import powderspin as ps
-from powderspin.disorder import DistributedSite, KernelStore
-from powderspin.lineshape import broaden, make_axis
+from powderspin.disorder.sites import DistributedSite, KernelStore
+from powderspin.engine.lineshape import broaden, make_axis
 
 HERE = Path(__file__).resolve().parent
 SEED = 20240612

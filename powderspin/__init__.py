@@ -25,20 +25,22 @@ except _metadata.PackageNotFoundError:  # pragma: no cover - an uninstalled sour
 
 #: public name -> module that holds it
 _EXPORTS = {
-    "Measurement": "model", "Model": "model", "ModelError": "model", "Site": "model", "FitSettings": "model",
-    "ParameterAddress": "model", "FreeParameter": "model", "TiedParameter": "model",
-    "make_model": "modelfile", "make_site": "modelfile",
-    "load_model": "modelfile", "parse_model": "modelfile", "model_to_toml": "modelfile", "write_model": "modelfile",
-    "Nuclide": "nuclides", "get_nuclide": "nuclides", "list_nuclides": "nuclides",
-    "plot_spectrum": "plotting", "save_plot": "plotting",
-    "simulate": "simulation", "simulate_all": "simulation",
-    "SiteJob": "site_lines", "SiteLines": "site_lines", "site_job": "site_lines", "compute_lines": "site_lines",
-    "render_lines": "site_lines",
-    "Spectrum": "spectrum",
-    "fit": "fitting", "FitResult": "fitting", "FitError": "fitting", "write_result": "fitting",
-    "read_spectrum": "data_io", "MeasuredSpectrum": "data_io", "DataError": "data_io",
-    "plan": "planning", "Plan": "planning",
-    "ShiftTensor": "tensors",
+    "Measurement": "model.values", "Model": "model.values", "ModelError": "model.values", "Site": "model.values",
+    "FitSettings": "model.values", "ParameterAddress": "model.values", "FreeParameter": "model.values",
+    "TiedParameter": "model.values",
+    "make_model": "model.modelfile", "make_site": "model.modelfile", "load_model": "model.modelfile",
+    "parse_model": "model.modelfile", "model_to_toml": "model.modelfile", "write_model": "model.modelfile",
+    "Nuclide": "physics.nuclides", "get_nuclide": "physics.nuclides", "list_nuclides": "physics.nuclides",
+    "plot_spectrum": "plotting.spectrum", "save_plot": "plotting.spectrum",
+    "simulate": "simulator", "simulate_all": "simulator",
+    "SiteJob": "engine.site_lines", "SiteLines": "engine.site_lines", "site_job": "engine.site_lines",
+    "compute_lines": "engine.site_lines", "render_lines": "engine.site_lines",
+    "Spectrum": "engine.spectrum",
+    "fit": "fitting.fitter", "FitResult": "fitting.fitter", "FitError": "fitting.fitter",
+    "write_result": "fitting.fitter",
+    "read_spectrum": "io.spectra", "MeasuredSpectrum": "io.spectra", "DataError": "io.spectra",
+    "plan": "planning.planner", "Plan": "planning.planner",
+    "ShiftTensor": "physics.tensors",
 }
 
 __all__ = sorted(_EXPORTS) + ["__version__"]

@@ -13,7 +13,7 @@ import powderspin
 
 matplotlib.use("Agg")
 
-MODULES = sorted(m.name for m in pkgutil.iter_modules(powderspin.__path__, "powderspin.")
+MODULES = sorted(m.name for m in pkgutil.walk_packages(powderspin.__path__, "powderspin.")
                  if m.name not in ("powderspin.__main__",))
 
 

@@ -89,7 +89,7 @@ SETS_DIR = REPO / "powderspin" / "data" / "orientation_sets"
 README = REPO / "orientation_sets" / "README.md"
 sys.path.insert(0, str(REPO))
 
-from powderspin import orientations as ori  # noqa: E402
+from powderspin.physics import orientations as ori  # noqa: E402
 
 # ---------------------------------------------------------------------------
 # Orbits of the octahedral group

@@ -31,7 +31,7 @@ def main(argv: list[str]) -> None:
     checkout = Path(argv[0]).resolve()
 
     import powderspin as ps
-    from powderspin.orientations import lebedev_degrees
+    from powderspin.physics.orientations import lebedev_degrees
 
     where = Path(ps.__file__).resolve()
     if checkout == where or checkout in where.parents:

@@ -1,4 +1,4 @@
-"""Rewrite the README's key reference from the key table (powderspin/schema.py).
+"""Rewrite the README's key reference from the key table (powderspin/model/schema.py).
 
 Run after adding or changing a model-file key:  python tools/update_readme_keys.py
 (tests/test_schema.py fails while the README and the table disagree).
@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from powderspin.schema import key_reference_markdown
+from powderspin.model.schema import key_reference_markdown
 
 START, END = "<!-- key reference: start -->\n", "<!-- key reference: end -->"
 

@@ -1,6 +1,6 @@
 """Slow, obvious binning: triangle interpolation by brute force, and line splitting.
 
-Twin of ``powderspin._kernels._bin_tent`` and ``_bin_histogram``.
+Twin of ``powderspin.engine._kernels._bin_tent`` and ``_bin_histogram``.
 
 The axis is a row of equally spaced points p_k (the bin centres).  Every
 contribution is shared among the points by their linear "hat" functions

@@ -1,9 +1,9 @@
 """Slow, obvious spectra of a site with a distribution of EFG tensors, by brute-force sampling.
 
-Independent of the kernel grid of :mod:`powderspin.disorder`: no (C_Q, eta)
+Independent of the kernel grid of :mod:`powderspin.disorder.sites`: no (C_Q, eta)
 grid, no orientation set, no triangle interpolation, no scaling of unit
 patterns.  Each sampled (C_Q, eta) (e.g. from
-:func:`powderspin.distributions.sample_czjzek`) is one "site" seen by
+:func:`powderspin.physics.distributions.sample_czjzek`) is one "site" seen by
 ``n_axes`` random rotor axes (uniform on the sphere); for each axis the B0
 direction is walked round the cone at the rotor angle
 (:func:`tests.reference.mas_numpy.cone_directions` in vector form), the EFG is

@@ -1,6 +1,6 @@
 """Slow, obvious twins of the fused MAS kernel and of the band summary.
 
-Twin of ``powderspin._kernels._perturbative_sidebands``: for each rotor axis
+Twin of ``powderspin.engine._kernels._perturbative_sidebands``: for each rotor axis
 ``n`` the B0 direction is walked round its cone at many rotor phases
 (``b(phi) = cos(theta_R) n + sin(theta_R) (cos(phi) u + sin(phi) v)`` with any
 orthonormal pair ``u, v`` perpendicular to ``n``: the sideband intensities do
@@ -9,7 +9,7 @@ the literal level-energy formulas of :mod:`tests.reference.perturbative_numpy`,
 and the sideband intensities come from the fine numerical phase integral of
 :mod:`tests.reference.sidebands_numpy` (not from an FFT of a few samples).
 
-Twin of ``powderspin._kernels._band_summary``: plain numpy sums over the
+Twin of ``powderspin.engine._kernels._band_summary``: plain numpy sums over the
 orientation and transition axes.
 
 Sources: M. M. Maricq, J. S. Waugh, J. Chem. Phys. 70 (1979) 3300; M. H.

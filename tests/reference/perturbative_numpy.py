@@ -1,6 +1,6 @@
 """Slow, obvious perturbative transition offsets (first-order shift, first- and second-order quadrupolar).
 
-Twin of ``powderspin._kernels._perturbative_offsets``.  The kernel evaluates
+Twin of ``powderspin.engine._kernels._perturbative_offsets``.  The kernel evaluates
 the second-order term through rotation invariants of the EFG; here the
 laboratory-frame EFG is built explicitly (``R^T V R`` with the rotation of
 :mod:`tests.reference.exact_numpy`), its rank-2 spherical components are

@@ -1,7 +1,7 @@
 """Slow, obvious spinning-sideband intensities, two independent ways.
 
-Twin of ``powderspin._kernels._sideband_intensities`` (via
-``powderspin.spinning.rotor_lines``).  A trajectory is given as a callable
+Twin of ``powderspin.engine._kernels._sideband_intensities`` (via
+``powderspin.engine.spinning.rotor_lines``).  A trajectory is given as a callable
 ``nu(phi)`` of the rotor phase ``phi`` in radians (vectorised, Hz); a sampled
 trajectory is turned into one by :func:`trig_interpolant`.
 

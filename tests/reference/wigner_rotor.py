@@ -1,6 +1,6 @@
 """Rotor-frame Fourier components of transition offsets by Wigner rotations (slow, analytic).
 
-An independent route to ``powderspin.spinning.rotor_fourier_components``.  The
+An independent route to ``powderspin.engine.spinning.rotor_fourier_components``.  The
 engine evaluates the DEVELOPERS.md, 'Physics formulas' level formulas at 16 rotor phases on
 the cone of B0 directions about the rotor axis and takes an FFT; here nothing
 is sampled: the lab-frame spherical components are written as explicit
@@ -12,7 +12,7 @@ Spherical components (normalisation)
 ------------------------------------
 For a real symmetric Cartesian tensor ``t`` (M. Mehring, *Principles of High
 Resolution NMR in Solids* (1983), app. B; the normalisation of
-:func:`powderspin.tensors.spherical_components`, Condon-Shortley phase)::
+:func:`powderspin.physics.tensors.spherical_components`, Condon-Shortley phase)::
 
     T_00    = tr(t) / 3
     T_20    = sqrt(3/2) (t_zz - tr(t)/3)
@@ -38,12 +38,12 @@ In its principal frame the EFG (units of V_zz, ``V = diag(-(1-eta)/2,
 Rotation rule
 -------------
 Wigner matrices ``D^l_{m'm}(alpha, beta, gamma) = exp(-i m' alpha)
-d^l_{m'm}(beta) exp(-i m gamma)`` from :func:`powderspin.wigner.wigner_D`
-(its convention is checked against sympy in ``tests/test_wigner.py``).  With
-``R = Rz(alpha) Ry(beta) Rz(gamma)`` (:func:`powderspin.tensors.rotation_matrix`),
+d^l_{m'm}(beta) exp(-i m gamma)`` from :func:`powderspin.physics.wigner.wigner_D`
+(its convention is checked against sympy in ``tests/physics/test_wigner.py``).  With
+``R = Rz(alpha) Ry(beta) Rz(gamma)`` (:func:`powderspin.physics.tensors.rotation_matrix`),
 if the columns of R are the axes of a frame F written in a frame G, the
 components in the two frames are related by (docstring of
-:func:`powderspin.tensors.spherical_components`)::
+:func:`powderspin.physics.tensors.spherical_components`)::
 
     T^F_{l k} = sum_m T^G_{l m} D^l_{m k}(alpha, beta, gamma)        (F from G)
     T^G_{l m} = sum_k conj(D^l_{m k}(alpha, beta, gamma)) T^F_{l k}  (G from F)
@@ -119,8 +119,8 @@ import math
 
 import numpy as np
 
-from powderspin.tensors import rotation_matrix
-from powderspin.wigner import wigner_D, wigner_small_d
+from powderspin.physics.tensors import rotation_matrix
+from powderspin.physics.wigner import wigner_D, wigner_small_d
 
 __all__ = [
     "efg_principal_components",

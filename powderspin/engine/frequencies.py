@@ -1,0 +1,482 @@
+"""Transition frequencies per crystallite orientation: the two producers.
+
+Both producers give, for each orientation and rotor phase, the offset (Hz,
+from the reference frequency nu_ref) of each selected transition m -> m-1:
+
+* :func:`perturbative_offsets`: first-order shift (full secular part of the
+  tensor), first-order quadrupolar and second-order quadrupolar terms;
+* :func:`exact_offsets`: diagonalisation of the full Zeeman + quadrupolar +
+  secular shift Hamiltonian (adiabatic levels labelled by <Iz>).
+
+The Hamiltonian (frequency units) is ``H = nu0 (1 + 1e-6 d_zz) Iz + K sum_ab
+V_ab I_a I_b`` with ``K = C_Q / (2I(2I-1))`` and the EFG in units of V_zz.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from . import _kernels as _k
+
+if TYPE_CHECKING:  # pragma: no cover
+    from ..model.values import Site
+    from ..physics.nuclides import Nuclide
+
+from ..physics.spin import spin_operators
+from ..physics.tensors import efg_principal, is_axis_permutation, rotation_matrix
+
+__all__ = [
+    "SiteFrame",
+    "site_frame",
+    "perturbative_offsets",
+    "exact_offsets",
+    "multiple_quantum_offsets",
+    "transition_intensity",
+    "perturbation_error_hz",
+    "probe_directions",
+]
+
+
+@dataclass(frozen=True)
+class SiteFrame:
+    """A site's interactions written in its crystallite frame, ready for the kernels.
+
+    Attributes
+    ----------
+    spin : float
+        Nuclear spin I.
+    nu0_hz : float
+        Reference (Larmor) frequency at the field (Hz).
+    quad_constant_hz : float
+        C_Q / (2I(2I-1)) in Hz (0 for spin 1/2 or C_Q = 0).
+    efg_principal_values : ndarray
+        EFG principal values in units of V_zz.
+    shift_tensor_ppm : ndarray
+        3x3 shift tensor (ppm, isotropic part included) in the crystallite frame.
+    symmetry : str
+        "octant" when every tensor is diagonal in the crystallite frame,
+        otherwise "hemisphere" (all terms are of even rank).
+
+    References
+    ----------
+    M. Mehring, *Principles of High Resolution NMR in Solids* (1983), ch. 2
+    (interaction tensors in their principal frames) (from memory).
+
+    Examples
+    --------
+    >>> from powderspin.model.modelfile import make_site
+    >>> from powderspin.physics.nuclides import get_nuclide
+    >>> f = site_frame(make_site(cq_mhz=3.0, span_ppm=40.0, skew=0.2, euler_deg=[0, 30, 0]),
+    ...                get_nuclide("27Al"), 14.1)
+    >>> f.spin, f.symmetry, f.efg_principal_values.tolist()
+    (2.5, 'hemisphere', [-0.5, -0.5, 1.0])
+    """
+
+    spin: float
+    nu0_hz: float
+    quad_constant_hz: float
+    efg_principal_values: np.ndarray
+    shift_tensor_ppm: np.ndarray
+    symmetry: str
+
+    @property
+    def nu_q_hz(self) -> float:
+        """nu_Q = 3 C_Q / (2I(2I-1)) in Hz.
+
+        Returns
+        -------
+        float
+            Quadrupolar frequency nu_Q (Hz); the satellite splitting at
+            theta = 0 for eta = 0.
+
+        References
+        ----------
+        A. Abragam, *The Principles of Nuclear Magnetism* (1961), chapter on
+        electric quadrupole effects (from memory).
+
+        Examples
+        --------
+        >>> from powderspin.model.values import Site
+        >>> from powderspin.physics.nuclides import get_nuclide
+        >>> site_frame(Site(cq_mhz=3.0), get_nuclide("27Al"), 14.1).nu_q_hz
+        450000.0
+        """
+        return 3.0 * self.quad_constant_hz
+
+
+def site_frame(site: Site, nucleus: Nuclide, field_tesla: float) -> SiteFrame:
+    """Express a site's tensors in its crystallite frame.
+
+    The crystallite frame is the EFG principal frame; the shift tensor is
+    rotated into it with the site's Euler angles (see
+    :mod:`powderspin.physics.tensors`).
+
+    Parameters
+    ----------
+    site : Site
+        Shift tensor (ppm), C_Q (MHz), eta_Q and Euler angles (degrees).
+    nucleus : Nuclide
+        Spin and frequency ratio of the observed nucleus.
+    field_tesla : float
+        Magnetic field B0 (T), > 0.
+
+    Returns
+    -------
+    SiteFrame
+        Spin, nu0 (Hz), C_Q/(2I(2I-1)) (Hz), EFG principal values and the
+        shift tensor (ppm) in the EFG principal frame.
+
+    References
+    ----------
+    M. Mehring, *Principles of High Resolution NMR in Solids* (1983), app. B;
+    M. E. Rose, *Elementary Theory of Angular Momentum* (1957), ch. IV.
+
+    Examples
+    --------
+    >>> from powderspin.model.values import Site
+    >>> from powderspin.physics.nuclides import get_nuclide
+    >>> f = site_frame(Site(cq_mhz=3.0), get_nuclide("27Al"), 14.1)
+    >>> round(f.quad_constant_hz)
+    150000
+    """
+    spin = nucleus.spin
+    nu0 = nucleus.larmor_hz(field_tesla)
+    k = site.cq_hz / (2 * spin * (2 * spin - 1)) if spin > 0.5 else 0.0
+    if k == 0.0:
+        # no EFG to orient against: the shift principal frame is the crystallite
+        # frame (the relative Euler angles have no effect on a powder)
+        r = np.eye(3)
+    else:
+        r = rotation_matrix(*site.euler_rad)
+    delta = r @ np.diag(site.shift.principal_haeberlen) @ r.T
+    coaxial = is_axis_permutation(r) or site.shift.is_isotropic
+    return SiteFrame(spin, nu0, k, efg_principal(site.eta_q), delta, "octant" if coaxial else "hemisphere")
+
+
+def _axes(directions) -> np.ndarray:
+    d = np.asarray(directions, dtype=float)
+    if d.size == 0:
+        return np.empty((0, 3))
+    if d.ndim not in (1, 2) or d.shape[-1] != 3:
+        raise ValueError(f"directions must have shape (N, 3) or (3,), got shape {d.shape}")
+    d = np.ascontiguousarray(d.reshape(-1, 3))
+    nrm = np.linalg.norm(d, axis=1)
+    bad = (nrm == 0) | ~np.isfinite(nrm)
+    if np.any(bad):
+        i = int(np.argmax(bad))
+        raise ValueError(f"directions[{i}] = {d[i].tolist()} must be a non-zero finite 3-vector")
+    return d / nrm[:, None]
+
+
+def _upper_levels(spin: float, m_upper) -> np.ndarray:
+    """Index (m = I first) of the upper level of each transition m -> m-1; validates m_upper."""
+    m_upper_a = np.asarray(m_upper, dtype=float).reshape(-1)
+    idx = spin - m_upper_a
+    ok = np.isfinite(idx) & (np.abs(idx - np.round(idx)) < 1e-9) & (idx > -0.5) & (idx < 2 * spin - 0.5)
+    if not np.all(ok):
+        allowed = [spin - i for i in range(int(round(2 * spin)))]
+        raise ValueError(f"transition upper levels m_upper = {m_upper_a.tolist()} not available for spin {spin}; "
+                         f"allowed values are {allowed}")
+    return np.round(idx).astype(np.int64)
+
+
+def perturbative_offsets(
+    frame: SiteFrame,
+    directions,
+    m_upper,
+    *,
+    rotor_angle_rad: float = 0.0,
+    phases: int = 1,
+    second_order: bool = True,
+) -> np.ndarray:
+    """Transition offsets (Hz) from perturbation theory.
+
+    Parameters
+    ----------
+    frame : SiteFrame
+        Site interactions (:func:`site_frame`).
+    directions : array_like, shape (N, 3)
+        Static: B0 directions in the crystallite frame.  Spinning: rotor-axis
+        directions.
+    m_upper : sequence of float
+        Upper level m of each transition m -> m-1.
+    rotor_angle_rad : float
+        Angle between rotor axis and B0; 0 (with ``phases=1``) is static.
+    phases : int
+        Number of equally spaced rotor phases per period.
+    second_order : bool
+        Include the second-order quadrupolar term.
+
+    Returns
+    -------
+    ndarray, shape (N, len(m_upper), phases)
+
+    References
+    ----------
+    A. Abragam, *The Principles of Nuclear Magnetism* (1961), chapter on electric quadrupole effects (from memory);
+    P. P. Man, in *Encyclopedia of Analytical Chemistry* (2000), "Quadrupolar
+    interactions" (second-order level shifts).
+
+    Examples
+    --------
+    >>> from powderspin.model.values import Site
+    >>> from powderspin.physics.nuclides import get_nuclide
+    >>> f = site_frame(Site(cq_mhz=3.0), get_nuclide("27Al"), 14.1)
+    >>> perturbative_offsets(f, [[0, 0, 1]], [1.5]).round(1).tolist()  # nu_Q at theta = 0
+    [[[450000.0]]]
+    """
+    ax = _axes(directions)
+    _upper_levels(frame.spin, m_upper)
+    m_upper_a = np.asarray(m_upper, dtype=float).reshape(-1)
+    return _perturbative_pairs(frame, ax, m_upper_a, m_upper_a - 1.0, rotor_angle_rad, phases, second_order)
+
+
+def _kernel_geometry(frame, ax, rotor_angle_rad, phases):
+    """The leading kernel arguments shared by both producers."""
+    return (
+        ax,
+        math.cos(rotor_angle_rad),
+        math.sin(rotor_angle_rad),
+        int(phases),
+        np.ascontiguousarray(frame.efg_principal_values, dtype=float),
+        np.ascontiguousarray(frame.shift_tensor_ppm, dtype=float),
+        float(frame.quad_constant_hz),
+        float(frame.nu0_hz),
+    )
+
+
+def _perturbative_pairs(frame, ax, m_upper, m_lower, rotor_angle_rad, phases, second_order):
+    return _k._perturbative_offsets(
+        *_kernel_geometry(frame, ax, rotor_angle_rad, phases),
+        np.ascontiguousarray(m_upper, dtype=float),
+        np.ascontiguousarray(m_lower, dtype=float),
+        float(frame.spin),
+        bool(second_order),
+    )
+
+
+def _operator_products(spin: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    o = spin_operators(spin)
+    x, y, z = o.x, o.y, o.z
+    ops = np.array([x @ x, y @ y, z @ z, x @ y + y @ x, x @ z + z @ x, y @ z + z @ y], dtype=complex)
+    return ops, np.real(np.diag(z)).copy(), np.array(o.plus, dtype=complex)
+
+
+def exact_offsets(
+    frame: SiteFrame,
+    directions,
+    m_upper,
+    *,
+    rotor_angle_rad: float = 0.0,
+    phases: int = 1,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Transition offsets (Hz) and intensities from exact diagonalisation.
+
+    Parameters
+    ----------
+    frame, directions, m_upper, rotor_angle_rad, phases
+        As in :func:`perturbative_offsets`.
+
+    Returns
+    -------
+    offsets : ndarray, shape (N, len(m_upper), phases)
+        E(m) - E(m-1) - nu0 with levels labelled by <Iz>.
+    intensities : ndarray, same shape
+        |<m|I+|m-1>|^2 between the eigenstates (I(I+1) - m(m-1) in high field).
+
+    References
+    ----------
+    J. A. Weil, J. R. Bolton, *Electron Paramagnetic Resonance* (2007) (from memory)
+    (exact spin-Hamiltonian diagonalisation).
+
+    Examples
+    --------
+    >>> from powderspin.model.values import Site
+    >>> from powderspin.physics.nuclides import get_nuclide
+    >>> f = site_frame(Site(cq_mhz=3.0), get_nuclide("27Al"), 14.1)
+    >>> off, inten = exact_offsets(f, [[0, 0, 1]], [0.5])
+    >>> round(float(inten[0, 0, 0]), 6)
+    9.0
+    """
+    ax = _axes(directions)
+    spin = frame.spin
+    upper = _upper_levels(spin, m_upper)
+    return _exact_pairs(frame, ax, upper, upper + 1, rotor_angle_rad, phases)
+
+
+def _exact_pairs(frame, ax, upper, lower, rotor_angle_rad, phases):
+    ops, iz, ip = _operator_products(frame.spin)
+    return _k._exact_offsets(
+        *_kernel_geometry(frame, ax, rotor_angle_rad, phases),
+        ops,
+        iz,
+        ip,
+        np.ascontiguousarray(upper, dtype=np.int64),
+        np.ascontiguousarray(lower, dtype=np.int64),
+    )
+
+
+def multiple_quantum_offsets(
+    frame: SiteFrame,
+    directions,
+    m: float,
+    *,
+    method: str = "perturbation",
+    rotor_angle_rad: float = 0.0,
+    phases: int = 1,
+) -> np.ndarray:
+    """Offsets (Hz) of the symmetric multiple-quantum transition m <-> -m.
+
+    The offset is E(m) - E(-m) - 2 m nu0.  To first order the quadrupolar part
+    cancels; to second order it is 2 E2(m), and the shift contributes
+    2 m nu0 1e-6 d_zz.
+
+    Parameters
+    ----------
+    frame : SiteFrame
+    directions : array_like (N, 3)
+    m : float
+        Positive m (e.g. 1.5 for the triple-quantum transition of I = 3/2).
+    method : {"perturbation", "exact"}
+    rotor_angle_rad, phases
+        As in :func:`perturbative_offsets`.
+
+    Returns
+    -------
+    ndarray (N, 1, phases)
+
+    References
+    ----------
+    L. Frydman, J. S. Harwood, J. Am. Chem. Soc. 117 (1995) 5367 (multiple-quantum
+    transitions of half-integer quadrupolar nuclei).
+
+    Examples
+    --------
+    >>> from powderspin.model.values import Site
+    >>> from powderspin.physics.nuclides import get_nuclide
+    >>> f = site_frame(Site(cq_mhz=3.0), get_nuclide("23Na"), 9.4)
+    >>> abs(float(multiple_quantum_offsets(f, [[0, 0, 1]], 1.5)[0, 0, 0])) < 1e-6  # theta = 0: no shift
+    True
+    """
+    ax = _axes(directions)
+    spin = frame.spin
+    mm = float(m)
+    if not (0 < mm <= spin and abs(2 * mm - round(2 * mm)) < 1e-12) or abs(mm - round(mm)) < 1e-12:
+        raise ValueError(f"m = {m!r} must be a positive half-integer <= I = {spin} for a symmetric m <-> -m transition")
+    if method == "perturbation":
+        return _perturbative_pairs(frame, ax, np.array([mm]), np.array([-mm]), rotor_angle_rad, phases, True)
+    if method == "exact":
+        up = np.array([int(round(spin - mm))])
+        lo = np.array([int(round(spin + mm))])
+        return _exact_pairs(frame, ax, up, lo, rotor_angle_rad, phases)[0]
+    raise ValueError(f"method = {method!r} is not one of 'perturbation', 'exact'")
+
+
+def transition_intensity(spin: float, m: float) -> float:
+    """Small-tip intensity of m -> m-1: |<m|I+|m-1>|^2 = I(I+1) - m(m-1).
+
+    Parameters
+    ----------
+    spin : float
+        Nuclear spin I.
+    m : float
+        Upper level m of the transition m -> m-1.
+
+    Returns
+    -------
+    float
+        Relative intensity (dimensionless); 9 for the central transition of
+        I = 5/2.
+
+    References
+    ----------
+    A. Abragam, *The Principles of Nuclear Magnetism* (1961), chapter on the motion of free spins (from memory)
+    (matrix elements of I+); common practice for non-selective small-tip
+    excitation.
+
+    Examples
+    --------
+    >>> [transition_intensity(2.5, m) for m in (2.5, 1.5, 0.5)]
+    [5.0, 8.0, 9.0]
+    """
+    return spin * (spin + 1.0) - m * (m - 1.0)
+
+
+def probe_directions(count: int = 96) -> np.ndarray:
+    """Quasi-uniform directions on the upper hemisphere (a golden-angle spiral) for quick checks.
+
+    Parameters
+    ----------
+    count : int, optional
+        Number of directions.
+
+    Returns
+    -------
+    numpy.ndarray, shape (count, 3)
+        Unit vectors with z > 0 (all high-field terms are of even rank, so a
+        hemisphere represents the sphere).
+
+    Examples
+    --------
+    >>> d = probe_directions(10)
+    >>> d.shape, bool(np.allclose(np.linalg.norm(d, axis=1), 1.0))
+    ((10, 3), True)
+    """
+    i = np.arange(count) + 0.5
+    z = 1.0 - i / count  # upper hemisphere suffices (even-rank terms)
+    phi = i * math.pi * (3.0 - math.sqrt(5.0))
+    r = np.sqrt(1.0 - z * z)
+    return np.column_stack([r * np.cos(phi), r * np.sin(phi), z])
+
+
+def perturbation_error_hz(frame: SiteFrame, m_upper, *, rotor_angle_rad: float = 0.0, phases: int = 1) -> float:
+    """Largest perturbative error (Hz) over probe orientations, by exact diagonalisation.
+
+    ``method = "auto"`` uses this (:func:`powderspin.engine.site_lines.choose_method`):
+    when the returned error exceeds half an axis point, the exact producer is
+    used.  Returns 0.0 for
+    spin 1/2 or C_Q = 0 (first-order shift is exact at high field).
+
+    Parameters
+    ----------
+    frame : SiteFrame
+        Site interactions (:func:`site_frame`).
+    m_upper : sequence of float
+        Upper level m of each transition m -> m-1.
+    rotor_angle_rad : float, optional
+        Rotor angle (radians); 0 with ``phases=1`` is static.
+    phases : int, optional
+        Rotor phases per period to compare at.
+
+    Returns
+    -------
+    float
+        max |perturbative - exact| offset (Hz) over 96 probe directions.
+
+    References
+    ----------
+    A. Abragam, *The Principles of Nuclear Magnetism* (1961), chapter on
+    electric quadrupole effects (perturbation theory of the levels) (from memory); J. A. Weil,
+    J. R. Bolton, *Electron Paramagnetic Resonance* (2007) (exact
+    diagonalisation of spin Hamiltonians) (from memory).
+
+    Examples
+    --------
+    >>> from powderspin.model.values import Site
+    >>> from powderspin.physics.nuclides import get_nuclide
+    >>> al = get_nuclide("27Al")
+    >>> perturbation_error_hz(site_frame(Site(cq_mhz=3.0), al, 14.1), [0.5]) < 1.0      # Hz
+    True
+    >>> perturbation_error_hz(site_frame(Site(cq_mhz=20.0), al, 9.4), [0.5]) > 10.0     # Hz
+    True
+    """
+    if frame.quad_constant_hz == 0.0:
+        return 0.0
+    d = probe_directions()
+    a = perturbative_offsets(frame, d, m_upper, rotor_angle_rad=rotor_angle_rad, phases=phases)
+    b, _ = exact_offsets(frame, d, m_upper, rotor_angle_rad=rotor_angle_rad, phases=phases)
+    return float(np.max(np.abs(a - b)))

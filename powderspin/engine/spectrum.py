@@ -1,0 +1,375 @@
+"""The Spectrum value and its files.
+
+CSV layout (our own): ``#`` comment lines ``# key: value`` holding the
+metadata (every site's parameters included, so a CSV alone says how it was
+made), then the header ``ppm,hz,intensity,<site label>,...`` and one row per
+point in ascending hz.  ``intensity`` is the sum over sites; each further
+column is one site.  Intensities are densities per ppm: each site's selected
+transitions integrate (over ppm) to its weight, apart from what falls outside
+the axis.
+
+Sideband table (``--sidebands FILE``), CSV with the columns ``site`` (label),
+``order`` (sideband order n, 0 = centre band), ``position_hz`` and
+``position_ppm`` (the band's intensity-weighted position, Hz from nu_ref and
+ppm), ``nominal_hz`` (the centre band's position plus n times the spinning
+rate) and ``intensity`` (integrated; a site's bands sum to its weight).
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from types import MappingProxyType
+from typing import Mapping
+
+import numpy as np
+
+from ..files import write_text_atomic
+
+__all__ = ["Spectrum", "SidebandRow"]
+
+
+@dataclass(frozen=True)
+class SidebandRow:
+    """One band of one site's sideband manifold.
+
+    Attributes
+    ----------
+    site : str
+        Label of the site the band belongs to.
+    order : int
+        Sideband order n (0 = centre band).
+    position_hz : float
+        Intensity-weighted position of the band (Hz from nu_ref).
+    position_ppm : float
+        The same position in ppm (``1e6 * position_hz / nu_ref``).
+    intensity : float
+        Integrated intensity (the site's bands sum to its weight).
+
+    References
+    ----------
+    J. Herzfeld, A. E. Berger, J. Chem. Phys. 73 (1980) 6021 (sideband
+    intensities); M. M. Maricq, J. S. Waugh, J. Chem. Phys. 70 (1979) 3300.
+
+    Examples
+    --------
+    >>> row = SidebandRow("AlO4", -1, -12500.0, -79.9, 0.02)
+    >>> row.order, row.position_hz
+    (-1, -12500.0)
+    """
+
+    site: str
+    order: int
+    position_hz: float
+    position_ppm: float
+    intensity: float
+
+
+@dataclass(frozen=True)
+class Spectrum:
+    """A simulated spectrum.
+
+    Attributes
+    ----------
+    hz : ndarray
+        Axis points, Hz offsets from the reference frequency, ascending.
+    ppm : ndarray
+        The same points in ppm (``1e6 * hz / nu_ref``).
+    intensity : ndarray
+        Sum over sites (density per ppm).
+    site_labels : tuple of str
+        One label per site, in model order.
+    site_intensities : ndarray, shape (n_sites, points)
+        Each site's spectrum (density per ppm), in the order of ``site_labels``.
+    metadata : Mapping
+        What made the spectrum (nucleus, field, nu_ref, method per site, ...).
+    sidebands : tuple of SidebandRow
+        Sideband table (spinning samples at finite rate; empty otherwise).
+
+    References
+    ----------
+    R. K. Harris et al., Pure Appl. Chem. 73 (2001) 1795 (ppm scale relative
+    to nu_ref).
+
+    Examples
+    --------
+    >>> spec = Spectrum(hz=[-100.0, 0.0, 100.0], ppm=[-1.0, 0.0, 1.0], intensity=[0.0, 1.0, 0.0],
+    ...                 site_labels=("a",), site_intensities=[[0.0, 1.0, 0.0]],
+    ...                 metadata={"nucleus": "31P", "nu_ref_hz": 100e6})
+    >>> spec.area(), spec.first_moment_ppm(), spec.dx_ppm
+    (1.0, 0.0, 1.0)
+    """
+
+    hz: np.ndarray
+    ppm: np.ndarray
+    intensity: np.ndarray
+    site_labels: tuple[str, ...]
+    site_intensities: np.ndarray
+    metadata: Mapping = field(default_factory=dict)
+    sidebands: tuple[SidebandRow, ...] = ()
+
+    def __post_init__(self):
+        for name in ("hz", "ppm", "intensity", "site_intensities"):
+            a = np.array(getattr(self, name), dtype=float)
+            a.flags.writeable = False
+            object.__setattr__(self, name, a)
+        object.__setattr__(self, "metadata", MappingProxyType(dict(self.metadata)))
+        object.__setattr__(self, "site_labels", tuple(self.site_labels))
+        object.__setattr__(self, "sidebands", tuple(self.sidebands))
+
+    @property
+    def nu_ref_hz(self) -> float:
+        """Reference frequency nu_ref (Hz) from the metadata, NaN when absent.
+
+        Returns
+        -------
+        float
+
+        Examples
+        --------
+        >>> spec = Spectrum(hz=[-100.0, 0.0, 100.0], ppm=[-1.0, 0.0, 1.0], intensity=[0.0, 1.0, 0.0],
+        ...                 site_labels=("a",), site_intensities=[[0.0, 1.0, 0.0]],
+        ...                 metadata={"nucleus": "31P", "nu_ref_hz": 100e6})
+        >>> spec.nu_ref_hz
+        100000000.0
+        """
+        return float(self.metadata.get("nu_ref_hz", math.nan))
+
+    @property
+    def dx_ppm(self) -> float:
+        """Point spacing of the axis (ppm), NaN for a one-point axis.
+
+        Returns
+        -------
+        float
+
+        Examples
+        --------
+        >>> spec = Spectrum(hz=[-100.0, 0.0, 100.0], ppm=[-1.0, 0.0, 1.0], intensity=[0.0, 1.0, 0.0],
+        ...                 site_labels=("a",), site_intensities=[[0.0, 1.0, 0.0]],
+        ...                 metadata={"nucleus": "31P", "nu_ref_hz": 100e6})
+        >>> spec.dx_ppm
+        1.0
+        """
+        return float(self.ppm[1] - self.ppm[0]) if self.ppm.size > 1 else math.nan
+
+    def area(self, site: int | None = None) -> float:
+        """Integral over ppm of the sum (or of one site).
+
+        Parameters
+        ----------
+        site : int, optional
+            Index of a site in ``site_labels``; the sum when omitted.
+
+        Returns
+        -------
+        float
+            Rectangle-rule integral over the ppm axis; each site's value is
+            its weight (less what falls off the axis).
+
+        Examples
+        --------
+        >>> spec = Spectrum(hz=[-100.0, 0.0, 100.0], ppm=[-1.0, 0.0, 1.0], intensity=[0.0, 1.0, 0.0],
+        ...                 site_labels=("a",), site_intensities=[[0.0, 1.0, 0.0]],
+        ...                 metadata={"nucleus": "31P", "nu_ref_hz": 100e6})
+        >>> spec.area(), spec.area(site=0)
+        (1.0, 1.0)
+        """
+        y = self.intensity if site is None else self.site_intensities[site]
+        return float(y.sum() * self.dx_ppm)
+
+    def first_moment_ppm(self, site: int | None = None) -> float:
+        """Centre of gravity (ppm) of the sum or of one site.
+
+        Parameters
+        ----------
+        site : int, optional
+            Index of a site in ``site_labels``; the sum when omitted.
+
+        Returns
+        -------
+        float
+            First moment ``sum(y * ppm) / sum(y)`` in ppm (for a quadrupolar
+            central transition: the isotropic shift plus the
+            quadrupolar-induced shift).
+
+        References
+        ----------
+        A. Samoson, Chem. Phys. Lett. 119 (1985) 29 (centre of gravity of
+        the central transition).
+
+        Examples
+        --------
+        >>> spec = Spectrum(hz=[-100.0, 0.0, 100.0], ppm=[-1.0, 0.0, 1.0],
+        ...                 intensity=[0.0, 1.0, 3.0], site_labels=("a",),
+        ...                 site_intensities=[[0.0, 1.0, 3.0]])
+        >>> spec.first_moment_ppm()
+        0.75
+        """
+        y = self.intensity if site is None else self.site_intensities[site]
+        return float((y * self.ppm).sum() / y.sum())
+
+    # ----- files ---------------------------------------------------------
+    def csv_text(self) -> str:
+        """The spectrum as CSV text: metadata lines, then ``ppm,hz,intensity`` and one column per site.
+
+        Returns
+        -------
+        str
+            ``# key: value`` metadata lines (dicts and lists as JSON), the
+            header and one row per point in ascending hz (ppm, Hz, the sum and
+            each site as densities per ppm).  Site columns are named by label
+            (quoted where CSV needs it).
+
+        References
+        ----------
+        Y. Shafranovich, RFC 4180 (2005), "Common Format and MIME Type for
+        Comma-Separated Values (CSV) Files" (from memory).
+
+        Examples
+        --------
+        >>> spec = Spectrum(hz=[-100.0, 0.0, 100.0], ppm=[-1.0, 0.0, 1.0], intensity=[0.0, 1.0, 0.0],
+        ...                 site_labels=("a",), site_intensities=[[0.0, 1.0, 0.0]],
+        ...                 metadata={"nucleus": "31P", "nu_ref_hz": 100e6})
+        >>> print(spec.csv_text(), end="")
+        # nucleus: 31P
+        # nu_ref_hz: 100000000.0
+        ppm,hz,intensity,a
+        -1,-100,0,0
+        0,0,1,1
+        1,100,0,0
+        """
+        lines = []
+        for k, v in self.metadata.items():
+            if isinstance(v, (dict, list, tuple)):
+                v = json.dumps(v)
+            lines.append(f"# {k}: {v}")
+        head = io.StringIO()
+        csv.writer(head, lineterminator="").writerow(["ppm", "hz", "intensity", *self.site_labels])
+        lines.append(head.getvalue())
+        cols = [self.ppm, self.hz, self.intensity, *self.site_intensities]
+        fmts = ["{:.10g}", "{:.12g}"] + ["{:.10g}"] * (len(cols) - 2)
+        for row in zip(*cols):
+            lines.append(",".join(f.format(x) for f, x in zip(fmts, row)))
+        return "\n".join(lines) + "\n"
+
+    def write_csv(self, path, *, force: bool = False, protect=()) -> Path | None:
+        """Write the spectrum as CSV atomically; refuses to overwrite unless ``force``.
+
+        Parameters
+        ----------
+        path : str or pathlib.Path
+            Output file (parent folders are made); ``"-"`` for standard output.
+        force : bool, optional
+            Overwrite an existing file.
+        protect : iterable of path, optional
+            Input files never to overwrite.
+
+        Returns
+        -------
+        pathlib.Path or None
+            The file written (see :meth:`csv_text` for the layout).
+
+        Raises
+        ------
+        powderspin.files.OutputExistsError
+            If ``path`` exists and ``force`` is False.
+
+        Examples
+        --------
+        >>> import tempfile, pathlib
+        >>> spec = Spectrum(hz=[-100.0, 0.0, 100.0], ppm=[-1.0, 0.0, 1.0], intensity=[0.0, 1.0, 0.0],
+        ...                 site_labels=("a",), site_intensities=[[0.0, 1.0, 0.0]],
+        ...                 metadata={"nucleus": "31P", "nu_ref_hz": 100e6})
+        >>> with tempfile.TemporaryDirectory() as d:
+        ...     p = spec.write_csv(pathlib.Path(d) / "out.csv")
+        ...     p.read_text().splitlines()[2]
+        'ppm,hz,intensity,a'
+        """
+        return write_text_atomic(path, self.csv_text(), force=force, protect=protect)
+
+    def sideband_rows_with_nominal(self) -> list[tuple]:
+        """Sideband rows with each band's nominal position: the site's centre band plus n x rate.
+
+        Returns
+        -------
+        list of (SidebandRow, float)
+            Each row and its nominal position (Hz).
+
+        Examples
+        --------
+        >>> spec = Spectrum(hz=[0.0, 1.0], ppm=[0.0, 0.01], intensity=[1.0, 0.0], site_labels=("a",),
+        ...                 site_intensities=[[1.0, 0.0]], metadata={"spinning_hz": 1000.0},
+        ...                 sidebands=(SidebandRow("a", 0, 10.0, 0.1, 0.9), SidebandRow("a", 1, 1012.0, 10.12, 0.1)))
+        >>> [round(h, 1) for _, h in spec.sideband_rows_with_nominal()]
+        [10.0, 1010.0]
+        """
+        rate = self.metadata.get("spinning_hz", 0.0)
+        rate = float(rate) if not isinstance(rate, str) else math.inf
+        centre = {r.site: r.position_hz for r in self.sidebands if r.order == 0}
+        out = []
+        for r in self.sidebands:
+            c = centre.get(r.site, r.position_hz - r.order * rate)
+            out.append((r, c + r.order * rate))
+        return out
+
+    def sideband_csv_text(self) -> str:
+        """The sideband table as CSV (columns described in the module docstring).
+
+        Returns
+        -------
+        str
+
+        Examples
+        --------
+        >>> spec = Spectrum(hz=[0.0, 1.0], ppm=[0.0, 0.01], intensity=[1.0, 0.0], site_labels=("a",),
+        ...                 site_intensities=[[1.0, 0.0]], metadata={"spinning_hz": 1000.0, "nu_ref_hz": 1e8},
+        ...                 sidebands=(SidebandRow("a", 0, 10.0, 0.1, 0.9),))
+        >>> print(spec.sideband_csv_text(), end="")
+        # spinning_hz: 1000.0
+        site,order,position_hz,position_ppm,nominal_hz,intensity
+        a,0,10,0.1,10,0.9
+        """
+        buf = io.StringIO()
+        w = csv.writer(buf, lineterminator="\n")
+        buf.write(f"# spinning_hz: {self.metadata.get('spinning_hz', '')}\n")
+        w.writerow(["site", "order", "position_hz", "position_ppm", "nominal_hz", "intensity"])
+        for r, nominal in self.sideband_rows_with_nominal():
+            w.writerow([r.site, r.order, f"{r.position_hz:.10g}", f"{r.position_ppm:.10g}", f"{nominal:.10g}",
+                        f"{r.intensity:.8g}"])
+        return buf.getvalue()
+
+    def sideband_table(self) -> str:
+        """Text table: site, sideband order, position (Hz, ppm), integrated intensity.
+
+        Returns
+        -------
+        str
+            Two header lines and one line per :class:`SidebandRow`, or a
+            one-line note for a static or infinite-rate spectrum.
+
+        References
+        ----------
+        J. Herzfeld, A. E. Berger, J. Chem. Phys. 73 (1980) 6021 (sideband
+        intensities).
+
+        Examples
+        --------
+        >>> spec = Spectrum(hz=[-100.0, 0.0, 100.0], ppm=[-1.0, 0.0, 1.0], intensity=[0.0, 1.0, 0.0],
+        ...                 site_labels=("a",), site_intensities=[[0.0, 1.0, 0.0]],
+        ...                 metadata={"nucleus": "31P", "nu_ref_hz": 100e6})
+        >>> print(spec.sideband_table(), end="")
+        no sidebands (static or infinite-rate spectrum)
+        """
+        if not self.sidebands:
+            return "no sidebands (static or infinite-rate spectrum)\n"
+        rows = ["sidebands (order n: the band at the centre band + n x the spinning rate)",
+                f"{'site':<16} {'order':>5} {'position_hz':>14} {'position_ppm':>12} {'intensity':>12}"]
+        for r in self.sidebands:
+            rows.append(f"{r.site:<16} {r.order:>5d} {r.position_hz:>14.2f} {r.position_ppm:>12.3f} "
+                        f"{r.intensity:>12.6f}")
+        return "\n".join(rows) + "\n"

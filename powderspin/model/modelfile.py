@@ -1,0 +1,795 @@
+"""Model files: reading and writing TOML with one key table.
+
+A model file is TOML (keys, units and ranges in :mod:`powderspin.model.schema`; the
+README has the full reference)::
+
+    nucleus = "27Al"
+
+    [measurement]              # or several [[measurement]] tables
+    field_tesla = 14.1         # required
+    spinning_hz = 12500        # 0 = static, "inf" = infinite rate
+    transitions = "central"
+    lorentz_hz = 150.0
+
+    [[site]]
+    label = "AlO4"             # unique
+    shift_ppm = 61.0
+    cq_mhz = { start = 4.0, min = 1.0, max = 8.0 }     # a free parameter
+    eta_q = 0.35
+    gauss_hz = { same_as = "AlO6.gauss_hz" }          # a tied parameter
+
+    [fit]
+    regions = [[90.0, 40.0], [20.0, -30.0]]
+    baseline_order = 1
+
+Reading and writing use the same key table, so a written model reads back to
+an equal model (free and tied parameters, the shift-tensor form and every
+measurement included).
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import tomllib
+from pathlib import Path
+from typing import Any
+
+import tomli_w
+
+from ..files import write_text_atomic
+from ..physics.nuclides import Nuclide, get_nuclide
+from .schema import FREE_TABLE_KEYS, KEYS, TIE_KEY, key_spec, keys_of
+from .values import (
+    _FREE_KEYS,
+    MAGIC_ANGLE_DEG,
+    FitSettings,
+    FreeParameter,
+    Measurement,
+    Model,
+    ModelError,
+    ParameterAddress,
+    Site,
+    TiedParameter,
+    _site_from_values,
+    check_number,
+)
+
+__all__ = ["load_model", "parse_model", "make_model", "make_site", "model_from_tables", "parse_site_table",
+           "model_to_dict",
+           "model_to_toml", "write_model", "MAX_MODEL_BYTES"]
+
+#: largest model file read (bytes); a model file is a few kB of text
+MAX_MODEL_BYTES = 4 * 1024 * 1024
+
+
+def _unknown(keys, allowed, where):
+    extra = sorted(set(keys) - set(allowed))
+    if extra:
+        hints = []
+        for k in extra:
+            close = difflib.get_close_matches(str(k), sorted(allowed), n=1)
+            hints.append(f"'{k}'" + (f" (did you mean '{close[0]}'?)" if close else ""))
+        raise ModelError(f"{where}: unknown key {', '.join(hints)}; allowed keys are {', '.join(sorted(allowed))}")
+
+
+def _is_number(v) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+def _parameter(table: dict, key: str, where: str, kind_table: str, free: list, tied: list, item=None):
+    """The value of a number key: plain, free ``{start, min, max}`` or tied ``{same_as}``.
+
+    Records free and tied entries as (key, item, ...) and returns the start
+    value (None for a tied one, filled in later).
+    """
+    v = table[key] if item is None else table[key][item]
+    name = key if item is None else f"{key}[{item}]"
+    if isinstance(v, dict):
+        if key not in _FREE_KEYS.get(kind_table, ()):
+            raise ModelError(f"{where}: {name} cannot be a fit parameter; give a number")
+        if TIE_KEY in v:
+            _unknown(v.keys(), {TIE_KEY}, f"{where}.{name}")
+            src = v[TIE_KEY]
+            if not isinstance(src, str) or "." not in src:
+                raise ModelError(f"{where}.{name}: same_as = {src!r} must be \"LABEL.{key}\" (a site label and a key)")
+            tied.append((key, item, src))
+            return None
+        _unknown(v.keys(), FREE_TABLE_KEYS, f"{where}.{name}")
+        if "start" not in v:
+            raise ModelError(f"{where}.{name}: a free parameter needs 'start', "
+                             "e.g. { start = 3.0, min = 1.0, max = 8.0 }")
+        spec = key_spec(kind_table, key)
+        st = check_number(where, key, v["start"], kind_table)
+        lo = check_number(where, key, v["min"], kind_table) if "min" in v else spec.low
+        hi = check_number(where, key, v["max"], kind_table) if "max" in v else spec.high
+        if not lo < hi:
+            raise ModelError(f"{where}.{name}: min = {lo:g} must be below max = {hi:g}")
+        if not (lo <= st <= hi):
+            raise ModelError(f"{where}.{name}: start = {st:g} is outside its own range [{lo:g}, {hi:g}]")
+        free.append((key, item, st, lo, hi))
+        return st
+    if not _is_number(v):
+        spec = key_spec(kind_table, key)
+        raise ModelError(f"{where}: {name} must be a number ({spec.unit or 'dimensionless'}), got {v!r}")
+    return float(v)
+
+
+def parse_site_table(i: int, t: Any, where_default: str | None = None):
+    """Read one ``[[site]]`` table.
+
+    Parameters
+    ----------
+    i : int
+        Index of the site (0-based); the default label is ``"site {i+1}"``.
+    t : dict
+        The table.
+    where_default : str, optional
+        Name for messages before the label is known.
+
+    Returns
+    -------
+    site : Site
+        Tied values hold the key's default until the model applies the ties.
+    free : list of tuple
+        ``(key, item, start, min, max)`` of each free parameter.
+    tied : list of tuple
+        ``(key, item, "LABEL.key")`` of each tied parameter.
+
+    Examples
+    --------
+    >>> site, free, tied = parse_site_table(0, {"label": "A", "cq_mhz": {"start": 2.0, "max": 5.0}})
+    >>> site.cq_mhz, free
+    (2.0, [('cq_mhz', None, 2.0, -1000.0, 5.0)])
+    """
+    where = where_default or f"site {i + 1}"
+    if not isinstance(t, dict):
+        raise ModelError(f"{where} must be a table of site keys, got {type(t).__name__}")
+    allowed = keys_of("site")
+    _unknown(t.keys(), allowed, where)
+    for k in ("stderr", "interval"):
+        if k in t:
+            _check_written_table(t[k], f"{where_default or f'site {i + 1}'}.{k}")
+    label = t.get("label", f"site {i + 1}")
+    if not isinstance(label, str) or not label.strip():
+        raise ModelError(f"{where}: label = {label!r} must be a non-empty text")
+    where = f"site '{label}'"
+    free: list = []
+    tied: list = []
+
+    def num(key, default):
+        if key not in t:
+            return default
+        v = _parameter(t, key, where, "site", free, tied)
+        return default if v is None else v
+
+    forms = [f for f, ks in (("span_skew", ("span_ppm", "skew")), ("haeberlen", ("aniso_ppm", "eta_cs")),
+                             ("principal", ("principal_ppm",))) if any(k in t for k in ks)]
+    if len(forms) > 1:
+        raise ModelError(
+            f"{where}: give the shift anisotropy one way only: span_ppm + skew, aniso_ppm + eta_cs, or principal_ppm"
+        )
+    form = forms[0] if forms else "iso"
+    vals: dict = {
+        "weight": num("weight", 1.0),
+        "cq_mhz": num("cq_mhz", 0.0),
+        "eta_q": num("eta_q", 0.0),
+        "lorentz_hz": num("lorentz_hz", 0.0),
+        "gauss_hz": num("gauss_hz", 0.0),
+        "shift_fwhm_ppm": num("shift_fwhm_ppm", 0.0),
+        "czjzek_sigma_mhz": num("czjzek_sigma_mhz", 0.0),
+    }
+    for key in ("cq_distribution_mhz", "eta_distribution"):  # inline tables {values, weights}; checked by Site
+        if key in t:
+            if not isinstance(t[key], dict):
+                raise ModelError(f"{where}: {key} must be a table {{ values = [...], weights = [...] }}, "
+                                 f"got {t[key]!r}")
+            if set(t[key]) & set(FREE_TABLE_KEYS + (TIE_KEY,)):
+                raise ModelError(f"{where}: {key} cannot be a fit parameter (czjzek_sigma_mhz, cq_mhz and eta_q "
+                                 "can); give { values = [...], weights = [...] }")
+            vals[key] = t[key]
+    e = t.get("euler_deg", [0.0, 0.0, 0.0])
+    if not isinstance(e, list) or len(e) != 3:
+        raise ModelError(f"{where}: euler_deg must be a list of 3 angles in degrees, e.g. [0, 30, 0]")
+    angles = [0.0, 0.0, 0.0]
+    if "euler_deg" in t:
+        for k in range(3):
+            v = _parameter(t, "euler_deg", where, "site", free, tied, item=k)
+            angles[k] = 0.0 if v is None else v
+    vals["euler_deg"] = tuple(angles)
+    if form == "principal":
+        p = t["principal_ppm"]
+        if not isinstance(p, list) or len(p) != 3 or not all(_is_number(x) for x in p):
+            raise ModelError(f"{where}: principal_ppm must be a list of 3 numbers (ppm), e.g. [40.0, 10.0, -20.0]")
+        if "shift_ppm" in t:
+            raise ModelError(f"{where}: principal_ppm fixes the isotropic shift; do not also give shift_ppm")
+        vals["principal_ppm"] = tuple(float(x) for x in p)
+    else:
+        vals["shift_ppm"] = num("shift_ppm", 0.0)
+        if form == "span_skew":
+            if "span_ppm" not in t:
+                raise ModelError(f"{where}: skew needs span_ppm (the span Omega in ppm)")
+            vals["span_ppm"] = num("span_ppm", 0.0)
+            vals["skew"] = num("skew", 0.0)
+        elif form == "haeberlen":
+            if "aniso_ppm" not in t:
+                raise ModelError(f"{where}: eta_cs needs aniso_ppm (d_zz - d_iso in ppm)")
+            vals["aniso_ppm"] = num("aniso_ppm", 0.0)
+            vals["eta_cs"] = num("eta_cs", 0.0)
+    # range checks of free-parameter bounds use the key's own range
+    return _site_from_values(vals, label, form), free, tied
+
+
+def _parse_measurement(j: int, t: Any, where: str, free: list):
+    if not isinstance(t, dict):
+        raise ModelError(f"{where} must be a table of measurement keys, got {type(t).__name__}")
+    _unknown(t.keys(), keys_of("measurement"), where)
+    if "field_tesla" not in t:
+        raise ModelError(
+            f"{where}: field_tesla is required (the magnetic field in tesla, e.g. field_tesla = 14.1); "
+            "no default can guess it"
+        )
+    kw: dict[str, Any] = {}
+    for k, v in t.items():
+        spec = key_spec("measurement", k)
+        if spec.kind in ("number",):
+            if k == "spinning_hz" and isinstance(v, str):
+                if v.strip().lower() not in ("inf", "infinite", "infinity"):
+                    raise ModelError(f"{where}: spinning_hz = {v!r}: give a number of Hz or \"inf\"")
+                kw[k] = math.inf
+                continue
+            if isinstance(v, dict):
+                sub: list = []
+                tied_here: list = []
+                val = _parameter(t, k, where, "measurement", sub, tied_here)
+                if tied_here:
+                    raise ModelError(f"{where}: {k}: same_as is for site keys; measurement keys may be free only")
+                for key, item, st, lo, hi in sub:
+                    free.append(FreeParameter(ParameterAddress("measurement", j, key), st, lo, hi,
+                                              ParameterAddress("measurement", j, key).name()))
+                kw[k] = val
+                continue
+            if not _is_number(v):
+                raise ModelError(f"{where}: {k} must be a number ({spec.unit or 'dimensionless'}), got {v!r}")
+            kw[k] = v
+        elif spec.kind == "transitions":
+            kw[k] = tuple(v) if isinstance(v, list) else v
+        elif spec.kind in ("orientations", "rotor_phases", "integer"):
+            kw[k] = v
+        elif spec.kind in ("choice", "text"):
+            if not isinstance(v, str):
+                what = "a file path (text), e.g. data = \"spectrum.csv\"" if k == "data" else "text"
+                raise ModelError(f"{where}: {k} = {v!r} must be {what}")
+            kw[k] = v
+        elif spec.kind == "numbers":
+            if not isinstance(v, list) or not all(_is_number(x) for x in v):
+                raise ModelError(f"{where}: {k} must be a list of numbers, e.g. [0.0, 1.5], got {v!r}")
+            kw[k] = tuple(float(x) for x in v)
+        elif spec.kind == "table":
+            _check_written_table(v, f"{where}.{k}")
+        else:  # pragma: no cover - every measurement kind is handled above
+            kw[k] = v
+    try:
+        return Measurement(**kw)
+    except ModelError as e:
+        msg = str(e)
+        if where != "measurement" and msg.startswith("measurement:"):
+            msg = where + msg[len("measurement"):]
+        raise ModelError(msg) from None
+
+
+def _check_written_table(v: Any, where: str) -> None:
+    """A sub-table a fit writes (stderr, interval, result): accepted on reading, not used."""
+    if not isinstance(v, dict):
+        raise ModelError(f"{where} must be a table (it holds what a fit wrote), got {type(v).__name__}")
+
+
+def _parse_fit(t: Any) -> FitSettings:
+    if not isinstance(t, dict):
+        raise ModelError(f"[fit] must be a table, got {type(t).__name__}")
+    _unknown(t.keys(), keys_of("fit"), "fit")
+    if "result" in t:
+        _check_written_table(t["result"], "fit.result")
+    regions = t.get("regions", [])
+    if not isinstance(regions, list) or not all(isinstance(r, list) for r in regions):
+        raise ModelError("fit: regions must be a list of [ppm_hi, ppm_lo] pairs, e.g. [[90.0, 40.0], [20.0, -30.0]]")
+    for r in regions:
+        if len(r) != 2 or not all(_is_number(x) for x in r):
+            raise ModelError(f"fit: regions entry {r!r} must be two numbers [ppm_hi, ppm_lo]")
+    noise = t.get("noise_region")
+    if noise is not None and (not isinstance(noise, list) or len(noise) != 2 or not all(_is_number(x) for x in noise)):
+        raise ModelError(f"fit: noise_region = {noise!r} must be two numbers [ppm_hi, ppm_lo]")
+    return FitSettings(tuple(tuple(r) for r in regions), tuple(noise) if noise is not None else None,
+                       t.get("baseline_order"))
+
+
+def _resolve_tie(text: str, key: str, item, sites, n_meas: int, where: str) -> ParameterAddress:
+    owner, _, src_key = text.rpartition(".")
+    src_item = item
+    if src_key.endswith("]") and "[" in src_key:
+        src_key, _, idx = src_key[:-1].partition("[")
+        try:
+            src_item = int(idx)
+        except ValueError:
+            raise ModelError(f"{where}: same_as = {text!r}: {idx!r} is not an index 0, 1 or 2") from None
+    if src_key != key:
+        raise ModelError(f"{where}: same_as = {text!r} must name the same key ({key}) of another site")
+    labels = [s.label for s in sites]
+    if owner not in labels:
+        close = difflib.get_close_matches(owner, labels, n=1)
+        hint = f" (did you mean '{close[0]}'?)" if close else ""
+        raise ModelError(f"{where}: same_as = {text!r}: there is no site '{owner}'{hint}; sites are "
+                         + ", ".join(repr(x) for x in labels))
+    return ParameterAddress("site", labels.index(owner), key, src_item)
+
+
+def model_from_tables(nucleus, measurements: list, sites: list, fit: dict, source: str = "") -> Model:
+    """Build a :class:`Model` from parsed tables (the common path of files and Python dicts).
+
+    Parameters
+    ----------
+    nucleus : Nuclide
+    measurements : list of dict or Measurement
+    sites : list of dict or Site
+    fit : dict
+        ``[fit]`` keys (may be empty).
+    source : str, optional
+        The model file, if any.
+
+    Returns
+    -------
+    Model
+
+    Examples
+    --------
+    >>> from powderspin.physics.nuclides import get_nuclide
+    >>> m = model_from_tables(get_nuclide("31P"), [{"field_tesla": 9.4}], [{"span_ppm": 100.0, "skew": 0.2}], {})
+    >>> m.sites[0].shift_form
+    'span_skew'
+    """
+    free: list[FreeParameter] = []
+    meas = []
+    n_meas = len(measurements)
+    for j, t in enumerate(measurements):
+        where = "measurement" if n_meas == 1 else f"measurement {j + 1}"
+        meas.append(t if isinstance(t, Measurement) else _parse_measurement(j, t, where, free))
+    built: list[Site] = []
+    pending_free: list = []
+    pending_tied: list = []
+    for i, t in enumerate(sites):
+        if isinstance(t, Site):
+            built.append(t)
+            continue
+        if not isinstance(t, dict):
+            raise ModelError(f"sites[{i}] must be a dict of site keys (or a Site), got {type(t).__name__}")
+        site, f, tt = parse_site_table(i, t)
+        built.append(site)
+        pending_free += [(i, e) for e in f]
+        pending_tied += [(i, e) for e in tt]
+    # addresses, now that every label is known
+    for i, (key, item, st, lo, hi) in pending_free:
+        a = ParameterAddress("site", i, key, item)
+        free.append(FreeParameter(a, st, lo, hi, _name(a, built)))
+    order = {(k.table, k.name): n for n, k in enumerate(KEYS)}
+    free.sort(key=lambda f: (f.address.table != "measurement", f.address.index,
+                             order[(f.address.table, f.address.key)], f.address.item or 0))
+    tied: list[TiedParameter] = []
+    for i, (key, item, text) in pending_tied:
+        a = ParameterAddress("site", i, key, item)
+        where = f"site '{built[i].label}'"
+        src = _resolve_tie(text, key, item, built, n_meas, where)
+        if src == a:
+            raise ModelError(f"{where}: {key} is tied to itself (same_as = {text!r})")
+        tied.append(TiedParameter(a, src, _name(a, built), _name(src, built)))
+    tied_addrs = {t.address for t in tied}
+    for t in tied:
+        if t.source in tied_addrs:
+            raise ModelError(f"parameter {t.name} follows {t.source_name}, which is itself tied; "
+                             "tie both to the same free or fixed parameter")
+    model = Model(nucleus, tuple(meas), tuple(built), tuple(free), tuple(tied),
+                  fit if isinstance(fit, FitSettings) else _parse_fit(fit), source)
+    return model.with_parameters({}) if tied else model
+
+
+def _name(a: ParameterAddress, sites) -> str:
+    item = f"[{a.item}]" if a.item is not None else ""
+    return f"{sites[a.index].label}.{a.key}{item}"
+
+
+def parse_model(data: Any, source: str = "") -> Model:
+    """Build a :class:`Model` from a parsed TOML mapping, validating every key.
+
+    Parameters
+    ----------
+    data : dict
+        The parsed file: ``nucleus``, one ``measurement`` table (or a list of
+        them), ``site`` tables and an optional ``fit`` table, with the keys of
+        :mod:`powderspin.model.schema` (field in tesla, spinning rate in Hz, shifts
+        in ppm, C_Q in MHz, angles in degrees).
+    source : str, optional
+        Where the mapping came from (recorded in the model and the metadata).
+
+    Returns
+    -------
+    Model
+
+    Raises
+    ------
+    ModelError
+        For a missing, unknown or out-of-range key.
+
+    References
+    ----------
+    TOML v1.0.0 specification (toml.io).
+
+    Examples
+    --------
+    >>> m = parse_model({"nucleus": "27Al", "measurement": {"field_tesla": 14.1},
+    ...                  "site": [{"cq_mhz": 3.0, "eta_q": 0.5}]})
+    >>> m.sites[0].cq_mhz
+    3.0
+    """
+    if not isinstance(data, dict):
+        raise ModelError(f"model: expected a table of keys, got {type(data).__name__}")
+    _unknown(data.keys(), {"nucleus", "measurement", "site", "fit"}, "model")
+    if "nucleus" not in data:
+        raise ModelError("model: 'nucleus' is required, e.g. nucleus = \"27Al\"")
+    if not isinstance(data["nucleus"], str):
+        raise ModelError(f"model: nucleus = {data['nucleus']!r} must be text, e.g. \"27Al\"")
+    try:
+        nuc = get_nuclide(data["nucleus"])
+    except ValueError as e:
+        raise ModelError(f"model: nucleus: {e}") from None
+    if "measurement" not in data:
+        raise ModelError(
+            "model: a [measurement] table with field_tesla is required (the magnetic field in tesla, "
+            "e.g. field_tesla = 14.1); no default can guess it"
+        )
+    meas_t = data["measurement"]
+    meas_list = meas_t if isinstance(meas_t, list) else [meas_t]
+    if not meas_list:
+        raise ModelError("model: [[measurement]] is empty; give at least one table with field_tesla")
+    sites_t = data.get("site", [])
+    if isinstance(sites_t, dict):
+        sites_t = [sites_t]
+    if not isinstance(sites_t, list):
+        raise ModelError("model: 'site' must be [[site]] tables")
+    return model_from_tables(nuc, meas_list, sites_t, data.get("fit", {}), source)
+
+
+def load_model(path) -> Model:
+    """Read and validate a TOML model file.
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+        Model file (UTF-8 TOML).
+
+    Returns
+    -------
+    Model
+        The validated model; its ``source`` is ``path``.
+
+    Raises
+    ------
+    ModelError
+        If the file is missing, a folder, not a regular file, not UTF-8 text,
+        not valid TOML, or a value is wrong; the message names the file.
+
+    See Also
+    --------
+    write_model : the other direction.
+
+    References
+    ----------
+    TOML v1.0.0 specification (toml.io).
+
+    Examples
+    --------
+    >>> from pathlib import Path
+    >>> m = load_model(Path(__file__).parents[1] / "data" / "demo.toml")
+    >>> m.nucleus.name
+    '27Al'
+    """
+    p = Path(path)
+    name = str(p)
+    if not p.exists():
+        raise ModelError(f"model file {name!r} does not exist")
+    if p.is_dir():
+        raise ModelError(f"model file {name!r} is a directory, not a model file")
+    if not p.is_file():
+        raise ModelError(f"model file {name!r} is not a regular file (a device or pipe?); give a TOML file")
+    try:
+        size = p.stat().st_size
+        if size > MAX_MODEL_BYTES:
+            raise ModelError(f"model file {name!r} is {size} bytes; a model file is text of at most "
+                             f"{MAX_MODEL_BYTES} bytes")
+        raw = p.read_bytes()
+    except OSError as e:
+        raise ModelError(f"model file {name!r} cannot be read: {e.strerror or e}") from None
+    if b"\x00" in raw:
+        raise ModelError(f"model file {name!r} is binary, not TOML text")
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as e:
+        raise ModelError(f"model file {name!r} is not UTF-8 text (byte 0x{raw[e.start]:02x} at position {e.start})") \
+            from None
+    if not text.strip():
+        raise ModelError(f"model file {name!r} is empty; it needs nucleus, [measurement] and [[site]]")
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as e:
+        raise ModelError(f"model file {name!r} is not valid TOML: {e}") from None
+    try:
+        return parse_model(data, name)
+    except ModelError as e:
+        raise ModelError(f"{name}: {e}") from None
+
+
+# ---------------------------------------------------------------------------
+# writing
+
+
+def _measurement_table(meas: Measurement) -> dict:
+    t: dict = {}
+    for k, spec in keys_of("measurement").items():
+        if spec.kind == "table":
+            continue
+        v = getattr(meas, k)
+        if k == "spinning_hz":
+            t[k] = "inf" if math.isinf(v) else v
+            continue
+        if k == "rotor_angle_deg":
+            if abs(v - MAGIC_ANGLE_DEG) > 1e-12:
+                t[k] = v
+            continue
+        if v is None:
+            continue
+        if k == "transitions":
+            t[k] = v if isinstance(v, str) else list(v)
+            continue
+        if k in ("shift_offset_ppm",) and v == 0.0:
+            continue
+        if k == "scale" and v == 1.0:
+            continue
+        if k == "baseline":
+            if v:
+                t[k] = list(v)
+            continue
+        t[k] = v
+    return t
+
+
+def _site_table(site: Site) -> dict:
+    from .values import site_key_values
+
+    vals = site_key_values(site)
+    t: dict = {"label": site.label}
+    for k in keys_of("site"):
+        if k == "label" or k not in vals:
+            continue
+        v = vals[k]
+        if k == "euler_deg":
+            if any(v):
+                t[k] = list(v)
+            continue
+        if k == "principal_ppm":
+            t[k] = list(v)
+            continue
+        if k in ("cq_mhz", "eta_q") and site.cq_mhz == 0.0 and site.eta_q == 0.0:
+            continue
+        if k in ("lorentz_hz", "gauss_hz", "shift_fwhm_ppm", "czjzek_sigma_mhz") and v == 0.0:
+            continue
+        t[k] = v
+    return t
+
+
+def model_to_dict(model: Model) -> dict:
+    """The model as the nested dict of a model file (free and tied parameters as inline tables).
+
+    Parameters
+    ----------
+    model : Model
+
+    Returns
+    -------
+    dict
+        ``nucleus``, ``measurement`` (a table, or a list of tables when there
+        are several), ``site`` (list of tables) and ``fit`` when set.  Callers
+        may add tables (e.g. fit results) before writing with ``tomli_w``.
+
+    Examples
+    --------
+    >>> from powderspin.model.modelfile import make_model
+    >>> d = model_to_dict(make_model("27Al", {"field_tesla": 9.4}, [{"label": "A", "cq_mhz": 3.0}]))
+    >>> d["site"][0]["cq_mhz"], d["measurement"]["field_tesla"]
+    (3.0, 9.4)
+    """
+    meas = [_measurement_table(m) for m in model.measurements]
+    sites = [_site_table(s) for s in model.sites]
+    for fp in model.free:
+        a = fp.address
+        entry = {"start": fp.start, "min": fp.min, "max": fp.max}
+        target = meas[a.index] if a.table == "measurement" else sites[a.index]
+        if a.item is not None:
+            target.setdefault("euler_deg", [0.0, 0.0, 0.0])[a.item] = entry
+        else:
+            target[a.key] = entry
+    for tp in model.tied:
+        a = tp.address
+        src = f"{model.sites[tp.source.index].label}.{tp.source.key}"
+        if tp.source.item is not None and tp.source.item != a.item:
+            src += f"[{tp.source.item}]"
+        target = sites[a.index]
+        if a.item is not None:
+            target.setdefault("euler_deg", [0.0, 0.0, 0.0])[a.item] = {"same_as": src}
+        else:
+            target[a.key] = {"same_as": src}
+    data: dict = {"nucleus": model.nucleus.name,
+                  "measurement": meas[0] if len(meas) == 1 else meas,
+                  "site": sites}
+    f = model.fit
+    fit: dict = {}
+    if f.regions:
+        fit["regions"] = [list(r) for r in f.regions]
+    if f.noise_region is not None:
+        fit["noise_region"] = list(f.noise_region)
+    if f.baseline_order is not None:
+        fit["baseline_order"] = f.baseline_order
+    if fit:
+        data["fit"] = fit
+    return data
+
+
+def model_to_toml(model: Model, header: str = "") -> str:
+    """The model as TOML text in the model-file keys.
+
+    The shift tensor is written in the form it was given (span/skew,
+    Haeberlen or principal values); free parameters come back as
+    ``{ start, min, max }`` and tied ones as ``{ same_as = "LABEL.key" }``.
+
+    Parameters
+    ----------
+    model : Model
+    header : str, optional
+        Comment lines to put first (each starting with ``#``).
+
+    Returns
+    -------
+    str
+        TOML text that :func:`parse_model` reads back to an equal model.
+
+    See Also
+    --------
+    write_model, load_model
+
+    References
+    ----------
+    TOML v1.0.0 specification (toml.io).
+
+    Examples
+    --------
+    >>> import tomllib
+    >>> from powderspin.model.modelfile import make_model
+    >>> m = make_model("27Al", {"field_tesla": 14.1}, [{"cq_mhz": 3.0, "eta_q": 0.4, "span_ppm": 40.0, "skew": 0.2}])
+    >>> parse_model(tomllib.loads(model_to_toml(m))).sites == m.sites
+    True
+    """
+    head = header or "# powderspin model file (TOML); the README lists every key\n"
+    if not head.endswith("\n"):
+        head += "\n"
+    return head + tomli_w.dumps(model_to_dict(model))
+
+
+def write_model(model: Model, path, *, force: bool = False, protect=(), header: str = "") -> Path | None:
+    """Write a model file atomically; never overwrites an existing file unless ``force``.
+
+    Parameters
+    ----------
+    model : Model
+    path : str or pathlib.Path
+        Output file (``"-"``: standard output).
+    force : bool
+        Overwrite an existing file.
+    protect : iterable of path, optional
+        Input files that must never be overwritten.
+    header : str, optional
+        Comment lines to put first.
+
+    Returns
+    -------
+    pathlib.Path or None
+
+    See Also
+    --------
+    load_model : the other direction.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> from powderspin.model.modelfile import make_model
+    >>> m = make_model("31P", {"field_tesla": 9.4}, [{"span_ppm": 100.0, "skew": 0.5}])
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     p = write_model(m, pathlib.Path(d) / "m.toml")
+    ...     load_model(p).sites == m.sites
+    True
+    """
+    return write_text_atomic(path, model_to_toml(model, header), force=force, protect=protect, role="model file")
+
+
+# ---------------------------------------------------------------------------
+# building models from Python dicts (the same keys as model files)
+
+
+def make_site(**keys) -> Site:
+    """Build a :class:`Site` from the model-file keys (same names, same checks).
+
+    Parameters
+    ----------
+    **keys
+        ``[[site]]`` keys: ``label``, ``weight``, ``shift_ppm``, ``cq_mhz``,
+        ``eta_q``, one of ``span_ppm`` + ``skew`` / ``aniso_ppm`` + ``eta_cs``
+        / ``principal_ppm`` (ppm), ``euler_deg`` (degrees), ``lorentz_hz``,
+        ``gauss_hz`` (Hz).
+
+    Returns
+    -------
+    Site
+
+    References
+    ----------
+    J. Mason, Solid State Nucl. Magn. Reson. 2 (1993) 285; J. Herzfeld,
+    A. E. Berger, J. Chem. Phys. 73 (1980) 6021 (shift-tensor conventions).
+
+    Examples
+    --------
+    >>> s = make_site(label="AlO6", shift_ppm=8.0, cq_mhz=5.5, eta_q=0.6, span_ppm=20.0, skew=0.1)
+    >>> round(s.shift.span_ppm, 6)
+    20.0
+    """
+    site, free, tied = parse_site_table(0, dict(keys), "site")
+    if free or tied:
+        raise ModelError("make_site: free or tied parameters need a model; use make_model")
+    return site
+
+
+def make_model(nucleus, measurement=None, sites=(), fit=None) -> Model:
+    """Build a :class:`Model` from a nucleus name, measurement keys and site key dicts.
+
+    Parameters
+    ----------
+    nucleus : str or Nuclide
+        e.g. ``"27Al"``.
+    measurement : dict or Measurement or list of them
+        ``[measurement]`` keys (``field_tesla`` is required); a list gives
+        several measurements of one sample.
+    sites : sequence of dict or Site
+        Site keys as in a model file (free ``{start, min, max}`` and tied
+        ``{same_as = "LABEL.key"}`` values allowed), or ready :class:`Site`
+        values.
+    fit : dict, optional
+        ``[fit]`` keys.
+
+    Returns
+    -------
+    Model
+
+    Examples
+    --------
+    >>> m = make_model("23Na", {"field_tesla": 11.7}, [{"cq_mhz": 2.0}])
+    >>> m.measurement.field_tesla, m.sites[0].label
+    (11.7, 'site 1')
+    """
+    nuc = nucleus if isinstance(nucleus, Nuclide) else get_nuclide(str(nucleus))
+    if measurement is None:
+        raise ModelError("model: a measurement with field_tesla is required, e.g. {\"field_tesla\": 14.1}")
+    if isinstance(measurement, (dict, Measurement)):
+        measurement = [measurement]
+    if isinstance(sites, (dict, Site)):
+        raise ModelError(
+            "make_model: sites must be a list of site dicts (or Site values), e.g. [{\"cq_mhz\": 3.0}]; "
+            "got a single " + ("dict" if isinstance(sites, dict) else "Site") + " - wrap it in a list"
+        )
+    if isinstance(sites, str):
+        raise ModelError("make_model: sites must be a list of site dicts, got a string")
+    return model_from_tables(nuc, list(measurement), list(sites), fit or {}, source="")

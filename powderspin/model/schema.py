@@ -1,0 +1,351 @@
+"""The one table of model-file keys: units, defaults, allowed ranges and meaning.
+
+Everything that reads, writes, validates or documents a model file uses this
+table: :mod:`powderspin.model.values` checks values against it,
+:mod:`powderspin.model.modelfile` reads and writes TOML with it, and the README's
+key reference is checked against it by the tests.  A key's range is what is
+physically sensible, not just what the code can compute; the reason for each
+limit is part of the table and appears in the error message.
+
+Tables of a model file: the top level (``nucleus``), ``[measurement]`` (or
+several ``[[measurement]]``), ``[[site]]`` and ``[fit]``.  A fit's result file
+is a model file with a few more entries: ``scale`` and ``baseline`` in each
+measurement (applied by every simulation), and ``stderr`` / ``interval``
+sub-tables and ``[fit.result]``, which are read and ignored.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+__all__ = ["KeySpec", "KEYS", "key_spec", "keys_of", "REQUIRED", "FREE_TABLE_KEYS", "TIE_KEY",
+           "key_reference_markdown"]
+
+
+class _Required:
+    """Marker for a key without a default (it must be given)."""
+
+    def __repr__(self) -> str:
+        return "REQUIRED"
+
+
+#: default of a key that must be given
+REQUIRED = _Required()
+
+#: keys of an inline table that marks a free parameter
+FREE_TABLE_KEYS = ("start", "min", "max")
+#: key of an inline table that ties a parameter to another one
+TIE_KEY = "same_as"
+
+
+@dataclass(frozen=True)
+class KeySpec:
+    """One model-file key.
+
+    Attributes
+    ----------
+    table : {"top", "measurement", "site", "fit"}
+        Where the key lives.
+    name : str
+        The key.
+    kind : str
+        ``"number"``, ``"integer"``, ``"choice"``, ``"text"``, ``"angles"``
+        (3 numbers), ``"principal"`` (3 numbers), ``"transitions"``,
+        ``"orientations"``, ``"rotor_phases"``, ``"regions"``, ``"region"``,
+        ``"numbers"`` (a list of numbers), ``"table"`` (a sub-table a fit
+        writes, accepted on reading and not used), ``"distribution"`` (an
+        inline table ``{ values = [...], weights = [...] }``).
+    unit : str
+        Unit (``""`` for dimensionless or text).
+    default : object
+        Default value; :data:`REQUIRED` when the key must be given, None when
+        it is optional with no value.
+    low, high : float
+        Allowed range for numbers (inclusive unless ``low_open``).
+    low_open : bool
+        The lower limit itself is not allowed.
+    choices : tuple of str
+        Allowed words for ``"choice"`` keys (and the words accepted besides
+        numbers for ``"orientations"``/``"rotor_phases"``).
+    free : bool
+        Whether the key may be a free or tied parameter in a fit.
+    doc : str
+        What the key means (one line, for the README table).
+    why : str
+        Why the range is what it is (appears in the error message).
+
+    Examples
+    --------
+    >>> k = key_spec("measurement", "field_tesla")
+    >>> k.unit, k.low, k.high
+    ('T', 0.1, 40.0)
+    """
+
+    table: str
+    name: str
+    kind: str
+    unit: str
+    default: Any
+    low: float = -math.inf
+    high: float = math.inf
+    low_open: bool = False
+    choices: tuple = ()
+    free: bool = False
+    doc: str = ""
+    why: str = ""
+
+    def range_text(self) -> str:
+        """The allowed range as text, e.g. ``[0, 1]`` or ``(0, 40]``.
+
+        Returns
+        -------
+        str
+
+        Examples
+        --------
+        >>> key_spec("site", "eta_q").range_text()
+        '[0, 1]'
+        """
+        lb = "(" if self.low_open else "["
+        return f"{lb}{self.low:.10g}, {self.high:.10g}]"
+
+
+_MAS_WHY = "the fastest magic-angle-spinning rotors reach about 150 kHz (common practice)"
+
+#: Every model-file key.  Ranges are physical: a value outside them is a typo
+#: or a unit mistake far more often than a real experiment.
+KEYS: tuple[KeySpec, ...] = (
+    # ---- top level
+    KeySpec("top", "nucleus", "text", "", REQUIRED, doc="observed nucleus, e.g. \"27Al\""),
+    # ---- measurement
+    KeySpec("measurement", "field_tesla", "number", "T", REQUIRED, 0.1, 40.0,
+            doc="magnetic field B0 (no default: the one number no default can guess)",
+            why="NMR magnets span about 1 to 35 T (common practice)"),
+    KeySpec("measurement", "spinning_hz", "number", "Hz", 0.0, 0.0, 2.0e5,
+            doc="spinning rate; 0 = static, \"inf\" = infinitely fast",
+            why=_MAS_WHY + "; use \"inf\" for the infinite-rate limit"),
+    KeySpec("measurement", "rotor_angle_deg", "number", "deg", "magic", 0.0, 90.0,
+            doc="angle between rotor axis and B0; default the magic angle 54.7356",
+            why="angles beyond 90 deg repeat those below"),
+    KeySpec("measurement", "transitions", "transitions", "", "central",
+            doc="\"central\" (half-integer spins), \"all\", or a list of \"m1:m2\""),
+    KeySpec("measurement", "method", "choice", "", "auto", choices=("auto", "perturbation", "exact"),
+            doc="frequency producer: perturbation theory, exact diagonalisation, or chosen per site"),
+    KeySpec("measurement", "points", "integer", "", 2048, 16, 1048576,
+            doc="number of points of the spectral axis",
+            why="fewer than 16 points cannot show a lineshape; more than 2^20 exceeds any acquisition"),
+    KeySpec("measurement", "center_ppm", "number", "ppm", None, -1.0e6, 1.0e6,
+            doc="axis centre; chosen from the lines when absent",
+            why="offsets beyond +-1e6 ppm exceed the Larmor frequency itself"),
+    KeySpec("measurement", "width_ppm", "number", "ppm", None, 0.0, 2.0e6, low_open=True,
+            doc="axis full width; chosen from the lines when absent",
+            why="a width beyond 2e6 ppm exceeds twice the Larmor frequency"),
+    KeySpec("measurement", "orientations", "orientations", "", "auto",
+            choices=("auto", "coarse", "medium", "fine"),
+            doc="powder orientation set: \"auto\", \"coarse\", \"medium\", \"fine\", an accuracy level "
+                "(subdivisions per octahedron edge, 1 to 1024) or a set name such as \"zcw-octant-6765\""),
+    KeySpec("measurement", "binning", "choice", "", "interpolate", choices=("interpolate", "histogram"),
+            doc="triangle interpolation between orientations, or a plain histogram"),
+    KeySpec("measurement", "rotor_phases", "rotor_phases", "", "auto", 16, 65536, choices=("auto",),
+            doc="rotor phases sampled per period under finite-rate spinning: \"auto\" or a power of 2",
+            why="the sideband computation needs at least 16 phases; 65536 bounds memory"),
+    KeySpec("measurement", "lorentz_hz", "number", "Hz", 0.0, 0.0, 1.0e7, free=True,
+            doc="Lorentzian broadening (FWHM) applied to every site",
+            why="a width beyond 10 MHz is wider than any solid-state spectrum"),
+    KeySpec("measurement", "gauss_hz", "number", "Hz", 0.0, 0.0, 1.0e7, free=True,
+            doc="Gaussian broadening (FWHM) applied to every site",
+            why="a width beyond 10 MHz is wider than any solid-state spectrum"),
+    KeySpec("measurement", "shift_offset_ppm", "number", "ppm", 0.0, -1.0e4, 1.0e4, free=True,
+            doc="referencing offset added to every shift of this measurement",
+            why="a referencing error beyond 1e4 ppm is a wrong nucleus or field"),
+    KeySpec("measurement", "data", "text", "", None,
+            doc="measured spectrum for fitting (path relative to the model file)"),
+    KeySpec("measurement", "scale", "number", "", 1.0, -1.0e30, 1.0e30,
+            doc="factor on the simulated spectrum (data units per density per ppm; a fit writes it)",
+            why="a factor beyond 1e30 is a unit mistake"),
+    KeySpec("measurement", "baseline", "numbers", "", None, -1.0e30, 1.0e30,
+            doc="polynomial baseline [b0, b1, ...] added to the spectrum: sum b_k u^k with u running "
+                "from -1 to 1 across the axis (a fit writes it)",
+            why="coefficients beyond 1e30 are a unit mistake; at most 6 (order 5)"),
+    KeySpec("measurement", "stderr", "table", "", None,
+            doc="standard errors of this measurement's fitted values (written by a fit; not used)"),
+    KeySpec("measurement", "interval", "table", "", None,
+            doc="16/84 % posterior intervals of this measurement's fitted values (written by a fit; not used)"),
+    # ---- site
+    KeySpec("site", "label", "text", "", None, doc="unique site name (default \"site N\")"),
+    KeySpec("site", "weight", "number", "", 1.0, 0.0, 1.0e6, free=True,
+            doc="relative population; the site's selected transitions integrate to it",
+            why="weights are relative; 1e6 bounds typos"),
+    KeySpec("site", "shift_ppm", "number", "ppm", 0.0, -1.0e5, 1.0e5, free=True,
+            doc="isotropic shift delta_iso",
+            why="even Knight and paramagnetic shifts stay within +-1e5 ppm (10 %)"),
+    KeySpec("site", "cq_mhz", "number", "MHz", 0.0, -1.0e3, 1.0e3, free=True,
+            doc="quadrupolar coupling constant C_Q = e^2 q Q / h (0 for spin 1/2)",
+            why="|C_Q| beyond 1000 MHz is outside solid-state NMR"),
+    KeySpec("site", "eta_q", "number", "", 0.0, 0.0, 1.0, free=True,
+            doc="quadrupolar asymmetry eta_Q", why="|V_zz| >= |V_yy| >= |V_xx| by convention"),
+    KeySpec("site", "span_ppm", "number", "ppm", None, 0.0, 1.0e5, free=True,
+            doc="shift span Omega = d11 - d33 (with skew)",
+            why="spans beyond 1e5 ppm are outside solid-state NMR"),
+    KeySpec("site", "skew", "number", "", None, -1.0, 1.0, free=True,
+            doc="shift skew kappa = 3 (d22 - d_iso) / Omega (with span_ppm)", why="by definition"),
+    KeySpec("site", "aniso_ppm", "number", "ppm", None, -1.0e5, 1.0e5, free=True,
+            doc="reduced anisotropy d_zz - d_iso (Haeberlen; with eta_cs)",
+            why="anisotropies beyond 1e5 ppm are outside solid-state NMR"),
+    KeySpec("site", "eta_cs", "number", "", None, 0.0, 1.0, free=True,
+            doc="shift asymmetry (d_yy - d_xx) / (d_zz - d_iso) (Haeberlen; with aniso_ppm)",
+            why="by definition"),
+    KeySpec("site", "principal_ppm", "principal", "ppm", None, -1.0e5, 1.0e5,
+            doc="principal values [d11, d22, d33] (fix the isotropic shift; no shift_ppm then)",
+            why="shifts beyond +-1e5 ppm are outside solid-state NMR"),
+    KeySpec("site", "euler_deg", "angles", "deg", (0.0, 0.0, 0.0), -360.0, 360.0, free=True,
+            doc="ZYZ active Euler angles of the shift frame relative to the EFG frame",
+            why="angles repeat every 360 deg"),
+    KeySpec("site", "lorentz_hz", "number", "Hz", 0.0, 0.0, 1.0e7, free=True,
+            doc="extra Lorentzian broadening (FWHM) of this site",
+            why="a width beyond 10 MHz is wider than any solid-state spectrum"),
+    KeySpec("site", "gauss_hz", "number", "Hz", 0.0, 0.0, 1.0e7, free=True,
+            doc="extra Gaussian broadening (FWHM) of this site",
+            why="a width beyond 10 MHz is wider than any solid-state spectrum"),
+    # ---- site: distributions (disordered solids; powderspin.disorder.sites)
+    KeySpec("site", "shift_fwhm_ppm", "number", "ppm", 0.0, 0.0, 1.0e4, free=True,
+            doc="Gaussian distribution of the isotropic shift (FWHM); a Gaussian broadening that scales "
+                "with the field",
+            why="a shift distribution wider than 1e4 ppm is not one site"),
+    KeySpec("site", "czjzek_sigma_mhz", "number", "MHz", 0.0, 0.0, 200.0, free=True,
+            doc="width sigma of the Czjzek distribution of EFG tensors (cq_mhz = 0: pure Czjzek; "
+                "cq_mhz, eta_q set: extended Czjzek)",
+            why="C_Q values reach about 5 sigma, and |C_Q| beyond 1000 MHz is outside solid-state NMR"),
+    KeySpec("site", "cq_distribution_mhz", "distribution", "MHz", None, 0.0, 1.0e3,
+            doc="explicit C_Q distribution { values = [...], weights = [...] } (MHz; replaces cq_mhz)",
+            why="|C_Q| beyond 1000 MHz is outside solid-state NMR"),
+    KeySpec("site", "eta_distribution", "distribution", "", None, 0.0, 1.0,
+            doc="explicit eta_Q distribution { values = [...], weights = [...] } (replaces eta_q)",
+            why="|V_zz| >= |V_yy| >= |V_xx| by convention"),
+    KeySpec("site", "stderr", "table", "", None,
+            doc="standard errors of this site's fitted values (written by a fit; not used)"),
+    KeySpec("site", "interval", "table", "", None,
+            doc="16/84 % posterior intervals of this site's fitted values (written by a fit; not used)"),
+    # ---- fit
+    KeySpec("fit", "regions", "regions", "ppm", None,
+            doc="fit regions [[ppm_hi, ppm_lo], ...]; the whole data axis when absent"),
+    KeySpec("fit", "noise_region", "region", "ppm", None,
+            doc="signal-free region [ppm_hi, ppm_lo] for the noise level; from the residual when absent"),
+    KeySpec("fit", "baseline_order", "integer", "", None, 0, 5,
+            doc="order of a polynomial baseline solved with the scale; none when absent",
+            why="higher orders follow the lineshape instead of the baseline"),
+    KeySpec("fit", "result", "table", "", None,
+            doc="what a fit found (chi-square, correlations, warnings, ...); written by a fit, not used"),
+)
+
+#: defaults of the planner's options (here, so that the command line can show them without
+#: importing the planner and the compiled kernels behind it)
+PLAN_DEFAULT_THRESHOLD = 0.01
+PLAN_DEFAULT_SNR = 100.0
+PLAN_DEFAULT_RATE_COUNT = 20
+PLAN_DEFAULT_MIN_RATE_HZ = 2000.0
+
+_BY_TABLE: dict[str, dict[str, KeySpec]] = {}
+for _k in KEYS:
+    _BY_TABLE.setdefault(_k.table, {})[_k.name] = _k
+del _k
+
+
+def key_spec(table: str, name: str) -> KeySpec:
+    """The :class:`KeySpec` of one key.
+
+    Parameters
+    ----------
+    table : {"top", "measurement", "site", "fit"}
+    name : str
+
+    Returns
+    -------
+    KeySpec
+
+    Raises
+    ------
+    KeyError
+        For a key that does not exist.
+
+    Examples
+    --------
+    >>> key_spec("site", "cq_mhz").unit
+    'MHz'
+    """
+    return _BY_TABLE[table][name]
+
+
+def keys_of(table: str) -> dict[str, KeySpec]:
+    """All keys of one table, in table order.
+
+    Parameters
+    ----------
+    table : {"top", "measurement", "site", "fit"}
+
+    Returns
+    -------
+    dict of str to KeySpec
+
+    Examples
+    --------
+    >>> list(keys_of("fit"))
+    ['regions', 'noise_region', 'baseline_order', 'result']
+    """
+    return dict(_BY_TABLE.get(table, {}))
+
+
+def _default_text(k: KeySpec) -> str:
+    d = k.default
+    if d is REQUIRED:
+        return "required"
+    if d is None:
+        return "absent"
+    if k.name == "rotor_angle_deg":
+        return "54.7356 (the magic angle)"
+    if isinstance(d, str):
+        return f'"{d}"'
+    if isinstance(d, tuple):
+        return "[" + ", ".join(f"{x:g}" for x in d) + "]"
+    return f"{d:.10g}"
+
+
+def _range_text(k: KeySpec) -> str:
+    if k.name == "rotor_phases":
+        return '"auto", or a power of 2 in [16, 65536]'
+    if k.name == "orientations":
+        return '"auto" / "coarse" / "medium" / "fine", an integer in [1, 1024], or a set name'
+    if k.name == "spinning_hz":
+        return '0, [10, 200000] or "inf"'
+    if k.kind in ("number", "integer", "angles", "principal") and math.isfinite(k.low):
+        return k.range_text()
+    if k.choices:
+        return " / ".join(f'"{c}"' for c in k.choices)
+    return "-"
+
+
+def key_reference_markdown() -> str:
+    """The README's key reference: one Markdown table row per key of :data:`KEYS`.
+
+    Returns
+    -------
+    str
+        The table (header, rule and rows), ending with a newline.
+
+    Examples
+    --------
+    >>> key_reference_markdown().splitlines()[2].startswith("| top | `nucleus` |")
+    True
+    """
+    lines = ["| table | key | unit | default | allowed | may be fitted | meaning |",
+             "|---|---|---|---|---|---|---|"]
+    for k in KEYS:
+        lines.append(f"| {k.table} | `{k.name}` | {k.unit or '-'} | {_default_text(k)} | {_range_text(k)} | "
+                     f"{'yes' if k.free else ''} | {k.doc} |")
+    return "\n".join(lines) + "\n"
+
+
+if __name__ == "__main__":  # pragma: no cover - prints the table for the README
+    print(key_reference_markdown(), end="")

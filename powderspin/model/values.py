@@ -1,0 +1,1284 @@
+"""Sites, measurements and models: the values a simulation or a fit is made from.
+
+The values are frozen dataclasses checked against the key table of
+:mod:`powderspin.model.schema` (units, ranges, defaults).  Reading and writing model
+files is :mod:`powderspin.model.modelfile`; building values from Python dicts with
+the same keys is :func:`powderspin.model.modelfile.make_model` / :func:`powderspin.model.modelfile.make_site`.
+
+Free and tied parameters
+------------------------
+A model may mark parameters free (start value and bounds) or tie one to
+another.  Each has a structured :class:`ParameterAddress` (which table, which
+site or measurement, which key), and :meth:`Model.with_parameters` returns a
+new model with new values, ties applied.
+
+All frequencies are in Hz, shifts in ppm, C_Q in MHz, angles in degrees in
+files and values (radians inside the engine).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field, replace
+from fractions import Fraction
+from typing import Any, Mapping
+
+import numpy as np
+
+from ..physics.nuclides import Nuclide
+from ..physics.tensors import ShiftTensor, TensorError
+from .schema import key_spec
+
+__all__ = [
+    "ModelError",
+    "MAGIC_ANGLE_DEG",
+    "ParameterAddress",
+    "FreeParameter",
+    "TiedParameter",
+    "Site",
+    "Measurement",
+    "FitSettings",
+    "Model",
+    "parse_transition",
+    "selected_transitions",
+    "site_key_values",
+]
+
+#: The magic angle arccos(1/sqrt 3) in degrees (about 54.7356), the default
+#: rotor angle (E. R. Andrew, A. Bradbury, R. G. Eades, Nature 182 (1958) 1659).
+MAGIC_ANGLE_DEG = math.degrees(math.acos(1.0 / math.sqrt(3.0)))
+
+#: finest axis point spacing a model may ask for (Hz): far below the width of
+#: any solid-state NMR line, and still printed distinctly in the CSV output
+MIN_POINT_SPACING_HZ = 0.01
+
+
+class ModelError(ValueError):
+    """A model value is missing, unknown or outside its allowed range.
+
+    A ``ValueError`` subclass whose message names the key, the value and the
+    allowed range (or the allowed keys).
+
+    Parameters
+    ----------
+    message : str
+        Where the problem is (``"site 'AlO4': eta_q"``), the value and the
+        allowed range.
+
+    Examples
+    --------
+    >>> try:
+    ...     Site(eta_q=1.5)
+    ... except ModelError as e:
+    ...     print(e)
+    site 'site': eta_q = 1.5 is outside the allowed range [0, 1] (|V_zz| >= |V_yy| >= |V_xx| by convention)
+    """
+
+
+def check_number(where: str, key: str, value, table: str) -> float:
+    """Check a number against the key table; return it as float.
+
+    Parameters
+    ----------
+    where : str
+        Where the key is, for the message (``"site 'AlO4'"``, ``"measurement"``).
+    key : str
+        The key (its range comes from :mod:`powderspin.model.schema`).
+    value : object
+        The value.
+    table : {"measurement", "site", "fit"}
+
+    Returns
+    -------
+    float
+
+    Raises
+    ------
+    ModelError
+        For a non-number, NaN or a value outside the key's range; the message
+        names the key, the value, the range and why.
+
+    Examples
+    --------
+    >>> check_number("measurement", "field_tesla", 9.4, "measurement")
+    9.4
+    """
+    spec = key_spec(table, key)
+    if isinstance(value, bool):
+        raise ModelError(f"{where}: {key} must be a number ({spec.unit or 'dimensionless'}), got {value!r}")
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise ModelError(f"{where}: {key} must be a number ({spec.unit or 'dimensionless'}), got {value!r}") from None
+    low_bad = v <= spec.low if spec.low_open else v < spec.low
+    if math.isnan(v) or low_bad or v > spec.high:
+        why = f" ({spec.why})" if spec.why else ""
+        raise ModelError(f"{where}: {key} = {value!r} is outside the allowed range {spec.range_text()}{why}")
+    return v
+
+
+# ---------------------------------------------------------------------------
+# parameter addresses
+
+
+@dataclass(frozen=True, order=True)
+class ParameterAddress:
+    """Where a parameter lives: a site or measurement (by index) and a key.
+
+    Parameters
+    ----------
+    table : {"site", "measurement"}
+    index : int
+        Index of the site or measurement (0-based, model order).
+    key : str
+        Model-file key, e.g. ``"cq_mhz"``.
+    item : int or None
+        Component of a list-valued key (``euler_deg``: 0, 1, 2).
+
+    Examples
+    --------
+    >>> a = ParameterAddress("site", 0, "cq_mhz")
+    >>> a.key, a.index
+    ('cq_mhz', 0)
+    """
+
+    table: str
+    index: int
+    key: str
+    item: int | None = None
+
+    def __post_init__(self):
+        if self.table not in ("site", "measurement"):
+            raise ModelError(f"parameter address: table = {self.table!r} is not one of 'site', 'measurement'")
+        spec = key_spec(self.table, self.key) if self.key in _FREE_KEYS[self.table] else None
+        if spec is None:
+            raise ModelError(
+                f"parameter address: {self.table} key {self.key!r} cannot be a fit parameter; "
+                f"allowed keys are {', '.join(sorted(_FREE_KEYS[self.table]))}"
+            )
+        if (self.key == "euler_deg") != (self.item is not None):
+            raise ModelError("parameter address: euler_deg needs an item 0, 1 or 2; other keys take none")
+        if self.item is not None and self.item not in (0, 1, 2):
+            raise ModelError(f"parameter address: item = {self.item!r} must be 0, 1 or 2")
+
+    def name(self, model: "Model | None" = None) -> str:
+        """A readable name: ``"AlO4.cq_mhz"``, ``"AlO4.euler_deg[1]"``, ``"measurement 2.gauss_hz"``.
+
+        Parameters
+        ----------
+        model : Model, optional
+            Gives the site label; without it the site is named by index.
+
+        Returns
+        -------
+        str
+
+        Examples
+        --------
+        >>> ParameterAddress("measurement", 0, "gauss_hz").name()
+        'measurement 1.gauss_hz'
+        """
+        item = f"[{self.item}]" if self.item is not None else ""
+        if self.table == "measurement":
+            return f"measurement {self.index + 1}.{self.key}{item}"
+        if model is not None and self.index < len(model.sites):
+            return f"{model.sites[self.index].label}.{self.key}{item}"
+        return f"site {self.index + 1}.{self.key}{item}"
+
+
+_FREE_KEYS = {
+    "site": {"weight", "shift_ppm", "cq_mhz", "eta_q", "span_ppm", "skew", "aniso_ppm", "eta_cs",
+             "euler_deg", "lorentz_hz", "gauss_hz", "shift_fwhm_ppm", "czjzek_sigma_mhz"},
+    "measurement": {"lorentz_hz", "gauss_hz", "shift_offset_ppm"},
+}
+
+
+@dataclass(frozen=True)
+class FreeParameter:
+    """A parameter marked free: start value and bounds.
+
+    Parameters
+    ----------
+    address : ParameterAddress
+        Which parameter.
+    start : float
+        Start value, in the unit of that key (MHz, ppm, Hz, degrees, ...);
+        simulations use it.
+    min, max : float
+        Bounds in the same unit (default: the key's allowed range).
+    name : str
+        Readable name (``"AlO4.cq_mhz"``), for tables and messages.
+
+    Examples
+    --------
+    >>> from powderspin.model.modelfile import make_model
+    >>> m = make_model("27Al", {"field_tesla": 9.4},
+    ...                [{"label": "A", "cq_mhz": {"start": 3.0, "min": 0.5, "max": 8.0}}])
+    >>> fp = m.free[0]
+    >>> fp.name, fp.start, fp.min, fp.max
+    ('A.cq_mhz', 3.0, 0.5, 8.0)
+    """
+
+    address: ParameterAddress
+    start: float
+    min: float = -math.inf
+    max: float = math.inf
+    name: str = ""
+
+
+@dataclass(frozen=True)
+class TiedParameter:
+    """A parameter that takes another one's value (``{ same_as = "LABEL.key" }``).
+
+    Parameters
+    ----------
+    address : ParameterAddress
+        The tied parameter.
+    source : ParameterAddress
+        The parameter it follows (same key).
+    name, source_name : str
+        Readable names.
+
+    Examples
+    --------
+    >>> from powderspin.model.modelfile import make_model
+    >>> m = make_model("27Al", {"field_tesla": 9.4},
+    ...                [{"label": "A", "gauss_hz": 100.0},
+    ...                 {"label": "B", "gauss_hz": {"same_as": "A.gauss_hz"}}])
+    >>> m.tied[0].name, m.tied[0].source_name, m.sites[1].gauss_hz
+    ('B.gauss_hz', 'A.gauss_hz', 100.0)
+    """
+
+    address: ParameterAddress
+    source: ParameterAddress
+    name: str = ""
+    source_name: str = ""
+
+
+# ---------------------------------------------------------------------------
+# values
+
+
+_SHIFT_FORMS = ("iso", "span_skew", "haeberlen", "principal")
+
+
+@dataclass(frozen=True)
+class Site:
+    """One crystallographic site.
+
+    Parameters
+    ----------
+    label : str
+        Name shown in plots and tables; unique within a model.
+    weight : float
+        Relative population (>= 0); the site's selected transitions integrate
+        to it.
+    shift : ShiftTensor
+        Chemical-shift tensor (ppm).
+    cq_mhz : float
+        Quadrupolar coupling constant C_Q = e^2 q Q / h (MHz); 0 for spin 1/2.
+    eta_q : float
+        Quadrupolar asymmetry in [0, 1].
+    euler_deg : tuple of float
+        ZYZ active Euler angles (degrees) of the shift principal frame relative
+        to the EFG principal frame.
+    lorentz_hz, gauss_hz : float
+        Extra Lorentzian / Gaussian broadening of this site (FWHM, Hz).
+    shift_form : {"iso", "span_skew", "haeberlen", "principal"}
+        How the shift tensor was given (it is written back the same way).
+    shift_given : tuple of float
+        The values as given in that form ((span, skew), (aniso, eta) or the
+        three principal values), so that they are written back exactly;
+        empty when the tensor was given as a :class:`ShiftTensor`.
+    shift_fwhm_ppm : float
+        FWHM (ppm) of a Gaussian distribution of the isotropic shift: a
+        Gaussian broadening of ``shift_fwhm_ppm * nu_ref * 1e-6`` Hz that
+        scales with the field (:mod:`powderspin.disorder.sites`).
+    czjzek_sigma_mhz : float
+        Width sigma (MHz) of a Czjzek distribution of EFG tensors; with
+        ``cq_mhz = 0`` the pure model, otherwise the extended model around
+        (``cq_mhz``, ``eta_q``).
+    cq_distribution_mhz, eta_distribution : tuple or None
+        Explicit distributions ``(values, weights)`` of C_Q (MHz) and eta_Q;
+        each replaces ``cq_mhz`` / ``eta_q``.  Given as mappings
+        ``{"values": [...], "weights": [...]}`` or pairs of sequences.
+
+    References
+    ----------
+    J. Mason, Solid State Nucl. Magn. Reson. 2 (1993) 285 (shift-tensor
+    conventions).
+
+    Examples
+    --------
+    >>> s = Site(label="AlO4", cq_mhz=3.0, eta_q=0.4)
+    >>> s.cq_hz, s.shift.iso_ppm
+    (3000000.0, 0.0)
+    """
+
+    label: str = "site"
+    weight: float = 1.0
+    shift: ShiftTensor = field(default_factory=lambda: ShiftTensor(0.0))
+    cq_mhz: float = 0.0
+    eta_q: float = 0.0
+    euler_deg: tuple[float, float, float] = (0.0, 0.0, 0.0)
+    lorentz_hz: float = 0.0
+    gauss_hz: float = 0.0
+    shift_form: str = "haeberlen"
+    shift_given: tuple = ()
+    shift_fwhm_ppm: float = 0.0
+    czjzek_sigma_mhz: float = 0.0
+    cq_distribution_mhz: tuple | None = None
+    eta_distribution: tuple | None = None
+
+    def __post_init__(self):
+        if not isinstance(self.label, str) or not self.label.strip():
+            raise ModelError(f"site: label = {self.label!r} must be a non-empty text")
+        if any(c in self.label for c in "\n\r\t"):
+            raise ModelError(f"site: label = {self.label!r} must be one line of text")
+        where = f"site '{self.label}'"
+        for key in ("weight", "cq_mhz", "eta_q", "lorentz_hz", "gauss_hz"):
+            object.__setattr__(self, key, check_number(where, key, getattr(self, key), "site"))
+        try:
+            e = tuple(float(x) for x in self.euler_deg)
+        except (TypeError, ValueError):
+            raise ModelError(f"{where}: euler_deg must be 3 angles in degrees, got {self.euler_deg!r}") from None
+        if len(e) != 3:
+            raise ModelError(f"{where}: euler_deg must be 3 angles in degrees, got {self.euler_deg!r}")
+        e = tuple(check_number(where, "euler_deg", x, "site") for x in e)
+        object.__setattr__(self, "euler_deg", e)
+        if not isinstance(self.shift, ShiftTensor):
+            raise ModelError(f"{where}: shift must be a ShiftTensor")
+        for key, v in (("shift_ppm", self.shift.iso_ppm), ("aniso_ppm", self.shift.aniso_ppm)):
+            check_number(where, key, v, "site")
+        if self.shift_form not in _SHIFT_FORMS:
+            raise ModelError(f"{where}: shift_form = {self.shift_form!r} is not one of {', '.join(_SHIFT_FORMS)}")
+        _check_site_distributions(self, where)
+
+    @property
+    def has_efg_distribution(self) -> bool:
+        """True when the site has a distribution of EFG tensors (Czjzek or explicit grids).
+
+        Returns
+        -------
+        bool
+
+        Examples
+        --------
+        >>> Site(czjzek_sigma_mhz=2.0).has_efg_distribution, Site(shift_fwhm_ppm=5.0).has_efg_distribution
+        (True, False)
+        """
+        return self.czjzek_sigma_mhz > 0 or self.cq_distribution_mhz is not None or self.eta_distribution is not None
+
+    @property
+    def euler_rad(self) -> tuple[float, float, float]:
+        """The ZYZ Euler angles of the shift frame relative to the EFG frame, radians.
+
+        Returns
+        -------
+        tuple of 3 float
+
+        Examples
+        --------
+        >>> [round(a, 6) for a in Site(euler_deg=(0.0, 90.0, 180.0)).euler_rad]
+        [0.0, 1.570796, 3.141593]
+        """
+        return tuple(math.radians(x) for x in self.euler_deg)
+
+    @property
+    def cq_hz(self) -> float:
+        """Quadrupolar coupling constant C_Q = e^2 q Q / h in Hz.
+
+        Returns
+        -------
+        float
+            ``cq_mhz * 1e6``.
+
+        Examples
+        --------
+        >>> Site(cq_mhz=2.5).cq_hz
+        2500000.0
+        """
+        return self.cq_mhz * 1e6
+
+
+def _check_site_distributions(site: "Site", where: str) -> None:
+    """Check and normalise the distribution keys of a site (:mod:`powderspin.disorder.sites` uses them)."""
+    for key in ("shift_fwhm_ppm", "czjzek_sigma_mhz"):
+        object.__setattr__(site, key, check_number(where, key, getattr(site, key), "site"))
+    from ..physics.distributions import DistributionError, _explicit_axis
+
+    for key, high in (("cq_distribution_mhz", key_spec("site", "cq_distribution_mhz").high), ("eta_distribution", 1.0)):
+        d = getattr(site, key)
+        if d is None:
+            continue
+        if isinstance(d, Mapping):
+            spec = d
+        elif isinstance(d, (tuple, list)) and len(d) == 2:
+            spec = {"values": d[0], "weights": d[1]}
+        else:
+            raise ModelError(f"{where}: {key} must be a table {{ values = [...], weights = [...] }}, got {d!r}")
+        try:
+            _explicit_axis(key, spec, 0.0, high)
+        except DistributionError as e:
+            raise ModelError(f"{where}: {e}") from None
+        object.__setattr__(site, key, (tuple(float(x) for x in spec["values"]),
+                                       tuple(float(x) for x in spec["weights"])))
+    if site.czjzek_sigma_mhz > 0:
+        for key in ("cq_distribution_mhz", "eta_distribution"):
+            if getattr(site, key) is not None:
+                raise ModelError(f"{where}: czjzek_sigma_mhz and {key} both describe the EFG distribution; "
+                                 "give one of them (czjzek_sigma_mhz with cq_mhz/eta_q for the extended model)")
+    if site.cq_distribution_mhz is not None and site.cq_mhz != 0.0:
+        raise ModelError(f"{where}: cq_distribution_mhz replaces cq_mhz = {site.cq_mhz:g}; give one of them")
+    if site.eta_distribution is not None and site.eta_q != 0.0:
+        raise ModelError(f"{where}: eta_distribution replaces eta_q = {site.eta_q:g}; give one of them")
+
+
+@dataclass(frozen=True)
+class Measurement:
+    """How a spectrum is recorded and computed.
+
+    Parameters
+    ----------
+    field_tesla : float
+        Magnetic field B0 (T), in [0.1, 40]; required.
+    spinning_hz : float
+        Spinning rate (Hz): 0 = static, ``math.inf`` = infinitely fast,
+        otherwise at most 200 kHz.
+    rotor_angle_deg : float
+        Angle between rotor axis and B0 (degrees), default the magic angle.
+    transitions : str or tuple of str
+        ``"central"``, ``"all"`` or transitions ``"m1:m2"`` such as ``"3/2:1/2"``.
+    method : str
+        ``"auto"``, ``"perturbation"`` or ``"exact"``.
+    points : int
+        Number of points of the spectral axis.
+    center_ppm, width_ppm : float or None
+        Axis centre and full width (ppm); chosen from the lines when None.
+    orientations : str or int
+        ``"auto"``, ``"coarse"``, ``"medium"``, ``"fine"``, an accuracy level
+        (subdivisions per octahedron edge, 1 to 1024) or a set name.
+    binning : str
+        ``"interpolate"`` (triangle interpolation) or ``"histogram"``.
+    rotor_phases : str or int
+        ``"auto"`` or the number of rotor phases per period (a power of 2,
+        16 to 65536).
+    lorentz_hz, gauss_hz : float
+        Broadening applied to every site (FWHM, Hz).
+    shift_offset_ppm : float
+        Referencing offset added to every shift of this measurement (ppm).
+    data : str or None
+        Measured spectrum for fitting (path, relative to the model file).
+    scale : float
+        Factor applied to the simulated spectrum (data units per density per
+        ppm); 1 by default.  A fit solves it and writes it to its result file,
+        so that simulating the result gives the fitted curve.
+    baseline : tuple of float
+        Coefficients (b0, b1, ...) of a polynomial baseline added to the
+        spectrum, ``sum_k b_k u**k`` with ``u = (nu - nu_c) / (W / 2)`` running
+        from -1 to 1 across the axis (centre nu_c, full width W); empty for
+        none.  Written by a fit.
+
+    References
+    ----------
+    E. R. Andrew, A. Bradbury, R. G. Eades, Nature 182 (1958) 1659 and
+    I. J. Lowe, Phys. Rev. Lett. 2 (1959) 285 (magic-angle spinning).
+
+    Examples
+    --------
+    >>> meas = Measurement(field_tesla=14.1, spinning_hz=12500.0)
+    >>> round(meas.rotor_angle_deg, 4), meas.is_static, meas.transitions
+    (54.7356, False, 'central')
+    """
+
+    field_tesla: float
+    spinning_hz: float = 0.0
+    rotor_angle_deg: float = MAGIC_ANGLE_DEG
+    transitions: Any = "central"
+    method: str = "auto"
+    points: int = 2048
+    center_ppm: float | None = None
+    width_ppm: float | None = None
+    orientations: Any = "auto"
+    binning: str = "interpolate"
+    rotor_phases: Any = "auto"
+    lorentz_hz: float = 0.0
+    gauss_hz: float = 0.0
+    shift_offset_ppm: float = 0.0
+    data: str | None = None
+    scale: float = 1.0
+    baseline: tuple = ()
+
+    def __post_init__(self):
+        w = "measurement"
+        object.__setattr__(self, "field_tesla", check_number(w, "field_tesla", self.field_tesla, w))
+        sp = self.spinning_hz
+        if isinstance(sp, str) and sp.strip().lower() in ("inf", "infinite", "infinity"):
+            sp = math.inf
+        if not (isinstance(sp, (int, float, np.floating, np.integer)) and not isinstance(sp, bool)
+                and math.isinf(sp) and sp > 0):
+            sp = check_number(w, "spinning_hz", sp, w)
+            if 0.0 < sp < 10.0:
+                raise ModelError(
+                    f"measurement: spinning_hz = {self.spinning_hz!r} is below 10 Hz; give 0 for a static sample "
+                    "(allowed: 0, 10 to 200000, or \"inf\")"
+                )
+        object.__setattr__(self, "spinning_hz", float(sp))
+        object.__setattr__(self, "rotor_angle_deg",
+                           check_number(w, "rotor_angle_deg", self.rotor_angle_deg, w))
+        for key in ("method", "binning"):
+            choices = key_spec(w, key).choices
+            if getattr(self, key) not in choices:
+                raise ModelError(
+                    f"measurement: {key} = {getattr(self, key)!r} is not one of "
+                    + ", ".join(repr(c) for c in choices)
+                )
+        spec = key_spec(w, "points")
+        pts = self.points
+        if isinstance(pts, bool) or not isinstance(pts, (int, np.integer)) or not (spec.low <= pts <= spec.high):
+            raise ModelError(
+                f"measurement: points = {pts!r} must be an integer in [{spec.low:g}, {spec.high:g}] ({spec.why})"
+            )
+        object.__setattr__(self, "points", int(pts))
+        for key in ("center_ppm", "width_ppm"):
+            if getattr(self, key) is not None:
+                object.__setattr__(self, key, check_number(w, key, getattr(self, key), w))
+        for key in ("lorentz_hz", "gauss_hz", "shift_offset_ppm"):
+            object.__setattr__(self, key, check_number(w, key, getattr(self, key), w))
+        rp = self.rotor_phases
+        if rp != "auto":
+            spec = key_spec(w, "rotor_phases")
+            if (isinstance(rp, bool) or not isinstance(rp, (int, np.integer)) or rp < spec.low or rp > spec.high
+                    or (rp & (rp - 1))):
+                raise ModelError(
+                    f"measurement: rotor_phases = {rp!r} must be 'auto' or a power of 2 in "
+                    f"[{spec.low:g}, {spec.high:g}] ({spec.why})"
+                )
+            object.__setattr__(self, "rotor_phases", int(rp))
+        object.__setattr__(self, "orientations", _check_orientations(self.orientations))
+        if self.binning == "interpolate" and isinstance(self.orientations, str) and self.orientations not in \
+                key_spec(w, "orientations").choices:
+            from ..physics.orientations import orientation_set_by_name
+
+            if not orientation_set_by_name(self.orientations).has_triangles:
+                raise ModelError(
+                    f"measurement: orientations = {self.orientations!r} has no triangles, which binning = "
+                    "'interpolate' needs; use binning = \"histogram\" or a \"tri-...\" set"
+                )
+        object.__setattr__(self, "transitions", _check_transitions(self.transitions))
+        if self.data is not None and not isinstance(self.data, str):
+            raise ModelError(f"measurement: data = {self.data!r} must be a file path (text)")
+        object.__setattr__(self, "scale", check_number(w, "scale", self.scale, w))
+        object.__setattr__(self, "baseline", _check_baseline(self.baseline))
+
+    @property
+    def is_static(self) -> bool:
+        """True for a static sample (spinning_hz == 0 Hz).
+
+        Returns
+        -------
+        bool
+
+        Examples
+        --------
+        >>> Measurement(9.4).is_static, Measurement(9.4, spinning_hz=5000.0).is_static
+        (True, False)
+        """
+        return self.spinning_hz == 0.0
+
+    @property
+    def is_infinite_rate(self) -> bool:
+        """True for the infinitely-fast-spinning limit (spinning_hz = inf Hz).
+
+        Returns
+        -------
+        bool
+            Only the rotor-averaged (centre-band) lines remain.
+
+        References
+        ----------
+        M. M. Maricq, J. S. Waugh, J. Chem. Phys. 70 (1979) 3300.
+
+        Examples
+        --------
+        >>> Measurement(9.4, spinning_hz=math.inf).is_infinite_rate
+        True
+        """
+        return math.isinf(self.spinning_hz)
+
+
+#: most coefficients a baseline may have (order 5, as ``[fit] baseline_order``)
+MAX_BASELINE_COEFFICIENTS = 6
+
+
+def _check_baseline(b) -> tuple:
+    if b is None:
+        return ()
+    if isinstance(b, (str, bytes)) or not hasattr(b, "__len__"):
+        raise ModelError(f"measurement: baseline = {b!r} must be a list of numbers [b0, b1, ...]")
+    if len(b) > MAX_BASELINE_COEFFICIENTS:
+        raise ModelError(f"measurement: baseline has {len(b)} coefficients; allowed are at most "
+                         f"{MAX_BASELINE_COEFFICIENTS} (order 5)")
+    return tuple(check_number("measurement", "baseline", x, "measurement") for x in b)
+
+
+def _check_orientations(o):
+    from ..physics.orientations import OrientationSetError, orientation_set_by_name
+
+    spec = key_spec("measurement", "orientations")
+    if isinstance(o, bool):
+        raise ModelError(f"measurement: orientations = {o!r} must be a word, a number or a set name")
+    if isinstance(o, (int, np.integer)):
+        if not (1 <= o <= 1024):
+            raise ModelError(
+                f"measurement: orientations = {o!r} is outside the allowed range [1, 1024] "
+                "(an accuracy level: subdivisions per octahedron edge)"
+            )
+        return int(o)
+    if isinstance(o, float):
+        raise ModelError(f"measurement: orientations = {o!r} must be a whole number of subdivisions in [1, 1024]")
+    if not isinstance(o, str):
+        raise ModelError(f"measurement: orientations = {o!r} must be a word, a number or a set name")
+    if o in spec.choices:
+        return o
+    try:
+        return orientation_set_by_name(o).name
+    except OrientationSetError as e:
+        raise ModelError(
+            f"measurement: orientations = {o!r} is not one of {', '.join(repr(c) for c in spec.choices)} "
+            f"nor a valid set name ({e})"
+        ) from None
+
+
+def _check_transitions(t):
+    if isinstance(t, str):
+        if t in ("central", "all"):
+            return t
+        parse_transition(t, None)
+        return (t,)
+    if isinstance(t, (list, tuple)):
+        if len(t) == 0:
+            raise ModelError(
+                "measurement: transitions = [] selects nothing; give 'central', 'all' or a list of 'm1:m2'"
+            )
+        for s in t:
+            if not isinstance(s, str):
+                raise ModelError(f"measurement: transitions entry {s!r} must be a string 'm1:m2'")
+            parse_transition(s, None)
+        if len(t) == 1 and t[0] in ("central", "all"):
+            return t[0]
+        return tuple(t)
+    raise ModelError(f"measurement: transitions = {t!r} must be 'central', 'all' or a list of 'm1:m2'")
+
+
+@dataclass(frozen=True)
+class FitSettings:
+    """The ``[fit]`` table: regions, noise region and baseline.
+
+    Parameters
+    ----------
+    regions : tuple of (float, float)
+        Fit regions (ppm_hi, ppm_lo); empty means the whole data axis.
+    noise_region : (float, float) or None
+        A signal-free region (ppm_hi, ppm_lo) for the noise level.
+    baseline_order : int or None
+        Order of the polynomial baseline solved with the scale; None for none.
+
+    Examples
+    --------
+    >>> FitSettings(regions=((90.0, 40.0),)).regions
+    ((90.0, 40.0),)
+    """
+
+    regions: tuple = ()
+    noise_region: tuple | None = None
+    baseline_order: int | None = None
+
+    def __post_init__(self):
+        regs = []
+        for i, r in enumerate(self.regions):
+            regs.append(_check_region(f"fit: regions[{i}]", r))
+        object.__setattr__(self, "regions", tuple(regs))
+        if self.noise_region is not None:
+            object.__setattr__(self, "noise_region", _check_region("fit: noise_region", self.noise_region))
+        if self.baseline_order is not None:
+            b = self.baseline_order
+            spec = key_spec("fit", "baseline_order")
+            if isinstance(b, bool) or not isinstance(b, (int, np.integer)) or not (spec.low <= b <= spec.high):
+                raise ModelError(
+                    f"fit: baseline_order = {b!r} must be an integer in [{spec.low:g}, {spec.high:g}] ({spec.why})"
+                )
+            object.__setattr__(self, "baseline_order", int(b))
+
+
+def _check_region(where, r):
+    try:
+        a, b = r
+        a, b = float(a), float(b)
+    except (TypeError, ValueError):
+        raise ModelError(f"{where} = {r!r} must be two shifts [ppm_hi, ppm_lo]") from None
+    if not (math.isfinite(a) and math.isfinite(b)) or a == b:
+        raise ModelError(f"{where} = {r!r} must be two different finite shifts [ppm_hi, ppm_lo]")
+    return (max(a, b), min(a, b))
+
+
+@dataclass(frozen=True)
+class Model:
+    """A nucleus, one or more measurements and one or more sites.
+
+    Parameters
+    ----------
+    nucleus : Nuclide
+        The observed nucleus (:func:`powderspin.physics.nuclides.get_nuclide`).
+    measurements : sequence of Measurement
+        At least one; site parameters are shared by all of them.
+    sites : sequence of Site
+        At least one, with unique labels and at least one weight > 0;
+        ``cq_mhz`` must be 0 for a spin-1/2 nucleus.
+    free : tuple of FreeParameter, optional
+        Parameters marked free.
+    tied : tuple of TiedParameter, optional
+        Parameters tied to another one.
+    fit : FitSettings, optional
+        The ``[fit]`` table.
+    source : str, optional
+        Where the model came from (a file path), recorded in the metadata;
+        relative ``data`` paths are resolved against its folder.
+
+    Examples
+    --------
+    >>> from powderspin.model.modelfile import make_model
+    >>> m = make_model("27Al", {"field_tesla": 14.1}, [{"cq_mhz": 3.0}])
+    >>> m.nucleus.name, len(m.sites), m.measurement.field_tesla
+    ('27Al', 1, 14.1)
+    """
+
+    nucleus: Nuclide
+    measurements: tuple
+    sites: tuple
+    free: tuple = ()
+    tied: tuple = ()
+    fit: FitSettings = field(default_factory=FitSettings)
+    source: str = ""
+
+    def __post_init__(self):
+        if isinstance(self.measurements, Measurement):
+            object.__setattr__(self, "measurements", (self.measurements,))
+        meas = tuple(self.measurements)
+        if not meas:
+            raise ModelError("model: a [measurement] table with field_tesla is required")
+        for m in meas:
+            if not isinstance(m, Measurement):
+                raise ModelError(f"model: measurements must be Measurement values, got {type(m).__name__}")
+        object.__setattr__(self, "measurements", meas)
+        sites = tuple(self.sites)
+        if not sites:
+            raise ModelError("model: at least one [[site]] is needed")
+        for s in sites:
+            if not isinstance(s, Site):
+                raise ModelError(f"model: sites must be Site values, got {type(s).__name__}")
+        object.__setattr__(self, "sites", sites)
+        object.__setattr__(self, "free", tuple(self.free))
+        object.__setattr__(self, "tied", tuple(self.tied))
+        seen: dict[str, int] = {}
+        for i, s in enumerate(sites):
+            if s.label in seen:
+                raise ModelError(
+                    f"site '{s.label}': the label is used by sites {seen[s.label] + 1} and {i + 1}; "
+                    "labels must be unique (they name each site's results)"
+                )
+            seen[s.label] = i
+        if all(s.weight == 0.0 for s in sites):
+            raise ModelError("model: every site has weight = 0; at least one weight must be > 0")
+        nuc = self.nucleus
+        if not nuc.is_quadrupolar:
+            for s in sites:
+                if s.cq_mhz != 0.0:
+                    raise ModelError(
+                        f"site '{s.label}': cq_mhz = {s.cq_mhz} but {nuc.name} has spin 1/2 "
+                        "(no quadrupole moment); the allowed value is 0"
+                    )
+        check_model_distributions(self)
+        for j, m in enumerate(meas):
+            where = "measurement" if len(meas) == 1 else f"measurement {j + 1}"
+            try:
+                selected_transitions(nuc.spin, m.transitions)
+            except ModelError as e:
+                raise ModelError(str(e).replace("measurement:", f"{where}:", 1)) from None
+            widest = max(s.lorentz_hz + m.lorentz_hz + math.hypot(s.gauss_hz, m.gauss_hz) for s in sites)
+            if m.width_ppm is not None:
+                width_hz = m.width_ppm * nuc.larmor_hz(m.field_tesla) * 1e-6
+                if width_hz / m.points < MIN_POINT_SPACING_HZ:
+                    raise ModelError(
+                        f"{where}: width_ppm = {m.width_ppm:g} over {m.points} points is "
+                        f"{width_hz / m.points:.3g} Hz per point, finer than {MIN_POINT_SPACING_HZ:g} Hz (far below "
+                        f"any solid-state line); the allowed width is at least "
+                        f"{MIN_POINT_SPACING_HZ * m.points / (nuc.larmor_hz(m.field_tesla) * 1e-6):.3g} ppm"
+                    )
+                if widest > width_hz:
+                    raise ModelError(
+                        f"{where}: the broadening ({widest:g} Hz FWHM, site plus measurement) is wider than the "
+                        f"axis (width_ppm = {m.width_ppm:g} ppm = {width_hz:.4g} Hz); the allowed broadening is "
+                        f"below the axis width"
+                    )
+        n_s, n_m = len(sites), len(meas)
+        for p in self.free + self.tied:
+            for a in (p.address,) + ((p.source,) if isinstance(p, TiedParameter) else ()):
+                limit = n_s if a.table == "site" else n_m
+                if not (0 <= a.index < limit):
+                    raise ModelError(f"parameter {a.name()}: no {a.table} with index {a.index}")
+
+    @property
+    def measurement(self) -> Measurement:
+        """The first (usually the only) measurement.
+
+        Returns
+        -------
+        Measurement
+
+        Examples
+        --------
+        >>> from powderspin.model.modelfile import make_model
+        >>> make_model("23Na", {"field_tesla": 11.7}, [{"cq_mhz": 2.0}]).measurement.field_tesla
+        11.7
+        """
+        return self.measurements[0]
+
+    @property
+    def larmor_hz(self) -> float:
+        """Reference frequency nu_ref (Hz) of the nucleus at the first measurement's field.
+
+        Returns
+        -------
+        float
+
+        Examples
+        --------
+        >>> from powderspin.model.modelfile import make_model
+        >>> round(make_model("1H", {"field_tesla": 9.4}, [{}]).larmor_hz / 1e6, 1)
+        400.2
+        """
+        return self.nucleus.larmor_hz(self.measurement.field_tesla)
+
+    def with_measurement(self, index: int = 0, **changes) -> "Model":
+        """A copy of the model with some fields of one measurement changed.
+
+        Parameters
+        ----------
+        index : int, optional
+            Which measurement (default the first).
+        **changes
+            :class:`Measurement` fields and new values, e.g.
+            ``field_tesla=18.8`` (T) or ``spinning_hz=20000.0`` (Hz); they are
+            validated as in :class:`Measurement`.
+
+        Returns
+        -------
+        Model
+            A new model; this one is unchanged.
+
+        Examples
+        --------
+        >>> from powderspin.model.modelfile import make_model
+        >>> m = make_model("27Al", {"field_tesla": 14.1}, [{"cq_mhz": 3.0}])
+        >>> m.with_measurement(field_tesla=18.8).measurement.field_tesla, m.measurement.field_tesla
+        (18.8, 14.1)
+        """
+        meas = list(self.measurements)
+        meas[index] = replace(meas[index], **changes)
+        return replace(self, measurements=tuple(meas))
+
+    def with_sites(self, sites) -> "Model":
+        """A copy of the model with other sites (free and tied parameters dropped).
+
+        Parameters
+        ----------
+        sites : sequence of Site
+
+        Returns
+        -------
+        Model
+
+        Examples
+        --------
+        >>> from powderspin.model.modelfile import make_model
+        >>> m = make_model("27Al", {"field_tesla": 14.1}, [{"cq_mhz": 3.0}])
+        >>> m.with_sites([Site(label="x", cq_mhz=5.0)]).sites[0].cq_mhz
+        5.0
+        """
+        return replace(self, sites=tuple(sites), free=(), tied=())
+
+    def parameter_value(self, address: ParameterAddress) -> float:
+        """The current value of a parameter.
+
+        Parameters
+        ----------
+        address : ParameterAddress
+
+        Returns
+        -------
+        float
+            In the key's unit.
+
+        Examples
+        --------
+        >>> from powderspin.model.modelfile import make_model
+        >>> m = make_model("27Al", {"field_tesla": 14.1}, [{"cq_mhz": 3.0}])
+        >>> m.parameter_value(ParameterAddress("site", 0, "cq_mhz"))
+        3.0
+        """
+        if address.table == "measurement":
+            return float(getattr(self.measurements[address.index], address.key))
+        vals = site_key_values(self.sites[address.index])
+        if address.key not in vals:
+            raise ModelError(
+                f"parameter {address.name(self)}: the site gives its shift tensor as "
+                f"{self.sites[address.index].shift_form}, which has no {address.key}"
+            )
+        v = vals[address.key]
+        return float(v[address.item]) if address.item is not None else float(v)
+
+    def with_parameters(self, values: Mapping) -> "Model":
+        """A new model with new parameter values (ties applied).
+
+        Parameters
+        ----------
+        values : mapping of ParameterAddress to float
+            New values in each key's unit.  A tied parameter follows its
+            source and may not be set directly.
+
+        Returns
+        -------
+        Model
+            Same free and tied parameters; the values are checked as usual.
+
+        Examples
+        --------
+        >>> from powderspin.model.modelfile import make_model
+        >>> m = make_model("27Al", {"field_tesla": 9.4},
+        ...                [{"label": "A", "cq_mhz": {"start": 3.0, "min": 1.0, "max": 9.0},
+        ...                  "gauss_hz": 50.0},
+        ...                 {"label": "B", "gauss_hz": {"same_as": "A.gauss_hz"}}])
+        >>> a_gauss = ParameterAddress("site", 0, "gauss_hz")
+        >>> m2 = m.with_parameters({m.free[0].address: 4.5, a_gauss: 80.0})
+        >>> m2.sites[0].cq_mhz, m2.sites[1].gauss_hz, m.sites[0].cq_mhz
+        (4.5, 80.0, 3.0)
+        """
+        tied_targets = {t.address for t in self.tied}
+        site_changes: dict[int, dict] = {}
+        meas_changes: dict[int, dict] = {}
+
+        def put(addr, v):
+            if addr.table == "measurement":
+                meas_changes.setdefault(addr.index, {})[addr.key] = float(v)
+            else:
+                d = site_changes.setdefault(addr.index, {})
+                if addr.item is not None:
+                    e = list(d.get("euler_deg", self.sites[addr.index].euler_deg))
+                    e[addr.item] = float(v)
+                    d["euler_deg"] = tuple(e)
+                else:
+                    d[addr.key] = float(v)
+
+        for addr, v in values.items():
+            if not isinstance(addr, ParameterAddress):
+                raise ModelError(f"with_parameters: keys must be ParameterAddress values, got {addr!r}")
+            if addr in tied_targets:
+                raise ModelError(f"parameter {addr.name(self)} is tied to another one and cannot be set directly")
+            put(addr, v)
+        for t in self.tied:
+            src = t.source
+            if src.table == "measurement":
+                v = meas_changes.get(src.index, {}).get(src.key, self.parameter_value(src))
+            elif src.item is not None:
+                v = site_changes.get(src.index, {}).get("euler_deg", self.sites[src.index].euler_deg)[src.item]
+            else:
+                v = site_changes.get(src.index, {}).get(src.key, self.parameter_value(src))
+            put(t.address, v)
+        sites = list(self.sites)
+        for i, ch in site_changes.items():
+            vals = site_key_values(sites[i])
+            for k in ch:
+                if k not in vals:
+                    raise ModelError(
+                        f"site '{sites[i].label}': its shift tensor is given as {sites[i].shift_form}, "
+                        f"which has no {k}"
+                    )
+            vals.update(ch)
+            sites[i] = _site_from_values(vals, sites[i].label, sites[i].shift_form)
+        meas = list(self.measurements)
+        for j, ch in meas_changes.items():
+            meas[j] = replace(meas[j], **ch)
+        return replace(self, sites=tuple(sites), measurements=tuple(meas))
+
+
+# ---------------------------------------------------------------------------
+# distributions: settings that make no sense together
+
+_DIST_KEYS = ("czjzek_sigma_mhz", "cq_distribution_mhz", "eta_distribution")
+
+
+# --------------------------------------------------------------------------- model-level checks
+
+
+def _address_set(model: Model, kind: str) -> set:
+    return {(p.address.table, p.address.index, p.address.key) for p in getattr(model, kind)}
+
+
+def _is_variable(model: Model, index: int, key: str) -> bool:
+    a = ("site", index, key)
+    return a in _address_set(model, "free") or a in _address_set(model, "tied")
+
+
+def check_model_distributions(model: Model) -> None:
+    """Refuse distribution settings that make no sense; name the keys.
+
+    Called by :class:`~powderspin.model.values.Model` when it is built.
+
+    Parameters
+    ----------
+    model : Model
+
+    Raises
+    ------
+    ModelError
+        An EFG distribution on a spin-1/2 nucleus; a Czjzek distribution
+        with an integer spin or with transitions other than the central one
+        (its grid follows the central-transition pattern); a free or tied
+        ``czjzek_sigma_mhz`` together with an explicit grid; a free
+        ``cq_mhz`` / ``eta_q`` together with the explicit grid that replaces
+        it.
+
+    Examples
+    --------
+    >>> from powderspin.model.modelfile import make_model
+    >>> try:
+    ...     make_model("31P", {"field_tesla": 9.4}, [{"label": "P", "czjzek_sigma_mhz": 1.0}])
+    ... except ModelError as e:
+    ...     print(e)
+    site 'P': czjzek_sigma_mhz describes a distribution of EFG tensors, but 31P has spin 1/2 (no quadrupole
+    moment); remove czjzek_sigma_mhz or use shift_fwhm_ppm for a shift distribution
+    """
+    nuc = model.nucleus
+    for i, s in enumerate(model.sites):
+        where = f"site '{s.label}'"
+        sigma_var = _is_variable(model, i, "czjzek_sigma_mhz")
+        given = [k for k in _DIST_KEYS if (getattr(s, k) not in (None, 0.0)) or (k == "czjzek_sigma_mhz" and sigma_var)]
+        if not given:
+            continue
+        names = " and ".join(given)
+        if not nuc.is_quadrupolar:
+            raise ModelError(
+                f"{where}: {names} describe{'s' if len(given) == 1 else ''} a distribution of EFG tensors, but "
+                f"{nuc.name} has spin 1/2 (no quadrupole moment); remove {names} or use shift_fwhm_ppm for a shift "
+                "distribution")
+        explicit = s.cq_distribution_mhz is not None or s.eta_distribution is not None
+        if sigma_var and explicit:
+            raise ModelError(f"{where}: czjzek_sigma_mhz is a fit parameter, but the site has an explicit "
+                             "cq_distribution_mhz/eta_distribution; give one kind of distribution")
+        for key, dist in (("cq_mhz", "cq_distribution_mhz"), ("eta_q", "eta_distribution")):
+            if getattr(s, dist) is not None and _is_variable(model, i, key):
+                raise ModelError(f"{where}: {key} is a fit parameter, but {dist} replaces it; "
+                                 f"remove one of them")
+        if s.czjzek_sigma_mhz > 0 or sigma_var:
+            spin = nuc.spin
+            if abs(spin - round(spin)) < 1e-9:
+                raise ModelError(
+                    f"{where}: czjzek_sigma_mhz needs a half-integer spin (its grid follows the central "
+                    f"transition); {nuc.name} has spin {int(round(spin))}; use cq_distribution_mhz/eta_distribution")
+            for j, m in enumerate(model.measurements):
+                if selected_transitions(spin, m.transitions) != (0.5,):
+                    wm = "measurement" if len(model.measurements) == 1 else f"measurement {j + 1}"
+                    raise ModelError(
+                        f"{where}: czjzek_sigma_mhz needs transitions = \"central\" in {wm} (its grid spacing "
+                        "follows the central-transition pattern); for satellites give cq_distribution_mhz/"
+                        "eta_distribution")
+
+
+# --------------------------------------------------------------------------- ranges of (possibly free) values
+
+
+def site_key_values(site: Site) -> dict:
+    """The site's values under its model-file keys, shift tensor in the form it was given.
+
+    Parameters
+    ----------
+    site : Site
+
+    Returns
+    -------
+    dict
+        ``weight``, ``cq_mhz``, ``eta_q``, ``euler_deg``, ``lorentz_hz``,
+        ``gauss_hz``, ``shift_fwhm_ppm``, ``czjzek_sigma_mhz``, the explicit
+        distributions when set (``{"values": [...], "weights": [...]}``) and
+        the shift keys of its form (``shift_ppm`` with ``span_ppm`` +
+        ``skew``, ``aniso_ppm`` + ``eta_cs``, or ``principal_ppm``).
+
+    Examples
+    --------
+    >>> from powderspin.model.modelfile import make_site
+    >>> s = make_site(label="P", shift_ppm=5.0, span_ppm=100.0, skew=0.5)
+    >>> v = site_key_values(s)
+    >>> v["shift_ppm"], round(v["span_ppm"], 9), round(v["skew"], 9)
+    (5.0, 100.0, 0.5)
+    """
+    t = site.shift
+    g = site.shift_given
+    out = {"weight": site.weight, "cq_mhz": site.cq_mhz, "eta_q": site.eta_q,
+           "euler_deg": tuple(site.euler_deg), "lorentz_hz": site.lorentz_hz, "gauss_hz": site.gauss_hz,
+           "shift_fwhm_ppm": site.shift_fwhm_ppm, "czjzek_sigma_mhz": site.czjzek_sigma_mhz}
+    for key in ("cq_distribution_mhz", "eta_distribution"):
+        d = getattr(site, key)
+        if d is not None:
+            out[key] = {"values": list(d[0]), "weights": list(d[1])}
+    if site.shift_form == "principal":
+        out["principal_ppm"] = tuple(g) if len(g) == 3 else tuple(t.principal_iupac)
+        return out
+    out["shift_ppm"] = t.iso_ppm
+    if site.shift_form == "span_skew":
+        out["span_ppm"], out["skew"] = g if len(g) == 2 else (t.span_ppm, t.skew)
+    elif site.shift_form == "haeberlen":
+        out["aniso_ppm"], out["eta_cs"] = g if len(g) == 2 else (t.aniso_ppm, t.eta)
+    return out
+
+
+def _site_from_values(v: dict, label: str, form: str) -> Site:
+    where = f"site '{label}'"
+    given: tuple = ()
+    try:
+        if form == "principal":
+            given = tuple(check_number(where, "principal_ppm", x, "site") for x in v["principal_ppm"])
+            shift = ShiftTensor.from_principal(given)
+        else:
+            iso = check_number(where, "shift_ppm", v.get("shift_ppm", 0.0), "site")
+            if form == "span_skew":
+                given = (check_number(where, "span_ppm", v["span_ppm"], "site"),
+                         check_number(where, "skew", v["skew"], "site"))
+                shift = ShiftTensor.from_span_skew(iso, *given)
+            elif form == "haeberlen":
+                given = (check_number(where, "aniso_ppm", v["aniso_ppm"], "site"),
+                         check_number(where, "eta_cs", v["eta_cs"], "site"))
+                shift = ShiftTensor(iso, *given)
+            else:
+                shift = ShiftTensor(iso)
+    except TensorError as e:
+        raise ModelError(f"{where}: {e}") from None
+    return Site(label=label, weight=v["weight"], shift=shift, cq_mhz=v["cq_mhz"], eta_q=v["eta_q"],
+                euler_deg=tuple(v["euler_deg"]), lorentz_hz=v["lorentz_hz"], gauss_hz=v["gauss_hz"],
+                shift_form=form, shift_given=given, shift_fwhm_ppm=v.get("shift_fwhm_ppm", 0.0),
+                czjzek_sigma_mhz=v.get("czjzek_sigma_mhz", 0.0),
+                cq_distribution_mhz=v.get("cq_distribution_mhz"), eta_distribution=v.get("eta_distribution"))
+
+
+# ---------------------------------------------------------------------------
+# transitions
+
+
+def parse_transition(text: str, spin: float | None) -> tuple[float, float]:
+    """Parse ``"m1:m2"`` (e.g. ``"3/2:1/2"``, ``"-1/2:-3/2"``) into (m1, m2).
+
+    Single-quantum transitions need ``m1 - m2 = +-1``; symmetric
+    multiple-quantum transitions ``m:-m`` are also accepted.  Returns the pair
+    ordered as (upper m, lower m).
+
+    Parameters
+    ----------
+    text : str
+        ``"m1:m2"`` with half-integer magnetic quantum numbers (``"3/2"``,
+        ``"-1/2"``, ``"1"``).
+    spin : float or None
+        Nuclear spin I to check ``|m| <= I`` against; None skips that check.
+
+    Returns
+    -------
+    tuple of 2 float
+        (upper m, lower m).
+
+    Raises
+    ------
+    ModelError
+        If the text is malformed, the transition is neither single-quantum
+        nor symmetric, or ``|m| > I``.
+
+    References
+    ----------
+    L. Frydman, J. S. Harwood, J. Am. Chem. Soc. 117 (1995) 5367 (symmetric
+    multiple-quantum transitions).
+
+    Examples
+    --------
+    >>> parse_transition("1/2:3/2", 2.5)
+    (1.5, 0.5)
+    >>> parse_transition("3/2:-3/2", 1.5)
+    (1.5, -1.5)
+    """
+    try:
+        a, b = text.split(":")
+        m1, m2 = float(Fraction(a.strip())), float(Fraction(b.strip()))
+    except (ValueError, ZeroDivisionError, AttributeError):
+        raise ModelError(
+            f"measurement: transition {text!r} is not of the form 'm1:m2' with m in half-integers, e.g. '3/2:1/2'"
+        ) from None
+    for m in (m1, m2):
+        if abs(2 * m - round(2 * m)) > 1e-12:
+            raise ModelError(f"measurement: transition {text!r}: {m} is not a multiple of 1/2")
+    hi, lo = max(m1, m2), min(m1, m2)
+    if not (abs(hi - lo - 1.0) < 1e-12 or abs(hi + lo) < 1e-12) or hi == lo:
+        raise ModelError(
+            f"measurement: transition {text!r} must be single-quantum (m1 - m2 = 1) or symmetric (m:-m)"
+        )
+    if spin is not None and (hi > spin + 1e-12 or lo < -spin - 1e-12):
+        s = Fraction(spin).limit_denominator(2)
+        raise ModelError(
+            f"measurement: transition {text!r} needs |m| <= I = {s}; allowed m range is [-{s}, {s}]"
+        )
+    return hi, lo
+
+
+def selected_transitions(spin: float, transitions) -> tuple[float, ...]:
+    """Upper m of each selected single-quantum transition m -> m-1.
+
+    Parameters
+    ----------
+    spin : float
+        Nuclear spin I.
+    transitions : str or sequence of str
+        ``"central"`` (half-integer spins only: there is no central
+        transition for an integer spin), ``"all"`` or ``"m1:m2"`` strings.
+
+    Returns
+    -------
+    tuple of float
+
+    Raises
+    ------
+    ModelError
+        For ``"central"`` with an integer spin, a multiple-quantum transition
+        or ``|m| > I``.
+
+    Examples
+    --------
+    >>> selected_transitions(2.5, "central"), selected_transitions(1.0, "all")
+    ((0.5,), (1.0, 0.0))
+    """
+    if transitions == "central" or transitions == ("central",):
+        if abs(spin - round(spin)) < 1e-12:
+            raise ModelError(
+                f"measurement: transitions = 'central' but spin {int(round(spin))} has no central transition "
+                "(its single-quantum transitions are +-1 <-> 0 for spin 1); use transitions = \"all\" or list "
+                "them, e.g. [\"1:0\", \"0:-1\"]"
+            )
+        return (0.5,)
+    if transitions == "all" or transitions == ("all",):
+        return tuple(float(spin - k) for k in range(int(round(2 * spin))))
+    out = []
+    for t in transitions:
+        hi, lo = parse_transition(t, spin)
+        if abs(hi - lo - 1.0) > 1e-12:
+            raise ModelError(
+                f"measurement: transition {t!r} is multiple-quantum; spectra take single-quantum "
+                "transitions 'm:m-1' only"
+            )
+        if hi not in out:
+            out.append(hi)
+    return tuple(out)
