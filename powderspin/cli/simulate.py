@@ -1,0 +1,136 @@
+"""``powderspin simulate``: the spectrum of a model file, as CSV, a figure and a sideband table."""
+
+from __future__ import annotations
+
+import math
+import sys
+from pathlib import Path
+
+from .common import SPINNING_CAUTION, CliError, add_cache_options, compile_note, kernel_store, note, parse_range
+
+__all__ = ["add_parser", "run"]
+
+
+def add_parser(sub) -> None:
+    """Add the ``simulate`` command to the subparsers ``sub``."""
+    s = sub.add_parser("simulate", help="simulate the spectrum of a TOML model file")
+    s.add_argument("model", help="model file (TOML)")
+    s.add_argument("-o", "--output", required=True, help="CSV file to write ('-' for standard output)")
+    s.add_argument("--plot", help="also write a figure (.png, .pdf or .svg)")
+    s.add_argument("--sidebands", nargs="?", const=True, default=None, metavar="FILE",
+                   help="print the sideband table; with FILE also write it as CSV")
+    s.add_argument("--measurement", type=int, help="simulate only measurement N (1-based) of several")
+    s.add_argument("--unit", choices=("ppm", "khz"), default="ppm", help="plot axis unit (default ppm)")
+    s.add_argument("--range", help="plot axis range A:B in the plot unit, e.g. 120:-40")
+    s.add_argument("--zoom", type=float, help="also plot the sum magnified N times (shows satellites)")
+    s.add_argument("--allow-strong-coupling", action="store_true",
+                   help="compute sites whose nu_Q exceeds half the Larmor frequency (refused by default)")
+    s.add_argument("--force", action="store_true", help="overwrite existing output files")
+    s.add_argument("-q", "--quiet", action="store_true", help="no progress bars or cautions")
+    add_cache_options(s)
+    s.set_defaults(func=run)
+
+
+
+class _Progress:
+    """Progress of simulate: a bar per site (lines) or per kernel grid, shown after two seconds."""
+
+    def __init__(self, quiet: bool):
+        from ..progress import StagedProgress
+
+        self.bars = StagedProgress(quiet, delay=2.0)
+
+    def __call__(self, label, done, total):
+        unit = "line shapes" if str(label).endswith(": kernel grid") else "orientations"
+        self.bars.update(f"site {label}", done, total=total, unit=unit)
+
+    def close(self):
+        self.bars.close()
+
+
+def _plot_options(args) -> dict:
+    opts = {"unit": args.unit, "limits": parse_range(args.range, "--range")}
+    if args.zoom is not None:
+        if not args.zoom > 1:
+            raise CliError(f"--zoom = {args.zoom:g} must be > 1 (a vertical magnification)")
+        opts["vertical_zoom"] = args.zoom
+    return opts
+
+
+def run(args) -> int:
+    from ..files import STDOUT, check_outputs
+    from ..model.modelfile import load_model
+    from ..plotting.spectrum import PLOT_SUFFIXES
+
+    model_path = Path(args.model)
+    model = load_model(model_path)
+    plot_opts = _plot_options(args)
+    n_meas = len(model.measurements)
+    which = range(n_meas) if args.measurement is None else [args.measurement - 1]
+    if args.measurement is not None and not (1 <= args.measurement <= n_meas):
+        raise CliError(f"--measurement = {args.measurement} must be in [1, {n_meas}] (the model has {n_meas})")
+
+    def name_for(base: str | None, j: int) -> str | None:
+        if base is None or base == STDOUT or len(which) == 1:
+            return base
+        p = Path(base)
+        return str(p.with_name(f"{p.stem}-m{j + 1}{p.suffix}"))
+
+    if args.output == STDOUT and len(which) > 1:
+        raise CliError("-o -: the model has several measurements; give a file name (one CSV per measurement "
+                       "is written, NAME-m1.csv, NAME-m2.csv, ...) or --measurement N")
+    sidebands_file = args.sidebands if isinstance(args.sidebands, str) else None
+    outputs = []
+    for j in which:
+        outputs.append((name_for(args.output, j), "output"))
+        if args.plot:
+            outputs.append((name_for(args.plot, j), "plot", PLOT_SUFFIXES))
+        if sidebands_file:
+            outputs.append((name_for(sidebands_file, j), "sideband table"))
+    check_outputs(outputs, force=args.force, protect=[model_path])
+    from ..engine.site_lines import check_high_field
+    from ..simulator import simulate
+
+    for j in which:
+        for text in check_high_field(model.sites, model.nucleus, model.measurements[j].field_tesla,
+                                     allow_strong_coupling=args.allow_strong_coupling):
+            print(f"note: {text}", file=sys.stderr)
+    compile_note(args)
+    store = kernel_store(args)
+    progress = _Progress(args.quiet)
+    spectra = []
+    try:
+        for j in which:
+            spectra.append((j, simulate(model, measurement=j, progress=progress,
+                                        allow_strong_coupling=args.allow_strong_coupling, kernel_store=store)))
+    finally:
+        progress.close()
+    for j, spec in spectra:
+        for text in spec.metadata.get("notes", []):
+            if "nu_Q is" in text:
+                continue  # already said before computing
+            print(f"note: {text}", file=sys.stderr)
+        meas = model.measurements[j]
+        if meas.spinning_hz > 0 and math.isfinite(meas.spinning_hz):
+            note(args, SPINNING_CAUTION)
+        out = name_for(args.output, j)
+        spec.write_csv(out, force=args.force, protect=[model_path])
+        if out != STDOUT:
+            print(f"wrote {out} ({spec.hz.size} points, {len(spec.site_labels)} site(s))", file=sys.stderr)
+        if args.plot:
+            from ..plotting.spectrum import save_plot
+
+            p = name_for(args.plot, j)
+            save_plot(spec, p, force=args.force, protect=[model_path], **plot_opts)
+            print(f"wrote {p}", file=sys.stderr)
+        if sidebands_file:
+            from ..files import write_text_atomic
+
+            p = name_for(sidebands_file, j)
+            write_text_atomic(p, spec.sideband_csv_text(), force=args.force, protect=[model_path],
+                              role="sideband table")
+            print(f"wrote {p}", file=sys.stderr)
+        if args.sidebands is True or sidebands_file:
+            stream = sys.stderr if args.output == STDOUT else sys.stdout
+            print(spec.sideband_table(), end="", file=stream)
+    return 0
