@@ -42,7 +42,8 @@ from _common import best_time, numpy_tent  # noqa: E402
 
 import powderspin as ps  # noqa: E402
 from powderspin.disorder.library import LineshapeLibrary  # noqa: E402
-from powderspin.disorder.sites import DistributedSite, KernelStore  # noqa: E402
+from powderspin.disorder.site import DistributedSite
+from powderspin.disorder.store import KernelStore  # noqa: E402
 from powderspin.engine.lineshape import make_axis  # noqa: E402
 from powderspin.io.spectra import MeasuredSpectrum  # noqa: E402
 from powderspin.physics.orientations import select_orientations  # noqa: E402
@@ -81,7 +82,8 @@ def _worker(path: str, groups: list[int]) -> int:
     ds.path = path
     store = KernelStore(None, build_threads=1)
     grid = ds.grid(ax)
-    from powderspin.disorder.sites import _kernel_axis, oversampling
+    from powderspin.disorder.grid import oversampling
+    from powderspin.disorder.site import _kernel_axis
     from powderspin.engine.lineshape import Axis
     from powderspin.engine.site_lines import site_job
 

@@ -19,7 +19,8 @@ from pathlib import Path
 import numpy as np
 
 import powderspin as ps
-from powderspin.disorder.sites import DistributedSite, KernelStore
+from powderspin.disorder.site import DistributedSite
+from powderspin.disorder.store import KernelStore
 from powderspin.engine.lineshape import broaden, make_axis
 
 HERE = Path(__file__).resolve().parent

@@ -6,10 +6,7 @@ Run:  python examples/quickstart.py OUTDIR
 import sys
 from pathlib import Path
 
-import matplotlib
-
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt
+from matplotlib.figure import Figure
 
 import powderspin as ps
 
@@ -23,8 +20,8 @@ model = ps.make_model(
 )
 spectrum = ps.simulate(model)
 print(f"centre of gravity {spectrum.first_moment_ppm():.2f} ppm, area {spectrum.area():.4f}")
-fig, ax = plt.subplots()
-ps.plot_spectrum(spectrum, ax)
+fig = Figure()  # matplotlib without pyplot: no backend to choose
+ps.plot_spectrum(spectrum, fig.add_subplot())
 fig.savefig(out / "quickstart.png")
-spectrum.write_csv(out / "quickstart.csv", force=True)
+ps.write_spectrum(spectrum, out / "quickstart.csv", force=True)
 print(f"wrote {out / 'quickstart.png'} and {out / 'quickstart.csv'}")

@@ -36,10 +36,12 @@ _EXPORTS = {
     "SiteJob": "engine.site_lines", "SiteLines": "engine.site_lines", "site_job": "engine.site_lines",
     "compute_lines": "engine.site_lines", "render_lines": "engine.site_lines",
     "Spectrum": "engine.spectrum",
-    "fit": "fitting.fitter", "FitResult": "fitting.fitter", "FitError": "fitting.fitter",
-    "write_result": "fitting.fitter",
+    "fit": "fitting.fitter", "FitResult": "fitting.result", "FitError": "fitting.data",
+    "write_result": "io.results",
     "read_spectrum": "io.spectra", "MeasuredSpectrum": "io.spectra", "DataError": "io.spectra",
-    "plan": "planning.planner", "Plan": "planning.planner",
+    "plan": "planning.planner", "Plan": "planning.results", "PlanError": "planning.rotors",
+    "write_spectrum": "io.results", "write_plan_json": "io.results", "save_plan_plot": "plotting.plan",
+    "save_report": "plotting.report", "Simulator": "simulator", "ProgressEvent": "progress",
     "ShiftTensor": "physics.tensors",
 }
 

@@ -11,6 +11,10 @@ import os
 
 import pytest
 
+# Sleeping OpenMP waits (the command line sets the same): with spinning waits every parallel kernel stalls
+# behind the other pytest worker's threads on a 2-core machine.  Set before numba starts its thread pool.
+os.environ.setdefault("OMP_WAIT_POLICY", "PASSIVE")
+
 
 @pytest.fixture(autouse=True, scope="session")
 def _private_lineshape_library(tmp_path_factory):

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import signal
 import subprocess
 import sys
@@ -21,8 +22,9 @@ def interrupt_when_busy(args, marker: str, wait_s: float = 240.0):
     stopped_after : float
         Seconds from the signal to the end of the process.
     """
+    env = dict(os.environ, POWDERSPIN_PROGRESS="always")  # bars on a pipe: they say the command is at work
     proc = subprocess.Popen([sys.executable, "-m", "powderspin", *map(str, args)], stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, text=True)
+                            stderr=subprocess.PIPE, text=True, env=env)
     chunks: list[str] = []
 
     def read():

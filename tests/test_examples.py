@@ -39,6 +39,7 @@ def test_quickstart_script(tmp_path):
     assert (tmp_path / "quickstart.png").exists() and (tmp_path / "quickstart.csv").exists()
 
 
+@pytest.mark.slow
 def test_demo_command(tmp_path):
     r = _run(["demo", "--out", str(tmp_path / "d")], tmp_path)
     assert r.returncode == 0, r.stderr
@@ -90,6 +91,7 @@ def test_readme_python_block(tmp_path, monkeypatch):
         exec(compile(b, "README.md", "exec"), {})
 
 
+@pytest.mark.slow
 def test_readme_command_lines(tmp_path):
     text = (ROOT / "README.md").read_text()
     cmds = [l.strip() for l in text.splitlines() if l.startswith("    powderspin ")]

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import pytest
+
 from tests.interrupting import interrupt_when_busy
 
 SLOW_MODEL = """nucleus = "93Nb"
@@ -19,6 +21,7 @@ eta_q = 0.4
 """
 
 
+@pytest.mark.slow
 def test_sigint_exits_130_with_one_line_and_no_output(tmp_path):
     model = tmp_path / "slow.toml"
     model.write_text(SLOW_MODEL)

@@ -6,8 +6,8 @@ import math
 import sys
 from pathlib import Path
 
-__all__ = ["CliError", "SPINNING_CAUTION", "note", "compile_note", "parse_range", "numbers", "add_cache_options",
-           "library", "kernel_store", "interrupted"]
+__all__ = ["terminal_progress", "CliError", "SPINNING_CAUTION", "note", "compile_note", "parse_range", "numbers",
+           "add_cache_options", "library", "kernel_store", "interrupted"]
 
 SPINNING_CAUTION = (
     "caution: simulated spinning rates say nothing about what a rotor can take; never exceed the "
@@ -75,7 +75,7 @@ def library(args):
 
 def kernel_store(args):
     """The kernel store of a command: --no-cache keeps kernels in memory only."""
-    from ..disorder.sites import KernelStore, default_kernel_store
+    from ..disorder.store import KernelStore, default_kernel_store
 
     if getattr(args, "no_cache", False):
         return KernelStore(None)
@@ -114,3 +114,18 @@ def interrupted(e: BaseException) -> bool:
         seen.add(id(e))
         e = e.__cause__ or e.__context__
     return False
+
+
+def terminal_progress(args, delay: float = 2.0):
+    """The progress bars of a command: on a terminal only, never with ``-q``.
+
+    ``POWDERSPIN_PROGRESS=always`` shows them on any stream (logs, tests that
+    watch a command's progress), ``never`` hides them.
+    """
+    import os
+
+    from ..progress import TerminalProgress
+
+    mode = os.environ.get("POWDERSPIN_PROGRESS", "auto").strip().lower()
+    quiet = getattr(args, "quiet", False) or mode == "never"
+    return TerminalProgress(quiet, delay=delay, always=mode == "always")

@@ -41,7 +41,7 @@ def _demo_folder(requested: str) -> Path:
 
 def run(args) -> int:
     from ..files import check_outputs, write_text_atomic
-    from ..fitting.fitter import csv_paths
+    from ..io.results import csv_paths
     from ..model.modelfile import load_model
 
     outdir = _demo_folder(args.out)

@@ -2,10 +2,11 @@
 
 from __future__ import annotations
 
+import argparse
 import sys
 from pathlib import Path
 
-from .common import CliError, add_cache_options, compile_note, kernel_store, parse_range
+from .common import CliError, add_cache_options, compile_note, kernel_store, parse_range, terminal_progress
 
 __all__ = ["add_parser", "run", "run_fit", "fit_outputs"]
 
@@ -39,29 +40,9 @@ def add_parser(sub) -> None:
 
 
 
-class _FitProgress:
-    """Progress of a fit (evaluations, lowest chi-square), its kernel grid and posterior sampling."""
-
-    def __init__(self, quiet: bool):
-        from ..progress import StagedProgress
-
-        self.bars = StagedProgress(quiet, delay=1.0)
-
-    def __call__(self, stage, done, value):
-        if stage == "posterior":
-            self.bars.update("posterior", done, total=int(value), unit="steps")
-        elif stage == "kernels":
-            self.bars.update("kernel grid", done, total=int(value), unit="line shapes")
-        else:
-            self.bars.update("fit", done, unit="evaluations", postfix=f"chi-square {value:.6g}")
-
-    def close(self):
-        self.bars.close()
-
-
 def fit_outputs(args, n_meas: int):
     """Every file the fit command writes: (path, role, suffixes)."""
-    from ..fitting.fitter import csv_paths
+    from ..io.results import csv_paths
     from ..plotting.report import REPORT_SUFFIXES
 
     out = Path(args.output)
@@ -78,12 +59,13 @@ def fit_outputs(args, n_meas: int):
 
 def run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool):
     """Fit, then write every output; if one write fails, remove what this run wrote."""
-    from ..fitting.fitter import fit, write_result
+    from ..fitting.fitter import fit
+    from ..io.results import write_result
     from ..plotting.report import save_corner, save_report
 
     regions = [parse_range(r, "--region") for r in args.region] if args.region else None
     noise = parse_range(args.noise_region, "--noise-region")
-    progress = _FitProgress(quiet)
+    progress = terminal_progress(argparse.Namespace(quiet=quiet), delay=1.0)
     try:
         result = fit(model, data, regions=regions, noise_region=noise, axis=args.axis,
                      global_search=args.global_search, starts=args.starts, seed=args.seed,
@@ -111,7 +93,7 @@ def run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool):
 
 def run(args) -> int:
     from ..files import check_outputs
-    from ..fitting.fitter import FitError, _data_paths
+    from ..fitting.data import FitError, data_items
     from ..model.modelfile import load_model
 
     model_path = Path(args.model)
@@ -123,7 +105,7 @@ def run(args) -> int:
     if not model.free:
         raise FitError(f"{args.model}: the model has no free parameters: mark at least one as "
                        "{ start = ..., min = ..., max = ... }, e.g. cq_mhz = { start = 3.0, min = 1.0, max = 8.0 }")
-    data = _data_paths(model, list(args.data) if args.data else None)
+    data = data_items(model, list(args.data) if args.data else None)
     for p in data:
         if not Path(p).exists():
             raise FitError(f"data file {str(p)!r} does not exist")

@@ -5,24 +5,9 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from .common import CliError, compile_note, numbers
+from .common import CliError, compile_note, numbers, terminal_progress
 
 __all__ = ["add_parser", "run"]
-
-
-class _PlanProgress:
-    """One progress bar over the plan's candidate experiments, shown after two seconds."""
-
-    def __init__(self, quiet: bool):
-        from ..progress import StagedProgress
-
-        self.bars = StagedProgress(quiet, delay=2.0)
-
-    def __call__(self, done, total):
-        self.bars.update("plan", done, total=total, unit="experiments")
-
-    def close(self):
-        self.bars.close()
 
 
 def _run(args) -> int:
@@ -41,11 +26,14 @@ def _run(args) -> int:
     fields = numbers(args.fields, "--fields", "tesla")
     rates = numbers(args.rates, "--rates", "Hz")
     model = load_model(model_path)
-    from ..planning.planner import load_rotor_table, plan
+    from ..io.results import write_plan_json
+    from ..planning.planner import plan
+    from ..planning.rotors import load_rotor_table
+    from ..plotting.plan import save_plan_plot
 
     table = load_rotor_table(args.rotor_table) if args.rotor_table else None
     compile_note(args)
-    progress = _PlanProgress(args.quiet)
+    progress = terminal_progress(args, delay=2.0)
     try:
         result = plan(model, fields, rotors=args.rotors, rotor_table=table, max_rate_hz=args.max_rate,
                       rates_hz=rates, n_rates=args.rate_count, threshold=args.threshold, snr=args.snr,
@@ -55,11 +43,11 @@ def _run(args) -> int:
     stream = sys.stderr if args.json == STDOUT else sys.stdout
     print(result.table_text(), end="", file=stream)
     if args.json:
-        result.write_json(args.json, force=args.force, protect=protect)
+        write_plan_json(result, args.json, force=args.force, protect=protect)
         if args.json != STDOUT:
             print(f"wrote {args.json}", file=sys.stderr)
     if args.plot:
-        result.save_plot(args.plot, force=args.force, protect=protect)
+        save_plan_plot(result, args.plot, force=args.force, protect=protect)
         print(f"wrote {args.plot}", file=sys.stderr)
     return 0
 

@@ -6,7 +6,16 @@ import math
 import sys
 from pathlib import Path
 
-from .common import SPINNING_CAUTION, CliError, add_cache_options, compile_note, kernel_store, note, parse_range
+from .common import (
+    SPINNING_CAUTION,
+    CliError,
+    add_cache_options,
+    compile_note,
+    kernel_store,
+    note,
+    parse_range,
+    terminal_progress,
+)
 
 __all__ = ["add_parser", "run"]
 
@@ -15,7 +24,9 @@ def add_parser(sub) -> None:
     """Add the ``simulate`` command to the subparsers ``sub``."""
     s = sub.add_parser("simulate", help="simulate the spectrum of a TOML model file")
     s.add_argument("model", help="model file (TOML)")
-    s.add_argument("-o", "--output", required=True, help="CSV file to write ('-' for standard output)")
+    s.add_argument("-o", "--output", required=True,
+                   help="spectrum file to write, format by suffix: .csv/.txt, .jdx/.dx (JCAMP-DX), .npz/.npy "
+                        "('-': CSV on standard output)")
     s.add_argument("--plot", help="also write a figure (.png, .pdf or .svg)")
     s.add_argument("--sidebands", nargs="?", const=True, default=None, metavar="FILE",
                    help="print the sideband table; with FILE also write it as CSV")
@@ -32,22 +43,6 @@ def add_parser(sub) -> None:
 
 
 
-class _Progress:
-    """Progress of simulate: a bar per site (lines) or per kernel grid, shown after two seconds."""
-
-    def __init__(self, quiet: bool):
-        from ..progress import StagedProgress
-
-        self.bars = StagedProgress(quiet, delay=2.0)
-
-    def __call__(self, label, done, total):
-        unit = "line shapes" if str(label).endswith(": kernel grid") else "orientations"
-        self.bars.update(f"site {label}", done, total=total, unit=unit)
-
-    def close(self):
-        self.bars.close()
-
-
 def _plot_options(args) -> dict:
     opts = {"unit": args.unit, "limits": parse_range(args.range, "--range")}
     if args.zoom is not None:
@@ -59,6 +54,7 @@ def _plot_options(args) -> dict:
 
 def run(args) -> int:
     from ..files import STDOUT, check_outputs
+    from ..io.results import spectrum_format
     from ..model.modelfile import load_model
     from ..plotting.spectrum import PLOT_SUFFIXES
 
@@ -88,7 +84,10 @@ def run(args) -> int:
         if sidebands_file:
             outputs.append((name_for(sidebands_file, j), "sideband table"))
     check_outputs(outputs, force=args.force, protect=[model_path])
+    for j in which:  # after the checks above, so that an input named as output is said first
+        spectrum_format(name_for(args.output, j))
     from ..engine.site_lines import check_high_field
+    from ..io.results import sideband_csv_text, write_spectrum
     from ..simulator import simulate
 
     for j in which:
@@ -97,7 +96,7 @@ def run(args) -> int:
             print(f"note: {text}", file=sys.stderr)
     compile_note(args)
     store = kernel_store(args)
-    progress = _Progress(args.quiet)
+    progress = terminal_progress(args, delay=2.0)
     spectra = []
     try:
         for j in which:
@@ -114,7 +113,7 @@ def run(args) -> int:
         if meas.spinning_hz > 0 and math.isfinite(meas.spinning_hz):
             note(args, SPINNING_CAUTION)
         out = name_for(args.output, j)
-        spec.write_csv(out, force=args.force, protect=[model_path])
+        write_spectrum(spec, out, force=args.force, protect=[model_path])
         if out != STDOUT:
             print(f"wrote {out} ({spec.hz.size} points, {len(spec.site_labels)} site(s))", file=sys.stderr)
         if args.plot:
@@ -127,7 +126,7 @@ def run(args) -> int:
             from ..files import write_text_atomic
 
             p = name_for(sidebands_file, j)
-            write_text_atomic(p, spec.sideband_csv_text(), force=args.force, protect=[model_path],
+            write_text_atomic(p, sideband_csv_text(spec), force=args.force, protect=[model_path],
                               role="sideband table")
             print(f"wrote {p}", file=sys.stderr)
         if args.sidebands is True or sidebands_file:

@@ -20,13 +20,6 @@ infinite-rate cases.
 from __future__ import annotations
 
 import math
-import os
-
-# Idle OpenMP threads of numba's "omp" threading layer spin by default, which on a shared or
-# busy machine (or under pytest -n 2) makes every parallel kernel wait for descheduled
-# spinners: measured 3-17x slower.  Sleeping waits cost microseconds per kernel instead.  Set
-# before numba starts its thread pool (on the first parallel call); a user's own setting wins.
-os.environ.setdefault("OMP_WAIT_POLICY", "PASSIVE")
 
 import numpy as np
 from numba import njit, prange

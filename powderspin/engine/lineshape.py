@@ -58,7 +58,7 @@ import numpy as np
 
 from . import _kernels as _k
 
-__all__ = ["Axis", "make_axis", "bin_lines", "broaden"]
+__all__ = ["Axis", "make_axis", "bin_lines", "broaden", "baseline_values"]
 
 
 @dataclass(frozen=True)
@@ -379,3 +379,31 @@ def broaden(y: np.ndarray, dx_hz: float, lorentz_hz: float = 0.0, gauss_hz: floa
     # first n points are the linear convolution on the axis (intensity pushed
     # beyond the axis edges is lost, as for lines outside the axis)
     return full[..., :n].copy()
+
+
+def baseline_values(coefficients, axis: Axis) -> np.ndarray:
+    """A polynomial baseline on an axis: ``sum_k b_k u**k``, u from -1 to 1 across the axis.
+
+    Parameters
+    ----------
+    coefficients : sequence of float
+        (b0, b1, ...), in the units of the spectrum's intensity.
+    axis : Axis
+        ``u = (hz - center_hz) / (width_hz / 2)``: -1 and 1 at the axis
+        edges, whatever its unit or position.
+
+    Returns
+    -------
+    numpy.ndarray, shape (axis.points,)
+
+    Examples
+    --------
+    >>> ax = Axis(center_hz=0.0, width_hz=4.0, points=4, nu_ref_hz=100e6)
+    >>> baseline_values([1.0, 2.0], ax).tolist()   # u = -0.75, -0.25, 0.25, 0.75
+    [-0.5, 0.5, 1.5, 2.5]
+    """
+    u = (axis.hz - axis.center_hz) / (0.5 * axis.width_hz)
+    out = np.zeros(axis.points)
+    for b in reversed(tuple(coefficients)):  # Horner
+        out = out * u + float(b)
+    return out

@@ -33,6 +33,7 @@ from ..model.values import Measurement, ModelError, Site, selected_transitions
 from ..physics.nuclides import Nuclide, get_nuclide
 from ..physics.orientations import OrientationSet, orientation_set_by_name, select_orientations, symmetry_rank
 from ..physics.tensors import ShiftTensor
+from ..progress import emit
 from . import _kernels as _k
 from .frequencies import (
     SiteFrame,
@@ -43,6 +44,7 @@ from .frequencies import (
     transition_intensity,
 )
 from .lineshape import Axis, bin_lines, broaden
+from .spectrum import SidebandRow
 from .spinning import MAX_ROTOR_PHASES, choose_rotor_phases, perturbative_sidebands, rotor_lines
 
 __all__ = [
@@ -61,6 +63,7 @@ __all__ = [
     "check_high_field",
     "STRONG_COUPLING_NOTE_RATIO",
     "STRONG_COUPLING_LIMIT_RATIO",
+    "sideband_rows",
 ]
 
 #: phases used for the rotor average at infinite rate (the trajectory is a
@@ -808,7 +811,7 @@ class _Producer:
         return mean, amp, w, inten, pos, amax
 
 
-def compute_lines(job: SiteJob, *, orientations: OrientationSet | None = None, progress=None,
+def compute_lines(job: SiteJob, *, orientations: OrientationSet | None = None, progress=None, label: str = "",
                   memory_budget_bytes: int = LINES_MEMORY_BUDGET) -> SiteLines:
     """Compute a site's lines: producer (perturbative or exact) and sideband consumer.
 
@@ -819,7 +822,10 @@ def compute_lines(job: SiteJob, *, orientations: OrientationSet | None = None, p
         The set itself, for a set that cannot be rebuilt from its name (its
         name must equal ``job.orientations``).
     progress : callable, optional
-        ``progress(done, total)`` after each chunk of orientations.
+        Subscriber of the progress protocol (:class:`powderspin.progress.ProgressEvent`): stage
+        ``"lines"``, unit orientations, after each chunk of orientations.
+    label : str, optional
+        The site's label, carried by the progress events.
     memory_budget_bytes : int, optional
         Largest sideband-intensity array kept in memory.
 
@@ -860,6 +866,11 @@ def compute_lines(job: SiteJob, *, orientations: OrientationSet | None = None, p
         oset = orientations
     prod = _Producer(job, oset)
     rate = job.spinning_hz
+    if progress is not None:
+        events = progress
+
+        def progress(done, total):  # the producer's (done, total) as events of the progress protocol
+            emit(events, "lines", done, total, label=label, unit="orientations")
     nt = len(job.transitions)
     notes: list[str] = []
     n = oset.size
@@ -1033,3 +1044,55 @@ def _render_streamed(lines: SiteLines, axis: Axis, binning: str, rate: float, cu
         sub = _Set("chunk", "sphere", oset.vectors[a:b], wv / wv.sum())
         out += bin_lines(axis, m_c, amp_c, lines.weights[a:b], sub, "histogram", rate, cutoff) * float(wv.sum())
     return out
+
+
+# ---------------------------------------------------------------------------
+# sideband table
+
+
+def sideband_rows(label: str, weight: float, lines: SiteLines, nu_ref: float, shift_hz: float = 0.0,
+                  min_intensity: float = 1e-4) -> list[SidebandRow]:
+    """Sideband table rows of one site: integrated intensity per band and its intensity-weighted position.
+
+    Parameters
+    ----------
+    label : str
+        The site's label.
+    weight : float
+        The site's weight (the rows' intensities sum to it).
+    lines : SiteLines
+    nu_ref : float
+        Reference frequency (Hz), for the ppm column.
+    shift_hz : float, optional
+        Translation applied when rendering (Hz).
+    min_intensity : float, optional
+        Bands below this fraction of the site are left out.
+
+    Returns
+    -------
+    list of SidebandRow
+
+    References
+    ----------
+    J. Herzfeld, A. E. Berger, J. Chem. Phys. 73 (1980) 6021.
+
+    Examples
+    --------
+    >>> from powderspin.model.modelfile import make_model
+    >>> m = make_model("31P", {"field_tesla": 9.4, "spinning_hz": 5000.0, "points": 512},
+    ...                [{"span_ppm": 100.0, "skew": 0.0}])
+    >>> from powderspin.simulator import simulate
+    >>> rows = simulate(m).sidebands
+    >>> sorted({r.order for r in rows})[:3]
+    [-4, -3, -2]
+    """
+    p = lines.phases
+    n = np.fft.fftfreq(p, 1.0 / p).astype(int)
+    inten, pos = lines.band_intensity, lines.band_position_hz
+    rows = []
+    for k in np.argsort(n):
+        if inten[k] < min_intensity or inten[k] <= 0:
+            continue
+        hz = pos[k] / inten[k] + n[k] * lines.rate_hz + shift_hz
+        rows.append(SidebandRow(label, int(n[k]), float(hz), float(hz / nu_ref * 1e6), float(inten[k] * weight)))
+    return rows

@@ -17,18 +17,12 @@ rate) and ``intensity`` (integrated; a site's bands sum to its weight).
 
 from __future__ import annotations
 
-import csv
-import io
-import json
 import math
 from dataclasses import dataclass, field
-from pathlib import Path
 from types import MappingProxyType
 from typing import Mapping
 
 import numpy as np
-
-from ..files import write_text_atomic
 
 __all__ = ["Spectrum", "SidebandRow"]
 
@@ -213,84 +207,27 @@ class Spectrum:
         y = self.intensity if site is None else self.site_intensities[site]
         return float((y * self.ppm).sum() / y.sum())
 
-    # ----- files ---------------------------------------------------------
-    def csv_text(self) -> str:
-        """The spectrum as CSV text: metadata lines, then ``ppm,hz,intensity`` and one column per site.
+    def to_dict(self) -> dict:
+        """The spectrum as plain values: axis, sum, sites, metadata and sideband table.
 
         Returns
         -------
-        str
-            ``# key: value`` metadata lines (dicts and lists as JSON), the
-            header and one row per point in ascending hz (ppm, Hz, the sum and
-            each site as densities per ppm).  Site columns are named by label
-            (quoted where CSV needs it).
-
-        References
-        ----------
-        Y. Shafranovich, RFC 4180 (2005), "Common Format and MIME Type for
-        Comma-Separated Values (CSV) Files" (from memory).
+        dict
+            ``hz``, ``ppm``, ``intensity`` and ``site_intensities`` (lists),
+            ``site_labels``, ``metadata`` and ``sidebands`` (one dict per row).
 
         Examples
         --------
         >>> spec = Spectrum(hz=[-100.0, 0.0, 100.0], ppm=[-1.0, 0.0, 1.0], intensity=[0.0, 1.0, 0.0],
-        ...                 site_labels=("a",), site_intensities=[[0.0, 1.0, 0.0]],
-        ...                 metadata={"nucleus": "31P", "nu_ref_hz": 100e6})
-        >>> print(spec.csv_text(), end="")
-        # nucleus: 31P
-        # nu_ref_hz: 100000000.0
-        ppm,hz,intensity,a
-        -1,-100,0,0
-        0,0,1,1
-        1,100,0,0
+        ...                 site_labels=("a",), site_intensities=[[0.0, 1.0, 0.0]])
+        >>> sorted(spec.to_dict())[:3]
+        ['hz', 'intensity', 'metadata']
         """
-        lines = []
-        for k, v in self.metadata.items():
-            if isinstance(v, (dict, list, tuple)):
-                v = json.dumps(v)
-            lines.append(f"# {k}: {v}")
-        head = io.StringIO()
-        csv.writer(head, lineterminator="").writerow(["ppm", "hz", "intensity", *self.site_labels])
-        lines.append(head.getvalue())
-        cols = [self.ppm, self.hz, self.intensity, *self.site_intensities]
-        fmts = ["{:.10g}", "{:.12g}"] + ["{:.10g}"] * (len(cols) - 2)
-        for row in zip(*cols):
-            lines.append(",".join(f.format(x) for f, x in zip(fmts, row)))
-        return "\n".join(lines) + "\n"
-
-    def write_csv(self, path, *, force: bool = False, protect=()) -> Path | None:
-        """Write the spectrum as CSV atomically; refuses to overwrite unless ``force``.
-
-        Parameters
-        ----------
-        path : str or pathlib.Path
-            Output file (parent folders are made); ``"-"`` for standard output.
-        force : bool, optional
-            Overwrite an existing file.
-        protect : iterable of path, optional
-            Input files never to overwrite.
-
-        Returns
-        -------
-        pathlib.Path or None
-            The file written (see :meth:`csv_text` for the layout).
-
-        Raises
-        ------
-        powderspin.files.OutputExistsError
-            If ``path`` exists and ``force`` is False.
-
-        Examples
-        --------
-        >>> import tempfile, pathlib
-        >>> spec = Spectrum(hz=[-100.0, 0.0, 100.0], ppm=[-1.0, 0.0, 1.0], intensity=[0.0, 1.0, 0.0],
-        ...                 site_labels=("a",), site_intensities=[[0.0, 1.0, 0.0]],
-        ...                 metadata={"nucleus": "31P", "nu_ref_hz": 100e6})
-        >>> with tempfile.TemporaryDirectory() as d:
-        ...     p = spec.write_csv(pathlib.Path(d) / "out.csv")
-        ...     p.read_text().splitlines()[2]
-        'ppm,hz,intensity,a'
-        """
-        return write_text_atomic(path, self.csv_text(), force=force, protect=protect)
+        return {"hz": self.hz.tolist(), "ppm": self.ppm.tolist(), "intensity": self.intensity.tolist(),
+                "site_labels": list(self.site_labels), "site_intensities": self.site_intensities.tolist(),
+                "metadata": dict(self.metadata),
+                "sidebands": [{"site": r.site, "order": r.order, "position_hz": r.position_hz,
+                               "position_ppm": r.position_ppm, "intensity": r.intensity} for r in self.sidebands]}
 
     def sideband_rows_with_nominal(self) -> list[tuple]:
         """Sideband rows with each band's nominal position: the site's centre band plus n x rate.
@@ -316,32 +253,6 @@ class Spectrum:
             c = centre.get(r.site, r.position_hz - r.order * rate)
             out.append((r, c + r.order * rate))
         return out
-
-    def sideband_csv_text(self) -> str:
-        """The sideband table as CSV (columns described in the module docstring).
-
-        Returns
-        -------
-        str
-
-        Examples
-        --------
-        >>> spec = Spectrum(hz=[0.0, 1.0], ppm=[0.0, 0.01], intensity=[1.0, 0.0], site_labels=("a",),
-        ...                 site_intensities=[[1.0, 0.0]], metadata={"spinning_hz": 1000.0, "nu_ref_hz": 1e8},
-        ...                 sidebands=(SidebandRow("a", 0, 10.0, 0.1, 0.9),))
-        >>> print(spec.sideband_csv_text(), end="")
-        # spinning_hz: 1000.0
-        site,order,position_hz,position_ppm,nominal_hz,intensity
-        a,0,10,0.1,10,0.9
-        """
-        buf = io.StringIO()
-        w = csv.writer(buf, lineterminator="\n")
-        buf.write(f"# spinning_hz: {self.metadata.get('spinning_hz', '')}\n")
-        w.writerow(["site", "order", "position_hz", "position_ppm", "nominal_hz", "intensity"])
-        for r, nominal in self.sideband_rows_with_nominal():
-            w.writerow([r.site, r.order, f"{r.position_hz:.10g}", f"{r.position_ppm:.10g}", f"{nominal:.10g}",
-                        f"{r.intensity:.8g}"])
-        return buf.getvalue()
 
     def sideband_table(self) -> str:
         """Text table: site, sideband order, position (Hz, ppm), integrated intensity.

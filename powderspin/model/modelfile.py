@@ -41,8 +41,8 @@ from ..files import write_text_atomic
 from ..physics.nuclides import Nuclide, get_nuclide
 from .schema import FREE_TABLE_KEYS, KEYS, TIE_KEY, key_spec, keys_of
 from .values import (
-    _FREE_KEYS,
     MAGIC_ANGLE_DEG,
+    SHIFT_KEYS,
     FitSettings,
     FreeParameter,
     Measurement,
@@ -51,8 +51,8 @@ from .values import (
     ParameterAddress,
     Site,
     TiedParameter,
-    _site_from_values,
     check_number,
+    fittable_keys,
 )
 
 __all__ = ["load_model", "parse_model", "make_model", "make_site", "model_from_tables", "parse_site_table",
@@ -86,7 +86,7 @@ def _parameter(table: dict, key: str, where: str, kind_table: str, free: list, t
     v = table[key] if item is None else table[key][item]
     name = key if item is None else f"{key}[{item}]"
     if isinstance(v, dict):
-        if key not in _FREE_KEYS.get(kind_table, ()):
+        if key not in fittable_keys(kind_table):
             raise ModelError(f"{where}: {name} cannot be a fit parameter; give a number")
         if TIE_KEY in v:
             _unknown(v.keys(), {TIE_KEY}, f"{where}.{name}")
@@ -157,7 +157,9 @@ def parse_site_table(i: int, t: Any, where_default: str | None = None):
     free: list = []
     tied: list = []
 
-    def num(key, default):
+    def num(key, default=None):
+        if default is None:
+            default = key_spec("site", key).default  # the one place site defaults live
         if key not in t:
             return default
         v = _parameter(t, key, where, "site", free, tied)
@@ -170,15 +172,9 @@ def parse_site_table(i: int, t: Any, where_default: str | None = None):
             f"{where}: give the shift anisotropy one way only: span_ppm + skew, aniso_ppm + eta_cs, or principal_ppm"
         )
     form = forms[0] if forms else "iso"
-    vals: dict = {
-        "weight": num("weight", 1.0),
-        "cq_mhz": num("cq_mhz", 0.0),
-        "eta_q": num("eta_q", 0.0),
-        "lorentz_hz": num("lorentz_hz", 0.0),
-        "gauss_hz": num("gauss_hz", 0.0),
-        "shift_fwhm_ppm": num("shift_fwhm_ppm", 0.0),
-        "czjzek_sigma_mhz": num("czjzek_sigma_mhz", 0.0),
-    }
+    # every plain number of the schema's site table (the shift keys are read below, by form)
+    vals: dict = {k.name: num(k.name) for k in keys_of("site").values()
+                  if k.kind == "number" and k.name not in SHIFT_KEYS}
     for key in ("cq_distribution_mhz", "eta_distribution"):  # inline tables {values, weights}; checked by Site
         if key in t:
             if not isinstance(t[key], dict):
@@ -205,7 +201,7 @@ def parse_site_table(i: int, t: Any, where_default: str | None = None):
             raise ModelError(f"{where}: principal_ppm fixes the isotropic shift; do not also give shift_ppm")
         vals["principal_ppm"] = tuple(float(x) for x in p)
     else:
-        vals["shift_ppm"] = num("shift_ppm", 0.0)
+        vals["shift_ppm"] = num("shift_ppm")
         if form == "span_skew":
             if "span_ppm" not in t:
                 raise ModelError(f"{where}: skew needs span_ppm (the span Omega in ppm)")
@@ -217,7 +213,7 @@ def parse_site_table(i: int, t: Any, where_default: str | None = None):
             vals["aniso_ppm"] = num("aniso_ppm", 0.0)
             vals["eta_cs"] = num("eta_cs", 0.0)
     # range checks of free-parameter bounds use the key's own range
-    return _site_from_values(vals, label, form), free, tied
+    return Site.from_keys(vals, label, form), free, tied
 
 
 def _parse_measurement(j: int, t: Any, where: str, free: list):
@@ -561,9 +557,7 @@ def _measurement_table(meas: Measurement) -> dict:
 
 
 def _site_table(site: Site) -> dict:
-    from .values import site_key_values
-
-    vals = site_key_values(site)
+    vals = site.as_keys()
     t: dict = {"label": site.label}
     for k in keys_of("site"):
         if k == "label" or k not in vals:

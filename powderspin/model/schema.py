@@ -209,7 +209,7 @@ KEYS: tuple[KeySpec, ...] = (
     KeySpec("site", "gauss_hz", "number", "Hz", 0.0, 0.0, 1.0e7, free=True,
             doc="extra Gaussian broadening (FWHM) of this site",
             why="a width beyond 10 MHz is wider than any solid-state spectrum"),
-    # ---- site: distributions (disordered solids; powderspin.disorder.sites)
+    # ---- site: distributions (disordered solids; powderspin.disorder.site)
     KeySpec("site", "shift_fwhm_ppm", "number", "ppm", 0.0, 0.0, 1.0e4, free=True,
             doc="Gaussian distribution of the isotropic shift (FWHM); a Gaussian broadening that scales "
                 "with the field",

@@ -25,11 +25,14 @@ from typing import Any, Mapping
 
 import numpy as np
 
+from ..physics.distributions import DistributionError, explicit_axis
 from ..physics.nuclides import Nuclide
+from ..physics.orientations import OrientationSetError, orientation_set_by_name
 from ..physics.tensors import ShiftTensor, TensorError
-from .schema import key_spec
+from .schema import KEYS, key_spec
 
 __all__ = [
+    "SHIFT_KEYS",
     "ModelError",
     "MAGIC_ANGLE_DEG",
     "ParameterAddress",
@@ -41,7 +44,7 @@ __all__ = [
     "Model",
     "parse_transition",
     "selected_transitions",
-    "site_key_values",
+    "fittable_keys",
 ]
 
 #: The magic angle arccos(1/sqrt 3) in degrees (about 54.7356), the default
@@ -150,16 +153,30 @@ class ParameterAddress:
     def __post_init__(self):
         if self.table not in ("site", "measurement"):
             raise ModelError(f"parameter address: table = {self.table!r} is not one of 'site', 'measurement'")
-        spec = key_spec(self.table, self.key) if self.key in _FREE_KEYS[self.table] else None
-        if spec is None:
+        allowed = fittable_keys(self.table)
+        if self.key not in allowed:
             raise ModelError(
                 f"parameter address: {self.table} key {self.key!r} cannot be a fit parameter; "
-                f"allowed keys are {', '.join(sorted(_FREE_KEYS[self.table]))}"
+                f"allowed keys are {', '.join(sorted(allowed))}"
             )
         if (self.key == "euler_deg") != (self.item is not None):
             raise ModelError("parameter address: euler_deg needs an item 0, 1 or 2; other keys take none")
         if self.item is not None and self.item not in (0, 1, 2):
             raise ModelError(f"parameter address: item = {self.item!r} must be 0, 1 or 2")
+
+    def spec(self):
+        """The key's row of the schema (:class:`powderspin.model.schema.KeySpec`: unit, range, default).
+
+        Returns
+        -------
+        KeySpec
+
+        Examples
+        --------
+        >>> ParameterAddress("site", 0, "eta_q").spec().range_text()
+        '[0, 1]'
+        """
+        return key_spec(self.table, self.key)
 
     def name(self, model: "Model | None" = None) -> str:
         """A readable name: ``"AlO4.cq_mhz"``, ``"AlO4.euler_deg[1]"``, ``"measurement 2.gauss_hz"``.
@@ -186,11 +203,23 @@ class ParameterAddress:
         return f"site {self.index + 1}.{self.key}{item}"
 
 
-_FREE_KEYS = {
-    "site": {"weight", "shift_ppm", "cq_mhz", "eta_q", "span_ppm", "skew", "aniso_ppm", "eta_cs",
-             "euler_deg", "lorentz_hz", "gauss_hz", "shift_fwhm_ppm", "czjzek_sigma_mhz"},
-    "measurement": {"lorentz_hz", "gauss_hz", "shift_offset_ppm"},
-}
+def fittable_keys(table: str) -> frozenset:
+    """The keys of a table that may be free or tied parameters (``free=True`` in :data:`powderspin.model.schema.KEYS`).
+
+    Parameters
+    ----------
+    table : {"site", "measurement"}
+
+    Returns
+    -------
+    frozenset of str
+
+    Examples
+    --------
+    >>> sorted(fittable_keys("measurement"))
+    ['gauss_hz', 'lorentz_hz', 'shift_offset_ppm']
+    """
+    return frozenset(k.name for k in KEYS if k.table == table and k.free)
 
 
 @dataclass(frozen=True)
@@ -293,7 +322,7 @@ class Site:
     shift_fwhm_ppm : float
         FWHM (ppm) of a Gaussian distribution of the isotropic shift: a
         Gaussian broadening of ``shift_fwhm_ppm * nu_ref * 1e-6`` Hz that
-        scales with the field (:mod:`powderspin.disorder.sites`).
+        scales with the field (:mod:`powderspin.disorder.site`).
     czjzek_sigma_mhz : float
         Width sigma (MHz) of a Czjzek distribution of EFG tensors; with
         ``cq_mhz = 0`` the pure model, otherwise the extended model around
@@ -336,7 +365,7 @@ class Site:
         if any(c in self.label for c in "\n\r\t"):
             raise ModelError(f"site: label = {self.label!r} must be one line of text")
         where = f"site '{self.label}'"
-        for key in ("weight", "cq_mhz", "eta_q", "lorentz_hz", "gauss_hz"):
+        for key in _SITE_NUMBERS:
             object.__setattr__(self, key, check_number(where, key, getattr(self, key), "site"))
         try:
             e = tuple(float(x) for x in self.euler_deg)
@@ -353,6 +382,161 @@ class Site:
         if self.shift_form not in _SHIFT_FORMS:
             raise ModelError(f"{where}: shift_form = {self.shift_form!r} is not one of {', '.join(_SHIFT_FORMS)}")
         _check_site_distributions(self, where)
+
+    def as_keys(self) -> dict:
+        """The site's values under its model-file keys, shift tensor in the form it was given.
+
+        Returns
+        -------
+        dict
+            ``weight``, ``cq_mhz``, ``eta_q``, ``euler_deg``, ``lorentz_hz``,
+            ``gauss_hz``, ``shift_fwhm_ppm``, ``czjzek_sigma_mhz``, the explicit
+            distributions when set (``{"values": [...], "weights": [...]}``) and
+            the shift keys of its form (``shift_ppm`` with ``span_ppm`` +
+            ``skew``, ``aniso_ppm`` + ``eta_cs``, or ``principal_ppm``).
+
+        See Also
+        --------
+        Site.from_keys : the way back.
+
+        Examples
+        --------
+        >>> s = Site.from_keys({"shift_ppm": 5.0, "span_ppm": 100.0, "skew": 0.5}, label="P")
+        >>> v = s.as_keys()
+        >>> v["shift_ppm"], round(v["span_ppm"], 9), round(v["skew"], 9), s.shift_form
+        (5.0, 100.0, 0.5, 'span_skew')
+        """
+        t = self.shift
+        g = self.shift_given
+        out = {k: getattr(self, k) for k in sorted(_SITE_FIELDS)}
+        out["euler_deg"] = tuple(self.euler_deg)
+        for key in ("cq_distribution_mhz", "eta_distribution"):
+            d = getattr(self, key)
+            if d is not None:
+                out[key] = {"values": list(d[0]), "weights": list(d[1])}
+        if self.shift_form == "principal":
+            out["principal_ppm"] = tuple(g) if len(g) == 3 else tuple(t.principal_iupac)
+            return out
+        out["shift_ppm"] = t.iso_ppm
+        if self.shift_form == "span_skew":
+            out["span_ppm"], out["skew"] = g if len(g) == 2 else (t.span_ppm, t.skew)
+        elif self.shift_form == "haeberlen":
+            out["aniso_ppm"], out["eta_cs"] = g if len(g) == 2 else (t.aniso_ppm, t.eta)
+        return out
+
+    @classmethod
+    def from_keys(cls, values: Mapping, label: str = "site", shift_form: str | None = None) -> "Site":
+        """A site from model-file keys; missing keys take their schema defaults.
+
+        Parameters
+        ----------
+        values : mapping
+            Site keys and values (see the README's key reference).
+        label : str, optional
+        shift_form : {"iso", "span_skew", "haeberlen", "principal"}, optional
+            How the shift tensor is given; by default from the keys present.
+
+        Returns
+        -------
+        Site
+
+        Raises
+        ------
+        ModelError
+            A value outside its range, or shift keys of two forms.
+
+        See Also
+        --------
+        Site.as_keys
+
+        Examples
+        --------
+        >>> Site.from_keys({"cq_mhz": 3.0, "aniso_ppm": 40.0, "eta_cs": 0.2}).shift.aniso_ppm
+        40.0
+        """
+        where = f"site '{label}'"
+        if shift_form is None:
+            forms = [f for f, ks in (("span_skew", ("span_ppm", "skew")), ("haeberlen", ("aniso_ppm", "eta_cs")),
+                                     ("principal", ("principal_ppm",))) if any(k in values for k in ks)]
+            if len(forms) > 1:
+                raise ModelError(f"{where}: give the shift anisotropy one way only: span_ppm + skew, "
+                                 "aniso_ppm + eta_cs, or principal_ppm")
+            shift_form = forms[0] if forms else "iso"
+
+        def get(key):
+            v = values.get(key)
+            return key_spec("site", key).default if v is None else v
+
+        given: tuple = ()
+        try:
+            if shift_form == "principal":
+                given = tuple(check_number(where, "principal_ppm", x, "site") for x in values["principal_ppm"])
+                shift = ShiftTensor.from_principal(given)
+            else:
+                iso = check_number(where, "shift_ppm", get("shift_ppm"), "site")
+                if shift_form == "span_skew":
+                    given = (check_number(where, "span_ppm", values["span_ppm"], "site"),
+                             check_number(where, "skew", values.get("skew", 0.0), "site"))
+                    shift = ShiftTensor.from_span_skew(iso, *given)
+                elif shift_form == "haeberlen":
+                    given = (check_number(where, "aniso_ppm", values["aniso_ppm"], "site"),
+                             check_number(where, "eta_cs", values.get("eta_cs", 0.0), "site"))
+                    shift = ShiftTensor(iso, *given)
+                else:
+                    shift = ShiftTensor(iso)
+        except TensorError as e:
+            raise ModelError(f"{where}: {e}") from None
+        plain = {k: get(k) for k in _SITE_FIELDS}
+        plain["euler_deg"] = tuple(plain["euler_deg"])
+        return cls(label=label, shift=shift, shift_form=shift_form, shift_given=given,
+                   cq_distribution_mhz=values.get("cq_distribution_mhz"),
+                   eta_distribution=values.get("eta_distribution"), **plain)
+
+    def with_values(self, changes: Mapping) -> "Site":
+        """A copy with some parameter values changed (shift keys in the site's own form).
+
+        Parameters
+        ----------
+        changes : mapping of str to float or tuple
+            Fittable site keys (``cq_mhz``, ``span_ppm``, ``euler_deg`` as 3 angles, ...).
+
+        Returns
+        -------
+        Site
+            Validated like any site; the shift tensor is rebuilt only when a
+            shift key changes.
+
+        Raises
+        ------
+        ModelError
+            A key the site's shift form does not have, or a value out of range.
+
+        Examples
+        --------
+        >>> s = Site.from_keys({"span_ppm": 100.0, "skew": 0.0}, label="P")
+        >>> round(s.with_values({"skew": 0.5}).shift.skew, 9), s.with_values({"weight": 2.0}).weight
+        (0.5, 2.0)
+        """
+        shift_keys = {"shift_ppm": "iso", "span_ppm": "span_skew", "skew": "span_skew", "aniso_ppm": "haeberlen",
+                      "eta_cs": "haeberlen"}
+        plain, shift = {}, {}
+        for k, v in changes.items():
+            if k in shift_keys:
+                form = shift_keys[k]
+                if self.shift_form == "principal" or (form != "iso" and form != self.shift_form):
+                    raise ModelError(f"site '{self.label}': its shift tensor is given as {self.shift_form}, "
+                                     f"which has no {k}")
+                shift[k] = v
+            elif k in _SITE_FIELDS:
+                plain[k] = tuple(v) if k == "euler_deg" else v
+            else:
+                raise ModelError(f"site '{self.label}': {k} is not a site parameter")
+        if shift:
+            keys = self.as_keys()
+            keys.update(shift)
+            new_shift = Site.from_keys(keys, self.label, self.shift_form)
+            plain.update(shift=new_shift.shift, shift_given=new_shift.shift_given)
+        return replace(self, **plain) if plain else self
 
     @property
     def has_efg_distribution(self) -> bool:
@@ -401,12 +585,17 @@ class Site:
         return self.cq_mhz * 1e6
 
 
-def _check_site_distributions(site: "Site", where: str) -> None:
-    """Check and normalise the distribution keys of a site (:mod:`powderspin.disorder.sites` uses them)."""
-    for key in ("shift_fwhm_ppm", "czjzek_sigma_mhz"):
-        object.__setattr__(site, key, check_number(where, key, getattr(site, key), "site"))
-    from ..physics.distributions import DistributionError, _explicit_axis
+#: site keys that describe the shift tensor (handled through :class:`~powderspin.physics.tensors.ShiftTensor`)
+SHIFT_KEYS = frozenset({"shift_ppm", "span_ppm", "skew", "aniso_ppm", "eta_cs", "principal_ppm"})
+#: site keys that are plain fields of Site, from the schema: every number (and the angles) but the shift keys
+_SITE_FIELDS = frozenset(k.name for k in KEYS if k.table == "site" and k.kind in ("number", "angles")
+                         and k.name not in SHIFT_KEYS)
+#: the plain numeric fields (checked against their schema row when a Site is made)
+_SITE_NUMBERS = tuple(sorted(k for k in _SITE_FIELDS if k != "euler_deg"))
 
+
+def _check_site_distributions(site: "Site", where: str) -> None:
+    """Check and normalise the distribution keys of a site (:mod:`powderspin.disorder.site` uses them)."""
     for key, high in (("cq_distribution_mhz", key_spec("site", "cq_distribution_mhz").high), ("eta_distribution", 1.0)):
         d = getattr(site, key)
         if d is None:
@@ -418,7 +607,7 @@ def _check_site_distributions(site: "Site", where: str) -> None:
         else:
             raise ModelError(f"{where}: {key} must be a table {{ values = [...], weights = [...] }}, got {d!r}")
         try:
-            _explicit_axis(key, spec, 0.0, high)
+            explicit_axis(key, spec, 0.0, high)
         except DistributionError as e:
             raise ModelError(f"{where}: {e}") from None
         object.__setattr__(site, key, (tuple(float(x) for x in spec["values"]),
@@ -558,8 +747,6 @@ class Measurement:
         object.__setattr__(self, "orientations", _check_orientations(self.orientations))
         if self.binning == "interpolate" and isinstance(self.orientations, str) and self.orientations not in \
                 key_spec(w, "orientations").choices:
-            from ..physics.orientations import orientation_set_by_name
-
             if not orientation_set_by_name(self.orientations).has_triangles:
                 raise ModelError(
                     f"measurement: orientations = {self.orientations!r} has no triangles, which binning = "
@@ -623,8 +810,6 @@ def _check_baseline(b) -> tuple:
 
 
 def _check_orientations(o):
-    from ..physics.orientations import OrientationSetError, orientation_set_by_name
-
     spec = key_spec("measurement", "orientations")
     if isinstance(o, bool):
         raise ModelError(f"measurement: orientations = {o!r} must be a word, a number or a set name")
@@ -929,7 +1114,11 @@ class Model:
         """
         if address.table == "measurement":
             return float(getattr(self.measurements[address.index], address.key))
-        vals = site_key_values(self.sites[address.index])
+        site = self.sites[address.index]
+        if address.key in _SITE_FIELDS:
+            v = getattr(site, address.key)
+            return float(v[address.item]) if address.item is not None else float(v)
+        vals = site.as_keys()
         if address.key not in vals:
             raise ModelError(
                 f"parameter {address.name(self)}: the site gives its shift tensor as "
@@ -937,6 +1126,54 @@ class Model:
             )
         v = vals[address.key]
         return float(v[address.item]) if address.item is not None else float(v)
+
+    def address_of(self, name: str) -> ParameterAddress:
+        """The address of a parameter from its name, as fit results spell it.
+
+        Parameters
+        ----------
+        name : str
+            ``"LABEL.key"``, ``"LABEL.euler_deg[1]"`` or ``"measurement N.key"`` (N from 1).
+
+        Returns
+        -------
+        ParameterAddress
+
+        Raises
+        ------
+        ModelError
+            An unknown site, measurement or key, naming what exists.
+
+        Examples
+        --------
+        >>> from powderspin.model.modelfile import make_model
+        >>> m = make_model("27Al", {"field_tesla": 9.4}, [{"label": "A", "cq_mhz": 3.0}])
+        >>> m.address_of("A.cq_mhz"), m.address_of("measurement 1.gauss_hz").table
+        (ParameterAddress(table='site', index=0, key='cq_mhz', item=None), 'measurement')
+        """
+        if not isinstance(name, str) or "." not in name:
+            raise ModelError(f"parameter {name!r}: give 'LABEL.key' (e.g. 'AlO4.cq_mhz') or 'measurement N.key'")
+        owner, _, key = name.rpartition(".")
+        item = None
+        if key.endswith("]") and "[" in key:
+            key, _, idx = key[:-1].partition("[")
+            try:
+                item = int(idx)
+            except ValueError:
+                raise ModelError(f"parameter {name!r}: {idx!r} is not an index 0, 1 or 2") from None
+        if owner.startswith("measurement "):
+            try:
+                j = int(owner.split()[1]) - 1
+            except (ValueError, IndexError):
+                raise ModelError(f"parameter {name!r}: 'measurement N' needs a number N from 1") from None
+            if not 0 <= j < len(self.measurements):
+                raise ModelError(f"parameter {name!r}: the model has {len(self.measurements)} measurement(s)")
+            return ParameterAddress("measurement", j, key, item)
+        labels = [s.label for s in self.sites]
+        if owner not in labels:
+            raise ModelError(f"parameter {name!r}: there is no site '{owner}'; sites are "
+                             + ", ".join(repr(x) for x in labels))
+        return ParameterAddress("site", labels.index(owner), key, item)
 
     def with_parameters(self, values: Mapping) -> "Model":
         """A new model with new parameter values (ties applied).
@@ -997,15 +1234,7 @@ class Model:
             put(t.address, v)
         sites = list(self.sites)
         for i, ch in site_changes.items():
-            vals = site_key_values(sites[i])
-            for k in ch:
-                if k not in vals:
-                    raise ModelError(
-                        f"site '{sites[i].label}': its shift tensor is given as {sites[i].shift_form}, "
-                        f"which has no {k}"
-                    )
-            vals.update(ch)
-            sites[i] = _site_from_values(vals, sites[i].label, sites[i].shift_form)
+            sites[i] = sites[i].with_values(ch)
         meas = list(self.measurements)
         for j, ch in meas_changes.items():
             meas[j] = replace(meas[j], **ch)
@@ -1025,7 +1254,27 @@ def _address_set(model: Model, kind: str) -> set:
     return {(p.address.table, p.address.index, p.address.key) for p in getattr(model, kind)}
 
 
-def _is_variable(model: Model, index: int, key: str) -> bool:
+def is_variable(model: Model, index: int, key: str) -> bool:
+    """Whether a site key is free or tied in a model (so a fit may change it).
+
+    Parameters
+    ----------
+    model : Model
+    index : int
+        The site (0-based).
+    key : str
+
+    Returns
+    -------
+    bool
+
+    Examples
+    --------
+    >>> from powderspin.model.modelfile import make_model
+    >>> m = make_model("27Al", {"field_tesla": 9.4}, [{"cq_mhz": {"start": 3.0, "min": 1.0, "max": 5.0}}])
+    >>> is_variable(m, 0, "cq_mhz"), is_variable(m, 0, "eta_q")
+    (True, False)
+    """
     a = ("site", index, key)
     return a in _address_set(model, "free") or a in _address_set(model, "tied")
 
@@ -1062,7 +1311,7 @@ def check_model_distributions(model: Model) -> None:
     nuc = model.nucleus
     for i, s in enumerate(model.sites):
         where = f"site '{s.label}'"
-        sigma_var = _is_variable(model, i, "czjzek_sigma_mhz")
+        sigma_var = is_variable(model, i, "czjzek_sigma_mhz")
         given = [k for k in _DIST_KEYS if (getattr(s, k) not in (None, 0.0)) or (k == "czjzek_sigma_mhz" and sigma_var)]
         if not given:
             continue
@@ -1077,7 +1326,7 @@ def check_model_distributions(model: Model) -> None:
             raise ModelError(f"{where}: czjzek_sigma_mhz is a fit parameter, but the site has an explicit "
                              "cq_distribution_mhz/eta_distribution; give one kind of distribution")
         for key, dist in (("cq_mhz", "cq_distribution_mhz"), ("eta_q", "eta_distribution")):
-            if getattr(s, dist) is not None and _is_variable(model, i, key):
+            if getattr(s, dist) is not None and is_variable(model, i, key):
                 raise ModelError(f"{where}: {key} is a fit parameter, but {dist} replaces it; "
                                  f"remove one of them")
         if s.czjzek_sigma_mhz > 0 or sigma_var:
@@ -1096,78 +1345,6 @@ def check_model_distributions(model: Model) -> None:
 
 
 # --------------------------------------------------------------------------- ranges of (possibly free) values
-
-
-def site_key_values(site: Site) -> dict:
-    """The site's values under its model-file keys, shift tensor in the form it was given.
-
-    Parameters
-    ----------
-    site : Site
-
-    Returns
-    -------
-    dict
-        ``weight``, ``cq_mhz``, ``eta_q``, ``euler_deg``, ``lorentz_hz``,
-        ``gauss_hz``, ``shift_fwhm_ppm``, ``czjzek_sigma_mhz``, the explicit
-        distributions when set (``{"values": [...], "weights": [...]}``) and
-        the shift keys of its form (``shift_ppm`` with ``span_ppm`` +
-        ``skew``, ``aniso_ppm`` + ``eta_cs``, or ``principal_ppm``).
-
-    Examples
-    --------
-    >>> from powderspin.model.modelfile import make_site
-    >>> s = make_site(label="P", shift_ppm=5.0, span_ppm=100.0, skew=0.5)
-    >>> v = site_key_values(s)
-    >>> v["shift_ppm"], round(v["span_ppm"], 9), round(v["skew"], 9)
-    (5.0, 100.0, 0.5)
-    """
-    t = site.shift
-    g = site.shift_given
-    out = {"weight": site.weight, "cq_mhz": site.cq_mhz, "eta_q": site.eta_q,
-           "euler_deg": tuple(site.euler_deg), "lorentz_hz": site.lorentz_hz, "gauss_hz": site.gauss_hz,
-           "shift_fwhm_ppm": site.shift_fwhm_ppm, "czjzek_sigma_mhz": site.czjzek_sigma_mhz}
-    for key in ("cq_distribution_mhz", "eta_distribution"):
-        d = getattr(site, key)
-        if d is not None:
-            out[key] = {"values": list(d[0]), "weights": list(d[1])}
-    if site.shift_form == "principal":
-        out["principal_ppm"] = tuple(g) if len(g) == 3 else tuple(t.principal_iupac)
-        return out
-    out["shift_ppm"] = t.iso_ppm
-    if site.shift_form == "span_skew":
-        out["span_ppm"], out["skew"] = g if len(g) == 2 else (t.span_ppm, t.skew)
-    elif site.shift_form == "haeberlen":
-        out["aniso_ppm"], out["eta_cs"] = g if len(g) == 2 else (t.aniso_ppm, t.eta)
-    return out
-
-
-def _site_from_values(v: dict, label: str, form: str) -> Site:
-    where = f"site '{label}'"
-    given: tuple = ()
-    try:
-        if form == "principal":
-            given = tuple(check_number(where, "principal_ppm", x, "site") for x in v["principal_ppm"])
-            shift = ShiftTensor.from_principal(given)
-        else:
-            iso = check_number(where, "shift_ppm", v.get("shift_ppm", 0.0), "site")
-            if form == "span_skew":
-                given = (check_number(where, "span_ppm", v["span_ppm"], "site"),
-                         check_number(where, "skew", v["skew"], "site"))
-                shift = ShiftTensor.from_span_skew(iso, *given)
-            elif form == "haeberlen":
-                given = (check_number(where, "aniso_ppm", v["aniso_ppm"], "site"),
-                         check_number(where, "eta_cs", v["eta_cs"], "site"))
-                shift = ShiftTensor(iso, *given)
-            else:
-                shift = ShiftTensor(iso)
-    except TensorError as e:
-        raise ModelError(f"{where}: {e}") from None
-    return Site(label=label, weight=v["weight"], shift=shift, cq_mhz=v["cq_mhz"], eta_q=v["eta_q"],
-                euler_deg=tuple(v["euler_deg"]), lorentz_hz=v["lorentz_hz"], gauss_hz=v["gauss_hz"],
-                shift_form=form, shift_given=given, shift_fwhm_ppm=v.get("shift_fwhm_ppm", 0.0),
-                czjzek_sigma_mhz=v.get("czjzek_sigma_mhz", 0.0),
-                cq_distribution_mhz=v.get("cq_distribution_mhz"), eta_distribution=v.get("eta_distribution"))
 
 
 # ---------------------------------------------------------------------------

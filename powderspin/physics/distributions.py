@@ -830,8 +830,26 @@ def ct_edges_hz(cq_mhz, eta, spin: float, larmor_hz: float, experiment: str = "m
 
 
 @functools.lru_cache(maxsize=4)
-def _g_table(experiment: str, points: int = 401) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """eta table with g_min and g_max (read-only arrays)."""
+def ct_g_table(experiment: str, points: int = 401) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """A table of eta with the extremes g_min(eta), g_max(eta) of the second-order CT pattern (read-only).
+
+    Parameters
+    ----------
+    experiment : {"static", "mas"}
+    points : int, optional
+        Values of eta, equally spaced in [0, 1].
+
+    Returns
+    -------
+    eta, g_min, g_max : numpy.ndarray
+        See :func:`ct_g_extremes` for the meaning of g.
+
+    Examples
+    --------
+    >>> eta, lo, hi = ct_g_table("mas", 5)
+    >>> eta.tolist(), bool((lo < hi).all())
+    ([0.0, 0.25, 0.5, 0.75, 1.0], True)
+    """
     eta = np.linspace(0.0, 1.0, points)
     ext = np.array([_simplex_extremes(_quadratic_form(float(e), experiment)) for e in eta])
     for a in (eta, ext):
@@ -923,8 +941,29 @@ class DistributionGrid:
         return "\n".join(lines)
 
 
-def _uniform_in_measure(t_table, x_table, lo, hi, cells):
-    """Edges and midpoints equally spaced in the increasing measure t(x) between x = lo and hi."""
+def uniform_in_measure(t_table, x_table, lo, hi, cells):
+    """Cell edges and midpoints equally spaced in an increasing measure t(x) between x = lo and hi.
+
+    Parameters
+    ----------
+    t_table, x_table : numpy.ndarray
+        The measure t tabulated against x (both increasing).
+    lo, hi : float
+        The range of x.
+    cells : int
+
+    Returns
+    -------
+    edges, mids : numpy.ndarray
+        In x: ``cells + 1`` edges and ``cells`` midpoints.
+
+    Examples
+    --------
+    >>> x = np.linspace(0.0, 1.0, 101)
+    >>> edges, mids = uniform_in_measure(x ** 2, x, 0.0, 1.0, 2)
+    >>> [round(float(v), 3) for v in edges]
+    [0.0, 0.707, 1.0]
+    """
     t_lo, t_hi = np.interp([lo, hi], x_table, t_table)
     t_edges = np.linspace(t_lo, t_hi, cells + 1)
     t_mid = 0.5 * (t_edges[1:] + t_edges[:-1])
@@ -1051,7 +1090,7 @@ def czjzek_grid(sigma_mhz: float, spin: float, larmor_hz: float, resolution_hz: 
         if e_hi - e_lo < 1e-9:
             e_lo, e_hi = max(0.0, e_lo - 1e-6), min(1.0, e_hi + 1e-6)
 
-    eta_t, gmin_t, gmax_t = _g_table(experiment)
+    eta_t, gmin_t, gmax_t = ct_g_table(experiment)
     inside = (eta_t >= e_lo - 1e-3) & (eta_t <= e_hi + 1e-3)
     g_abs = float(np.max(np.maximum(np.abs(gmin_t[inside]), np.abs(gmax_t[inside]))))
     edge_per_s = a * 1e12 / (2 * nu0) * g_abs  # Hz of edge move per MHz^2 of C_Q^2
@@ -1072,7 +1111,7 @@ def czjzek_grid(sigma_mhz: float, spin: float, larmor_hz: float, resolution_hz: 
     s_edges = np.linspace(s_lo, s_hi, k + 1)
     cq_edges = np.sqrt(s_edges)
     cq_nodes = np.sqrt(0.5 * (s_edges[1:] + s_edges[:-1]))
-    eta_edges, eta_nodes = _uniform_in_measure(t_table, eta_t, e_lo, e_hi, m)
+    eta_edges, eta_nodes = uniform_in_measure(t_table, eta_t, e_lo, e_hi, m)
 
     if method == "quadrature":
         mass = czjzek_cell_mass(cq_edges, eta_edges, s)
@@ -1090,7 +1129,34 @@ def czjzek_grid(sigma_mhz: float, spin: float, larmor_hz: float, resolution_hz: 
     )
 
 
-def _explicit_axis(name: str, spec, low: float, high: float) -> tuple[np.ndarray, np.ndarray]:
+def explicit_axis(name: str, spec, low: float, high: float) -> tuple[np.ndarray, np.ndarray]:
+    """Check one explicit distribution ``{values, weights}``: values in [low, high], distinct, weights >= 0.
+
+    Parameters
+    ----------
+    name : str
+        Its key, for messages (``"cq_distribution_mhz"``).
+    spec : mapping
+        ``{"values": [...], "weights": [...]}``.
+    low, high : float
+        Allowed range of the values.
+
+    Returns
+    -------
+    values, weights : numpy.ndarray
+        Sorted by value; weights normalised to sum 1.
+
+    Raises
+    ------
+    DistributionError
+        Naming the key and what is wrong.
+
+    Examples
+    --------
+    >>> v, w = explicit_axis("eta_distribution", {"values": [0.5, 0.1], "weights": [1, 3]}, 0.0, 1.0)
+    >>> v.tolist(), w.tolist()
+    ([0.1, 0.5], [0.75, 0.25])
+    """
     if not isinstance(spec, Mapping):
         raise DistributionError(f"{name} must be a table {{values = [...], weights = [...]}}, "
                                 f"not {type(spec).__name__}")
@@ -1158,8 +1224,8 @@ def explicit_grid(cq_distribution_mhz: Mapping, eta_distribution: Mapping) -> Di
     ...     print(e)
     cq_distribution_mhz has 2 values but 1 weights; the lengths must be equal
     """
-    cq, wc = _explicit_axis("cq_distribution_mhz", cq_distribution_mhz, 0.0, math.inf)
-    eta, we = _explicit_axis("eta_distribution", eta_distribution, 0.0, 1.0)
+    cq, wc = explicit_axis("cq_distribution_mhz", cq_distribution_mhz, 0.0, math.inf)
+    eta, we = explicit_axis("eta_distribution", eta_distribution, 0.0, 1.0)
     return DistributionGrid(cq_mhz=cq, eta=eta, weights=np.outer(wc, we), cq_edges_mhz=None, eta_edges=None,
                             tail_mass=0.0, method="explicit")
 

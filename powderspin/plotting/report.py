@@ -15,6 +15,9 @@ from pathlib import Path
 
 import numpy as np
 
+from ..files import check_outputs, write_via
+from ..fitting.result import format_value
+
 __all__ = ["report_figure", "save_report", "save_corner", "REPORT_SUFFIXES"]
 
 #: figure formats the report and corner plot can be written in
@@ -102,12 +105,10 @@ def _shade_outside(ax, ppm, mk):
 
 
 def _table_text(result) -> str:
-    from ..fitting.fitter import _fmt_value
-
     lines = ["fitted values (+- 1 standard error)", ""]
     for name in result.names:
         lines.append(name)
-        lines.append("   " + _fmt_value(result.values[name], result.stderr[name]))
+        lines.append("   " + format_value(result.values[name], result.stderr[name]))
         if result.posterior is not None:
             lo, hi = result.posterior.interval(name)
             lines.append(f"   16-84 %: {lo:.5g} .. {hi:.5g}")
@@ -157,8 +158,6 @@ def save_report(result, path, *, force: bool = False, protect=()) -> Path:
     ...     save_report(r, pathlib.Path(d) / "fit.png").stat().st_size > 1000
     True
     """
-    from ..files import check_outputs, write_via
-
     p = Path(path)
     check_outputs([(p, "report", REPORT_SUFFIXES)], force=force, protect=protect)
     fig = report_figure(result)
@@ -203,19 +202,15 @@ def save_corner(result, path, *, force: bool = False, protect=()) -> Path:
         raise ValueError("the fit has no posterior samples: fit with posterior=True (--posterior)")
     import corner
     import matplotlib
-
-    from ..files import check_outputs, write_via
+    from matplotlib.figure import Figure
 
     p = Path(path)
     check_outputs([(p, "corner plot", REPORT_SUFFIXES)], force=force, protect=protect)
     post = result.posterior
+    k = len(post.names)
     with matplotlib.rc_context({"font.size": 8}):
+        fig = Figure(figsize=(2.0 * k + 1.0, 2.0 * k + 1.0))  # not pyplot: the caller's backend is left alone
         fig = corner.corner(post.samples, labels=list(post.names), quantiles=[0.16, 0.5, 0.84],
-                            show_titles=True, title_fmt=".4g", color=_FIT)
-    try:
-        return write_via(p, lambda tmp: fig.savefig(tmp, dpi=100, format=p.suffix[1:]), force=force,
-                         protect=protect, role="corner plot")
-    finally:
-        import matplotlib.pyplot as plt
-
-        plt.close(fig)
+                            show_titles=True, title_fmt=".4g", color=_FIT, fig=fig)
+    return write_via(p, lambda tmp: fig.savefig(tmp, dpi=100, format=p.suffix[1:]), force=force,
+                     protect=protect, role="corner plot")

@@ -11,6 +11,7 @@ transition.
 from __future__ import annotations
 
 import numpy as np
+from matplotlib.figure import Figure
 
 from ..files import write_via
 
@@ -193,15 +194,7 @@ def save_plot(spectrum, path, *, force: bool = False, protect=(), **options):
 
     p = Path(path)
     check_outputs([(p, "plot", PLOT_SUFFIXES)], force=force, protect=protect)
-    import matplotlib
-
-    matplotlib.use("Agg", force=False)
-    import matplotlib.pyplot as plt
-
-    fig, ax = plt.subplots(figsize=(7.5, 4.2), layout="constrained")
-    try:
-        plot_spectrum(spectrum, ax, **options)
-        return write_via(p, lambda tmp: fig.savefig(tmp, dpi=120, format=p.suffix[1:].lower()), force=force,
-                         protect=protect, role="plot")
-    finally:
-        plt.close(fig)
+    fig = Figure(figsize=(7.5, 4.2), layout="constrained")  # not pyplot: the caller's backend is left alone
+    plot_spectrum(spectrum, fig.add_subplot(), **options)
+    return write_via(p, lambda tmp: fig.savefig(tmp, dpi=120, format=p.suffix[1:].lower()), force=force,
+                     protect=protect, role="plot")

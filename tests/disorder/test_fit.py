@@ -10,7 +10,7 @@ Sources named beside each check:
   asymptotics for Gaussian noise: common practice); the test asks for 90 % of 20 seeded trials.
 - <P_Q> = sigma 8 sqrt(2)/(3 sqrt(pi)) for the Czjzek model (chi distribution with 5 degrees of
   freedom; scipy.stats.chi is the outside reference) and <C_Q> = (15/16) <P_Q> (derived in
-  powderspin.disorder.sites.distribution_means; checked here against sampled tensors).
+  powderspin.disorder.summary.distribution_means; checked here against sampled tensors).
 
 Size: 3e6 reference crystallites (their histogram noise after the shift Gaussian is 4e-4 of the
 maximum, far below the 2 % noise added) and 512-point spectra keep the file to about 20 s.
@@ -27,7 +27,8 @@ from scipy import stats
 
 import powderspin as ps
 from powderspin.disorder.library import LineshapeLibrary
-from powderspin.disorder.sites import KernelStore, distribution_means
+from powderspin.disorder.store import KernelStore
+from powderspin.disorder.summary import distribution_means
 from powderspin.engine.lineshape import make_axis
 from powderspin.io.spectra import MeasuredSpectrum
 from powderspin.physics.distributions import (
@@ -63,6 +64,7 @@ def _start_model():
          "shift_fwhm_ppm": {"start": 4.0, "min": 3.0, "max": 15.0}}])
 
 
+@pytest.mark.slow
 def test_sigma_and_shift_width_are_recovered_within_two_standard_errors(reference):
     ax, y0 = reference
     store = KernelStore(None)
@@ -137,13 +139,12 @@ def test_fit_reports_the_means_with_delta_method_errors(reference):
     assert vc == pytest.approx(15 / 16 * v, rel=1e-12) and ec == pytest.approx(15 / 16 * e, rel=1e-3)
     text = r.summary()
     assert "Al4.mean_cq_mhz" in text and "(derived)" in text
-    from powderspin.fitting.fitter import result_to_dict
-
-    res = result_to_dict(r)["fit"]["result"]
+    res = r.to_dict()["fit"]["result"]
     assert res["derived"]["Al4.mean_pq_mhz"] == pytest.approx(v)
     assert res["derived_stderr"]["Al4.mean_pq_mhz"] == pytest.approx(e)
 
 
+@pytest.mark.slow
 def test_extended_czjzek_fit_frees_the_fixed_tensor_and_sigma():
     # The extended model's fixed part (C_Q0, eta0) and sigma may be fitted together; data made by the engine
     # itself (this checks the machinery: the seeded tensors behind the weights make the objective smooth).

@@ -447,6 +447,7 @@ def _run_processes(folder, id_sets, max_bytes):
 ID_SETS = [list(range(0, 30)), list(range(15, 45)) + list(range(10)), list(range(30, 60)) + list(range(10))]
 
 
+@pytest.mark.slow
 def test_several_processes_fill_one_library(tmp_path):
     out = _run_processes(tmp_path, ID_SETS, DEFAULT_MAX_BYTES)
     for bad, messages in out:
@@ -460,6 +461,7 @@ def test_several_processes_fill_one_library(tmp_path):
     assert not [p for p in tmp_path.rglob("*") if p.name.startswith(".tmp-")]
 
 
+@pytest.mark.slow
 def test_several_processes_with_eviction(tmp_path):
     # A cap of about ten entries: every store evicts while other processes read and write.
     size = LineshapeLibrary(tmp_path / "probe").put(_key(0), _arrays(0)).stat().st_size

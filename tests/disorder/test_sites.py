@@ -36,15 +36,10 @@ import pytest
 
 import powderspin as ps
 from powderspin.cli.main import main
+from powderspin.disorder.grid import EfgDistribution, _principal_cq_eta_fast, oversampling, plan_grid
 from powderspin.disorder.library import DamagedEntryWarning, LineshapeLibrary
-from powderspin.disorder.sites import (
-    DistributedSite,
-    EfgDistribution,
-    KernelStore,
-    _principal_cq_eta_fast,
-    oversampling,
-    plan_grid,
-)
+from powderspin.disorder.site import DistributedSite
+from powderspin.disorder.store import KernelStore
 from powderspin.engine.lineshape import broaden, make_axis
 from powderspin.model.modelfile import model_to_toml, parse_model
 from powderspin.model.values import ModelError, ParameterAddress, Site
@@ -124,9 +119,10 @@ def test_shift_fwhm_equals_an_explicit_average_of_shifted_spectra(nucleus, meas,
     x = np.arange(-5 * sd, 5 * sd + 1e-9, 0.25)
     w = np.exp(-0.5 * (x / sd) ** 2)
     w /= w.sum()
-    memo: dict = {}
-    avg = sum(wi * _simulate(meas, [dict(site, shift_ppm=site["shift_ppm"] + xi)], nucleus=nucleus,
-                             lines_memo=memo, methods=["perturbation"]).intensity for xi, wi in zip(x, w))
+    # one Simulator with the shift as its parameter: the lines are computed once and translated
+    sim = ps.Simulator(ps.make_model(nucleus, meas, [site]), methods=["perturbation"],
+                       parameters=[ps.ParameterAddress("site", 0, "shift_ppm")], kernel_store=KernelStore(None))
+    avg = sum(wi * sim.spectrum([site["shift_ppm"] + xi]).intensity for xi, wi in zip(x, w))
     assert _rms(got, avg) < 1e-3
 
 
@@ -242,6 +238,7 @@ def test_grid_converges_under_refinement(spinning, sigma, gauss):
     assert _rms(y0, y1) < 5e-3
 
 
+@pytest.mark.slow
 def test_scaled_path_equals_direct_path():
     # The scaled path (one unit pattern per eta, scaled by C_Q^2) against full site computations of
     # every sub-sample: the second-order CT offset is exactly proportional to C_Q^2 (design notes s. 2).
@@ -381,6 +378,7 @@ def _csv_intensity(path):
     return np.array([float(r.split(",")[2]) for r in rows])
 
 
+@pytest.mark.slow
 def test_two_processes_fill_one_library_at_once(tmp_path):
     # One file per entry, written to a temporary file and renamed into place (h5py issue 1864 is the hazard).
     model = _glass(tmp_path, 1.7)
@@ -433,6 +431,7 @@ def test_damaged_entries_are_reported_and_rebuilt_through_simulate(tmp_path):
     assert store2.stats.rows_built == 0
 
 
+@pytest.mark.slow
 def test_size_cap_evicts_the_least_recently_used_kernels(tmp_path):
     # Two grids of about the same size under a cap of one and a half grids: storing the second
     # evicts entries of the first (the least recently used), never the second's.
@@ -459,6 +458,7 @@ def test_size_cap_evicts_the_least_recently_used_kernels(tmp_path):
     assert sa.stats.rows_built >= len(entries_a - left) > 0
 
 
+@pytest.mark.slow
 def test_ctrl_c_during_a_grid_build_stops_cleanly(tmp_path):
     # A grid on the direct path (finite-rate spinning: every line shape is a full computation with
     # sidebands) takes tens of seconds; Ctrl-C once the first kernel row is stored must stop it with

@@ -14,7 +14,7 @@ from powderspin.model.modelfile import make_model
 from powderspin.model.values import Measurement, ModelError, ParameterAddress, Site
 from powderspin.physics.nuclides import get_nuclide
 from powderspin.physics.tensors import ShiftTensor
-from powderspin.simulator import simulate
+from powderspin.simulator import Simulator, simulate
 
 AL = get_nuclide("27Al")
 
@@ -69,19 +69,17 @@ def replace_meas(meas: Measurement, **changes) -> Measurement:
 def test_rerender_with_new_broadening_weight_and_shift_calls_no_producer(count_producers):
     """Re-rendering matches a full simulate to 1e-12 and computes no frequencies."""
     m0 = _model()
-    memo: dict = {}
-    simulate(m0, lines_memo=memo)
-    assert count_producers["n"] > 0 and len(memo) == 1
-    m1 = m0.with_parameters({ParameterAddress("site", 0, "shift_ppm"): 71.5,
-                             ParameterAddress("site", 0, "gauss_hz"): 333.0,
-                             ParameterAddress("site", 0, "weight"): 2.5,
-                             ParameterAddress("measurement", 0, "lorentz_hz"): 120.0,
-                             ParameterAddress("measurement", 0, "shift_offset_ppm"): -1.25})
+    changes = {ParameterAddress("site", 0, "shift_ppm"): 71.5, ParameterAddress("site", 0, "gauss_hz"): 333.0,
+               ParameterAddress("site", 0, "weight"): 2.5, ParameterAddress("measurement", 0, "lorentz_hz"): 120.0,
+               ParameterAddress("measurement", 0, "shift_offset_ppm"): -1.25}
+    sim = Simulator(m0, parameters=list(changes))
+    assert count_producers["n"] > 0 and len(sim.cache.lines) == 2  # the auto-phase job and its pinned twin
+    m1 = m0.with_parameters(changes)
     count_producers["n"] = 0
-    again = simulate(m1, lines_memo=memo)
+    again = sim.spectrum(changes)
     assert count_producers["n"] == 0
     # the same through the stage's own render step, from the memo's lines
-    lines = next(iter(memo.values()))
+    lines = next(iter(sim.cache.lines.values()))
     nu_ref = AL.larmor_hz(9.4)
     axis = Axis.from_points(again.hz, nu_ref)
     r = render_lines(lines, axis, shift_hz=(71.5 - 1.25) * nu_ref * 1e-6, weight=2.5, lorentz_hz=120.0,
@@ -95,11 +93,10 @@ def test_rerender_with_new_broadening_weight_and_shift_calls_no_producer(count_p
 
 def test_parameters_that_change_lines_do_recompute(count_producers):
     m0 = _model()
-    memo: dict = {}
-    simulate(m0, lines_memo=memo)
+    sim = Simulator(m0, parameters=["A.cq_mhz"])
     count_producers["n"] = 0
-    simulate(m0.with_parameters({ParameterAddress("site", 0, "cq_mhz"): 4.2}), lines_memo=memo)
-    assert count_producers["n"] > 0 and len(memo) == 2
+    sim.spectrum({"A.cq_mhz": 4.2})
+    assert count_producers["n"] > 0 and len(sim.cache.lines) == 3
 
 
 def test_auto_method_is_decided_once(count_producers, monkeypatch):

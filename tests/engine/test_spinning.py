@@ -616,6 +616,7 @@ def _numpy_rotor_average(spin, nu0, cq_hz, eta, iso_ppm, axes, rotor_rad, phases
     return np.array(out)
 
 
+@pytest.mark.slow
 def test_exact_route_chosen_and_centre_bands_match_numpy():
     """27Al, C_Q = 10 MHz at 4.7 T (C_Q/nu0 ~ 0.19), 20 kHz MAS: "auto" must use exact diagonalisation.
 

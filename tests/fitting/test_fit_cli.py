@@ -50,6 +50,7 @@ def _csv_columns(path):
     return {h: data[:, k] for k, h in enumerate(head)}
 
 
+@pytest.mark.slow
 def test_fit_command_outputs_and_simulate_reproduces(tmp_path):
     """fit writes the result, the CSV and the report; simulate of the result gives the fit column back."""
     for f in ("good.toml", "line.csv"):
@@ -81,6 +82,7 @@ def test_fit_command_outputs_and_simulate_reproduces(tmp_path):
     assert r4.returncode == 0, r4.stderr
 
 
+@pytest.mark.slow
 def test_ctrl_c_stops_with_130_and_leaves_nothing(tmp_path):
     """SIGINT during a long posterior run: exit 130, one line, no output file (the check is on files, not time)."""
     for f in ("good.toml", "line.csv"):

@@ -25,7 +25,8 @@ import pytest
 
 import powderspin as ps
 from powderspin.engine.lineshape import make_axis
-from powderspin.fitting.fitter import FitError, fit, result_to_toml, write_result
+from powderspin.fitting.fitter import FitError, fit
+from powderspin.io.results import result_to_toml, write_result
 from powderspin.io.spectra import MeasuredSpectrum as _Spectrum
 from tests.reference import fit_spectra as fr
 from tests.reference import herzfeld_berger as hb
@@ -280,6 +281,7 @@ def test_two_field_fit_separates_cq_from_shift():
     assert abs(both.values["A.shift_ppm"] - 30.0) <= 3 * both.stderr["A.shift_ppm"]
 
 
+@pytest.mark.slow
 def test_posterior_intervals_agree_with_jacobian_errors():
     """emcee 16/84 % half-widths within 30 % of the Jacobian standard errors for a well-determined case.
 
@@ -362,3 +364,29 @@ def test_fit_errors_are_one_line_value_errors():
     with pytest.raises(FitError, match="outside the data"):
         fit(m2, [_data(axis, np.ones(64))], regions=[(500.0, 400.0)])
     assert issubclass(FitError, ValueError)
+
+
+def test_a_fit_says_when_the_optimiser_stopped_early(tmp_path):
+    # The optimiser's verdict is part of the result: max_evaluations = 3 cannot converge, and the result
+    # object, its summary and the result file all say so.
+    truth = ps.make_model("31P", {"field_tesla": 9.4, "points": 256, "center_ppm": 0.0, "width_ppm": 40.0},
+                          [{"label": "P", "shift_ppm": 3.0, "lorentz_hz": 300.0}])
+    s = ps.simulate(truth)
+    y = 5.0 * s.intensity + np.random.default_rng(1).normal(0.0, 0.01, s.hz.size)
+    data = ps.MeasuredSpectrum(s.hz, s.ppm, y, None, s.nu_ref_hz, "synthetic")
+    start = ps.make_model("31P", {"field_tesla": 9.4},
+                          [{"label": "P", "shift_ppm": {"start": 0.0, "min": -10.0, "max": 10.0},
+                            "lorentz_hz": {"start": 200.0, "min": 10.0, "max": 2000.0}}])
+    r = ps.fit(start, [data], max_evaluations=3)
+    assert r.success is False and "stopped" in r.message
+    assert r.warnings[0] == r.message and "warning: the optimiser stopped" in r.summary()
+    write_result(r, tmp_path / "r.toml")
+    res = ps.load_model(tmp_path / "r.toml")  # still a valid model file
+    import tomllib
+
+    table = tomllib.loads((tmp_path / "r.toml").read_text())["fit"]["result"]
+    assert table["success"] is False and "stopped" in table["message"] and res.sites[0].label == "P"
+    good = ps.fit(start, [data])
+    assert good.success and good.message.startswith("converged")
+    assert good.covariance.shape == (2, 2) and good.n_evaluations == good.evaluations > 3
+    np.testing.assert_allclose(np.sqrt(np.diag(good.covariance)), [good.stderr[n] for n in good.names])

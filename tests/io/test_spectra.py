@@ -22,6 +22,7 @@ import pytest
 
 from powderspin.engine.spectrum import Spectrum
 from powderspin.files import OutputExistsError
+from powderspin.io.results import spectrum_csv_text
 from powderspin.io.spectra import (
     MATCH_TOLERANCE,
     MIN_POINTS,
@@ -109,7 +110,7 @@ def test_reads_the_csv_that_powderspin_writes(tmp_path):
                    metadata={"nucleus": "31P", "field_tesla": 11.7, "nu_ref_hz": nu, "spinning_hz": 10000.0,
                              "methods": {"P1": "perturbation"}})
     path = tmp_path / "sim.csv"
-    path.write_text(sim.csv_text())
+    path.write_text(spectrum_csv_text(sim))
     spec = read_spectrum(path)
     assert spec.nucleus == "31P" and spec.field_tesla == 11.7 and spec.nu_ref_hz == nu
     assert spec.metadata["nu_ref_source"] == "stated by the file"

@@ -119,6 +119,7 @@ def test_marginal_cdfs_agree_with_quadrature_of_the_density():
     assert m[1, 1] == pytest.approx(ref, abs=1e-10)
 
 
+@pytest.mark.slow
 def test_sampled_tensors_follow_the_closed_form(czjzek_sample):
     cq, eta = czjzek_sample
     # 1-D KS tests on the marginals against the closed-form CDFs (scipy.stats.kstest)

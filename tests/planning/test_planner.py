@@ -452,6 +452,7 @@ eta_q = 0.6
 """
 
 
+@pytest.mark.slow
 def test_ctrl_c_stops_a_plan_at_once_with_130_and_no_output(tmp_path):
     model = tmp_path / "slow.toml"
     model.write_text(SLOW_PLAN)
@@ -481,3 +482,65 @@ def test_readme_rotor_table_example_is_a_valid_table(tmp_path):
     p.write_text(blocks[0])
     t = load_rotor_table(p)
     assert [(r.name, r.max_rate_hz, r.sample_volume_ul) for r in t.rotors] == [("4 mm", 14000.0, 50.0)]
+
+
+# ----------------------------------------------------------------------------- the redesign's promises
+
+
+def _numbers_agree(a, b, path=""):
+    """Every number of two plan JSONs agrees to 1e-9; Fisher matrices relative to sqrt(F_ii F_jj)."""
+    if isinstance(a, dict):
+        assert set(a) == set(b), path
+        for k in a:
+            if k not in ("timings_s", "powderspin_version"):
+                _numbers_agree(a[k], b[k], f"{path}/{k}")
+    elif isinstance(a, list):
+        assert len(a) == len(b), path
+        if path.endswith("/fisher") and a:
+            fa, fb = np.array(a, float), np.array(b, float)
+            d = np.sqrt(np.outer(np.diag(fa), np.diag(fa)))
+            assert np.max(np.abs(fa - fb) / d) < 1e-9, path
+            return
+        for k, (x, y) in enumerate(zip(a, b)):
+            _numbers_agree(x, y, f"{path}[{k}]")
+    elif isinstance(a, float) and isinstance(b, float):
+        assert abs(a - b) <= 1e-9 * max(abs(a), abs(b)), (path, a, b)
+    elif isinstance(a, (int, float)) and not isinstance(a, bool):
+        assert a == b, path
+
+
+def test_the_plan_example_is_what_it_was_before_the_simulator():
+    # Source: the JSON of `powderspin plan examples/plan_alpo.toml` made by the planner before it ran through
+    # the Simulator (its own copy of the pipeline; tests/planning/plan_alpo_before_redesign.json).  Every
+    # number must agree to 1e-9 (Fisher elements relative to their diagonal scale).
+    ROOT = Path(__file__).resolve().parents[2]
+    before = json.loads((Path(__file__).parent / "plan_alpo_before_redesign.json").read_text())
+    now = ps.plan(ps.load_model(ROOT / "examples" / "plan_alpo.toml")).to_dict()
+    _numbers_agree(before, now)
+
+
+@pytest.mark.slow
+def test_the_planner_calls_no_pipeline_stage_itself(monkeypatch):
+    # Every spectrum of a plan goes through the Simulator: the stage functions are called from
+    # powderspin.simulator (or deeper in the engine), never from powderspin.planning.
+    import inspect
+
+    import powderspin.engine.site_lines as stage
+    import powderspin.simulator as simulator_module
+
+    callers = []
+    for module in (stage, simulator_module):
+        for name in ("site_job", "compute_lines", "render_lines", "choose_method", "choose_orientations"):
+            original = getattr(module, name)
+
+            def spy(*a, _f=original, **k):
+                callers.append(inspect.stack()[1].frame.f_globals.get("__name__", ""))
+                return _f(*a, **k)
+
+            monkeypatch.setattr(module, name, spy)
+    m = ps.make_model("27Al", {"field_tesla": 14.1, "orientations": 10, "lorentz_hz": 200.0},
+                      [{"label": "A", "shift_ppm": 60.0, "cq_mhz": 4.0, "eta_q": 0.3},
+                       {"label": "B", "shift_ppm": 10.0, "cq_mhz": 6.0, "eta_q": 0.5}])
+    ps.plan(m, [9.4, 14.1], rates_hz=[8000, 16000])
+    assert callers, "the spies saw nothing"
+    assert not [c for c in callers if c.startswith("powderspin.planning")], sorted(set(callers))

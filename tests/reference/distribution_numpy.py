@@ -1,6 +1,6 @@
 """Slow, obvious spectra of a site with a distribution of EFG tensors, by brute-force sampling.
 
-Independent of the kernel grid of :mod:`powderspin.disorder.sites`: no (C_Q, eta)
+Independent of the kernel grid of :mod:`powderspin.disorder.site`: no (C_Q, eta)
 grid, no orientation set, no triangle interpolation, no scaling of unit
 patterns.  Each sampled (C_Q, eta) (e.g. from
 :func:`powderspin.physics.distributions.sample_czjzek`) is one "site" seen by

@@ -1,0 +1,222 @@
+"""The objective of a fit: free parameters -> whitened residual, with the linear parameters solved.
+
+Each measurement is simulated by its own :class:`~powderspin.simulator.Simulator`
+on its data axis.  The intensity scale and the coefficients of an optional
+polynomial baseline enter each spectrum linearly and are solved by linear
+least squares at every evaluation (variable projection: G. H. Golub,
+V. Pereyra, SIAM J. Numer. Anal. 10 (1973) 413), so the nonlinear optimiser
+sees only the physical parameters.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Sequence
+
+import numpy as np
+
+from ..model.values import FreeParameter, Model, ModelError
+from ..progress import emit
+from ..simulator import SimulationCache, Simulator
+from .data import FitError
+
+__all__ = ["FitProblem", "Evaluation"]
+
+
+@dataclass
+class Evaluation:
+    """One evaluation of the objective.
+
+    Attributes
+    ----------
+    theta : ndarray
+        The free parameters.
+    totals : list of ndarray
+        Unscaled model spectra (points,) per measurement.
+    sites : list of ndarray
+        Per-site spectra (n_sites, points) per measurement.
+    coefs : list of ndarray
+        Linear coefficients per measurement: [scale, b0, b1, ...].
+    residual : ndarray
+        Whitened residual over the fit regions, measurements concatenated.
+    logdet : float
+        log det(A_w^T A_w) of the linear problem, for the marginal likelihood.
+    """
+
+    theta: np.ndarray
+    totals: list
+    sites: list
+    coefs: list
+    residual: np.ndarray
+    logdet: float
+
+
+class FitProblem:
+    """Free parameters -> whitened residual ``(data - A c) / sigma`` over the fit regions.
+
+    Parameters
+    ----------
+    model : Model
+        The model to fit (its measurements carry the data axes' pinned choices).
+    params : sequence of FreeParameter
+        The free parameters, in the order of the vectors.
+    axes : sequence of Axis
+        The data axis of each measurement.
+    ys : sequence of ndarray
+        The data of each measurement.
+    masks : sequence of ndarray of bool
+        The fit regions of each measurement.
+    sigmas : sequence of float
+        The noise level of each measurement.
+    methods : sequence of sequence of str or None
+        Each measurement's producers per site (None: decided by the Simulator).
+    order : int or None
+        Baseline order (None: no baseline).
+    progress : callable, optional
+        Subscriber of the progress protocol (stage ``"fit"`` after each
+        evaluation; the Simulators' ``"lines"`` and ``"kernels"``).
+    kernel_store : KernelStore, optional
+    cache : SimulationCache, optional
+        Memos shared with earlier Simulators of this fit.
+
+    Examples
+    --------
+    See :func:`powderspin.fitting.fitter.fit`.
+    """
+
+    def __init__(self, model: Model, params: Sequence[FreeParameter], axes, ys, masks, sigmas, methods,
+                 order: int | None, progress=None, kernel_store=None, cache: SimulationCache | None = None):
+        self.params = list(params)
+        self.axes = list(axes)
+        self.ys = ys
+        self.masks = masks
+        self.sigmas = list(sigmas)
+        self.order = order
+        self.progress = progress
+        self.kernel_store = kernel_store
+        n_jobs = len(model.sites) * len(model.measurements)
+        self.cache = cache if cache is not None else SimulationCache(lines=4 * (len(self.params) + 3) * n_jobs,
+                                                                     rendered=4 * (len(self.params) + 3) * n_jobs)
+        self.lo = np.array([p.min for p in self.params], dtype=float)
+        self.hi = np.array([p.max for p in self.params], dtype=float)
+        self.basis = []
+        for ax, mk in zip(self.axes, masks):
+            u = (ax.hz - ax.center_hz) / (0.5 * ax.width_hz)
+            self.basis.append([] if order is None else [u[mk] ** k for k in range(order + 1)])
+        self.n_evaluations = 0
+        self.best_cost = math.inf
+        self._recent: list[Evaluation] = []
+        self.set_model(model, methods)
+
+    def set_model(self, model: Model, methods) -> None:
+        """(Re)build the Simulators for a model and producers (a fit refines with new choices this way)."""
+        self.model = model
+        self.sims = [Simulator(model, j, axis=self.axes[j], methods=None if methods is None else methods[j],
+                               parameters=[p.address for p in self.params], kernel_store=self.kernel_store,
+                               progress=self.progress, cache=self.cache)
+                     for j in range(len(self.axes))]
+        self.methods = [list(s.methods) for s in self.sims]
+        self._recent = []
+
+    # -- the model at theta
+
+    def model_at(self, theta) -> Model:
+        """The model at a free-parameter vector (ties applied)."""
+        return self.sims[0].model_at(np.asarray(theta, dtype=float))
+
+    def _simulate(self, theta) -> list:
+        try:
+            out = [sim.site_intensities(theta) for sim in self.sims]
+        except ModelError as e:
+            vals = ", ".join(f"{p.name} = {v:.6g}" for p, v in zip(self.params, theta))
+            raise FitError(f"the model cannot be simulated at {vals}: {e}; narrow the parameters' min/max") from None
+        self.n_evaluations += 1
+        return out
+
+    def evaluate(self, theta) -> Evaluation:
+        """Simulate, solve the linear parameters, whiten; the last two evaluations are remembered."""
+        theta = np.asarray(theta, dtype=float)
+        for e in self._recent:
+            if np.array_equal(e.theta, theta):
+                return e
+        sites = self._simulate(theta)
+        totals = [s.sum(axis=0) for s in sites]
+        coefs, res, logdet = [], [], 0.0
+        for j, tot in enumerate(totals):
+            mk = self.masks[j]
+            a = np.column_stack([tot[mk]] + self.basis[j]) / self.sigmas[j]
+            b = self.ys[j][mk] / self.sigmas[j]
+            c, *_ = np.linalg.lstsq(a, b, rcond=None)
+            coefs.append(c)
+            res.append(b - a @ c)
+            sign, ld = np.linalg.slogdet(a.T @ a)
+            logdet += ld if sign > 0 else 700.0
+        r = np.concatenate(res)
+        e = Evaluation(theta.copy(), totals, sites, coefs, r, logdet)
+        self._recent = ([e] + self._recent)[:2]
+        self.best_cost = min(self.best_cost, float(r @ r))
+        emit(self.progress, "fit", self.n_evaluations, unit="evaluations", value=self.best_cost)
+        return e
+
+    def forget(self) -> None:
+        """Forget the remembered evaluations (after a change of the noise levels)."""
+        self._recent = []
+
+    def residual(self, theta) -> np.ndarray:
+        """The whitened residual (the optimiser's objective)."""
+        return self.evaluate(theta).residual
+
+    def steps(self, theta) -> np.ndarray:
+        """Forward-difference steps: 1e-6 of the value, or of 1 % of the range near zero; backward at an upper bound."""
+        theta = np.asarray(theta, dtype=float)
+        span = np.where(np.isfinite(self.hi - self.lo), self.hi - self.lo, 1.0)
+        h = 1e-6 * np.maximum(np.abs(theta), 0.01 * span)
+        return np.where(theta + h > self.hi, -h, h)
+
+    def jacobian(self, theta, full: bool = False):
+        """Forward-difference Jacobian of the projected residual (``full``: also of the model, linear parts fixed)."""
+        theta = np.asarray(theta, dtype=float)
+        e0 = self.evaluate(theta)
+        h = self.steps(theta)
+        jac = np.empty((e0.residual.size, theta.size))
+        dmodel = np.empty_like(jac)
+        for k in range(theta.size):
+            t = theta.copy()
+            t[k] += h[k]
+            ek = self.evaluate(t)
+            jac[:, k] = (ek.residual - e0.residual) / h[k]
+            if full:
+                parts = []
+                for j, (tk, t0) in enumerate(zip(ek.totals, e0.totals)):
+                    mk = self.masks[j]
+                    parts.append(e0.coefs[j][0] * (tk[mk] - t0[mk]) / (h[k] * self.sigmas[j]))
+                dmodel[:, k] = np.concatenate(parts)
+        if not full:
+            return jac
+        return jac, dmodel
+
+    def full_jacobian(self, theta):
+        """Jacobian of the whitened residual with respect to (free parameters, linear parameters)."""
+        e0 = self.evaluate(theta)
+        _, dmodel = self.jacobian(theta, full=True)
+        n_lin = [1 + len(b) for b in self.basis]
+        rows = [int(m.sum()) for m in self.masks]
+        lin = np.zeros((sum(rows), sum(n_lin)))
+        r0 = c0 = 0
+        for j, tot in enumerate(e0.totals):
+            mk = self.masks[j]
+            a = np.column_stack([tot[mk]] + self.basis[j]) / self.sigmas[j]
+            lin[r0:r0 + rows[j], c0:c0 + n_lin[j]] = a
+            r0 += rows[j]
+            c0 += n_lin[j]
+        return np.hstack([-dmodel, -lin]), n_lin
+
+    def chi2_by_measurement(self, e: Evaluation) -> list[float]:
+        """Each measurement's share of chi-square."""
+        out, r0 = [], 0
+        for mk in self.masks:
+            n = int(mk.sum())
+            out.append(float(e.residual[r0:r0 + n] @ e.residual[r0:r0 + n]))
+            r0 += n
+        return out

@@ -1,0 +1,397 @@
+"""What a fit found: frozen results that say whether the fit succeeded, and their result-file form.
+
+:class:`FitResult` holds the fitted model, the values with standard errors,
+the covariance and correlations, the statistics, the optimiser's verdict
+(``success``, ``message``, ``n_evaluations``) and the warnings.
+:meth:`FitResult.to_dict` gives the nested dict of the result file (a model
+file with the fitted values and result tables); the files themselves are
+written by :mod:`powderspin.io.results`.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from types import MappingProxyType
+from typing import Mapping
+
+import numpy as np
+
+from ..model.modelfile import model_to_dict
+from ..model.values import Model
+
+__all__ = ["FitResult", "PosteriorSummary", "format_value"]
+
+
+def format_value(v: float, e: float) -> str:
+    """A value with its standard error, to the digits the error supports.
+
+    Parameters
+    ----------
+    v, e : float
+        Value and standard error (same unit).
+
+    Returns
+    -------
+    str
+
+    Examples
+    --------
+    >>> format_value(3.14159, 0.0123)
+    '3.142 +- 0.012'
+    >>> format_value(2.0, float("inf"))
+    '2 +- inf'
+    """
+    if not math.isfinite(e) or e <= 0:
+        return f"{v:.6g} +- {e:.3g}"
+    digits = max(0, 1 - int(math.floor(math.log10(e))))
+    if digits > 10 or abs(v) >= 1e7:
+        return f"{v:.6g} +- {e:.2g}"
+    return f"{v:.{digits}f} +- {e:.{digits}f}"
+
+
+@dataclass(frozen=True)
+class PosteriorSummary:
+    """Posterior samples of the free parameters (emcee) and their summary.
+
+    Attributes
+    ----------
+    names : tuple of str
+        The free parameters, in the order of the columns of ``samples``.
+    median, low, high : tuple of float
+        Median and 16 % / 84 % quantiles of each parameter (weights
+        normalised to sum 1, as reported).
+    samples : ndarray (n, p)
+        The chain after burn-in, walkers merged (read-only).
+    walkers, steps, burn : int
+        Walkers, steps per walker and discarded steps per walker.
+    autocorrelation_steps : tuple of float
+        Integrated autocorrelation time of each parameter (steps).
+    converged : bool
+        The kept chain is at least 50 autocorrelation times long.
+    acceptance : float
+        Mean acceptance fraction.
+
+    Examples
+    --------
+    >>> s = PosteriorSummary(("a",), (1.0,), (0.9,), (1.1,), np.zeros((4, 1)), 2, 4, 2, (1.0,), False, 0.4)
+    >>> s.interval("a")
+    (0.9, 1.1)
+    """
+
+    names: tuple
+    median: tuple
+    low: tuple
+    high: tuple
+    samples: np.ndarray
+    walkers: int
+    steps: int
+    burn: int
+    autocorrelation_steps: tuple
+    converged: bool
+    acceptance: float
+
+    def __post_init__(self):
+        a = np.array(self.samples, dtype=float)
+        a.flags.writeable = False
+        object.__setattr__(self, "samples", a)
+
+    def interval(self, name: str) -> tuple[float, float]:
+        """The 16 % and 84 % quantiles of one parameter.
+
+        Parameters
+        ----------
+        name : str
+
+        Returns
+        -------
+        tuple of 2 float
+
+        Examples
+        --------
+        >>> s = PosteriorSummary(("a",), (1.0,), (0.9,), (1.1,), np.zeros((4, 1)), 2, 4, 2, (1.0,), True, 0.4)
+        >>> s.interval("a")[1]
+        1.1
+        """
+        k = self.names.index(name)
+        return (self.low[k], self.high[k])
+
+    def to_dict(self) -> dict:
+        """The summary as plain JSON-ready values (without the samples).
+
+        Returns
+        -------
+        dict
+
+        Examples
+        --------
+        >>> s = PosteriorSummary(("a",), (1.0,), (0.9,), (1.1,), np.zeros((4, 1)), 2, 4, 2, (1.0,), True, 0.4)
+        >>> s.to_dict()["converged"]
+        True
+        """
+        return {"walkers": self.walkers, "steps": self.steps, "burn": self.burn,
+                "autocorrelation_steps": [float(t) for t in self.autocorrelation_steps],
+                "converged": self.converged, "acceptance": round(self.acceptance, 4)}
+
+
+@dataclass(frozen=True)
+class FitResult:
+    """What a fit found.
+
+    Attributes
+    ----------
+    model : Model
+        The fitted model: free parameters replaced by their fitted values
+        (ties kept), weights normalised to sum 1, each measurement's axis set
+        to its data's (``points``, ``center_ppm``, ``width_ppm``) and its
+        solved ``scale`` and ``baseline`` set, so that
+        :func:`~powderspin.simulator.simulate` gives the fitted curve.
+    names : tuple of str
+        The free parameters (``"AlO4.cq_mhz"``, ``"measurement 1.gauss_hz"``).
+    values, stderr : Mapping of str to float
+        Fitted values and standard errors (weights normalised to sum 1).
+    covariance : ndarray (p, p)
+        Covariance of the reported values, in the order of ``names`` (inf on
+        the diagonal where the data do not determine a parameter).
+    correlation : ndarray (p, p)
+        Correlation matrix of the free parameters, in the order of ``names``.
+    success : bool
+        The optimiser met its convergence test (False: it stopped early, e.g.
+        at ``max_evaluations``; the values are then not a minimum).
+    message : str
+        The optimiser's verdict in words.
+    n_evaluations : int
+        Simulations of the model (every measurement) the fit made.
+    reduced_chi_square, chi_square : float
+        ``chi^2 / dof`` and ``chi^2 = sum ((data - fit) / sigma)^2`` over the
+        fit regions.
+    degrees_of_freedom : int
+        Points in the fit regions less free and linear parameters.
+    spectra : tuple of Spectrum
+        The best fit of each measurement on its data axis (scale and
+        baseline applied; site columns scaled).
+    data : tuple
+        The measured spectra (:class:`powderspin.io.spectra.MeasuredSpectrum`).
+    data_paths : tuple of str or None
+        Where each measured spectrum was read from.
+    masks : tuple of ndarray of bool
+        Which points of each measurement the fit used.
+    noise : tuple of float
+        The noise level sigma of each measurement (data units).
+    noise_source : {"noise region", "residual"}
+        Where sigma came from.
+    scales, scale_stderr : tuple of float
+        Each measurement's scale as written in ``model`` (data units per
+        density per ppm, multiplied by the sum of the weights) and its error.
+    baselines, baseline_stderr : tuple of tuple of float
+        Each measurement's baseline coefficients (``u`` from -1 to 1 across
+        the axis) and their errors.
+    site_stderr, measurement_stderr : tuple of Mapping
+        Standard errors by model-file key, per site and per measurement
+        (``euler_deg`` as a list of 3, 0 for components that were fixed).
+    warnings : tuple of str
+        Plain-language warnings (parameters the data do not determine, an
+        optimiser that stopped early, ...).
+    notes : tuple of str
+        What else the user should know (a held weight, a refined method, ...).
+    time_s : float
+        Wall time of the fit (s).
+    starts, starts_at_best : int
+        Least-squares starts and how many reached the best chi-square.
+    posterior : PosteriorSummary or None
+        The posterior samples, when asked for.
+    derived : Mapping of str to (float, float)
+        Quantities derived from the fitted values, with standard errors by
+        the delta method: for each site with an EFG distribution its mean
+        C_Q and mean P_Q = C_Q (1 + eta^2/3)^(1/2) (``"LABEL.mean_cq_mhz"``,
+        ``"LABEL.mean_pq_mhz"``).
+
+    Examples
+    --------
+    See :func:`powderspin.fitting.fitter.fit`.
+    """
+
+    model: Model
+    names: tuple
+    values: Mapping
+    stderr: Mapping
+    covariance: np.ndarray
+    correlation: np.ndarray
+    success: bool
+    message: str
+    n_evaluations: int
+    reduced_chi_square: float
+    chi_square: float
+    degrees_of_freedom: int
+    spectra: tuple
+    data: tuple
+    data_paths: tuple
+    masks: tuple
+    noise: tuple
+    noise_source: str
+    scales: tuple
+    scale_stderr: tuple
+    baselines: tuple
+    baseline_stderr: tuple
+    site_stderr: tuple
+    measurement_stderr: tuple
+    warnings: tuple
+    notes: tuple
+    time_s: float
+    starts: int = 1
+    starts_at_best: int = 1
+    posterior: PosteriorSummary | None = None
+    derived: Mapping = field(default_factory=dict)
+
+    def __post_init__(self):
+        for k in ("values", "stderr", "derived"):
+            object.__setattr__(self, k, MappingProxyType(dict(getattr(self, k))))
+        for k in ("correlation", "covariance"):
+            c = np.array(getattr(self, k), dtype=float)
+            c.flags.writeable = False
+            object.__setattr__(self, k, c)
+        object.__setattr__(self, "site_stderr", tuple(MappingProxyType(dict(d)) for d in self.site_stderr))
+        object.__setattr__(self, "measurement_stderr",
+                           tuple(MappingProxyType(dict(d)) for d in self.measurement_stderr))
+
+    @property
+    def evaluations(self) -> int:
+        """Same as :attr:`n_evaluations` (the name of earlier releases)."""
+        return self.n_evaluations
+
+    def residual(self, measurement: int = 0) -> np.ndarray:
+        """Data minus fit of one measurement, on its whole axis (data units).
+
+        Parameters
+        ----------
+        measurement : int, optional
+
+        Returns
+        -------
+        numpy.ndarray
+
+        Examples
+        --------
+        See :func:`powderspin.fitting.fitter.fit`.
+        """
+        return np.asarray(self.data[measurement].intensity) - self.spectra[measurement].intensity
+
+    def summary(self) -> str:
+        """The fitted values, errors and warnings as a few lines of text.
+
+        Returns
+        -------
+        str
+
+        Examples
+        --------
+        See :func:`powderspin.fitting.fitter.fit`.
+        """
+        lines = []
+        w = max((len(n) for n in self.names), default=4)
+        for n in self.names:
+            v, e = self.values[n], self.stderr[n]
+            line = f"  {n:<{w}}  {format_value(v, e)}"
+            if self.posterior is not None:
+                lo, hi = self.posterior.interval(n)
+                med = self.posterior.median[self.posterior.names.index(n)]
+                line += f"   posterior median {med:.6g}, 16-84 %: [{lo:.6g}, {hi:.6g}]"
+            lines.append(line)
+        head = (f"fit: reduced chi-square {self.reduced_chi_square:.4g} ({self.degrees_of_freedom} degrees of "
+                f"freedom; noise from the {self.noise_source}), {self.n_evaluations} evaluations, "
+                f"{self.time_s:.2f} s")
+        if self.starts > 1:
+            head += f", {self.starts_at_best} of {self.starts} starts reached the best fit"
+        out = [head] + lines
+        for n, (v, e) in self.derived.items():
+            out.append(f"  {n:<{w}}  {format_value(v, e)}   (derived)")
+        if self.posterior is not None:
+            p = self.posterior
+            out.append(f"posterior: {p.walkers} walkers x {p.steps} steps, first {p.burn} discarded; longest "
+                       f"autocorrelation time {max(p.autocorrelation_steps):.3g} steps; acceptance {p.acceptance:.2f}")
+        out += [f"note: {t}" for t in self.notes]
+        out += [f"warning: {t}" for t in self.warnings]
+        return "\n".join(out) + "\n"
+
+    def to_dict(self, path=None) -> dict:
+        """The result as the nested dict of a result file: a model file with result tables.
+
+        Parameters
+        ----------
+        path : str or pathlib.Path, optional
+            Where the result file will be written: ``data`` paths are written
+            relative to its folder.
+
+        Returns
+        -------
+        dict
+            :func:`powderspin.model.modelfile.model_to_dict` of the fitted
+            model plus a ``stderr`` (and after sampling ``interval``) table in
+            each fitted site and measurement, and ``[fit.result]``.
+
+        See Also
+        --------
+        powderspin.io.results.write_result
+
+        Examples
+        --------
+        See :func:`powderspin.io.results.write_result`.
+        """
+        d = model_to_dict(self.model)
+        meas = d["measurement"] if isinstance(d["measurement"], list) else [d["measurement"]]
+        base = Path(path).resolve().parent if path is not None else None
+        for j, t in enumerate(meas):
+            if self.data_paths[j] is not None and base is not None:
+                t["data"] = os.path.relpath(Path(self.data_paths[j]).resolve(), base)
+            if self.measurement_stderr[j]:
+                t["stderr"] = dict(self.measurement_stderr[j])
+        for i, t in enumerate(d["site"]):
+            if self.site_stderr[i]:
+                t["stderr"] = dict(self.site_stderr[i])
+        if self.posterior is not None:
+            self._intervals(d, meas)
+        fit = d.setdefault("fit", {})
+        res: dict = {
+            "success": bool(self.success),
+            "message": str(self.message),
+            "reduced_chi_square": float(self.reduced_chi_square),
+            "chi_square": float(self.chi_square),
+            "degrees_of_freedom": int(self.degrees_of_freedom),
+            "noise_source": self.noise_source,
+            "noise": [float(s) for s in self.noise],
+            "evaluations": int(self.n_evaluations),
+            "time_s": round(float(self.time_s), 3),
+            "parameters": list(self.names),
+            "correlation": [[round(float(v), 6) for v in row] for row in self.correlation],
+            "scales": [float(s) for s in self.scales],
+            "baselines": [list(b) for b in self.baselines],
+            "warnings": list(self.warnings),
+            "notes": list(self.notes),
+        }
+        if self.derived:
+            res["derived"] = {n: float(v) for n, (v, _) in self.derived.items()}
+            res["derived_stderr"] = {n: float(e) for n, (_, e) in self.derived.items()}
+        if self.starts > 1:
+            res["starts"] = int(self.starts)
+            res["starts_at_best"] = int(self.starts_at_best)
+        if self.posterior is not None:
+            res["posterior"] = self.posterior.to_dict()
+        fit["result"] = res
+        return d
+
+    def _intervals(self, d: dict, meas: list) -> None:
+        post = self.posterior
+        for k, n in enumerate(post.names):
+            try:
+                a = self.model.address_of(n)
+            except ValueError:
+                continue
+            target = (d["site"][a.index] if a.table == "site" else meas[a.index]).setdefault("interval", {})
+            pair = [float(post.low[k]), float(post.high[k])]
+            if a.item is not None:
+                e = target.setdefault("euler_deg", [[0.0, 0.0], [0.0, 0.0], [0.0, 0.0]])
+                e[a.item] = pair
+            else:
+                target[a.key] = pair
