@@ -1,8 +1,17 @@
-"""Shared helpers for the benchmark scripts: warm timing and a numpy tent binning."""
+"""Shared helpers for the benchmark scripts: warm timing and a numpy tent binning.
+
+Importing this module (before powderspin) sets ``OMP_WAIT_POLICY=PASSIVE``
+unless the environment already sets it, as the command line does: idle kernel
+threads then sleep instead of spinning, which matters on a 2-core machine
+where a spinning thread steals the other core (see powderspin/engine/threads.py).
+"""
 
 from __future__ import annotations
 
+import os
 import time
+
+os.environ.setdefault("OMP_WAIT_POLICY", "PASSIVE")
 
 import numpy as np
 

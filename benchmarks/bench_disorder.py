@@ -209,8 +209,8 @@ def section_fit(repeat: int) -> None:
         warm = KernelStore(None)
         fn(warm)
         t_warm = best_time(lambda: fn(warm), repeat=repeat)
-        print(f"   {label:<44} cached {t_warm:6.3f} s ({r.evaluations} evaluations, "
-              f"{1e3 * t_warm / r.evaluations:.1f} ms each); building its kernels {t_cold:6.2f} s "
+        print(f"   {label:<44} cached {t_warm:6.3f} s ({r.n_evaluations} evaluations, "
+              f"{1e3 * t_warm / r.n_evaluations:.1f} ms each); building its kernels {t_cold:6.2f} s "
               f"({cold.stats.line_shapes} line shapes); ratio {t_cold / t_warm:5.1f}")
 
 

@@ -11,9 +11,9 @@ same run,
 * the same plan with the compiled kernels on 2 threads (the planner runs
   them on 1 by default: thousands of small calls);
 * a straightforward planner for a sample of candidates: every spectrum of
-  the Jacobian simulated from scratch (no memo of site lines, so every site's
-  frequencies and sidebands are recomputed for every parameter), extrapolated
-  to the whole plan.
+  the Jacobian simulated from scratch by a new Simulator (no memo of site
+  lines, so every site's frequencies and sidebands are recomputed for every
+  parameter), extrapolated to the whole plan.
 
 The model is an invented aluminophosphate-like sample (three 27Al sites, C_Q
 4.5 to 8 MHz); "auto" orientation sets and rotor phases, as a user would run it.
@@ -24,10 +24,14 @@ from __future__ import annotations
 import argparse
 import time
 
+import _common  # noqa: F401  (sets the OpenMP wait policy before powderspin starts its kernels)
 import numpy as np
 
 import powderspin as ps
-from powderspin.plan import planner as planning
+from powderspin.physics.orientations import orientation_set_by_name
+from powderspin.planning.precision import parameter_step, precision_parameters
+from powderspin.progress import TerminalProgress
+from powderspin.simulator import Simulator
 
 SITES = [
     {"label": "AlO4", "weight": 0.5, "shift_ppm": 60.0, "cq_mhz": 4.5, "eta_q": 0.3},
@@ -41,40 +45,23 @@ def model():
     return ps.make_model("27Al", {"field_tesla": 14.1, "points": 2048, "lorentz_hz": 150.0}, SITES)
 
 
-class Bar:
-    """The command line's progress bar for a plan (shown after 2 s)."""
-
-    def __init__(self, quiet):
-        from powderspin.progress import StagedProgress
-
-        self.bars = StagedProgress(quiet, delay=2.0)
-
-    def __call__(self, done, total):
-        self.bars.update("plan", done, total=total, unit="experiments")
-
-    def close(self):
-        self.bars.close()
-
-
 def timed_plan(m, quiet, threads=1):
-    bar = Bar(quiet)
+    bar = TerminalProgress(quiet, delay=2.0)
     try:
         t0 = time.perf_counter()
         p = ps.plan(m, FIELDS, n_rates=20, progress=bar, threads=threads)
         wall = time.perf_counter() - t0
     finally:
         bar.close()
-    # simulating: the planner's own line computations and renders, and every call of simulate
-    sim = p.timings["lines"] + p.timings["render"] + p.timings["simulate"]
+    # simulating: every field's set-up and every candidate's spectra and Jacobian, all through the Simulator
+    sim = p.timings["setup"] + p.timings["candidates"]
     return wall, min(1.0, sim / wall), p
 
 
 def straightforward_per_candidate(m, p, samples=4):
     """Seconds per candidate when every Jacobian spectrum is simulated from scratch (no lines memo)."""
     f = p.fields[1]
-    params, _ = planning._precision_parameters(p.model)
-    from powderspin.physics.orientations import orientation_set_by_name
-
+    params, _ = precision_parameters(p.model)
     osets = [orientation_set_by_name(s.orientations) for s in f.sites]
     methods = [s.method for s in f.sites]
     rates = [r for r in f.rates if r.computed][:: max(1, len(f.rates) // samples)][:samples]
@@ -82,12 +69,12 @@ def straightforward_per_candidate(m, p, samples=4):
     for r in rates:
         base = p.model.with_measurement(0, field_tesla=f.field_tesla, spinning_hz=r.rate_hz,
                                         rotor_phases=r.rotor_phases)
-        y0 = ps.simulate(base, axis=f.axis, orientations=osets, methods=methods).intensity
+        y0 = Simulator(base, axis=f.axis, orientations=osets, methods=methods).spectrum().intensity
         cols = []
         for q in params:
-            h = planning._step(q)
-            yk = ps.simulate(base.with_parameters({q.address: q.value + h}), axis=f.axis, orientations=osets,
-                             methods=methods).intensity
+            h = parameter_step(q)
+            yk = Simulator(base.with_parameters({q.address: q.value + h}), axis=f.axis, orientations=osets,
+                           methods=methods).spectrum().intensity
             cols.append((yk - y0) / h)
         np.column_stack(cols)
     return (time.perf_counter() - t0) / len(rates)
@@ -103,8 +90,8 @@ def main(argv=None):
     best = None
     for k in range(args.repeat):
         wall, share, p = timed_plan(m, args.quiet)
-        print(f"run {k + 1}: {wall:.2f} s (simulating {100 * share:.0f} %: lines {p.timings['lines']:.2f} s, "
-              f"renders {p.timings['render']:.2f} s, simulate {p.timings['simulate']:.2f} s)", flush=True)
+        print(f"run {k + 1}: {wall:.2f} s (simulating {100 * share:.0f} %: set-up {p.timings['setup']:.2f} s, "
+              f"candidates {p.timings['candidates']:.2f} s)", flush=True)
         if best is None or wall < best[0]:
             best = (wall, share, p)
     wall, share, p = best

@@ -77,9 +77,8 @@ def test_jacobian_matches_central_differences():
         assert np.max(np.abs(jac[:, k] - ref)) < 2e-3 * np.max(np.abs(ref)), k
 
 
-def test_a_weight_step_does_not_recompute_lines(monkeypatch):
-    m = _model(weight={"start": 1.0, "min": 0.1, "max": 5.0})
-    sim = Simulator(m)
+def _count_line_computations(monkeypatch) -> dict:
+    """Count the Simulator's calls of the producer stage (``compute_lines``) from now on."""
     calls = {"n": 0}
     original = simulator_module.compute_lines
 
@@ -88,6 +87,13 @@ def test_a_weight_step_does_not_recompute_lines(monkeypatch):
         return original(*a, **k)
 
     monkeypatch.setattr(simulator_module, "compute_lines", counted)
+    return calls
+
+
+def test_a_weight_step_does_not_recompute_lines(monkeypatch):
+    m = _model(weight={"start": 1.0, "min": 0.1, "max": 5.0})
+    sim = Simulator(m)
+    calls = _count_line_computations(monkeypatch)
     sim.spectrum({"A.weight": 2.0, "A.gauss_hz": 400.0})
     assert calls["n"] == 0
     sim.spectrum({"A.cq_mhz": 4.1})
@@ -111,14 +117,7 @@ def test_bad_values_are_refused_with_the_name():
 def test_a_shared_cache_lets_a_second_simulator_reuse_lines(monkeypatch):
     cache = SimulationCache()
     Simulator(_model(), cache=cache)
-    calls = {"n": 0}
-    original = simulator_module.compute_lines
-
-    def counted(*a, **k):
-        calls["n"] += 1
-        return original(*a, **k)
-
-    monkeypatch.setattr(simulator_module, "compute_lines", counted)
+    calls = _count_line_computations(monkeypatch)
     Simulator(_model(), cache=cache).spectrum()
     assert calls["n"] == 0
 
