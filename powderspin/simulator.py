@@ -554,7 +554,6 @@ class Simulator:
     def _render_site(self, model: Model, k: int):
         """(RenderedSite, SiteLines or None, translation Hz) of site k of ``model``."""
         meas = model.measurements[self.index]
-        nuc = model.nucleus
         site = model.sites[k]
         f = self.nu_ref_hz * 1e-6
         offset_hz = meas.shift_offset_ppm * f
@@ -570,12 +569,19 @@ class Simulator:
             r = d.render(self.axis, shift_hz=sh, store=self.kernel_store, weight=site.weight, lorentz_hz=lorentz,
                          gauss_hz=gauss, progress=None if self.progress is None else kernel_progress, site=site)
             return r, None, sh
-        job = site_job(site, self._job_meas[k], nuc, self._methods[k], self._sets[k])
-        lines = self._lines(job, k, site.label)
-        sh = (site.shift.iso_ppm - job.iso_ppm) * f + offset_hz
+        lines, sh = self._site_lines(model, k)
         r = render_lines(lines, self.axis, shift_hz=sh, weight=site.weight, lorentz_hz=lorentz, gauss_hz=gauss,
                          binning=meas.binning, memo=self.cache.rendered)
         return r, lines, sh
+
+    def _site_lines(self, model: Model, k: int):
+        """(SiteLines, translation Hz) of site k of ``model`` (not a distributed site), from the memo when there."""
+        site = model.sites[k]
+        job = site_job(site, self._job_meas[k], model.nucleus, self._methods[k], self._sets[k])
+        lines = self._lines(job, k, site.label)
+        f = self.nu_ref_hz * 1e-6
+        sh = (site.shift.iso_ppm - job.iso_ppm) * f + model.measurements[self.index].shift_offset_ppm * f
+        return lines, sh
 
     def _render(self, model: Model):
         if model is not self.model:
@@ -803,9 +809,10 @@ class Simulator:
         model = self.model_at(values)
         meas = model.measurements[self.index]
         out = []
-        for k, (site, (r, lines, sh)) in enumerate(zip(model.sites, self._render(model))):
+        for k, site in enumerate(model.sites):
+            lines, sh = (None, 0.0) if k in self._distributed else self._site_lines(model, k)
             if lines is None or lines.phases == 1:
-                out.append(r.intensity)
+                out.append(self._render_site(model, k)[0].intensity)
                 continue
             if lines.intensity is None:
                 raise ModelError(f"site '{site.label}': its sideband array exceeds the memory budget; choose a smaller "
@@ -832,8 +839,8 @@ class Simulator:
             Normalised to a total of 1 per site; ``[1.0]`` for a distributed site.
         """
         model = self.model_at(values)
-        return [np.ones(1) if lines is None else np.asarray(lines.band_intensity)
-                for _, lines, _ in self._render(model)]
+        return [np.ones(1) if k in self._distributed else np.asarray(self._site_lines(model, k)[0].band_intensity)
+                for k in range(len(model.sites))]
 
     def centres_of_gravity_hz(self, values=None) -> np.ndarray:
         """Each site's centre of gravity (Hz from nu_ref): the rotor-averaged mean line position, shift included.
@@ -849,10 +856,11 @@ class Simulator:
         """
         model = self.model_at(values)
         out = []
-        for _, lines, sh in self._render(model):
-            if lines is None:
+        for k in range(len(model.sites)):
+            if k in self._distributed:
                 out.append(math.nan)
                 continue
+            lines, sh = self._site_lines(model, k)
             tot = float(lines.band_intensity.sum())
             out.append(float(lines.band_position_hz.sum() / tot) + sh if tot > 0 else math.nan)
         return np.array(out)

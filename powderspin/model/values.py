@@ -519,8 +519,15 @@ class Site:
         """
         shift_keys = {"shift_ppm": "iso", "span_ppm": "span_skew", "skew": "span_skew", "aniso_ppm": "haeberlen",
                       "eta_cs": "haeberlen"}
+        current = {} if self.shift_form == "principal" else {"shift_ppm": self.shift.iso_ppm}
+        if self.shift_form in ("span_skew", "haeberlen") and self.shift_given is not None:
+            names = ("span_ppm", "skew") if self.shift_form == "span_skew" else ("aniso_ppm", "eta_cs")
+            current.update(zip(names, self.shift_given))
         plain, shift = {}, {}
         for k, v in changes.items():
+            if k in current and current[k] == v or k in _SITE_FIELDS and getattr(self, k) == (
+                    tuple(v) if k == "euler_deg" else v):
+                continue  # unchanged: nothing to rebuild (a fit step changes one value of many)
             if k in shift_keys:
                 form = shift_keys[k]
                 if self.shift_form == "principal" or (form != "iso" and form != self.shift_form):
