@@ -10,10 +10,12 @@ transition.
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 from matplotlib.figure import Figure
 
-from ..files import write_via
+from ..files import check_outputs, write_via
 
 __all__ = ["plot_spectrum", "save_plot", "PLOT_SUFFIXES"]
 
@@ -188,10 +190,6 @@ def save_plot(spectrum, path, *, force: bool = False, protect=(), **options):
     ...     p.stat().st_size > 0
     True
     """
-    from pathlib import Path
-
-    from ..files import check_outputs
-
     p = Path(path)
     check_outputs([(p, "plot", PLOT_SUFFIXES)], force=force, protect=protect)
     fig = Figure(figsize=(7.5, 4.2), layout="constrained")  # not pyplot: the caller's backend is left alone
