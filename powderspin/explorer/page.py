@@ -280,12 +280,19 @@ class _Page:
 
     def _redraw(self, reset_range: bool = False):
         c = self.state.last
-        self.source.data = self._columns(c)
+        cols = self._columns(c)
+        old = self.source.data
+        if not reset_range and set(cols) == set(old) and np.array_equal(np.asarray(old["x"]), cols["x"]):
+            # only the curves that changed go to the browser (the axis and the data stay)
+            changed = {k: v for k, v in cols.items() if k not in ("x", "data")}
+            self.source.data.update(changed)
+        else:
+            self.source.data = cols
         has_data = c["data"] is not None
         self.data_glyph.visible = has_data
         self.resid_plot.visible = has_data
         if reset_range:
-            x = self.source.data["x"]
+            x = cols["x"]
             self.x_range.update(start=float(np.max(x)), end=float(np.min(x)))
         label = "frequency offset / kHz" if self.unit == "khz" else "shift / ppm"
         self.plot.xaxis.axis_label = label
@@ -293,13 +300,17 @@ class _Page:
         self._show_notes(c)
 
     def _show_notes(self, c):
+        """The status line: what the page shows and the simulation's notes (set only when it changes: a new
+        text makes the browser lay the page out again, which costs more than the redraw itself)."""
         bits = []
         if c["data"] is not None:
-            bits.append(f"scale to data {c['scale']:.4g}")
+            bits.append("data scaled to the simulation by least squares")
         elif self.state.data[self.state.index] is not None:
             bits.append("data hidden: they were recorded at another field or spinning rate")
         bits += c.get("notes", [])[:3]
-        self.status.text = " &middot; ".join(bits)
+        text = " &middot; ".join(bits)
+        if self.status.text != text:
+            self.status.text = text
 
     # -- callbacks
 
@@ -317,7 +328,9 @@ class _Page:
             msg = self.state.set_text(name, text)
         except Exception as e:  # never let one value stop the page
             msg = f"{name}: {e}"
-        msg_div.text = "" if msg is None else msg
+        text = "" if msg is None else msg
+        if msg_div.text != text:
+            msg_div.text = text
         if msg is None:
             self._redraw()
             return True

@@ -217,10 +217,11 @@ def test_kilohertz_axis_and_reversed_axis(served, driver):
 
 
 def test_redraw_latency_is_measured(served, driver):
+    """The figure itself is printed by benchmarks/bench_explorer.py; here: the measurement works."""
     open_page(driver, served.url)
     times = [redraw_ms(driver, "Tet.cq_mhz", f"{3.0 + 0.1 * k:.1f}") for k in range(1, 6)]
-    print(f"redraw after a C_Q change: best {min(times):.1f} ms, median {sorted(times)[2]:.1f} ms")
-    assert all(t > 0 for t in times)
+    print(f"redraw after a C_Q change (ms, data in page / painted): {times}")
+    assert all(0 < a <= b for a, b in times)
 
 
 def test_nothing_is_fetched_from_elsewhere(served, driver):
