@@ -183,7 +183,8 @@ class _Page:
                                  legend_label="data", name="data-line")
         self.data_glyph.visible = has_data
         self.site_glyphs = []
-        for k, lab in enumerate(self.state.last["labels"]):
+        labels = self.state.last["labels"]
+        for k, lab in enumerate(labels if len(labels) > 1 else []):  # one site: its component is the simulation
             g = p.line("x", f"site_{k}", source=self.source, color=COMPONENT_COLOURS[k % len(COMPONENT_COLOURS)],
                        line_width=1.1, line_dash="dashed", legend_label=f"site {lab}")
             self.site_glyphs.append(g)
@@ -218,8 +219,8 @@ class _Page:
                 rows.append(Div(text=f"<b>{owner if what == 'measurement' else 'site ' + owner}</b>",
                                 styles={"color": ACCENT, "margin-top": "6px"}))
             rows.append(self._control_row(c))
-        return column(*rows, width=430, height=560, styles={"overflow-y": "auto", "padding-left": "12px"},
-                      name="controls")
+        return column(*rows, width=460, height=560,
+                      styles={"overflow-y": "auto", "overflow-x": "hidden", "padding-left": "12px"}, name="controls")
 
     def _control_row(self, c):
         v = self.state.values[c.name]
@@ -227,11 +228,11 @@ class _Page:
         if not hi > lo:
             hi = lo + 1.0
         slider = Slider(start=lo, end=hi, value=v, step=(hi - lo) / 1000.0, title=None, show_value=False,
-                        width=170, tags=["ps-slider", c.name], name=f"slider:{c.name}")
-        entry = TextInput(value=_fmt(v), width=110, tags=["ps-entry", c.name], name=f"entry:{c.name}")
+                        width=140, tags=["ps-slider", c.name], name=f"slider:{c.name}")
+        entry = TextInput(value=_fmt(v), width=100, tags=["ps-entry", c.name], name=f"entry:{c.name}")
         label = Div(text=f"{c.name.rpartition('.')[2]}" + (f" <small>({c.unit})</small>" if c.unit else "")
-                    + (" <small>&#9679; free</small>" if c.free else ""), width=120)
-        msg = Div(text="", name=f"msg:{c.name}", styles=_MSG_STYLE, html_attributes={"role": "alert"}, width=400)
+                    + (" <small>&#9679; free</small>" if c.free else ""), width=140)
+        msg = Div(text="", name=f"msg:{c.name}", styles=_MSG_STYLE, html_attributes={"role": "alert"}, width=420)
         slider.on_change("value", lambda a, o, n, name=c.name: self._on_slider(name, n))
         entry.on_change("value", lambda a, o, n, name=c.name: self._on_entry(name, n))
         self.sliders[c.name], self.entries[c.name], self.messages[c.name] = slider, entry, msg
@@ -264,7 +265,7 @@ class _Page:
             b = Button(label=f"Download {label}", width=120, name=f"download-{fmt}")
             b.on_click(lambda f=fmt: self._on_download(f))
             buttons.append(b)
-        return row(self.save_path, self.replace_box, save, *buttons)
+        return column(row(self.save_path, self.replace_box, save), row(*buttons))
 
     # -- drawing
 

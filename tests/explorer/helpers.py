@@ -150,7 +150,7 @@ def type_into(driver, label: str, text: str) -> None:
     from selenium.webdriver.common.keys import Keys
 
     el = entry(driver, label)
-    driver.execute_script("arguments[0].scrollIntoView({block: 'center'});", el)
+    driver.execute_script("arguments[0].scrollIntoView({block: 'center', inline: 'nearest'});", el)
     el.click()
     el.send_keys(Keys.END + Keys.BACKSPACE * (len(el.get_attribute("value") or "") + 2) + text + Keys.ENTER)
 

@@ -94,6 +94,7 @@ def test_cq_entry_changes_the_plotted_simulation(served, driver, inputs):
     # the README's screenshot comes from here (POWDERSPIN_SCREENSHOT=docs/explorer.png)
     shot = os.environ.get("POWDERSPIN_SCREENSHOT")
     if shot:
+        driver.execute_script("window.scrollTo(0, 0);")
         driver.save_screenshot(shot)
 
 
