@@ -9,8 +9,8 @@ strip with Save and the downloads.
 
 Every number entry is an HTML ``input`` whose ``aria-label`` is the
 parameter's name as fit results spell it (``Tet.cq_mhz``); the field and
-rate entries are labelled ``measurement N.field_tesla`` and
-``measurement N.spinning_hz``.  Bokeh draws widgets inside shadow roots, so a
+rate entries are labelled ``field_tesla`` and ``spinning_hz`` (they belong to
+the measurement shown).  Bokeh draws widgets inside shadow roots, so a
 small script sets the labels on the inputs once the views exist.
 
 Named models a test (or a script) may read back in the page with
@@ -166,8 +166,8 @@ class _Page:
         self._show_notes(st.last)
 
     def _entry(self, key: str, value: str, title: str) -> TextInput:
-        name = f"measurement {self.state.index + 1}.{key}"
-        return TextInput(value=value, title=title, width=120, tags=["ps-entry", name], name=f"entry:{name}")
+        """An entry for the shown measurement's field or rate (aria-label ``field_tesla``, ``spinning_hz``)."""
+        return TextInput(value=value, title=title, width=120, tags=["ps-entry", key], name=f"entry:{key}")
 
     def _plots(self):
         tools = "xpan,xwheel_zoom,box_zoom,reset,save"

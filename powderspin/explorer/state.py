@@ -191,8 +191,8 @@ def load_inputs(model_path, data_paths=(), axis_unit: str | None = None):
     return model, data, paths, warnings
 
 
-def _controls(model, index: int) -> list[Control]:
-    """The controls of a model's sites and of measurement ``index``."""
+def _controls(model) -> list[Control]:
+    """The controls of a model's sites and measurements (broadening and referencing of each)."""
     free = {p.address: p for p in model.free}
     tied = {t.address for t in model.tied}
     out = []
@@ -234,8 +234,9 @@ def _controls(model, index: int) -> list[Control]:
                     add(ParameterAddress("site", i, key, k))
                 continue
             add(ParameterAddress("site", i, key))
-    for key in _MEAS_ORDER:
-        add(ParameterAddress("measurement", index, key))
+    for j in range(len(model.measurements)):
+        for key in _MEAS_ORDER:
+            add(ParameterAddress("measurement", j, key))
     return out
 
 
@@ -282,14 +283,11 @@ class ExplorerState:
     # -- building
 
     def _select(self, index: int, keep_values: bool) -> None:
-        old = dict(self.values) if keep_values else {}
         self.index = index
-        self.controls = _controls(self.base_model, index)
-        self.by_name = {c.name: c for c in self.controls}
-        self.values = {c.name: self.base_model.parameter_value(c.address) for c in self.controls}
-        for k, v in old.items():
-            if k in self.values and not k.startswith("measurement "):
-                self.values[k] = v
+        if not keep_values:
+            self.controls = _controls(self.base_model)
+            self.by_name = {c.name: c for c in self.controls}
+            self.values = {c.name: self.base_model.parameter_value(c.address) for c in self.controls}
         self._build()
 
     def _measurement_model(self):
@@ -556,7 +554,7 @@ class ExplorerState:
         self.fit_result = result
         fitted = result.model
         self.base_model = fitted
-        self.controls = _controls(fitted, self.index)
+        self.controls = _controls(fitted)
         self.by_name = {c.name: c for c in self.controls}
         self.values = {c.name: fitted.parameter_value(c.address) for c in self.controls}
         self._build()

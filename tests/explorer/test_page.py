@@ -118,7 +118,7 @@ def test_fixed_parameter_outside_the_schema_range(served, driver):
     type_into(driver, "measurement 1.gauss_hz", "-5")
     msg = wait_for(lambda: doc_model(driver, "msg:measurement 1.gauss_hz", "text"))
     assert "outside the allowed range [0, 10000000]" in msg
-    type_into(driver, "measurement 1.field_tesla", "95")
+    type_into(driver, "field_tesla", "95")
     msg = wait_for(lambda: doc_model(driver, "msg:conditions", "text"))
     assert "field_tesla" in msg and "[0.1, 40]" in msg
     assert _answers(served.url)
@@ -269,3 +269,49 @@ def test_foreign_origin_cannot_drive_the_page(served):
             IOLoop.current().run_sync(lambda o=origin: connect(o), timeout=20)
         assert e.value.code == 403
     assert _answers(served.url)
+
+
+@pytest.fixture(scope="module")
+def served_two(tmp_path_factory):
+    """The aluminophosphate example (3 sites, 2 fields), with a denser orientation set so that a fit takes seconds."""
+    root = Path(__file__).resolve().parents[2] / "examples"
+    folder = tmp_path_factory.mktemp("explore-two")
+    text = (root / "alpo_fit.toml").read_text().replace('orientations = "coarse"', 'orientations = "medium"')
+    for name in ("alpo_27al_9p4T.csv", "alpo_27al_14p1T.csv"):
+        text = text.replace(f'data = "{name}"', f'data = "{root / name}"')
+    model = folder / "alpo.toml"
+    model.write_text(text)
+    s = Served(model)
+    yield s
+    s.stop()
+
+
+def test_measurement_choice_and_fit_cancel(served_two, driver):
+    open_page(driver, served_two.url)
+    x1 = column(driver, "curves", "x")
+    assert entry(driver, "field_tesla").get_attribute("value") == "9.4"
+    driver.execute_script("Bokeh.documents[0].get_model_by_name('measurement-select').value = '2'")
+    x2 = wait_for(lambda: (x := column(driver, "curves", "x")) != x1 and x)
+    assert len(x2) == len(x1)
+    # each site's component is drawn, and the components add up to the simulation
+    sites = np.array([column(driver, "curves", f"site_{k}") for k in range(3)])
+    np.testing.assert_allclose(sites.sum(axis=0), column(driver, "curves", "simulation"), rtol=1e-9, atol=1e-12)
+    wait_for(lambda: entry(driver, "field_tesla").get_attribute("value") == "14.1")
+    # each measurement's broadening has its own entry; site values are shared
+    assert entry(driver, "measurement 2.gauss_hz") is not None and entry(driver, "measurement 1.gauss_hz") is not None
+    type_into(driver, "AlO5.cq_mhz", "6")
+    wait_for(lambda: doc_model(driver, "slider:AlO5.cq_mhz", "value") == 6.0)
+    # Fit in the background, then Cancel: the values stay where they were and the page goes on
+    before = column(driver, "curves", "simulation")
+    click(driver, "fit-button")
+    wait_for(lambda: "evaluations" in (doc_model(driver, "fit-progress", "text") or ""), timeout=120)
+    assert doc_model(driver, "cancel-button", "disabled") is False
+    assert doc_model(driver, "fit-button", "disabled") is True
+    type_into(driver, "AlO6.cq_mhz", "4")  # refused while the fit runs
+    wait_for(lambda: "a fit is running" in doc_model(driver, "msg:AlO6.cq_mhz", "text"))
+    click(driver, "cancel-button")
+    wait_for(lambda: "cancelled" in doc_model(driver, "fit-progress", "text"), timeout=60)
+    assert column(driver, "curves", "simulation") == before
+    assert float(entry(driver, "AlO5.cq_mhz").get_attribute("value")) == 6.0
+    assert doc_model(driver, "fit-button", "disabled") is False
+    assert column(driver, "fit_values", "name") == []

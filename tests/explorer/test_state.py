@@ -134,7 +134,10 @@ def test_measurement_choice_keeps_site_values():
     assert st.set_text("A.cq_mhz", "5") is None
     assert st.set_measurement(1) is None
     assert st.sim.measurement.field_tesla == 18.8 and st.values["A.cq_mhz"] == 5.0
-    assert "measurement 2.gauss_hz" in st.by_name and "measurement 1.gauss_hz" not in st.by_name
+    assert "measurement 2.gauss_hz" in st.by_name and "measurement 1.gauss_hz" in st.by_name
+    assert st.set_text("measurement 2.gauss_hz", "400") is None and st.set_text("measurement 1.gauss_hz", "9") is None
+    assert st.set_measurement(0) is None and st.values["measurement 2.gauss_hz"] == 400.0
+    assert st.sim.measurement.field_tesla == 9.4 and st.values["A.cq_mhz"] == 5.0
     assert st.set_measurement(2) is not None
     with pytest.raises(FitError, match="needs data"):
         st.run_fit()
