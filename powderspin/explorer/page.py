@@ -27,6 +27,7 @@ import base64
 import math
 import threading
 import time
+from html import escape
 
 import numpy as np
 from bokeh.events import DocumentReady
@@ -128,7 +129,7 @@ class _Page:
     def build(self):
         st = self.state
         self.status = Div(text="", name="status", styles=_OK_STYLE, html_attributes={"role": "status"})
-        head = Div(text=f"<b>powderspin explore</b> &middot; {self.title}",
+        head = Div(text=f"<b>powderspin explore</b> &middot; {escape(self.title)}",
                    styles={"font-size": "16px", "color": ACCENT})
         strip = [head]
         n_meas = len(st.base_model.measurements)
@@ -216,7 +217,7 @@ class _Page:
             if owner != current:
                 current = owner
                 what = "measurement" if c.address.table == "measurement" else "site"
-                rows.append(Div(text=f"<b>{owner if what == 'measurement' else 'site ' + owner}</b>",
+                rows.append(Div(text=f"<b>{escape(owner if what == 'measurement' else 'site ' + owner)}</b>",
                                 styles={"color": ACCENT, "margin-top": "6px"}))
             rows.append(self._control_row(c))
         return column(*rows, width=460, height=560,
@@ -230,7 +231,7 @@ class _Page:
         slider = Slider(start=lo, end=hi, value=v, step=(hi - lo) / 1000.0, title=None, show_value=False,
                         width=140, tags=["ps-slider", c.name], name=f"slider:{c.name}")
         entry = TextInput(value=_fmt(v), width=100, tags=["ps-entry", c.name], name=f"entry:{c.name}")
-        label = Div(text=f"{c.name.rpartition('.')[2]}" + (f" <small>({c.unit})</small>" if c.unit else "")
+        label = Div(text=f"{escape(c.name.rpartition('.')[2])}" + (f" <small>({c.unit})</small>" if c.unit else "")
                     + (" <small>&#9679; free</small>" if c.free else ""), width=140)
         msg = Div(text="", name=f"msg:{c.name}", styles=_MSG_STYLE, html_attributes={"role": "alert"}, width=420)
         slider.on_change("value", lambda a, o, n, name=c.name: self._on_slider(name, n))
@@ -305,11 +306,11 @@ class _Page:
         text makes the browser lay the page out again, which costs more than the redraw itself)."""
         bits = []
         if c["data"] is not None:
-            bits.append("data scaled to the simulation by least squares")
+            bits.append("simulation scaled to the data by least squares")
         elif self.state.data[self.state.index] is not None:
             bits.append("data hidden: they were recorded at another field or spinning rate")
         bits += c.get("notes", [])[:3]
-        text = " &middot; ".join(bits)
+        text = " &middot; ".join(escape(b) for b in bits)
         if self.status.text != text:
             self.status.text = text
 
@@ -329,7 +330,7 @@ class _Page:
             msg = self.state.set_text(name, text)
         except Exception as e:  # never let one value stop the page
             msg = f"{name}: {e}"
-        text = "" if msg is None else msg
+        text = "" if msg is None else escape(msg)  # the message quotes what was typed: never HTML
         if msg_div.text != text:
             msg_div.text = text
         if msg is None:
@@ -377,7 +378,7 @@ class _Page:
             msg = self.state.set_condition(key, text)
         except Exception as e:
             msg = f"{key}: {e}"
-        self.cond_msg.text = "" if msg is None else msg
+        self.cond_msg.text = "" if msg is None else escape(msg)
         if msg is None:
             self._redraw(reset_range=True)
 
@@ -385,7 +386,7 @@ class _Page:
         if self._busy(self.cond_msg):
             return
         msg = self.state.set_measurement(int(new) - 1)
-        self.cond_msg.text = "" if msg is None else msg
+        self.cond_msg.text = "" if msg is None else escape(msg)
         if msg is None:
             meas = self.state.sim.measurement
             self.syncing = True
@@ -424,17 +425,23 @@ class _Page:
                 text = f"{event.description}: {event.done} of {event.total} {event.unit}"
             else:
                 text = f"{event.description}: {event.done} {event.unit}"
-            doc.add_next_tick_callback(lambda t=text: setattr(self.progress, "text", t))
+            later(lambda t=text: setattr(self.progress, "text", escape(t)))
+
+        def later(fn):
+            try:
+                doc.add_next_tick_callback(fn)
+            except Exception:  # the tab was closed: nobody to tell
+                self.cancel.set()
 
         def work():
             try:
                 result = self.state.run_fit(progress=progress, cancel=self.cancel)
             except FitCancelled:
-                doc.add_next_tick_callback(lambda: self._fit_done(None, "fit cancelled; the values are unchanged"))
+                later(lambda: self._fit_done(None, "fit cancelled; the values are unchanged"))
             except Exception as e:  # shown on the page; the server goes on
-                doc.add_next_tick_callback(lambda m=f"fit refused: {e}": self._fit_done(None, m))
+                later(lambda m=f"fit refused: {e}": self._fit_done(None, m))
             else:
-                doc.add_next_tick_callback(lambda: self._fit_done(result, None))
+                later(lambda: self._fit_done(result, None))
 
         self.fit_thread = threading.Thread(target=work, name="powderspin-explore-fit", daemon=True)
         self.fit_thread.start()
@@ -448,23 +455,23 @@ class _Page:
         self.fit_button.disabled = False
         self.cancel_button.disabled = True
         if result is None:
-            self.progress.text = message
+            self.progress.text = escape(message)
             return
         try:
             self.state.adopt_fit(result)
         except Exception as e:
-            self.progress.text = f"fit finished but its values could not be shown: {e}"
+            self.progress.text = escape(f"fit finished but its values could not be shown: {e}")
             return
         self.progress.text = (f"fit done: reduced chi-square {result.reduced_chi_square:.4g}, "
                               f"{result.n_evaluations} evaluations, {result.time_s:.2f} s"
-                              + ("" if result.success else f" (stopped early: {result.message})"))
+                              + ("" if result.success else escape(f" (stopped early: {result.message})")))
         names = list(result.names)
         self.fit_values.data = {"name": names, "value": [float(result.values[n]) for n in names],
                                 "stderr": [float(result.stderr[n]) for n in names]}
-        rows = "".join(f"<tr><td>{n}</td><td style='padding-left:12px'>"
+        rows = "".join(f"<tr><td>{escape(n)}</td><td style='padding-left:12px'>"
                        f"{format_value(result.values[n], result.stderr[n])}</td></tr>" for n in names)
-        extra = "".join(f"<div style='color:{ERROR_COLOUR}'>warning: {w}</div>" for w in result.warnings)
-        extra += "".join(f"<div style='color:#555'>note: {w}</div>" for w in result.notes)
+        extra = "".join(f"<div style='color:{ERROR_COLOUR}'>warning: {escape(w)}</div>" for w in result.warnings)
+        extra += "".join(f"<div style='color:#555'>note: {escape(w)}</div>" for w in result.notes)
         self.fit_out.text = f"<table>{rows}</table>{extra}"
         self._sync_all()
         self._redraw()
@@ -472,7 +479,7 @@ class _Page:
     def _on_save(self):
         path, msg = self.state.save(self.save_path.value, replace_existing=bool(self.replace_box.active))
         self.file_msg.styles = _OK_STYLE if path is not None else _MSG_STYLE
-        self.file_msg.text = msg
+        self.file_msg.text = escape(msg)
         if path is not None:
             self.replace_box.active = False
 
@@ -485,7 +492,7 @@ class _Page:
                 mime = "image/png" if fmt == "png" else "image/svg+xml"
         except Exception as e:
             self.file_msg.styles = _MSG_STYLE
-            self.file_msg.text = f"download: {e}"
+            self.file_msg.text = escape(f"download: {e}")
             return
         stem = "powderspin-explore"
         self.download.data = {"name": [f"{stem}.{fmt}"], "mime": [mime],

@@ -23,6 +23,7 @@ import pytest
 
 from tests.explorer.helpers import (
     BROWSER_MISSING,
+    DEEP,
     Served,
     click,
     column,
@@ -111,6 +112,14 @@ def test_bad_entries_are_refused_inline(served, driver, text, expect):
     # a good value clears the message
     type_into(driver, "Tet.cq_mhz", "3.5")
     wait_for(lambda: doc_model(driver, "msg:Tet.cq_mhz", "text") == "")
+
+
+def test_typed_markup_is_shown_as_text(served, driver):
+    open_page(driver, served.url)
+    type_into(driver, "Tet.eta_q", '<img src="x" onerror="document.title=1">')
+    msg = wait_for(lambda: doc_model(driver, "msg:Tet.eta_q", "text"))
+    assert "&lt;img" in msg and "<img" not in msg
+    assert driver.execute_script(DEEP + "return deep(document, 'img[src=\"x\"]');") is None
 
 
 def test_fixed_parameter_outside_the_schema_range(served, driver):
