@@ -179,8 +179,14 @@ def test_save_reproduces_the_page_and_refuses_bad_paths(served, driver, inputs, 
     assert "must end in .toml" in save(str(tmp_path / "m.csv"))
     target = tmp_path / "saved.toml"
     assert save(str(target)).startswith("saved ")
-    spec = ps.simulate(target)
-    np.testing.assert_allclose(spec.intensity, curve, rtol=1e-9, atol=1e-9 * np.max(curve))
+    from powderspin.cli.main import main
+
+    out = tmp_path / "saved.csv"
+    assert main(["simulate", str(target), "-o", str(out), "-q"]) == 0
+    rows = [ln for ln in out.read_text().splitlines() if ln and not ln.startswith("#")]
+    assert rows[0].split(",")[:3] == ["ppm", "hz", "intensity"]
+    simulated = np.array([float(r.split(",")[2]) for r in rows[1:]])
+    np.testing.assert_allclose(simulated, curve, rtol=1e-9, atol=1e-9 * np.max(curve))
     # an existing file is kept unless the replacement is confirmed
     target.write_text("# mine\n")
     assert "exists" in save(str(target))
@@ -188,6 +194,14 @@ def test_save_reproduces_the_page_and_refuses_bad_paths(served, driver, inputs, 
     assert save(str(target), replace=True).startswith("saved ")
     assert ps.simulate(target).intensity.shape == curve.shape
     assert _answers(served.url)
+
+
+def test_slider_moves_the_entry_and_the_curve(served, driver):
+    open_page(driver, served.url)
+    before = column(driver, "curves", "simulation")
+    driver.execute_script("Bokeh.documents[0].get_model_by_name('slider:Tet.eta_q').value = 0.8")
+    wait_for(lambda: column(driver, "curves", "simulation") != before)
+    wait_for(lambda: entry(driver, "Tet.eta_q").get_attribute("value") == "0.8")
 
 
 def test_downloads(served, driver):
