@@ -37,7 +37,13 @@ def is_loopback(host: str) -> bool:
 
 
 def free_port(host: str = "127.0.0.1") -> int:
-    """A port that is free on ``host`` now (the system's choice)."""
+    """A port that is free on ``host`` now (the system's choice).
+
+    Examples
+    --------
+    >>> 0 < free_port() < 65536
+    True
+    """
     family = socket.AF_INET6 if ":" in host else socket.AF_INET
     with socket.socket(family, socket.SOCK_STREAM) as s:
         s.bind((host, 0))

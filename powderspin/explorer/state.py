@@ -85,7 +85,14 @@ class Control:
     free: bool
 
     def range_text(self) -> str:
-        """The accepted range as text, e.g. ``[1, 8]``."""
+        """The accepted range as text.
+
+        Examples
+        --------
+        >>> a = ParameterAddress("site", 0, "cq_mhz")
+        >>> Control("A.cq_mhz", a, "MHz", 1.0, 8.0, False, 1.0, 8.0, True).range_text()
+        '[1, 8]'
+        """
         return f"{'(' if self.low_open else '['}{self.low:.10g}, {self.high:.10g}]"
 
 
@@ -623,9 +630,12 @@ class ExplorerState:
         return written, f"saved {written}"
 
     def _with_data_paths(self, model, target: Path):
+        """Data paths relative to the saved file; none for a measurement shown at another field or rate."""
         meas = list(model.measurements)
         for j, path in enumerate(self.data_paths):
-            if path:
+            if self.overrides and j == self.index:
+                meas[j] = replace(meas[j], data=None)
+            elif path:
                 try:
                     rel = os.path.relpath(path, target.resolve().parent)
                 except ValueError:

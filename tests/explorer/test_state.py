@@ -94,11 +94,16 @@ def test_saved_model_reproduces_the_curve_and_inputs_are_protected(state, inputs
     assert state.save(str(target), replace_existing=True)[0] == target
 
 
-def test_other_field_hides_the_data_and_refuses_a_fit(state):
+def test_other_field_hides_the_data_and_refuses_a_fit(state, tmp_path):
     assert state.set_condition("field_tesla", "9.4") is None
     assert state.last["data"] is None and state.sim.measurement.field_tesla == 9.4
     with pytest.raises(FitError, match="set them back"):
         state.run_fit()
+    path, _ = state.save(str(tmp_path / "elsewhere.toml"))
+    saved = ps.load_model(path)
+    assert saved.measurements[0].field_tesla == 9.4 and saved.measurements[0].data is None  # data belong to 14.1 T
+    np.testing.assert_allclose(ps.simulate(path).intensity, state.last["total"], rtol=1e-9,
+                               atol=1e-12 * state.last["total"].max())
     assert "[0.1, 40]" in state.set_condition("field_tesla", "50")
     assert "is not a number" in state.set_condition("spinning_hz", "fast")
     assert state.set_condition("spinning_hz", "inf") is None
