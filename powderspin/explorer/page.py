@@ -173,7 +173,8 @@ class _Page:
     def _plots(self):
         tools = "xpan,xwheel_zoom,box_zoom,reset,save"
         x = self.source.data["x"]
-        self.x_range = Range1d(start=float(np.max(x)), end=float(np.min(x)))
+        hi, lo = float(np.max(x)), float(np.min(x))
+        self.x_range = Range1d(start=hi, end=lo, reset_start=hi, reset_end=lo)  # start > end: reversed axis
         p = figure(height=380, width=720, x_range=self.x_range, tools=tools, toolbar_location="above",
                    name="spectrum-plot")
         p.background_fill_color = "#fffdf8"
@@ -294,8 +295,8 @@ class _Page:
         self.data_glyph.visible = has_data
         self.resid_plot.visible = has_data
         if reset_range:
-            x = cols["x"]
-            self.x_range.update(start=float(np.max(x)), end=float(np.min(x)))
+            hi, lo = float(np.max(cols["x"])), float(np.min(cols["x"]))
+            self.x_range.update(start=hi, end=lo, reset_start=hi, reset_end=lo)
         label = "frequency offset / kHz" if self.unit == "khz" else "shift / ppm"
         self.plot.xaxis.axis_label = label
         self.resid_plot.xaxis.axis_label = label

@@ -598,9 +598,7 @@ class ExplorerState:
         raw = str(path_text).strip()
         if not raw:
             return None, "save: give a file name ending in .toml"
-        p = Path(os.path.expanduser(raw))
-        if not p.is_absolute() and self.model_path:
-            p = Path.cwd() / p
+        p = Path(os.path.expanduser(raw))  # a relative path is taken from the folder the server started in
         if p.suffix.lower() != ".toml":
             return None, f"save: {raw!r} must end in .toml (a model file)"
         if not p.parent.is_dir():

@@ -72,6 +72,9 @@ def test_cq_entry_changes_the_plotted_simulation(served, driver, inputs):
     el = entry(driver, "Tet.cq_mhz")
     assert el.tag_name == "input" and el.get_attribute("aria-label") == "Tet.cq_mhz"
     assert float(el.get_attribute("value")) == 3.0
+    handle = driver.execute_script(DEEP + "return deep(document, arguments[0]);",
+                                   '[role="slider"][aria-label="Tet.cq_mhz slider"]')
+    assert handle is not None
     before = np.array(column(driver, "curves", "simulation"))
     x = np.array(column(driver, "curves", "x"))
     type_into(driver, "Tet.cq_mhz", "4.2")
@@ -236,8 +239,13 @@ def test_kilohertz_axis_and_reversed_axis(served, driver):
     assert start > end  # ppm decreasing to the right (common practice)
     driver.execute_script("Bokeh.documents[0].get_model_by_name('unit-switch').active = 1")
     khz = np.array(wait_for(lambda: (x := column(driver, "curves", "x")) != ppm.tolist() and x))
-    nu_ref = 156.430384749568e6  # 27Al at 14.1 T from the model's nuclide table (as the data file states)
+    from powderspin.physics.nuclides import get_nuclide
+
+    nu_ref = get_nuclide("27Al").larmor_hz(14.1)  # kHz offset = ppm * nu_ref * 1e-6 / 1e3 (the ppm scale's definition)
     np.testing.assert_allclose(khz, ppm * nu_ref * 1e-6 / 1e3, rtol=1e-6)
+    rng = driver.execute_script("const r = Bokeh.documents[0].get_model_by_name('spectrum-plot').x_range;"
+                                "return [r.start, r.end, r.reset_start, r.reset_end];")
+    assert rng[0] == rng[2] == pytest.approx(max(khz)) and rng[1] == rng[3] == pytest.approx(min(khz))
 
 
 def test_redraw_latency_is_measured(served, driver):
