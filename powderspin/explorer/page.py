@@ -38,6 +38,7 @@ from bokeh.models import (
     ColumnDataSource,
     CustomJS,
     Div,
+    InlineStyleSheet,
     RadioButtonGroup,
     Range1d,
     Select,
@@ -99,6 +100,14 @@ a.download = d.name[0];
 document.body.appendChild(a);
 a.click();
 setTimeout(() => { URL.revokeObjectURL(url); a.remove(); }, 1000);
+"""
+
+#: a moving stripe while a fit runs (its length is unknown in advance)
+_BUSY_CSS = f"""
+.ps-busy {{ height: 4px; width: 100%; background: linear-gradient(90deg, transparent 0%, {ACCENT} 50%,
+  transparent 100%); background-size: 40% 100%; background-repeat: no-repeat; animation: ps-run 1.2s linear
+  infinite; margin-bottom: 3px; }}
+@keyframes ps-run {{ from {{ background-position: -40% 0; }} to {{ background-position: 140% 0; }} }}
 """
 
 _MSG_STYLE = {"color": ERROR_COLOUR, "font-size": "12px", "margin": "0 0 4px 4px"}
@@ -245,7 +254,8 @@ class _Page:
                                  disabled=not (self.state.base_model.free and all(
                                      d is not None for d in self.state.data)))
         self.cancel_button = Button(label="Cancel", width=90, disabled=True, name="cancel-button")
-        self.progress = Div(text="", name="fit-progress", width=480, html_attributes={"role": "status"})
+        self.progress = Div(text="", name="fit-progress", width=480, html_attributes={"role": "status"},
+                            stylesheets=[InlineStyleSheet(css=_BUSY_CSS)])
         self.fit_out = Div(text="", name="fit-results", width=720)
         self.fit_values = ColumnDataSource({"name": [], "value": [], "stderr": []}, name="fit_values")
         self.fit_button.on_click(self._on_fit)
@@ -409,7 +419,7 @@ class _Page:
         self.cancel.clear()
         self.fit_button.disabled = True
         self.cancel_button.disabled = False
-        self.progress.text = "fit: starting"
+        self.progress.text = "<div class='ps-busy'></div>fit: starting"
         self.fit_out.text = ""
         doc = self.doc
         last = [0.0]
@@ -426,7 +436,8 @@ class _Page:
                 text = f"{event.description}: {event.done} of {event.total} {event.unit}"
             else:
                 text = f"{event.description}: {event.done} {event.unit}"
-            later(lambda t=text: setattr(self.progress, "text", escape(t)))
+            later(lambda t=text: self.fit_thread is not None
+                  and setattr(self.progress, "text", "<div class='ps-busy'></div>" + escape(t)))
 
         def later(fn):
             try:
@@ -449,7 +460,7 @@ class _Page:
 
     def _on_cancel(self):
         self.cancel.set()
-        self.progress.text = "fit: cancelling"
+        self.progress.text = "<div class='ps-busy'></div>fit: cancelling"
 
     def _fit_done(self, result, message):
         self.fit_thread = None
