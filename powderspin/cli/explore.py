@@ -63,14 +63,40 @@ def run(args) -> int:
         import webbrowser
 
         server.io_loop.add_callback(lambda: webbrowser.open(url))
+    interrupted = _stop_on_ctrl_c(server)
     try:
         server.io_loop.start()
     except KeyboardInterrupt:
-        print("powderspin explore: stopped (Ctrl-C)", file=sys.stderr)
-        return 130
+        interrupted.append(True)
     finally:
         try:
             server.stop()
         except Exception:
             pass
+    if interrupted:
+        print("powderspin explore: stopped (Ctrl-C)", file=sys.stderr)
+        return 130
     return 0
+
+
+def _stop_on_ctrl_c(server) -> list:
+    """Let Ctrl-C stop the event loop between callbacks, not as an exception inside one.
+
+    A KeyboardInterrupt raised inside a page callback (or, as SystemError,
+    inside a compiled kernel) could be caught and logged by the web framework
+    and leave the server running; a signal handler on the event loop stops the
+    loop instead.  Returns a list that becomes non-empty once Ctrl-C was pressed.
+    """
+    import signal
+
+    pressed: list = []
+
+    def stop():
+        pressed.append(True)
+        server.io_loop.stop()
+
+    try:
+        server.io_loop.asyncio_loop.add_signal_handler(signal.SIGINT, stop)
+    except (AttributeError, NotImplementedError, RuntimeError, ValueError):
+        pass  # no such loop here: Ctrl-C arrives as KeyboardInterrupt
+    return pressed

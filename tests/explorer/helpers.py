@@ -89,7 +89,7 @@ class Served:
         if self.proc.poll() is None:
             self.proc.send_signal(signal.SIGINT)
             try:
-                self.proc.wait(timeout=30)
+                self.proc.wait(timeout=60)
             except subprocess.TimeoutExpired:
                 self.proc.kill()
                 self.proc.wait()
