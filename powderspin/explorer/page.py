@@ -64,7 +64,7 @@ from .state import ExplorerState, FitCancelled
 __all__ = ["build_page", "LABEL_SCRIPT"]
 
 #: sets aria-label on the <input> of every entry (tags ["ps-entry", NAME]) and on slider handles
-LABEL_SCRIPT = """
+LABEL_FUNCTION = """
 function label_inputs() {
   let n = 0;
   for (const view of Bokeh.index.all_views()) {
@@ -83,9 +83,16 @@ function label_inputs() {
   document.body.dataset.psLabelled = String(n);
   return n;
 }
+"""
+
+#: label once the views exist (and again shortly after, for views built late)
+LABEL_SCRIPT = LABEL_FUNCTION + """
 label_inputs();
 for (const ms of [100, 400, 1000, 2500]) { setTimeout(label_inputs, ms); }
 """
+
+#: a slider whose span changed draws its handle anew: label it again after that
+_RELABEL_SCRIPT = LABEL_FUNCTION + "setTimeout(label_inputs, 0);"
 
 _DOWNLOAD_SCRIPT = """
 const d = source.data;
@@ -245,6 +252,8 @@ class _Page:
                     + (" <small>&#9679; free</small>" if c.free else ""), width=140)
         msg = Div(text="", name=f"msg:{c.name}", styles=_MSG_STYLE, html_attributes={"role": "alert"}, width=420)
         slider.on_change("value", lambda a, o, n, name=c.name: self._on_slider(name, n))
+        slider.js_on_change("end", CustomJS(code=_RELABEL_SCRIPT))
+        slider.js_on_change("start", CustomJS(code=_RELABEL_SCRIPT))
         entry.on_change("value", lambda a, o, n, name=c.name: self._on_entry(name, n))
         self.sliders[c.name], self.entries[c.name], self.messages[c.name] = slider, entry, msg
         return column(row(label, slider, entry), msg)

@@ -315,11 +315,11 @@ class ExplorerState:
             nu_ref = model.nucleus.larmor_hz(model.measurements[self.index].field_tesla)
             axis, _, _ = data_axis(self.data[self.index], nu_ref, f"measurement {self.index + 1}")
         # the current values decide producers and orientation sets, as a fit from them would
-        start = model.with_parameters(self._address_values(model))
+        start = model.with_parameters(self._address_values())
         self.sim = Simulator(start, self.index, axis=axis, parameters=[c.address for c in self.controls])
         self.model = model
 
-    def _address_values(self, model=None) -> dict:
+    def _address_values(self) -> dict:
         return {c.address: self.values[c.name] for c in self.controls}
 
     # -- changing values

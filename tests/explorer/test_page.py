@@ -205,6 +205,11 @@ def test_slider_moves_the_entry_and_the_curve(served, driver):
     driver.execute_script("Bokeh.documents[0].get_model_by_name('slider:Tet.eta_q').value = 0.8")
     wait_for(lambda: column(driver, "curves", "simulation") != before)
     wait_for(lambda: entry(driver, "Tet.eta_q").get_attribute("value") == "0.8")
+    # a value beyond the slider's span widens it; its handle keeps its label
+    type_into(driver, "measurement 1.gauss_hz", "5000")
+    wait_for(lambda: doc_model(driver, "slider:measurement 1.gauss_hz", "end") == 5000.0)
+    wait_for(lambda: driver.execute_script(DEEP + "return deep(document, arguments[0]);",
+                                           '[role="slider"][aria-label="measurement 1.gauss_hz slider"]'))
 
 
 def test_downloads(served, driver):
