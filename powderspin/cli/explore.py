@@ -54,7 +54,11 @@ def run(args) -> int:
               file=sys.stderr)
     from ..explorer.server import make_server
 
-    server = make_server(make_state, model_path.name, args.host, args.port, args.allow_origin)
+    try:
+        server = make_server(make_state, model_path.name, args.host, args.port, args.allow_origin)
+    except OSError as e:
+        raise CliError(f"cannot serve on {args.host} port {args.port or '(free)'}: {e.strerror or e}; "
+                       "choose another --port (or none: a free one is taken) or --host") from None
     shown = f"[{args.host}]" if ":" in args.host else args.host
     url = f"http://{shown}:{server.port}{PAGE_PATH}"
     server.start()

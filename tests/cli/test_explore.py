@@ -44,6 +44,19 @@ def test_bad_inputs_give_one_line_and_status_2(inputs, tmp_path, capsys):
     assert "[0, 65535]" in _one_line(capsys)
 
 
+def test_port_in_use_gives_one_line(inputs, capsys):
+    pytest.importorskip("bokeh")
+    import socket
+
+    with socket.socket() as taken:
+        taken.bind(("127.0.0.1", 0))
+        taken.listen(1)
+        port = taken.getsockname()[1]
+        assert main(["explore", str(inputs[0]), "--port", str(port), "--no-browser"]) == 2
+    line = _one_line(capsys)
+    assert f"port {port}" in line and "--port" in line
+
+
 def test_missing_bokeh_says_how_to_install(inputs, monkeypatch, capsys):
     monkeypatch.setitem(sys.modules, "bokeh", None)  # import bokeh now raises ImportError
     assert main(["explore", str(inputs[0]), "--no-browser"]) == 2
