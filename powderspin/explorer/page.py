@@ -237,6 +237,11 @@ class _Page:
                 rows.append(Div(text=f"<b>{escape(owner if what == 'measurement' else 'site ' + owner)}</b>",
                                 styles={"color": ACCENT, "margin-top": "6px"}))
             rows.append(self._control_row(c))
+        tied = self.state.base_model.tied
+        if tied:
+            rows.append(Div(text="<b>tied</b><br>" + "<br>".join(
+                f"{escape(t.name)} follows {escape(t.source_name)}" for t in tied),
+                styles={"color": ACCENT, "margin-top": "6px", "font-size": "12px"}, name="tied-note"))
         return column(*rows, width=460, height=560,
                       styles={"overflow-y": "auto", "overflow-x": "hidden", "padding-left": "12px"}, name="controls")
 
