@@ -11,6 +11,7 @@
     powderspin nuclide 27Al --field 14.1 | --list
     powderspin cache info | path | clear [--cache DIR]
     powderspin demo [--out DIR]
+    powderspin explore MODEL.toml [DATA ...] [--port N] [--host 127.0.0.1] [--no-browser]
     powderspin --version
 
 Every error is one line on standard error (``error: ...``) with exit status 2;
@@ -25,7 +26,7 @@ import argparse
 import os
 import sys
 
-from . import cache, demo, fit, nuclide, plan, simulate
+from . import cache, demo, explore, fit, nuclide, plan, simulate
 from .common import CliError, interrupted
 
 __all__ = ["main", "build_parser"]
@@ -56,7 +57,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--version", action="version", version=f"powderspin {__version__}")
     sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
 
-    for command in (simulate, cache, fit, plan, nuclide, demo):
+    for command in (simulate, cache, fit, plan, nuclide, demo, explore):
         command.add_parser(sub)
     return p
 
