@@ -916,3 +916,132 @@ def _band_summary(amp, weights, mean):
             if amax[c, j] > out_m[j]:
                 out_m[j] = amax[c, j]
     return out_i, out_p, out_m
+
+
+# ---------------------------------------------------------------------------
+# finite pulses: propagators in the rotating frame
+#
+# The rotating-frame Hamiltonian during a pulse (Hz) is H = diag(D) + nu1 (cos(phi) Ix + sin(phi) Iy), with D the
+# level energies (index a <-> m = I - a: offsets of the secular interactions) and the RF static during the pulse.
+# Because D commutes with Iz, H = P (diag(D) + nu1 Ix) P^H with P = exp(-i phi Iz): the inner matrix is real,
+# symmetric and tridiagonal, so one real eigendecomposition gives W = exp(-i 2 pi H0 t) and
+# U[a, b] = exp(-i phi m_a) W[a, b] exp(+i phi m_b).
+
+
+@njit(cache=True, inline="always")
+def _pulse_inner(levels, ix_off, nu1, t, h, w):
+    """W = exp(-i 2 pi (diag(levels) + nu1 Ix) t) into ``w`` (complex d x d); ``h`` is a real d x d buffer."""
+    d = levels.shape[0]
+    for a in range(d):
+        for b in range(d):
+            h[a, b] = 0.0
+        h[a, a] = levels[a]
+    for a in range(d - 1):
+        h[a, a + 1] = nu1 * ix_off[a]
+        h[a + 1, a] = nu1 * ix_off[a]
+    lam, vec = np.linalg.eigh(h)
+    for a in range(d):
+        for b in range(d):
+            acc = 0.0 + 0.0j
+            for k in range(d):
+                ang = -2.0 * math.pi * lam[k] * t
+                acc += vec[a, k] * vec[b, k] * complex(math.cos(ang), math.sin(ang))
+            w[a, b] = acc
+
+
+@njit(parallel=True, cache=True)
+def _pulse_propagators(levels, ix_off, mz, nu1, phase, t):
+    """Propagators U (n, d, d) of one pulse for every row of ``levels`` (n, d); ``mz`` the m of each index."""
+    n, d = levels.shape
+    out = np.empty((n, d, d), dtype=np.complex128)
+    nchunk = min(n, 64)
+    for c in prange(nchunk):
+        h = np.empty((d, d))
+        w = np.empty((d, d), dtype=np.complex128)
+        for i in range(c * n // nchunk, (c + 1) * n // nchunk):
+            _pulse_inner(levels[i], ix_off, nu1, t, h, w)
+            for a in range(d):
+                for b in range(d):
+                    ang = phase * (mz[b] - mz[a])
+                    out[i, a, b] = w[a, b] * complex(math.cos(ang), math.sin(ang))
+    return out
+
+
+@njit(parallel=True, cache=True)
+def _density_after_pulses(levels, ix_off, mz, nu1, phase, t):
+    """Density matrices (n, d, d) after back-to-back pulses k = 0.. (nu1[k], phase[k], t[k]) from rho = Iz."""
+    n, d = levels.shape
+    npulse = nu1.shape[0]
+    out = np.empty((n, d, d), dtype=np.complex128)
+    nchunk = min(n, 64)
+    for c in prange(nchunk):
+        h = np.empty((d, d))
+        w = np.empty((d, d), dtype=np.complex128)
+        u = np.empty((d, d), dtype=np.complex128)
+        rho = np.empty((d, d), dtype=np.complex128)
+        tmp = np.empty((d, d), dtype=np.complex128)
+        for i in range(c * n // nchunk, (c + 1) * n // nchunk):
+            for a in range(d):
+                for b in range(d):
+                    rho[a, b] = 0.0
+                rho[a, a] = mz[a]
+            for k in range(npulse):
+                _pulse_inner(levels[i], ix_off, nu1[k], t[k], h, w)
+                for a in range(d):
+                    for b in range(d):
+                        ang = phase[k] * (mz[b] - mz[a])
+                        u[a, b] = w[a, b] * complex(math.cos(ang), math.sin(ang))
+                for a in range(d):  # tmp = U rho
+                    for b in range(d):
+                        acc = 0.0 + 0.0j
+                        for q in range(d):
+                            acc += u[a, q] * rho[q, b]
+                        tmp[a, b] = acc
+                for a in range(d):  # rho = tmp U^H
+                    for b in range(d):
+                        acc = 0.0 + 0.0j
+                        for q in range(d):
+                            acc += tmp[a, q] * u[b, q].conjugate()
+                        rho[a, b] = acc
+            for a in range(d):
+                for b in range(d):
+                    out[i, a, b] = rho[a, b]
+    return out
+
+
+@njit(parallel=True, cache=True)
+def _excitation_amplitudes(levels, ix_off, mz, nu1, phase1, t1, phase2, t2, echo, upper):
+    """Complex signal amplitude of each transition (n, T) after a single pulse or a spin echo.
+
+    Single pulse: A = c <m-1| rho1 |m>, c = <m|I+|m-1>, rho1 = U1 Iz U1^H.  Echo (ideal selection of the pathway
+    that refocuses transition m -> m-1 at the echo top): the +1 coherence <m|rho1|m-1> carried into the -1
+    coherence of the same transition by the second pulse, A = c <m|rho1|m-1> U2[m-1, m] conj(U2[m, m-1]).
+    ``upper`` holds the index of level m of each transition (level m-1 is the next index).
+    """
+    n, d = levels.shape
+    nt = upper.shape[0]
+    out = np.empty((n, nt), dtype=np.complex128)
+    nchunk = min(n, 64)
+    for c in prange(nchunk):
+        h = np.empty((d, d))
+        w = np.empty((d, d), dtype=np.complex128)
+        w2 = np.empty((d, d), dtype=np.complex128)
+        for i in range(c * n // nchunk, (c + 1) * n // nchunk):
+            _pulse_inner(levels[i], ix_off, nu1, t1, h, w)
+            if echo:
+                _pulse_inner(levels[i], ix_off, nu1, t2, h, w2)
+            for j in range(nt):
+                b = upper[j]  # level m
+                a = b + 1  # level m-1
+                # (W Iz W^H)[a, b], then the phase of P: exp(-i phi (m_a - m_b)) = exp(+i phi)
+                acc = 0.0 + 0.0j
+                for q in range(d):
+                    acc += w[a, q] * mz[q] * w[b, q].conjugate()
+                r_ab = acc * complex(math.cos(phase1), math.sin(phase1))
+                cj = 2.0 * ix_off[b]
+                if echo:
+                    tr = w2[a, b] * w2[b, a].conjugate() * complex(math.cos(2.0 * phase2), math.sin(2.0 * phase2))
+                    out[i, j] = cj * r_ab.conjugate() * tr
+                else:
+                    out[i, j] = cj * r_ab
+    return out
