@@ -54,6 +54,8 @@ from .engine.site_lines import (
     sideband_rows,
     site_job,
 )
+from .engine.echo_train import echo_train_comb
+from .engine.pulses import regime_note
 from .engine.spectrum import Spectrum
 from .model.modelfile import load_model
 from .model.values import Model, ModelError, ParameterAddress, selected_transitions
@@ -308,6 +310,11 @@ class Simulator:
         self._distributed: dict[int, DistributedSite] = {}
         for k in range(n):
             if _has_distribution(model, k):
+                if meas.pulse_sequence != "ideal":
+                    raise ModelError(
+                        f"site '{model.sites[k].label}': finite-pulse excitation (pulse_sequence = "
+                        f"{meas.pulse_sequence!r}) is not available for sites with an EFG or shift distribution; "
+                        "use pulse_sequence = \"ideal\" for this model")
                 d = DistributedSite(model, k, measurement, allow_strong_coupling=allow_strong_coupling)
                 self._distributed[k] = d
                 notes.extend(t for t in d.notes if t not in notes)
@@ -385,6 +392,18 @@ class Simulator:
                     spans.append(tuple(x + sh for x in first_lines[k].frequency_range()))
             axis = axis_from(spans)
         self.axis = axis
+        if meas.pulse_sequence != "ideal":
+            seq = site_job(model.sites[0], meas, nuc, "perturbation").pulse if n else None
+            text = regime_note(nuc.spin, seq) if seq is not None else ""
+            if text:
+                notes.append(text)
+        self._comb = None
+        if meas.echo_train_period_us is not None:
+            carrier = meas.carrier_ppm * nu_ref * 1e-6 if meas.carrier_ppm is not None else axis.center_hz
+            self._comb = echo_train_comb(axis, carrier, meas.echo_train_period_us * 1e-6, meas.echo_train_echoes,
+                                         None if meas.echo_train_t2_ms is None else meas.echo_train_t2_ms * 1e-3,
+                                         meas.echo_train_output)
+            self._comb.flags.writeable = False
         self._notes = list(notes)
 
     # -- what was decided
@@ -569,13 +588,19 @@ class Simulator:
             sh = site.shift.iso_ppm * f + offset_hz
             r = d.render(self.axis, shift_hz=sh, store=self.kernel_store, weight=site.weight, lorentz_hz=lorentz,
                          gauss_hz=gauss, progress=None if self.progress is None else kernel_progress, site=site)
-            return r, None, sh
+            return self._echo_train(r), None, sh
         job = site_job(site, self._job_meas[k], nuc, self._methods[k], self._sets[k])
         lines = self._lines(job, k, site.label)
         sh = (site.shift.iso_ppm - job.iso_ppm) * f + offset_hz
         r = render_lines(lines, self.axis, shift_hz=sh, weight=site.weight, lorentz_hz=lorentz, gauss_hz=gauss,
                          binning=meas.binning, memo=self.cache.rendered)
-        return r, lines, sh
+        return self._echo_train(r), lines, sh
+
+    def _echo_train(self, r):
+        """The rendered site as an echo train's spectrum (spikelets or their envelope), when one is measured."""
+        if self._comb is None:
+            return r
+        return replace(r, intensity=r.intensity * self._comb)
 
     def _render(self, model: Model):
         if model is not self.model:
@@ -688,6 +713,21 @@ class Simulator:
             "intensity_units": "density per ppm; each site integrates to its weight",
             "notes": notes,
         }
+        if meas.pulse_sequence != "ideal":
+            meta["excitation"] = {
+                "pulse_sequence": meas.pulse_sequence, "pulse_us": meas.pulse_us, "rf_khz": meas.rf_khz,
+                "echo_pulse_us": (meas.echo_pulse_us if meas.echo_pulse_us is not None else 2 * meas.pulse_us)
+                if meas.pulse_sequence == "echo" else None,
+                "carrier_ppm": meas.carrier_ppm if meas.carrier_ppm is not None else "each site's shift",
+                "excited_fraction": {lab: float(lines.excited_fraction) for lab, (_, lines, _) in zip(labels, parts)
+                                     if lines is not None},
+                "meaning": "each site integrates to its weight times its excited fraction (relative to a hard "
+                           "90 degree pulse)",
+            }
+        if meas.echo_train_period_us is not None:
+            meta["echo_train"] = {"period_us": meas.echo_train_period_us, "echoes": meas.echo_train_echoes,
+                                  "t2_ms": meas.echo_train_t2_ms, "output": meas.echo_train_output,
+                                  "spikelet_spacing_hz": 1e6 / meas.echo_train_period_us}
         if self._distributed:
             meta["distributions"] = {model.sites[k].label: d.describe() for k, d in self._distributed.items()}
         if meas.scale != 1.0:

@@ -66,6 +66,7 @@ __all__ = [
     "site_excitation",
     "ct_selectivity_ratio",
     "quantitative_tip_limit_deg",
+    "regime_note",
     "QUANTITATIVE_TOLERANCE",
     "PULSE_ROTOR_PHASES",
 ]
@@ -512,3 +513,50 @@ def quantitative_tip_limit_deg(spin: float, tolerance: float = QUANTITATIVE_TOLE
     if ct_selectivity_ratio(spin, hi) > 1.0 - tolerance:
         return hi
     return float(brentq(lambda t: ct_selectivity_ratio(spin, t) - (1.0 - tolerance), 1e-9, hi, xtol=1e-12))
+
+
+def regime_note(spin: float, sequence: PulseSequence, tolerance: float = QUANTITATIVE_TOLERANCE) -> str:
+    """A plain warning when the pulses are outside the quantitative short-pulse regime ("" when inside).
+
+    Quadrupolar sites of different C_Q are excited alike only while the non-selective tip angle
+    ``360 nu1 t`` is below :func:`quantitative_tip_limit_deg`; beyond it, populations from the ideal model are
+    biased towards the sites with the smaller couplings (or larger, past the selective 90 degree pulse).  An
+    echo's relative intensities depend on C_Q whatever the pulse lengths.
+
+    Parameters
+    ----------
+    spin : float
+    sequence : PulseSequence
+    tolerance : float, optional
+
+    Returns
+    -------
+    str
+
+    References
+    ----------
+    D. Fenzke et al., J. Magn. Reson. 57 (1984) 368; A. Samoson, E. Lippmaa, Phys. Rev. B 28 (1983) 6565
+    (both from memory).
+
+    Examples
+    --------
+    >>> regime_note(2.5, PulseSequence("single", 50e3, (0.5e-6,)))
+    ''
+    >>> regime_note(2.5, PulseSequence("single", 50e3, (3e-6,)))[:60]
+    'the pulse (non-selective tip angle 54 deg) is not in the qua'
+    """
+    if spin <= 0.5:
+        return ""
+    tip = sequence.tip_angles_deg[0]
+    limit = quantitative_tip_limit_deg(spin, tolerance)
+    if sequence.kind == "echo":
+        return (f"a spin echo (first pulse {tip:.3g} deg non-selective tip angle) excites sites of different C_Q "
+                "differently: populations are quantitative only with the pulses modelled (they are), not from an "
+                "ideal-excitation fit")
+    if tip <= limit:
+        return ""
+    ratio = ct_selectivity_ratio(spin, tip)
+    return (f"the pulse (non-selective tip angle {tip:.3g} deg) is not in the quantitative short-pulse regime: "
+            f"for I = {spin:g} the central transition of a site with large C_Q is excited {ratio:.3g} times as "
+            f"much as one with small C_Q; below {limit:.3g} deg they agree within {tolerance:.0%} "
+            "(populations corrected for excitation are reported when the pulse is modelled)")
