@@ -41,7 +41,9 @@ from . import __version__
 from .disorder.grid import shift_fwhm_hz
 from .disorder.site import DistributedSite
 from .disorder.store import default_kernel_store
+from .engine.echo_train import echo_train_comb
 from .engine.lineshape import Axis, baseline_values, make_axis
+from .engine.pulses import regime_note
 from .engine.site_lines import (
     ORIENTATION_TARGET,
     SiteLines,
@@ -54,8 +56,6 @@ from .engine.site_lines import (
     sideband_rows,
     site_job,
 )
-from .engine.echo_train import echo_train_comb
-from .engine.pulses import regime_note
 from .engine.spectrum import Spectrum
 from .model.modelfile import load_model
 from .model.values import Model, ModelError, ParameterAddress, selected_transitions

@@ -8,7 +8,6 @@ import numpy as np
 import pytest
 
 import powderspin as ps
-from powderspin.engine.lineshape import make_axis
 from powderspin.io.spectra import MeasuredSpectrum
 from powderspin.simulator import Simulator
 
