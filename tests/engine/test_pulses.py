@@ -65,6 +65,26 @@ def test_kernels_match_expm_twin(nucleus, cq):
                                                                  (30.0, 115.0), m_up), rtol=0, atol=1e-10)
 
 
+def test_small_symmetric_eigensolver_matches_numpy():
+    # the kernels' Jacobi eigensolver against numpy.linalg.eigh (LAPACK), tridiagonal and full matrices
+    from powderspin.engine import _kernels as K
+
+    rng = np.random.default_rng(5)
+    for d in (2, 3, 4, 6, 8, 10):
+        for full in (False, True):
+            a = rng.normal(size=(d, d)) * 1e5
+            a = a + a.T
+            if not full:
+                a = np.triu(np.tril(a, 1), -1)
+            lam = np.empty(d)
+            vec = np.empty((d, d))
+            K._symmetric_eigen(a.copy(), lam, vec)
+            ref_lam = np.linalg.eigvalsh(a)
+            np.testing.assert_allclose(np.sort(lam), ref_lam, rtol=0, atol=1e-9 * np.abs(ref_lam).max())
+            np.testing.assert_allclose(vec @ np.diag(lam) @ vec.T, a, rtol=0, atol=1e-9 * np.abs(a).max())
+            np.testing.assert_allclose(vec.T @ vec, np.eye(d), rtol=0, atol=1e-12)
+
+
 def test_coherence_amplitudes_pick_order_p():
     rho = P.density_after_pulses(np.zeros((1, 6)), [(50e3, 3e-6, 0.0)])
     for p in range(-5, 6):
