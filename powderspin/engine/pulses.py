@@ -39,8 +39,7 @@ the p-quantum elements, and :func:`pulse_propagators` the propagators for conver
 References
 ----------
 A. Samoson, E. Lippmaa, Phys. Rev. B 28 (1983) 6565 (excitation of quadrupolar nuclei by finite pulses)
-(from memory); D. Fenzke, D. Freude, T. Fröhlich, J. Haase, Chem. Phys. Lett. 111 (1984) 171 and
-D. Fenzke et al., J. Magn. Reson. 57 (1984) 368 (nutation of the central transition at (I + 1/2) nu1 in the
+(from memory); D. Fenzke, D. Freude, T. Fröhlich, J. Haase, J. Magn. Reson. 57 (1984) 368 (nutation of the central transition at (I + 1/2) nu1 in the
 selective limit) (from memory); G. Bodenhausen, H. Kogler, R. R. Ernst, J. Magn. Reson. 58 (1984) 370
 (coherence transfer pathways) (from memory).
 """
@@ -61,6 +60,7 @@ __all__ = [
     "pulse_propagators",
     "density_after_pulses",
     "coherence_amplitudes",
+    "coherence_transfer",
     "transition_amplitudes",
     "transition_excitation",
     "site_excitation",
@@ -325,6 +325,48 @@ def coherence_amplitudes(rho, order: int) -> tuple[np.ndarray, np.ndarray]:
     a, b = a[keep], b[keep]
     mz = spin - np.arange(d, dtype=float)
     return r[:, a, b], np.stack([mz[a], mz[b]], axis=1)
+
+
+def coherence_transfer(propagators, source, target) -> np.ndarray:
+    """Amplitude with which a pulse carries the element |m_a><m_b| into |m_c><m_d|: U[c, a] conj(U[d, b]).
+
+    For multiple-quantum work: e.g. the conversion of triple-quantum coherence ``(3/2, -3/2)`` into the
+    observed central-transition coherence ``(-1/2, 1/2)`` (order -1).
+
+    Parameters
+    ----------
+    propagators : array_like, shape (N, 2I+1, 2I+1)
+        From :func:`pulse_propagators`.
+    source, target : (float, float)
+        (m_a, m_b) and (m_c, m_d).
+
+    Returns
+    -------
+    numpy.ndarray, shape (N,), complex
+
+    See Also
+    --------
+    pulse_propagators, coherence_amplitudes
+
+    Examples
+    --------
+    >>> u = pulse_propagators(np.zeros((1, 2)), 500e3, 1e-6)     # a hard 180 degree pulse on spin 1/2
+    >>> round(float(abs(coherence_transfer(u, (0.5, -0.5), (-0.5, 0.5))[0])), 12)   # +1 -> -1 completely
+    1.0
+    """
+    u = np.asarray(propagators)
+    d = u.shape[-1]
+    spin = (d - 1) / 2.0
+
+    def index(m):
+        i = spin - float(m)
+        if abs(i - round(i)) > 1e-9 or not 0 <= round(i) < d:
+            raise ValueError(f"m = {m!r} is not a level of spin {spin:g}")
+        return int(round(i))
+
+    a, b = index(source[0]), index(source[1])
+    c, e = index(target[0]), index(target[1])
+    return u[:, c, a] * np.conj(u[:, e, b])
 
 
 def transition_amplitudes(levels_hz, sequence: PulseSequence, m_upper) -> np.ndarray:

@@ -85,6 +85,21 @@ def test_small_symmetric_eigensolver_matches_numpy():
             np.testing.assert_allclose(vec.T @ vec, np.eye(d), rtol=0, atol=1e-12)
 
 
+def test_coherence_transfer_is_the_matrix_element_of_u_rho_u():
+    # |a><b| -> U |a><b| U^H, read at (c, d): explicit matrix products with the expm twin's propagator
+    frame = _frame(cq_mhz=3.0, eta=0.2, nucleus="27Al")
+    lv = P.rotating_frame_levels(frame, _directions(3))
+    u = P.pulse_propagators(lv, 100e3, 1.2e-6, 0.0)
+    ms = [2.5, 1.5, 0.5, -0.5, -1.5, -2.5]
+    for src, dst in [((1.5, -1.5), (-0.5, 0.5)), ((0.5, -0.5), (-0.5, 0.5)), ((2.5, -2.5), (0.5, 1.5))]:
+        got = P.coherence_transfer(u, src, dst)
+        for i in range(3):
+            el = np.zeros((6, 6), dtype=complex)
+            el[ms.index(src[0]), ms.index(src[1])] = 1.0
+            ur = ref.propagator(lv[i], 100e3, 1.2e-6, 0.0)
+            assert got[i] == pytest.approx((ur @ el @ ur.conj().T)[ms.index(dst[0]), ms.index(dst[1])], abs=1e-10)
+
+
 def test_coherence_amplitudes_pick_order_p():
     rho = P.density_after_pulses(np.zeros((1, 6)), [(50e3, 3e-6, 0.0)])
     for p in range(-5, 6):
