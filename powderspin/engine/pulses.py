@@ -40,8 +40,8 @@ References
 ----------
 A. Samoson, E. Lippmaa, Phys. Rev. B 28 (1983) 6565 (excitation of quadrupolar nuclei by finite pulses)
 (from memory); D. Fenzke, D. Freude, T. Fröhlich, J. Haase, J. Magn. Reson. 57 (1984) 368 (nutation of
-the central transition at (I + 1/2) nu1 in the selective limit) (from memory); G. Bodenhausen, H. Kogler, R. R. Ernst, J. Magn. Reson. 58 (1984) 370
-(coherence transfer pathways) (from memory).
+the central transition at (I + 1/2) nu1 in the selective limit) (from memory); G. Bodenhausen, H. Kogler,
+R. R. Ernst, J. Magn. Reson. 58 (1984) 370 (coherence transfer pathways) (from memory).
 """
 
 from __future__ import annotations
