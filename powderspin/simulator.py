@@ -710,7 +710,9 @@ class Simulator:
             "shift_offset_ppm": meas.shift_offset_ppm,
             "points": axis.points,
             "sites": {s.label: _site_record(s) for s in model.sites},
-            "intensity_units": "density per ppm; each site integrates to its weight",
+            "intensity_units": "density per ppm; each site integrates to its weight"
+                               + (" times its excited fraction" if meas.pulse_sequence != "ideal" else "")
+                               + ("; times the echo-train comb" if meas.echo_train_period_us is not None else ""),
             "notes": notes,
         }
         if meas.pulse_sequence != "ideal":

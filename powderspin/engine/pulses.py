@@ -563,7 +563,8 @@ def regime_note(spin: float, sequence: PulseSequence, tolerance: float = QUANTIT
     Quadrupolar sites of different C_Q are excited alike only while the non-selective tip angle
     ``360 nu1 t`` is below :func:`quantitative_tip_limit_deg`; beyond it, populations from the ideal model are
     biased towards the sites with the smaller couplings (or larger, past the selective 90 degree pulse).  An
-    echo's relative intensities depend on C_Q whatever the pulse lengths.
+    echo's relative intensities depend on C_Q whatever the pulse lengths.  The rule concerns the central
+    transition of half-integer spins; spin 1/2 and integer spins get no note.
 
     Parameters
     ----------
@@ -587,7 +588,7 @@ def regime_note(spin: float, sequence: PulseSequence, tolerance: float = QUANTIT
     >>> regime_note(2.5, PulseSequence("single", 50e3, (3e-6,)))[:60]
     'the pulse (non-selective tip angle 54 deg) is not in the qua'
     """
-    if spin <= 0.5:
+    if spin <= 0.5 or abs(spin - round(spin)) < 1e-9:  # the rule is about the central transition
         return ""
     tip = sequence.tip_angles_deg[0]
     limit = quantitative_tip_limit_deg(spin, tolerance)
