@@ -86,6 +86,8 @@ LINES_MEMORY_BUDGET = 512 * 1024 * 1024
 #: phase points (orientations x transitions x phases) per chunk of work: small
 #: enough that Ctrl-C and progress reports come quickly
 _CHUNK_POINTS = 1 << 23
+#: directions per block of finite-pulse excitation (a block takes well under a second)
+_PULSE_BLOCK = 2048
 #: accuracy target of ``orientations = "auto"``: estimated RMS difference from a converged
 #: powder average, as a fraction of the lineshape's maximum, at the model's axis and broadening
 ORIENTATION_TARGET = 3e-3
@@ -797,9 +799,16 @@ class _Producer:
         self.pulse = job.pulse
 
     def excitation(self, dirs: np.ndarray) -> np.ndarray:
-        """Finite-pulse excitation (n, T) of the transitions for directions ``dirs`` (rotor-phase averaged)."""
-        return site_excitation(self.frame, dirs, self.m_upper, self.pulse, method=self.job.method,
-                               rotor_angle_rad=self.theta, spinning=self.rate > 0)
+        """Finite-pulse excitation (n, T) of the transitions for directions ``dirs`` (rotor-phase averaged).
+
+        Computed in blocks of :data:`_PULSE_BLOCK` directions, so that Ctrl-C is answered within a fraction of a
+        second.
+        """
+        out = np.empty((dirs.shape[0], len(self.m_upper)))
+        for a, b in _chunks(dirs.shape[0], _PULSE_BLOCK):
+            out[a:b] = site_excitation(self.frame, dirs[a:b], self.m_upper, self.pulse, method=self.job.method,
+                                       rotor_angle_rad=self.theta, spinning=self.rate > 0)
+        return out
 
     def chunk_size(self, phases: int) -> int:
         per = len(self.m_upper) * max(phases, 1) * (self.frame_dim() ** 2 if self.exact else 1)
