@@ -313,7 +313,7 @@ class Simulator:
                 if meas.pulse_sequence != "ideal":
                     raise ModelError(
                         f"site '{model.sites[k].label}': finite-pulse excitation (pulse_sequence = "
-                        f"{meas.pulse_sequence!r}) is not available for sites with an EFG or shift distribution; "
+                        f"{meas.pulse_sequence!r}) is not available for sites with an EFG distribution; "
                         "use pulse_sequence = \"ideal\" for this model")
                 d = DistributedSite(model, k, measurement, allow_strong_coupling=allow_strong_coupling)
                 self._distributed[k] = d
