@@ -149,6 +149,24 @@ def test_selective_limit_ct_nutates_at_i_plus_half_nu1(spin_nucleus):
     assert 1.0 / (2 * t0) == pytest.approx(k * nu1, rel=2e-3)
 
 
+@pytest.mark.parametrize("spin_nucleus", ["23Na", "27Al"])
+def test_selective_echo_is_a_fictitious_spin_half_echo(spin_nucleus):
+    # nu_Q >> nu1: the central transition is a fictitious spin 1/2 nutating at k nu1, k = I + 1/2 (S. Vega,
+    # J. Chem. Phys. 68 (1978) 5518; A. Wokaun, R. R. Ernst, J. Chem. Phys. 67 (1977) 1752; both from memory).
+    # The first pulse leaves the -1 coherence sin(k theta1) / k, the refocusing pulse transfers +1 -> -1 with
+    # sin^2(k theta2 / 2) (a spin-1/2 rotation), so the echo is their product.
+    frame = _frame(cq_mhz=12.0, eta=0.0, nucleus=spin_nucleus, field=14.1, aniso=0.0, eta_cs=0.0,
+                   euler=(0.0, 0.0, 0.0))
+    k = frame.spin + 0.5
+    nu1 = 5e3
+    lv = P.rotating_frame_levels(frame, [[0.0, 0.0, 1.0]])
+    for t1, t2 in [(1 / (4 * k * nu1), 1 / (2 * k * nu1)), (0.3 / (k * nu1), 0.35 / (k * nu1)),
+                   (0.1 / (k * nu1), 0.6 / (k * nu1))]:
+        e = P.transition_excitation(lv, P.PulseSequence("echo", nu1, (t1, t2)), [0.5])[0, 0]
+        th1, th2 = 2 * math.pi * nu1 * t1, 2 * math.pi * nu1 * t2
+        assert e == pytest.approx(math.sin(k * th1) / k * math.sin(k * th2 / 2) ** 2, abs=2e-3)
+
+
 def test_non_selective_limit_gives_ideal_relative_intensities():
     # nu1 >> nu_Q and a short pulse: every transition is excited as sin(theta), so the powder intensities
     # keep the ratios I(I+1) - m(m-1) (9 : 8 : 5 for I = 5/2) of the ideal small-tip spectrum (common
