@@ -310,11 +310,11 @@ class Simulator:
         self._distributed: dict[int, DistributedSite] = {}
         for k in range(n):
             if _has_distribution(model, k):
-                if meas.pulse_sequence != "ideal":
+                if meas.pulse_sequence != "ideal" and meas.carrier_ppm is not None:
                     raise ModelError(
                         f"site '{model.sites[k].label}': finite-pulse excitation (pulse_sequence = "
-                        f"{meas.pulse_sequence!r}) is not available for sites with an EFG distribution; "
-                        "use pulse_sequence = \"ideal\" for this model")
+                        f"{meas.pulse_sequence!r}) of a site with an EFG distribution is computed on resonance "
+                        "only; remove carrier_ppm (each site is then excited at its own isotropic shift)")
                 d = DistributedSite(model, k, measurement, allow_strong_coupling=allow_strong_coupling)
                 self._distributed[k] = d
                 notes.extend(t for t in d.notes if t not in notes)
@@ -721,8 +721,9 @@ class Simulator:
                 "echo_pulse_us": (meas.echo_pulse_us if meas.echo_pulse_us is not None else 2 * meas.pulse_us)
                 if meas.pulse_sequence == "echo" else None,
                 "carrier_ppm": meas.carrier_ppm if meas.carrier_ppm is not None else "each site's shift",
-                "excited_fraction": {lab: float(lines.excited_fraction) for lab, (_, lines, _) in zip(labels, parts)
-                                     if lines is not None},
+                "excited_fraction": {lab: float(lines.excited_fraction if lines is not None
+                                                else self._distributed[k].excited_fraction)
+                                     for k, (lab, (_, lines, _)) in enumerate(zip(labels, parts))},
                 "meaning": "each site integrates to its weight times its excited fraction (relative to a hard "
                            "90 degree pulse)",
             }

@@ -99,11 +99,33 @@ def test_bad_acquisition_keys_name_the_key(keys, words):
         assert w in str(e.value)
 
 
-def test_distributed_sites_refuse_finite_pulses():
-    m = ps.make_model("27Al", dict(field_tesla=9.4, pulse_sequence="single", pulse_us=1.0, rf_khz=50.0),
-                      [{"czjzek_sigma_mhz": 2.0}])
-    with pytest.raises(ModelError, match="finite-pulse excitation"):
+def test_distributed_sites_refuse_an_offset_carrier():
+    m = ps.make_model("27Al", dict(field_tesla=9.4, pulse_sequence="single", pulse_us=1.0, rf_khz=50.0,
+                                   carrier_ppm=20.0), [{"czjzek_sigma_mhz": 2.0}])
+    with pytest.raises(ModelError, match="carrier_ppm"):
         Simulator(m)
+
+
+def test_explicit_grid_with_pulses_is_the_weighted_sum_of_fixed_sites_with_pulses():
+    # a site with an explicit C_Q/eta distribution is the weighted sum of fixed sites (the definition of the
+    # distribution); with finite pulses each member keeps its own excitation, so the sum must hold too
+    meas = {"field_tesla": 9.4, "spinning_hz": "inf", "points": 512, "center_ppm": 20.0, "width_ppm": 200.0,
+            "orientations": "medium", "pulse_sequence": "single", "pulse_us": 2.0, "rf_khz": 50.0}
+    cqv, cw, ev, ew = [2.0, 3.0, 4.5], [1.0, 2.0, 1.0], [0.1, 0.8], [3.0, 1.0]
+    from powderspin.disorder.store import KernelStore
+
+    def sim(sites):
+        return ps.simulate(ps.make_model("27Al", meas, sites), kernel_store=KernelStore(None))
+
+    got = sim([{"shift_ppm": 50.0, "gauss_hz": 200.0, "cq_distribution_mhz": {"values": cqv, "weights": cw},
+                "eta_distribution": {"values": ev, "weights": ew}}])
+    want = sum(a * b * sim([{"shift_ppm": 50.0, "gauss_hz": 200.0, "cq_mhz": c, "eta_q": e}]).intensity
+               for c, a in zip(cqv, cw) for e, b in zip(ev, ew)) / (sum(cw) * sum(ew))
+    rms = float(np.sqrt(np.mean((got.intensity - want) ** 2)) / np.max(np.abs(want)))
+    assert rms < 1e-4
+    f = got.metadata["excitation"]["excited_fraction"]["site 1"]
+    assert f == pytest.approx(float(want.sum() * 200.0 / 512), rel=1e-3)
+    assert not any("outside the axis" in t for t in got.metadata["notes"])
 
 
 def test_shift_anisotropy_and_pulse_share_one_job_per_shift_on_resonance():

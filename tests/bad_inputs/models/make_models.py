@@ -63,9 +63,9 @@ CASES = [
     ("pulse_without_rf.toml", m('pulse_sequence = "single"\npulse_us = 2.0'), [], ["pulse_sequence", "rf_khz"]),
     ("pulse_too_long.toml", m('pulse_sequence = "echo"\npulse_us = 5000.0\nrf_khz = 50.0'), [],
      ["pulse_us = 5000", "(0, 1000]"]),
-    ("pulse_distributed.toml", model(meas=BASE_MEAS + 'pulse_sequence = "single"\npulse_us = 1.0\nrf_khz = 50.0\n',
-                                     site='label = "A"\nczjzek_sigma_mhz = 2.0\n'), [],
-     ["site 'A'", "finite-pulse", "pulse_sequence"]),
+    ("pulse_distributed.toml", model(meas=BASE_MEAS + 'pulse_sequence = "single"\npulse_us = 1.0\nrf_khz = 50.0\n'
+                                     + 'carrier_ppm = 30.0\n', site='label = "A"\nczjzek_sigma_mhz = 2.0\n'), [],
+     ["site 'A'", "finite-pulse", "carrier_ppm"]),
     ("echo_train_echoes.toml", m("echo_train_period_us = 200.0\necho_train_echoes = 0"), [],
      ["echo_train_echoes = 0", "[1, 100000]"]),
     ("transitions_word.toml", m('transitions = "middle"'), [], ["transition", "m1:m2"]),
