@@ -41,7 +41,9 @@ from . import __version__
 from .disorder.grid import shift_fwhm_hz
 from .disorder.site import DistributedSite
 from .disorder.store import default_kernel_store
+from .engine.echo_train import echo_train_comb
 from .engine.lineshape import Axis, baseline_values, make_axis
+from .engine.pulses import regime_note
 from .engine.site_lines import (
     ORIENTATION_TARGET,
     SiteLines,
@@ -308,6 +310,11 @@ class Simulator:
         self._distributed: dict[int, DistributedSite] = {}
         for k in range(n):
             if _has_distribution(model, k):
+                if meas.pulse_sequence != "ideal" and meas.carrier_ppm is not None:
+                    raise ModelError(
+                        f"site '{model.sites[k].label}': finite-pulse excitation (pulse_sequence = "
+                        f"{meas.pulse_sequence!r}) of a site with an EFG distribution is computed on resonance "
+                        "only; remove carrier_ppm (each site is then excited at its own isotropic shift)")
                 d = DistributedSite(model, k, measurement, allow_strong_coupling=allow_strong_coupling)
                 self._distributed[k] = d
                 notes.extend(t for t in d.notes if t not in notes)
@@ -385,6 +392,18 @@ class Simulator:
                     spans.append(tuple(x + sh for x in first_lines[k].frequency_range()))
             axis = axis_from(spans)
         self.axis = axis
+        if meas.pulse_sequence != "ideal":
+            seq = site_job(model.sites[0], meas, nuc, "perturbation").pulse if n else None
+            text = regime_note(nuc.spin, seq) if seq is not None else ""
+            if text:
+                notes.append(text)
+        self._comb = None
+        if meas.echo_train_period_us is not None:
+            carrier = meas.carrier_ppm * nu_ref * 1e-6 if meas.carrier_ppm is not None else axis.center_hz
+            self._comb = echo_train_comb(axis, carrier, meas.echo_train_period_us * 1e-6, meas.echo_train_echoes,
+                                         None if meas.echo_train_t2_ms is None else meas.echo_train_t2_ms * 1e-3,
+                                         meas.echo_train_output)
+            self._comb.flags.writeable = False
         self._notes = list(notes)
 
     # -- what was decided
@@ -568,11 +587,17 @@ class Simulator:
             sh = site.shift.iso_ppm * f + offset_hz
             r = d.render(self.axis, shift_hz=sh, store=self.kernel_store, weight=site.weight, lorentz_hz=lorentz,
                          gauss_hz=gauss, progress=None if self.progress is None else kernel_progress, site=site)
-            return r, None, sh
+            return self._echo_train(r), None, sh
         lines, sh = self._site_lines(model, k)
         r = render_lines(lines, self.axis, shift_hz=sh, weight=site.weight, lorentz_hz=lorentz, gauss_hz=gauss,
                          binning=meas.binning, memo=self.cache.rendered)
-        return r, lines, sh
+        return self._echo_train(r), lines, sh
+
+    def _echo_train(self, r):
+        """The rendered site as an echo train's spectrum (spikelets or their envelope), when one is measured."""
+        if self._comb is None:
+            return r
+        return replace(r, intensity=r.intensity * self._comb)
 
     def _site_lines(self, model: Model, k: int):
         """(SiteLines, translation Hz) of site k of ``model`` (not a distributed site), from the memo when there."""
@@ -691,9 +716,27 @@ class Simulator:
             "shift_offset_ppm": meas.shift_offset_ppm,
             "points": axis.points,
             "sites": {s.label: _site_record(s) for s in model.sites},
-            "intensity_units": "density per ppm; each site integrates to its weight",
+            "intensity_units": "density per ppm; each site integrates to its weight"
+                               + (" times its excited fraction" if meas.pulse_sequence != "ideal" else "")
+                               + ("; times the echo-train comb" if meas.echo_train_period_us is not None else ""),
             "notes": notes,
         }
+        if meas.pulse_sequence != "ideal":
+            meta["excitation"] = {
+                "pulse_sequence": meas.pulse_sequence, "pulse_us": meas.pulse_us, "rf_khz": meas.rf_khz,
+                "echo_pulse_us": (meas.echo_pulse_us if meas.echo_pulse_us is not None else 2 * meas.pulse_us)
+                if meas.pulse_sequence == "echo" else None,
+                "carrier_ppm": meas.carrier_ppm if meas.carrier_ppm is not None else "each site's shift",
+                "excited_fraction": {lab: float(lines.excited_fraction if lines is not None
+                                                else self._distributed[k].excited_fraction)
+                                     for k, (lab, (_, lines, _)) in enumerate(zip(labels, parts))},
+                "meaning": "each site integrates to its weight times its excited fraction (relative to a hard "
+                           "90 degree pulse)",
+            }
+        if meas.echo_train_period_us is not None:
+            meta["echo_train"] = {"period_us": meas.echo_train_period_us, "echoes": meas.echo_train_echoes,
+                                  "t2_ms": meas.echo_train_t2_ms, "output": meas.echo_train_output,
+                                  "spikelet_spacing_hz": 1e6 / meas.echo_train_period_us}
         if self._distributed:
             meta["distributions"] = {model.sites[k].label: d.describe() for k, d in self._distributed.items()}
         if meas.scale != 1.0:

@@ -218,6 +218,19 @@ class KernelSet:
     method: str
     orientations: str
 
+    def total(self, weights: np.ndarray) -> float:
+        """The weighted sum of the kernels' areas (1 for ideal excitation, less what lies off the kernel axis).
+
+        Parameters
+        ----------
+        weights : numpy.ndarray (K, M)
+
+        Returns
+        -------
+        float
+        """
+        return float(np.ascontiguousarray(weights.T).reshape(-1) @ self.matrix.sum(axis=1))
+
     def fractions(self, weights: np.ndarray, axis: Axis, shift_hz: float) -> np.ndarray:
         """The weighted sum of kernels translated by ``shift_hz`` onto the output axis (fractions per bin).
 
@@ -445,8 +458,11 @@ class DistributedSite:
                                       eta_distribution=None, shift_form="haeberlen", shift_given=())
         self._ms = ms
         self.method = None
+        # finite pulses: the excitation depends on C_Q next to nu1, so a pattern no longer scales with C_Q^2
         self.path = "scaled" if (ms == (0.5,) and site.shift.is_isotropic and (meas.is_static or meas.is_infinite_rate)
-                                 and meas.method != "exact") else "direct"
+                                 and meas.method != "exact" and meas.pulse_sequence == "ideal") else "direct"
+        #: with finite pulses, the site's observed intensity over the ideal one at the last render (else 1)
+        self.excited_fraction = 1.0
 
     # -- extents
 
@@ -748,6 +764,11 @@ class DistributedSite:
         y = frac * weight / axis.dx_ppm
         y = broaden(y, axis.dx_hz, lorentz_hz, gauss_hz)
         kept = float(y.sum() * axis.dx_ppm / weight) if weight > 0 else inside
+        if meas.pulse_sequence != "ideal":  # the kernels integrate to their excited fractions; lost is relative
+            self.excited_fraction = kset.total(w)
+            if self.excited_fraction > 0:
+                inside /= self.excited_fraction
+                kept /= self.excited_fraction
         return RenderedSite(y, max(0.0, 1.0 - min(inside, kept)))
 
     def describe(self) -> str:

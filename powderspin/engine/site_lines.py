@@ -44,6 +44,7 @@ from .frequencies import (
     transition_intensity,
 )
 from .lineshape import Axis, bin_lines, broaden
+from .pulses import PulseSequence, site_excitation
 from .spectrum import SidebandRow
 from .spinning import MAX_ROTOR_PHASES, choose_rotor_phases, perturbative_sidebands, rotor_lines
 
@@ -64,6 +65,7 @@ __all__ = [
     "STRONG_COUPLING_NOTE_RATIO",
     "STRONG_COUPLING_LIMIT_RATIO",
     "sideband_rows",
+    "pulse_sequence",
 ]
 
 #: phases used for the rotor average at infinite rate (the trajectory is a
@@ -84,6 +86,8 @@ LINES_MEMORY_BUDGET = 512 * 1024 * 1024
 #: phase points (orientations x transitions x phases) per chunk of work: small
 #: enough that Ctrl-C and progress reports come quickly
 _CHUNK_POINTS = 1 << 23
+#: directions per block of finite-pulse excitation (a block takes well under a second)
+_PULSE_BLOCK = 2048
 #: accuracy target of ``orientations = "auto"``: estimated RMS difference from a converged
 #: powder average, as a fraction of the lineshape's maximum, at the model's axis and broadening
 ORIENTATION_TARGET = 3e-3
@@ -140,6 +144,9 @@ class SiteJob:
     iso_ppm : float
         Isotropic shift carried by the job: 0 for the perturbative route (a
         translation at render time), the site's shift for the exact route.
+    pulse : PulseSequence or None
+        Finite-pulse excitation (None: ideal small-tip intensities); its carrier
+        offset is relative to the job's frequencies (see :func:`site_job`).
 
     Examples
     --------
@@ -166,6 +173,7 @@ class SiteJob:
     eta_cs: float = 0.0
     euler_deg: tuple = (0.0, 0.0, 0.0)
     iso_ppm: float = 0.0
+    pulse: PulseSequence | None = None
 
     def key(self) -> dict:
         """The job as a JSON-ready mapping (the lineshape library's key).
@@ -184,6 +192,10 @@ class SiteJob:
         d = {f: getattr(self, f) for f in self.__dataclass_fields__}
         d["transitions"] = list(self.transitions)
         d["euler_deg"] = list(self.euler_deg)
+        if self.pulse is None:
+            del d["pulse"]  # ideal excitation: the key of every job made before pulses existed
+        else:
+            d["pulse"] = self.pulse.as_list()
         if math.isinf(self.spinning_hz):
             d["spinning_hz"] = "inf"
         return d
@@ -298,6 +310,7 @@ def site_job(site: Site, meas: Measurement, nucleus: Nuclide, method: str,
     static = rate == 0.0
     finite = not static and math.isfinite(rate)
     anisotropic = not site.shift.is_isotropic
+    iso_job = site.shift.iso_ppm if (method == "exact" or carry_shift) else 0.0
     return SiteJob(
         nucleus=nucleus.name,
         field_tesla=meas.field_tesla,
@@ -312,8 +325,52 @@ def site_job(site: Site, meas: Measurement, nucleus: Nuclide, method: str,
         aniso_ppm=site.shift.aniso_ppm,
         eta_cs=site.shift.eta if anisotropic else 0.0,
         euler_deg=tuple(site.euler_deg) if (quadrupolar and anisotropic) else (0.0, 0.0, 0.0),
-        iso_ppm=site.shift.iso_ppm if (method == "exact" or carry_shift) else 0.0,
+        iso_ppm=iso_job,
+        pulse=pulse_sequence(site, meas, nucleus, iso_job),
     )
+
+
+def pulse_sequence(site: Site, meas: Measurement, nucleus: Nuclide, job_iso_ppm: float = 0.0) -> PulseSequence | None:
+    """The measurement's pulses as a :class:`~powderspin.engine.pulses.PulseSequence` for one site's job.
+
+    The carrier offset is taken relative to the job's frequencies: the line sits at
+    ``job offset + (delta_iso - job_iso_ppm) nu_ref 1e-6``, the carrier at ``carrier_ppm`` (or, when absent,
+    at the site's isotropic shift: on resonance), so the rotating-frame offset is the job's offset less
+    ``(carrier - delta_iso + job_iso_ppm) nu_ref 1e-6``.  On resonance the perturbative job does not depend on
+    the isotropic shift.
+
+    Parameters
+    ----------
+    site : Site
+    meas : Measurement
+    nucleus : Nuclide
+    job_iso_ppm : float, optional
+        Isotropic shift carried by the job (0 for the perturbative route).
+
+    Returns
+    -------
+    PulseSequence or None
+        None for ``pulse_sequence = "ideal"``.
+
+    Examples
+    --------
+    >>> from powderspin.model.values import Measurement, Site
+    >>> seq = pulse_sequence(Site(cq_mhz=3.0), Measurement(14.1, pulse_sequence="single", pulse_us=1.0, rf_khz=50.0),
+    ...                      get_nuclide("27Al"))
+    >>> seq.kind, seq.nu1_hz, seq.lengths_s, seq.carrier_offset_hz
+    ('single', 50000.0, (1e-06,), 0.0)
+    """
+    if meas.pulse_sequence == "ideal":
+        return None
+    f = nucleus.larmor_hz(meas.field_tesla) * 1e-6
+    carrier = meas.carrier_ppm if meas.carrier_ppm is not None else site.shift.iso_ppm
+    offset = (carrier - site.shift.iso_ppm + job_iso_ppm) * f
+    t1 = meas.pulse_us * 1e-6
+    if meas.pulse_sequence == "single":
+        lengths = (t1,)
+    else:
+        lengths = (t1, (meas.echo_pulse_us if meas.echo_pulse_us is not None else 2.0 * meas.pulse_us) * 1e-6)
+    return PulseSequence(meas.pulse_sequence, meas.rf_khz * 1e3, lengths, (0.0, 0.0), 0.0 if offset == 0 else offset)
 
 
 def choose_orientations(site: Site, meas: Measurement, nucleus: Nuclide, method: str, axis: Axis, *,
@@ -621,6 +678,9 @@ class SiteLines:
         intensity of each band n (index ``n mod P``).
     notes : tuple of str
         What the user should know (aliasing at a fixed number of phases, ...).
+    excited_fraction : float
+        With finite pulses, the site's observed intensity over the ideal one (the lines then sum to it);
+        1 for ideal excitation.
 
     References
     ----------
@@ -651,6 +711,7 @@ class SiteLines:
     band_position_hz: np.ndarray
     band_max: np.ndarray
     notes: tuple = field(default=())
+    excited_fraction: float = 1.0
 
     def band_offsets(self) -> np.ndarray:
         """Offset (Hz) of each band from the centre band, ``n * rate_hz``.
@@ -735,6 +796,19 @@ class _Producer:
         self.rate = job.spinning_hz
         self.ideal = _ideal_weights(self.frame.spin, self.m_upper)
         self.norm = sum(transition_intensity(self.frame.spin, m) for m in self.m_upper)
+        self.pulse = job.pulse
+
+    def excitation(self, dirs: np.ndarray) -> np.ndarray:
+        """Finite-pulse excitation (n, T) of the transitions for directions ``dirs`` (rotor-phase averaged).
+
+        Computed in blocks of :data:`_PULSE_BLOCK` directions, so that Ctrl-C is answered within a fraction of a
+        second.
+        """
+        out = np.empty((dirs.shape[0], len(self.m_upper)))
+        for a, b in _chunks(dirs.shape[0], _PULSE_BLOCK):
+            out[a:b] = site_excitation(self.frame, dirs[a:b], self.m_upper, self.pulse, method=self.job.method,
+                                       rotor_angle_rad=self.theta, spinning=self.rate > 0)
+        return out
 
     def chunk_size(self, phases: int) -> int:
         per = len(self.m_upper) * max(phases, 1) * (self.frame_dim() ** 2 if self.exact else 1)
@@ -789,8 +863,12 @@ class _Producer:
         pos = np.zeros(p_out)
         amax = np.zeros(p_out)
         size = self.chunk_size(phases)
+        ideal_total = 0.0
         for a, b in _chunks(n, size):
             m_c, a_c, w_c = self.lines(oset.vectors[a:b], phases)
+            if self.pulse is not None:
+                ideal_total += float((oset.weights[a:b, None, None] * w_c[:, :, None] * a_c).sum())
+                w_c = w_c * self.excitation(oset.vectors[a:b])
             mean[a:b] = m_c
             w[a:b] = w_c
             if store:
@@ -808,6 +886,7 @@ class _Producer:
             np.maximum(amax, x_c, out=amax)
             if progress is not None:
                 progress(done0 + b, total)
+        self.ideal_total = ideal_total
         return mean, amp, w, inten, pos, amax
 
 
@@ -912,12 +991,16 @@ def compute_lines(job: SiteJob, *, orientations: OrientationSet | None = None, p
             phases *= 2
         phases_out = phases
     total = float(inten.sum())
+    excited = 1.0
+    if job.pulse is not None:  # normalised by the ideal intensity: the lines sum to the excited fraction
+        excited = total / prod.ideal_total if prod.ideal_total > 0 else 0.0
+        total = prod.ideal_total
     if total > 0:
         w = w / total
         inten = inten / total
         pos = pos / total
     return SiteLines(job, oset, tuple(job.transitions), mean, amp, w, rate, job.method, phases_out,
-                     inten, pos, amax, tuple(notes))
+                     inten, pos, amax, tuple(notes), excited)
 
 
 # ---------------------------------------------------------------------------
@@ -1013,6 +1096,9 @@ def render_lines(lines: SiteLines, axis: Axis, *, shift_hz: float = 0.0, weight:
     y = frac * weight / axis.dx_ppm
     y = broaden(y, axis.dx_hz, lorentz_hz, gauss_hz)
     kept = float(y.sum() * axis.dx_ppm / weight) if weight > 0 else inside
+    if lines.job.pulse is not None and lines.excited_fraction > 0:  # lost relative to what was excited
+        inside /= lines.excited_fraction
+        kept /= lines.excited_fraction
     return RenderedSite(y, max(0.0, 1.0 - min(inside, kept)))
 
 

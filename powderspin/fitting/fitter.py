@@ -73,6 +73,8 @@ import time
 import numpy as np
 
 from ..disorder.summary import distribution_summary
+from ..engine.pulses import regime_note
+from ..engine.site_lines import site_job
 from ..engine.threads import kernel_threads
 from ..model.values import FitSettings, FreeParameter, Model, ParameterAddress
 from ..simulator import SimulationCache, Simulator, as_model
@@ -472,6 +474,13 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     fitted = fitted_model(problem, x, e, axes, centers, widths, paths, settings, model)
     spectra = tuple(Simulator(fitted, j, kernel_store=kernel_store, cache=cache).spectrum() for j in range(n_meas))
     site_err, meas_err = stderr_tables(fitted, free, q_err, derived)
+    excitation = excitation_report(fitted, spectra, site_err)
+    for j, meas in enumerate(fitted.measurements):
+        if meas.pulse_sequence != "ideal":
+            text = regime_note(fitted.nucleus.spin, site_job(fitted.sites[0], meas, fitted.nucleus,
+                                                             "perturbation").pulse)
+            if text:
+                warns.append(f"{where(j)}: {text}")
     post = None
     if posterior:
         post = sample_posterior(problem, x, free, cov[:p, :p], walkers, steps, burn, seed, progress)
@@ -488,7 +497,66 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
         scale_stderr=tuple(derived["scale_err"]), baselines=tuple(m.baseline for m in fitted.measurements),
         baseline_stderr=tuple(derived["baseline_err"]), site_stderr=site_err, measurement_stderr=meas_err,
         warnings=tuple(warns), notes=tuple(notes), time_s=time.perf_counter() - t_start, starts=n_starts,
-        starts_at_best=at_best, posterior=post, derived=dist_derived)
+        starts_at_best=at_best, posterior=post, derived=dist_derived, excitation=excitation)
+
+
+def excitation_report(fitted: Model, spectra, site_err) -> dict:
+    """Populations corrected for excitation, beside what an ideal-excitation reading would have given.
+
+    With the pulses modelled (``pulse_sequence`` "single" or "echo"), a site's fitted weight is its population:
+    the simulation already scales each site by its excited fraction (its observed intensity relative to a hard
+    90 degree pulse).  The apparent population is what the integrated intensities say,
+    ``w_i f_i / sum_j w_j f_j``; its error follows from the weights' standard errors by the delta method
+    (correlations between weights neglected).
+
+    Parameters
+    ----------
+    fitted : Model
+        The fitted model (weights normalised).
+    spectra : sequence of Spectrum
+        The fitted spectra (their metadata carry the excited fractions).
+    site_err : sequence of Mapping
+        Standard errors per site.
+
+    Returns
+    -------
+    dict
+        Empty when no measurement models its pulses; else, per measurement index (as text), per site label:
+        ``excited_fraction``, ``population``, ``population_stderr``, ``apparent_population``,
+        ``apparent_population_stderr``.
+
+    References
+    ----------
+    A. Samoson, E. Lippmaa, Phys. Rev. B 28 (1983) 6565 (excitation of quadrupolar nuclei) (from memory).
+
+    Examples
+    --------
+    See ``tests/fitting/test_fit_pulses.py``.
+    """
+    out: dict = {}
+    w = np.array([s.weight for s in fitted.sites], dtype=float)
+    w_sum = w.sum()
+    if w_sum <= 0:
+        return out
+    pop = w / w_sum
+    err = np.array([float(e.get("weight", 0.0)) if e else 0.0 for e in site_err]) / w_sum
+    for j, spec in enumerate(spectra):
+        exc = spec.metadata.get("excitation")
+        if not exc:
+            continue
+        f = np.array([exc["excited_fraction"].get(s.label, 1.0) for s in fitted.sites], dtype=float)
+        tot = float((pop * f).sum())
+        if tot <= 0:
+            continue
+        app = pop * f / tot
+        # d app_i / d pop_k = f_i delta_ik / tot - pop_i f_i f_k / tot^2
+        jac = np.diag(f / tot) - np.outer(pop * f, f) / tot ** 2
+        app_err = np.sqrt((jac ** 2) @ (err ** 2))
+        out[str(j)] = {s.label: {"excited_fraction": float(f[i]), "population": float(pop[i]),
+                                 "population_stderr": float(err[i]), "apparent_population": float(app[i]),
+                                 "apparent_population_stderr": float(app_err[i])}
+                       for i, s in enumerate(fitted.sites)}
+    return out
 
 
 def _any_auto_method(model: Model) -> bool:

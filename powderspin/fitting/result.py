@@ -207,6 +207,11 @@ class FitResult:
         the delta method: for each site with an EFG distribution its mean
         C_Q and mean P_Q = C_Q (1 + eta^2/3)^(1/2) (``"LABEL.mean_cq_mhz"``,
         ``"LABEL.mean_pq_mhz"``).
+    excitation : Mapping
+        With the pulses modelled: per measurement (index as text), per site label, the excited fraction,
+        the population corrected for excitation (the normalised weight) and its error, and the apparent
+        population the integrated intensities would give (see
+        :func:`powderspin.fitting.fitter.excitation_report`); empty otherwise.
 
     Examples
     --------
@@ -244,9 +249,10 @@ class FitResult:
     starts_at_best: int = 1
     posterior: PosteriorSummary | None = None
     derived: Mapping = field(default_factory=dict)
+    excitation: Mapping = field(default_factory=dict)
 
     def __post_init__(self):
-        for k in ("values", "stderr", "derived"):
+        for k in ("values", "stderr", "derived", "excitation"):
             object.__setattr__(self, k, MappingProxyType(dict(getattr(self, k))))
         for k in ("correlation", "covariance"):
             c = np.array(getattr(self, k), dtype=float)
@@ -311,6 +317,13 @@ class FitResult:
             p = self.posterior
             out.append(f"posterior: {p.walkers} walkers x {p.steps} steps, first {p.burn} discarded; longest "
                        f"autocorrelation time {max(p.autocorrelation_steps):.3g} steps; acceptance {p.acceptance:.2f}")
+        for j, sites in self.excitation.items():
+            where = "" if len(self.excitation) == 1 and j == "0" else f" (measurement {int(j) + 1})"
+            out.append(f"populations corrected for excitation{where}:")
+            for label, d in sites.items():
+                out.append(f"  {label:<{w}}  {format_value(d['population'], d['population_stderr'])}   excited "
+                           f"fraction {d['excited_fraction']:.4g}; an ideal-excitation reading would say "
+                           f"{format_value(d['apparent_population'], d['apparent_population_stderr'])}")
         out += [f"note: {t}" for t in self.notes]
         out += [f"warning: {t}" for t in self.warnings]
         return "\n".join(out) + "\n"
@@ -373,6 +386,8 @@ class FitResult:
         if self.derived:
             res["derived"] = {n: float(v) for n, (v, _) in self.derived.items()}
             res["derived_stderr"] = {n: float(e) for n, (_, e) in self.derived.items()}
+        if self.excitation:
+            res["excitation"] = {j: {lab: dict(d) for lab, d in sites.items()} for j, sites in self.excitation.items()}
         if self.starts > 1:
             res["starts"] = int(self.starts)
             res["starts_at_best"] = int(self.starts_at_best)

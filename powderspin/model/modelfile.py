@@ -546,6 +546,8 @@ def _measurement_table(meas: Measurement) -> dict:
             continue
         if k in ("shift_offset_ppm",) and v == 0.0:
             continue
+        if k in ("pulse_sequence", "echo_train_echoes", "echo_train_output") and v == spec.default:
+            continue
         if k == "scale" and v == 1.0:
             continue
         if k == "baseline":

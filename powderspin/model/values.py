@@ -674,6 +674,24 @@ class Measurement:
         spectrum, ``sum_k b_k u**k`` with ``u = (nu - nu_c) / (W / 2)`` running
         from -1 to 1 across the axis (centre nu_c, full width W); empty for
         none.  Written by a fit.
+    pulse_sequence : str
+        ``"ideal"`` (default: small-tip intensities, no pulse modelled), ``"single"`` or ``"echo"``
+        (finite pulses, :mod:`powderspin.engine.pulses`).
+    pulse_us, echo_pulse_us : float or None
+        Pulse lengths (microseconds); the echo's refocusing pulse defaults to twice ``pulse_us``.
+    rf_khz : float or None
+        RF field strength nu1 (kHz).
+    carrier_ppm : float or None
+        Transmitter position (ppm); None: each site on resonance for the pulses, the axis centre for an
+        echo train.
+    echo_train_period_us : float or None
+        Echo period tau of a (Q)CPMG echo train (microseconds); None: no echo train.
+    echo_train_echoes : int
+        Echoes in the train.
+    echo_train_t2_ms : float or None
+        Decay time constant of the echo tops (ms); None: no decay.
+    echo_train_output : str
+        ``"spikelets"`` (the comb) or ``"envelope"`` (the curve through the spikelet tops).
 
     References
     ----------
@@ -704,9 +722,19 @@ class Measurement:
     data: str | None = None
     scale: float = 1.0
     baseline: tuple = ()
+    pulse_sequence: str = "ideal"
+    pulse_us: float | None = None
+    echo_pulse_us: float | None = None
+    rf_khz: float | None = None
+    carrier_ppm: float | None = None
+    echo_train_period_us: float | None = None
+    echo_train_echoes: int = 32
+    echo_train_t2_ms: float | None = None
+    echo_train_output: str = "spikelets"
 
     def __post_init__(self):
         w = "measurement"
+        _check_acquisition(self)
         object.__setattr__(self, "field_tesla", check_number(w, "field_tesla", self.field_tesla, w))
         sp = self.spinning_hz
         if isinstance(sp, str) and sp.strip().lower() in ("inf", "infinite", "infinity"):
@@ -803,6 +831,37 @@ class Measurement:
 
 #: most coefficients a baseline may have (order 5, as ``[fit] baseline_order``)
 MAX_BASELINE_COEFFICIENTS = 6
+
+
+def _check_acquisition(meas) -> None:
+    """Check the finite-pulse and echo-train keys of a measurement (in place on the frozen value)."""
+    w = "measurement"
+    for key in ("pulse_sequence", "echo_train_output"):
+        choices = key_spec(w, key).choices
+        if getattr(meas, key) not in choices:
+            raise ModelError(f"measurement: {key} = {getattr(meas, key)!r} is not one of "
+                             + ", ".join(repr(c) for c in choices))
+    for key in ("pulse_us", "echo_pulse_us", "rf_khz", "carrier_ppm", "echo_train_period_us", "echo_train_t2_ms"):
+        if getattr(meas, key) is not None:
+            object.__setattr__(meas, key, check_number(w, key, getattr(meas, key), w))
+    n = meas.echo_train_echoes
+    spec = key_spec(w, "echo_train_echoes")
+    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or not (spec.low <= n <= spec.high):
+        raise ModelError(f"measurement: echo_train_echoes = {n!r} must be an integer in "
+                         f"[{spec.low:g}, {spec.high:g}] ({spec.why})")
+    object.__setattr__(meas, "echo_train_echoes", int(n))
+    if meas.pulse_sequence == "ideal":
+        given = [k for k in ("pulse_us", "echo_pulse_us", "rf_khz") if getattr(meas, k) is not None]
+        if given:
+            raise ModelError(f"measurement: {', '.join(given)} given with pulse_sequence = \"ideal\"; set "
+                             "pulse_sequence = \"single\" or \"echo\" to model the pulses, or remove them")
+        return
+    missing = [k for k in ("pulse_us", "rf_khz") if getattr(meas, k) is None]
+    if missing:
+        raise ModelError(f"measurement: pulse_sequence = {meas.pulse_sequence!r} needs "
+                         f"{' and '.join(missing)} (the pulse length in microseconds and the RF field nu1 in kHz)")
+    if meas.pulse_sequence == "single" and meas.echo_pulse_us is not None:
+        raise ModelError("measurement: echo_pulse_us is for pulse_sequence = \"echo\"; a single pulse has one length")
 
 
 def _check_baseline(b) -> tuple:
