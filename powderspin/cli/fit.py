@@ -15,7 +15,9 @@ def add_parser(sub) -> None:
     """Add the ``fit`` command to the subparsers ``sub``."""
     f = sub.add_parser("fit", help="fit a model with free parameters to measured spectra")
     f.add_argument("model", help="model file (TOML) with free parameters { start, min, max }")
-    f.add_argument("data", nargs="*", help="measured spectrum per measurement, in order (overrides data = ...)")
+    f.add_argument("data", nargs="*", help="measured spectrum or raw data folder (fid/ser with acqus, fid with "
+                        "procpar; processed with the model's [processing] table) per measurement, in order "
+                        "(overrides data = ...)")
     f.add_argument("-o", "--output", required=True,
                    help="result file to write (.toml, a model file); the CSV goes beside it")
     f.add_argument("--report", help="also write the report figure (.png, .pdf or .svg)")

@@ -2,20 +2,21 @@
 
 How the signal-free points are found (our procedure)
 ----------------------------------------------------
-1. The noise level sigma of the real spectrum is estimated from its
-   point-to-point differences: 1.4826 * median(|d_k - median d|) / sqrt 2
-   (the median absolute deviation of the first differences, robust against
-   the lines; common practice).
-2. First pass: the spectrum is smoothed with a moving average of ``w``
-   points (w = n / 512, at least 5); where the slope of the smoothed spectrum
-   exceeds ``THRESHOLD`` times its noise (sqrt 2 sigma / w) there is signal
-   (an offset or a gentle tilt of the baseline has no slope to speak of).
+1. The spectrum is smoothed with a moving average of ``w`` points
+   (w = n / 512, at least 5).  The differences d_k of the smoothed spectrum
+   ``w`` points apart give its noise: sigma_d = 1.4826 median(|d - median d|)
+   (the median absolute deviation, robust against the lines; common
+   practice), and sigma_d / sqrt 2 is the noise of one smoothed point.
+   Differences ``w`` apart stay independent when apodisation has correlated
+   neighbouring points, which differences of neighbours would not.
+2. First pass: where |d_k| exceeds ``THRESHOLD`` sigma_d there is signal (an
+   offset or a gentle tilt of the baseline changes little over w points).
    Signal is widened by ``2 w`` points on each side (the wings of lines).
 3. Then a baseline of the chosen kind is fitted through the free points; the
    residual is smoothed the same way, every point whose smoothed residual
-   exceeds ``THRESHOLD`` times the noise of the average (sigma / sqrt w) is
-   signal (widened as before), and the baseline is fitted again through the
-   rest, until the set stops changing (at most 20 passes).
+   exceeds ``THRESHOLD`` sigma_d / sqrt 2 is signal (widened as before), and
+   the baseline is fitted again through the rest, until the set stops
+   changing (at most 20 passes).
 4. If fewer than ``MIN_FREE_FRACTION`` of the points stay free, no baseline is
    subtracted and the result says so: the spectrum has no room for one
    (wideline patterns that fill the window).
@@ -139,20 +140,25 @@ def correct_baseline(y: np.ndarray, kind: str = "polynomial", degree: int = 1) -
     n = y.size
     u = np.linspace(-1.0, 1.0, n)
     w = max(5, n // 512)
-    sigma = noise_level(y)
-    if not sigma > 0:
-        sigma = 1e-12 * max(1.0, float(np.max(np.abs(y))))
     kernel = np.ones(w) / w
+    ys = np.convolve(y, kernel, mode="same")
+    # the noise of the smoothed spectrum, from its differences w points apart (apodisation correlates
+    # neighbouring points, so differences of neighbours would understate it)
+    d = ys[2 * w:] - ys[w:-w] if n > 4 * w else np.diff(ys)
+    sigma_d = 1.4826 * float(np.median(np.abs(d - np.median(d))))
+    if not sigma_d > 0:
+        sigma_d = 1e-12 * max(1.0, float(np.max(np.abs(y))))
     widen = np.ones(4 * w + 1)
     need = max(MIN_FREE_FRACTION * n, degree + 2)
 
     def grow(signal):
         return np.convolve(signal.astype(float), widen, mode="same") > 0
 
-    # first pass: the slope of the smoothed spectrum (independent of any offset or gentle tilt)
-    ys = np.convolve(y, kernel, mode="same")
-    slope = np.abs(np.gradient(ys))
-    free = ~grow(slope > THRESHOLD * sigma / w * np.sqrt(2.0))
+    # first pass: the change of the smoothed spectrum over w points (independent of any offset or gentle tilt)
+    slope = np.zeros(n)
+    if n > 4 * w:
+        slope[w:-w] = np.abs(d)
+    free = ~grow(slope > THRESHOLD * sigma_d)
     free[: w] = free[-w:] = free[w] if n > 2 * w else True  # the moving average is biased at the ends
     if free.sum() < need:
         return BaselineResult(np.zeros(n), free, _runs(free), False,
@@ -162,7 +168,7 @@ def correct_baseline(y: np.ndarray, kind: str = "polynomial", degree: int = 1) -
     for _ in range(20):
         base = _fit(kind, degree, u, y, free, w)
         r = np.convolve(y - base, kernel, mode="same")
-        new = ~grow(np.abs(r) > THRESHOLD * sigma / np.sqrt(w))
+        new = ~grow(np.abs(r) > THRESHOLD * sigma_d / np.sqrt(2.0))
         if new.sum() < need or np.array_equal(new, free):
             break
         free = new

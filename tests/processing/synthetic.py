@@ -6,9 +6,10 @@ The model of the acquisition (an ideal linear-phase digital filter):
   points of the discrete transform, ``f_k = (k - M/2) / (M dw)`` from the
   carrier;
 - its inverse transform is the Hermitian ("whole echo") signal; the FID is its
-  causal half (zero before t = 0, half the value at t = 0, the band-limited
-  mid-point of the jump), so that the real part of the FID's transform is
-  ``g / 2`` exactly;
+  causal half (zero before t = 0); with a digital filter (a group delay) the
+  value at t = 0 is half the signal's (the band-limited mid-point of the
+  jump), so that the real part of the FID's transform is ``g / 2`` exactly;
+  without one the receiver samples the full s(0) (and processing halves it);
 - a phase error ``exp(i (e0 + e1 x))`` (x = f / SW) and the filter's group delay
   ``exp(-2 pi i f G dw)`` are applied to the transform; the stored FID is the
   first N points of its inverse (the points before the delayed start hold the
@@ -55,7 +56,8 @@ def fid_from_spectrum(g, dwell_s, n_keep, *, group_delay=0.0, phase0_deg=0.0, ph
     herm = np.fft.ifft(np.fft.ifftshift(g))
     causal = herm.copy()
     causal[m // 2:] = 0.0
-    causal[0] *= 0.5
+    if group_delay:
+        causal[0] *= 0.5        # a digital filter samples the band-limited jump at its mid-point
     spec = np.fft.fftshift(np.fft.fft(causal))
     x = (np.arange(m) - m // 2) / m
     f = x / dwell_s
