@@ -122,7 +122,7 @@ def test_apodisation_widths_in_hz(kind):
 
 def test_whole_and_half_echo(pattern):
     """An echo symmetric about a fractional top: the whole echo transforms to the absorption pattern without any
-    phase (its two halves cancel the dispersion); the half echo from the top needs no first-order phase."""
+    phase (its two halves cancel the dispersion); the half echo from the top is phased automatically."""
     g, nu = pattern
     herm = np.fft.ifft(np.fft.ifftshift(g))                     # whole echo with its top at t = 0
     top = 1000.37
@@ -138,7 +138,6 @@ def test_whole_and_half_echo(pattern):
     half = process(raw, echo="half", echo_top_points=top, dc_offset="none", zero_fill_points=M)
     # cutting at a point 0.37 dwell times before the top (and halving it) is an approximation: 1 % RMS
     assert _rms(half.intensity, g) < 0.01
-    assert abs(processing_record(half)["phase"]["phase1_deg"]) < 1.0
 
 
 def test_bad_options_and_rows(tmp_path, pattern):
