@@ -90,6 +90,8 @@ def run(args) -> int:
         value = getattr(args, f"opt_{name}")
         if value is not None:
             table[name] = value
+    if args.reference_data:
+        table["referencing"] = "spectrometer"      # process() makes it "secondary" from the reference data
     opts = ProcessingOptions.from_table(table)
     if args.reference_data and opts.reference_shift_ppm is None:
         raise ProcessingError("--reference-data needs --reference-shift-ppm (the shift of the reference compound's "

@@ -176,6 +176,8 @@ def process(data, options: ProcessingOptions | None = None, *, reference=None, *
     -40
     """
     opts = options if options is not None else ProcessingOptions()
+    if reference is not None:  # the secondary reference is filled in below from the reference data
+        changes = {**changes, "referencing": "spectrometer"}
     if changes:
         opts = replace(opts, **changes)
     if not isinstance(data, RawFID):
