@@ -56,7 +56,8 @@ def test_exact_group_delay_removal_leaves_no_phase(tmp_path, pattern):
     dic, data = ng.bruker.read(str(d))
     truncated = ng.bruker.remove_digital_filter({"acqus": {"DECIM": 1, "DSPFVS": 20, "GRPDLY": GRPDLY}}, data)
     theirs = np.fft.fftshift(np.fft.fft(truncated, M))
-    # with the delay cut to whole points, the rest (0.985 points) is a first-order phase of ~355 deg per window, and the lineshape is off by more than 1 % RMS
+    # with the delay cut to whole points, the rest (0.985 points) is a first-order phase of ~355 deg per
+    # window, and the lineshape is off by more than 1 % RMS
     assert _rms(theirs.real, g) > 0.01
 
 
