@@ -26,7 +26,9 @@ memory).  Then the zero order: for a spectrum g >= 0 (every line in
 absorption), the signal s(t) = sum g e^{2 pi i f t} has its largest modulus at
 t = 0, where it is real and positive (|s(t)| <= sum g = s(0)); so phase0 is
 minus the phase of the signal at the time origin, i.e. of the sum of the
-spectrum.  Both steps use sums over the whole spectrum, so noise hardly moves
+spectrum.  That phase is read from the first points of the signal, whose phase
+is phi0 + a t + b t^3 + ... (odd powers only: the mean frequency and the third
+cumulant of the spectrum), fitted by weighted least squares.  Both steps use sums over the whole spectrum, so noise hardly moves
 them.  A whole echo (which is not causal) gets the zero order only.
 
 Automatic phasing, second criterion: minimum entropy (``phase = "entropy"``)
@@ -276,7 +278,28 @@ def causal_phase(spectrum: np.ndarray, *, whole_echo: bool = False) -> tuple[flo
     lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, grid.size - 1)]
     res = minimize_scalar(leak, bounds=(lo, hi), method="bounded", options={"xatol": 1e-7})
     p1 = float(res.x)
-    c0 = np.fft.ifft(spec_u * np.exp(1j * p1 * x_u))[0]
-    p0 = -np.angle(c0)
-    p0 = float(np.rad2deg(p0))
+    c = np.fft.ifft(spec_u * np.exp(1j * p1 * x_u))
+    p0 = -_origin_phase(c)
+    p0 = float(np.rad2deg((p0 + np.pi) % (2 * np.pi) - np.pi))
     return p0, float(np.rad2deg(p1))
+
+
+def _origin_phase(c: np.ndarray) -> float:
+    """Phase of the signal at t = 0 from its first points: phase(t) = phi0 + a t + b t^3 fitted with weights |c|^2.
+
+    The phase of s(t) = sum g e^{2 pi i f t} has only odd powers of t beyond the constant (its cumulant expansion:
+    the mean frequency, then the third cumulant; the even cumulants change only the modulus), so the fit is
+    unbiased to order t^5 and averages the noise of several points instead of one.
+    """
+    a = np.abs(c)
+    k = 1
+    while k < min(a.size, 64) and a[k] > 0.3 * max(a[0], a[1]):
+        k += 1
+    if k < 4:
+        return float(np.angle(c[0]))
+    t = np.arange(k, dtype=float)
+    ph = np.unwrap(np.angle(c[:k]))
+    w = a[:k] ** 2
+    basis = np.vstack([np.ones(k), t, t ** 3]).T
+    coef = np.linalg.lstsq(basis * np.sqrt(w)[:, None], ph * np.sqrt(w), rcond=None)[0]
+    return float(coef[0])
