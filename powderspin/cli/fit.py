@@ -111,6 +111,11 @@ def run(args) -> int:
     for p in data:
         if not Path(p).exists():
             raise FitError(f"data file {str(p)!r} does not exist")
+    from ..io.raw import check_against_model, is_raw_data, read_raw
+    for j, p in enumerate(data):  # raw data state their nucleus and field: check them before anything else
+        if is_raw_data(p):
+            check_against_model(read_raw(p, expect="any"), model.nucleus.name, model.measurements[j].field_tesla,
+                                f"measurement {j + 1}")
     outputs = fit_outputs(args, n_meas)
     protect = [model_path] + [Path(p) for p in data]
     check_outputs(outputs, force=args.force, protect=protect)

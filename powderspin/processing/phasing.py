@@ -28,8 +28,9 @@ t = 0, where it is real and positive (|s(t)| <= sum g = s(0)); so phase0 is
 minus the phase of the signal at the time origin, i.e. of the sum of the
 spectrum.  That phase is read from the first points of the signal, whose phase
 is phi0 + a t + b t^3 + ... (odd powers only: the mean frequency and the third
-cumulant of the spectrum), fitted by weighted least squares.  Both steps use sums over the whole spectrum, so noise hardly moves
-them.  A whole echo (which is not causal) gets the zero order only.
+cumulant of the spectrum), fitted by weighted least squares, so that the
+noise of several points averages out.  A whole echo (which is not causal)
+gets the zero order only, from the sum of its spectrum.
 
 Automatic phasing, second criterion: minimum entropy (``phase = "entropy"``)
 --------------------------------------------------------------------------

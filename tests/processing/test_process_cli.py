@@ -16,7 +16,7 @@ import pytest
 import powderspin as ps
 from powderspin.io.raw import RawFID
 from powderspin.io.spectra import read_spectrum
-from powderspin.processing import process, processing_record
+from powderspin.processing import process
 from tests.processing.synthetic import fid_from_spectrum, simulate_on_fft_grid, write_bruker
 
 DWELL = 1e-5
