@@ -294,7 +294,7 @@ def _origin_phase(c: np.ndarray) -> float:
     """
     a = np.abs(c)
     k = 1
-    while k < min(a.size, 64) and a[k] > 0.3 * max(a[0], a[1]):
+    while k < min(a.size, 64) and a[k] > 0.8 * max(a[0], a[1]):
         k += 1
     if k < 4:
         return float(np.angle(c[0]))
