@@ -16,7 +16,9 @@ How the signal-free points are found (our procedure)
    residual is smoothed the same way, every point whose smoothed residual
    exceeds ``THRESHOLD`` sigma_d / sqrt 2 is signal (widened as before), and
    the baseline is fitted again through the rest, until the set stops
-   changing (at most 20 passes).
+   changing (by more than 0.1 % of the points; at most 12 passes).  The
+   polynomial is fitted to the means of the free points in blocks of w
+   points, weighted by their number.
 4. If fewer than ``MIN_FREE_FRACTION`` of the points stay free, no baseline is
    subtracted and the result says so: the spectrum has no room for one
    (wideline patterns that fill the window).
@@ -35,6 +37,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from scipy.ndimage import maximum_filter1d, uniform_filter1d
 
 __all__ = ["BaselineResult", "correct_baseline", "noise_level", "THRESHOLD", "MIN_FREE_FRACTION"]
 
@@ -98,7 +101,17 @@ def _runs(mask: np.ndarray) -> tuple:
 
 def _fit(kind: str, degree: int, u: np.ndarray, y: np.ndarray, free: np.ndarray, w: int) -> np.ndarray:
     if kind == "polynomial":
-        p = np.polynomial.Polynomial.fit(u[free], y[free], degree)
+        # least squares on the means of the free points in blocks of w (weights: their counts), which is the
+        # same fit to within the baseline's variation over a block, and w times cheaper
+        nb = u.size // w
+        cnt = free[: nb * w].reshape(nb, w).sum(axis=1)
+        keep = cnt > 0
+        if keep.sum() <= degree + 1:
+            p = np.polynomial.Polynomial.fit(u[free], y[free], degree)
+            return p(u)
+        fy = np.where(free, y, 0.0)[: nb * w].reshape(nb, w).sum(axis=1)[keep] / cnt[keep]
+        fu = np.where(free, u, 0.0)[: nb * w].reshape(nb, w).sum(axis=1)[keep] / cnt[keep]
+        p = np.polynomial.Polynomial.fit(fu, fy, degree, w=np.sqrt(cnt[keep]))
         return p(u)
     from scipy.interpolate import make_smoothing_spline
     idx = np.flatnonzero(free)
@@ -140,19 +153,17 @@ def correct_baseline(y: np.ndarray, kind: str = "polynomial", degree: int = 1) -
     n = y.size
     u = np.linspace(-1.0, 1.0, n)
     w = max(5, n // 512)
-    kernel = np.ones(w) / w
-    ys = np.convolve(y, kernel, mode="same")
+    ys = uniform_filter1d(y, w, mode="nearest")
     # the noise of the smoothed spectrum, from its differences w points apart (apodisation correlates
     # neighbouring points, so differences of neighbours would understate it)
     d = ys[2 * w:] - ys[w:-w] if n > 4 * w else np.diff(ys)
     sigma_d = 1.4826 * float(np.median(np.abs(d - np.median(d))))
     if not sigma_d > 0:
         sigma_d = 1e-12 * max(1.0, float(np.max(np.abs(y))))
-    widen = np.ones(4 * w + 1)
     need = max(MIN_FREE_FRACTION * n, degree + 2)
 
     def grow(signal):
-        return np.convolve(signal.astype(float), widen, mode="same") > 0
+        return maximum_filter1d(signal.astype(np.int8), 4 * w + 1) > 0
 
     # first pass: the change of the smoothed spectrum over w points (independent of any offset or gentle tilt)
     slope = np.zeros(n)
@@ -165,11 +176,11 @@ def correct_baseline(y: np.ndarray, kind: str = "polynomial", degree: int = 1) -
                               f"no baseline: only {int(free.sum())} of {n} points are free of signal "
                               f"(at least {MIN_FREE_FRACTION:.0%} are needed)")
     # then: the residual from the baseline through the free points, until the set stops changing
-    for _ in range(20):
+    for _ in range(12):
         base = _fit(kind, degree, u, y, free, w)
-        r = np.convolve(y - base, kernel, mode="same")
+        r = uniform_filter1d(y - base, w, mode="nearest")
         new = ~grow(np.abs(r) > THRESHOLD * sigma_d / np.sqrt(2.0))
-        if new.sum() < need or np.array_equal(new, free):
+        if new.sum() < need or np.count_nonzero(new != free) <= 1e-3 * n:
             break
         free = new
     base = _fit(kind, degree, u, y, free, w)
