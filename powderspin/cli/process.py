@@ -52,8 +52,10 @@ def add_parser(sub) -> None:
             kw["choices"] = spec.choices
         elif spec.kind == "integer":
             kw["type"] = int
+            kw["metavar"] = "N"
         else:
             kw["type"] = float
+            kw["metavar"] = spec.unit.upper() if spec.unit else "X"
         group.add_argument(_flag(name), **kw)
     p.add_argument("--force", action="store_true", help="overwrite existing output files")
     p.add_argument("-q", "--quiet", action="store_true", help="no notes on standard error")

@@ -167,3 +167,13 @@ def test_fit_command_records_the_processing(folders, tmp_path):
     r = _run(["fit", "far.toml", str(root / "exp" / "1"), "-o", "far_res.toml", "-q"], tmp_path)
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1, r.stderr
     assert "model says field_tesla = 9.5 T" in r.stderr and not (tmp_path / "far_res.toml").exists()
+
+
+def test_help_lists_every_processing_key(capsys):
+    from powderspin.cli.main import main
+    from powderspin.model.schema import keys_of
+
+    assert main(["process", "--help"]) == 0
+    out = capsys.readouterr().out
+    for name in keys_of("processing"):
+        assert "--" + name.replace("_", "-") in out, name
