@@ -348,8 +348,8 @@ def read_raw(path, *, dwell_us: float | None = None, nucleus: str | None = None,
     else:
         suffix = p.suffix.lower()
         if dwell is None:
-            raise DataError(source, "a .npy or text FID needs its dwell time: give dwell_us (microseconds between "
-                            "complex points)")
+            raise DataError(source, "a .npy or text FID needs its dwell time: give dwell_us (--dwell-us: "
+                            "microseconds between complex points)")
         if suffix == ".npy":
             data = _read_npy(source, p)
             fmt = "NumPy .npy FID"

@@ -59,7 +59,8 @@ def test_coadded_echoes_give_the_static_pattern(train):
 
 def test_spikelets_at_multiples_of_the_inverse_period(train):
     """Transforming the whole train gives spikelets at f = j / tau (tau the echo period): the train is periodic
-    (Fourier series; F. H. Larsen et al., J. Phys. Chem. A 101 (1997) 8597, from memory)."""
+    (Fourier series; F. H. Larsen et al., J. Phys. Chem. A 101 (1997) 8597, from memory), with the pattern as
+    their envelope."""
     g, nu, s, first = train
     raw = RawFID(s, DWELL, nu, nu, "93Nb", None, 0.0, "memory")
     spec = process(raw, echo_train="spikelets", echo_period_us=PERIOD * DWELL * 1e6, zero_fill_points=1 << 17)
@@ -67,11 +68,19 @@ def test_spikelets_at_multiples_of_the_inverse_period(train):
     assert processing_record(spec)["echo_train"]["spikelet_spacing_hz"] == pytest.approx(spacing)
     y, hz = spec.intensity, spec.hz
     step = hz[1] - hz[0]
+    f_grid = fft_axis_hz(M, DWELL)
+    heights, expected = [], []
     for j in range(-8, 9):                               # spikelets within the pattern
         f = j * spacing
         window = np.abs(hz - f) < 0.5 * spacing
         peak = hz[window][np.argmax(y[window])]
         assert abs(peak - f) <= 1.5 * step, (j, peak, f)
+        heights.append(np.max(y[window]))
+        expected.append(np.interp(f, f_grid, g))
+    heights, expected = np.array(heights), np.array(expected)
+    # the envelope follows the pattern (each spikelet carries the pattern smoothed over about 1/tau by the
+    # echoes' own decay): within 5 % of the maximum
+    assert np.max(np.abs(heights / heights.max() - expected / expected.max())) < 0.05
 
 
 def test_echo_helpers():
