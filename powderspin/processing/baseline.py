@@ -19,7 +19,11 @@ How the signal-free points are found (our procedure)
    changing (by more than 0.1 % of the points; at most 12 passes).  The
    polynomial is fitted to the means of the free points in blocks of w
    points, weighted by their number.
-4. If fewer than ``MIN_FREE_FRACTION`` of the points stay free, no baseline is
+4. A baseline lies under the spectrum: if more than ``MIN_FREE_FRACTION`` of
+   the (smoothed) points lie below it by more than the threshold, the
+   candidate points were on the signal (the flat top of a pattern that fills
+   the window) and no baseline is subtracted.
+5. If fewer than ``MIN_FREE_FRACTION`` of the points stay free, no baseline is
    subtracted and the result says so: the spectrum has no room for one
    (wideline patterns that fill the window).
 
@@ -184,6 +188,13 @@ def correct_baseline(y: np.ndarray, kind: str = "polynomial", degree: int = 1) -
             break
         free = new
     base = _fit(kind, degree, u, y, free, w)
+    # a baseline lies under the spectrum: "free" points on the top of a pattern that fills the window would
+    # give a "baseline" with most of the spectrum below it
+    below = np.count_nonzero(ys < base - THRESHOLD * sigma_d / np.sqrt(2.0))
+    if below > MIN_FREE_FRACTION * n:
+        return BaselineResult(np.zeros(n), free, _runs(free), False,
+                              f"no baseline: {below} of {n} points lie below the curve through the "
+                              "candidate signal-free points, which must be on the signal itself")
     what = f"polynomial of degree {degree}" if kind == "polynomial" else "smoothing spline (GCV)"
     return BaselineResult(base, free, _runs(free), True,
                           f"{what} through {int(free.sum())} signal-free points in {len(_runs(free))} regions")

@@ -304,12 +304,19 @@ def causal_phase(spectrum: np.ndarray, *, whole_echo: bool = False) -> tuple[flo
 
     # within half a dwell time of the start: a whole-point delay also leaves negative times empty, so the
     # origin is only defined modulo one point (a first-order correction modulo 360 degrees)
-    grid = np.linspace(-np.pi, np.pi, 17)
-    vals = [leak(g) for g in grid]
-    i = int(np.argmin(vals))
-    lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, grid.size - 1)]
-    res = minimize_scalar(leak, bounds=(lo, hi), method="bounded", options={"xatol": 1e-7})
-    p1 = float(res.x)
+    grid = np.linspace(-1.25 * np.pi, 1.25 * np.pi, 21)   # a little beyond +-half a point, so +-180 deg is inside
+    vals = np.array([leak(g) for g in grid])
+    # every local minimum of the grid, refined; a whole point of delay also leaves negative times empty, so of
+    # the shifts that leak (about) the least, the one with the most signal at the origin is the start
+    cands = []
+    for i in range(grid.size):
+        if (i == 0 or vals[i] <= vals[i - 1]) and (i == grid.size - 1 or vals[i] <= vals[i + 1]):
+            lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, grid.size - 1)]
+            res = minimize_scalar(leak, bounds=(lo, hi), method="bounded", options={"xatol": 1e-7})
+            c = np.fft.ifft(spec_u * np.exp(1j * res.x * x_u))
+            cands.append((float(res.fun), abs(c[0]) / max(np.max(np.abs(c[:4])), 1e-300), float(res.x)))
+    least = min(f for f, _, _ in cands)
+    p1 = max((cand for cand in cands if cand[0] <= 4.0 * least + 1e-12), key=lambda cand: cand[1])[2]
     c = np.fft.ifft(spec_u * np.exp(1j * p1 * x_u))
     p0 = -_origin_phase(c)
     p0 = float(np.rad2deg((p0 + np.pi) % (2 * np.pi) - np.pi))
