@@ -103,9 +103,7 @@ def run(args) -> int:
     for k, d in enumerate(args.data):
         raw = read_raw(d, dwell_us=args.dwell_us, nucleus=args.nucleus, carrier_mhz=args.carrier_mhz,
                        base_mhz=args.base_mhz, expect="any" if opts.row is not None else "fid",
-                       conjugate=args.conjugate) if not Path(d).is_dir() else \
-            read_raw(d, nucleus=args.nucleus, expect="any" if opts.row is not None else "fid",
-                     conjugate=args.conjugate)
+                       conjugate=args.conjugate)
         if model is not None:
             where = "" if len(args.data) == 1 else f"sub-spectrum {k + 1}"
             check_against_model(raw, model.nucleus.name, model.measurement.field_tesla, where)
