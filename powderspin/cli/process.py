@@ -42,7 +42,9 @@ def add_parser(sub) -> None:
                    help="raw data of a secondary reference compound: its tallest line has --reference-shift-ppm")
     p.add_argument("--dwell-us", type=float, help="dwell time of a .npy or text FID (microseconds)")
     p.add_argument("--nucleus", help="observed nucleus of a .npy or text FID, e.g. 27Al")
-    p.add_argument("--carrier-mhz", type=float, help="transmitter frequency of a .npy or text FID (MHz)")
+    p.add_argument("--carrier-mhz", type=float, action="append",
+                   help="transmitter frequency of a .npy or text FID (MHz); once for all DATA, or once per DATA "
+                        "(frequency-stepped)")
     p.add_argument("--base-mhz", type=float, help="frequency of 0 ppm of a .npy or text FID (MHz; default the carrier)")
     p.add_argument("--conjugate", action="store_true", help="the data rotate the other way (reverse the spectrum)")
     group = p.add_argument_group("processing (the keys of the [processing] table)")
@@ -99,9 +101,15 @@ def run(args) -> int:
         raise ProcessingError("--reference-data needs --reference-shift-ppm (the shift of the reference compound's "
                               "tallest line on the unified scale)")
 
+    carriers = args.carrier_mhz or [None]
+    if len(carriers) not in (1, len(args.data)):
+        raise CliError(f"--carrier-mhz given {len(carriers)} times for {len(args.data)} DATA; give it once for all, "
+                       "or once per DATA in the same order")
+    if len(carriers) == 1:
+        carriers = carriers * len(args.data)
     spectra = []
     for k, d in enumerate(args.data):
-        raw = read_raw(d, dwell_us=args.dwell_us, nucleus=args.nucleus, carrier_mhz=args.carrier_mhz,
+        raw = read_raw(d, dwell_us=args.dwell_us, nucleus=args.nucleus, carrier_mhz=carriers[k],
                        base_mhz=args.base_mhz, expect="any" if opts.row is not None else "fid",
                        conjugate=args.conjugate)
         if model is not None:

@@ -177,3 +177,27 @@ def test_help_lists_every_processing_key(capsys):
     out = capsys.readouterr().out
     for name in keys_of("processing"):
         assert "--" + name.replace("_", "-") in out, name
+
+
+def test_stepped_sub_spectra_on_the_command_line(tmp_path):
+    """Two .npy FIDs recorded 30 kHz apart: each placed by its own carrier, combined (skyline and sum)."""
+    t = np.arange(2048) * DWELL
+    nu = ps.get_nuclide("27Al").larmor_hz(9.4)
+    for name, carrier in (("a.npy", nu - 15e3), ("b.npy", nu + 15e3)):
+        line = nu + 2e3 - carrier                                # one line 2 kHz above 0 ppm
+        np.save(tmp_path / name, np.exp(2j * np.pi * line * t - np.pi * 300.0 * t))
+    common = ["--dwell-us", "10", "--nucleus", "27Al", "--base-mhz", str(nu / 1e6), "-q"]
+    for mode in ("skyline", "sum"):
+        args = ["process", "a.npy", "b.npy", "-o", f"{mode}.csv", "--combine", mode, *common,
+                "--carrier-mhz", str((nu - 15e3) / 1e6), "--carrier-mhz", str((nu + 15e3) / 1e6)]
+        r = _run(args, tmp_path)
+        assert r.returncode == 0, r.stderr
+        spec = read_spectrum(tmp_path / f"{mode}.csv")
+        assert json.loads(spec.metadata["file.processing"])["combination"] == mode
+        # the axis spans both windows (100 kHz each, carriers 30 kHz apart) and the line sits at +2 kHz
+        assert spec.hz[-1] - spec.hz[0] == pytest.approx(130e3, rel=1e-3)
+        assert spec.hz[np.argmax(spec.intensity)] == pytest.approx(2e3, abs=2 * (spec.hz[1] - spec.hz[0]))
+    r = _run(["process", "a.npy", "b.npy", "-o", "x.csv", *common, "--carrier-mhz", "1", "--carrier-mhz", "2",
+              "--carrier-mhz", "3"], tmp_path)
+    assert r.returncode == 2 and "--carrier-mhz given 3 times for 2 DATA" in r.stderr
+    assert not (tmp_path / "x.csv").exists()
