@@ -77,6 +77,20 @@ def test_varian_folder(tmp_path):
     assert raw.group_delay_points == 0.0
 
 
+def test_truncated_varian_fid(tmp_path):
+    import nmrglue as ng
+
+    udic = ng.fileiobase.create_blank_udic(1)
+    udic[0].update(size=1024, complex=True, sw=1.0 / DWELL, obs=105.868, car=0.0, label="Na23")
+    dic = ng.varian.create_dic(udic)
+    for name, value in (("sw", "100000"), ("sfrq", "105.868"), ("tn", "Na23")):
+        dic["procpar"][name] = ng.varian.create_pdic_param(name, [value])
+    ng.varian.write(str(tmp_path), dic, _fid().astype("complex64"), overwrite=True)
+    fid = tmp_path / "fid"
+    fid.write_bytes(fid.read_bytes()[:4000])
+    _expect(tmp_path, "truncated")
+
+
 def test_npy_and_text_fids(tmp_path):
     data = _fid(256)
     np.save(tmp_path / "a.npy", data)
