@@ -18,6 +18,10 @@ Formats
   and the digital filter: ``GRPDLY`` (its group delay in points, fractional)
   or, for older files without it, ``DECIM`` and ``DSPFVS`` looked up in
   nmrglue's table of delays (``nmrglue.fileio.bruker.bruker_dsp_table``).
+  ``acqus`` is parsed by nmrglue; the binary ``fid``/``ser`` is then read with
+  numpy against TD (each FID of a ``ser`` starts on a 1024-byte boundary), so
+  that a truncated file is refused rather than reshaped (the tests check the
+  samples against nmrglue's own ``bruker.read``).
 - An Agilent/Varian folder holding ``fid`` and ``procpar``, read through
   nmrglue's Varian reader.  Parameters used: ``np`` (points, real and
   imaginary counted separately), ``sw`` (Hz), ``sfrq`` (transmitter, MHz),
