@@ -43,6 +43,8 @@ _EXPORTS = {
     "write_spectrum": "io.results", "write_plan_json": "io.results", "save_plan_plot": "plotting.plan",
     "save_report": "plotting.report", "Simulator": "simulator", "ProgressEvent": "progress",
     "ShiftTensor": "physics.tensors",
+    "process": "processing.pipeline", "ProcessingOptions": "processing.options", "read_raw": "io.raw",
+    "RawFID": "io.raw", "combine_stepped": "processing.stepped",
 }
 
 __all__ = sorted(_EXPORTS) + ["__version__"]

@@ -15,7 +15,9 @@ def add_parser(sub) -> None:
     """Add the ``fit`` command to the subparsers ``sub``."""
     f = sub.add_parser("fit", help="fit a model with free parameters to measured spectra")
     f.add_argument("model", help="model file (TOML) with free parameters { start, min, max }")
-    f.add_argument("data", nargs="*", help="measured spectrum per measurement, in order (overrides data = ...)")
+    f.add_argument("data", nargs="*", help="measured spectrum or raw data folder (fid/ser with acqus, fid with "
+                        "procpar; processed with the model's [processing] table) per measurement, in order "
+                        "(overrides data = ...)")
     f.add_argument("-o", "--output", required=True,
                    help="result file to write (.toml, a model file); the CSV goes beside it")
     f.add_argument("--report", help="also write the report figure (.png, .pdf or .svg)")
@@ -109,6 +111,11 @@ def run(args) -> int:
     for p in data:
         if not Path(p).exists():
             raise FitError(f"data file {str(p)!r} does not exist")
+    from ..io.raw import check_against_model, is_raw_data, read_raw
+    for j, p in enumerate(data):  # raw data state their nucleus and field: check them before anything else
+        if is_raw_data(p):
+            check_against_model(read_raw(p, expect="any"), model.nucleus.name, model.measurements[j].field_tesla,
+                                f"measurement {j + 1}")
     outputs = fit_outputs(args, n_meas)
     protect = [model_path] + [Path(p) for p in data]
     check_outputs(outputs, force=args.force, protect=protect)

@@ -16,6 +16,7 @@ import numpy as np
 
 from ..engine.lineshape import Axis, make_axis
 from ..engine.site_lines import estimate_span_hz
+from ..io.raw import is_raw_data
 from ..io.spectra import DataError, compare_with_model, read_spectrum
 from ..model.values import Model
 
@@ -137,7 +138,15 @@ def read_measured(item, model: Model, j: int, axis_unit: str | None):
     FitError
         A missing file.
     powderspin.io.spectra.DataError
-        An unreadable file.
+        An unreadable file; raw data whose nucleus or field disagrees with
+        the model's (field: by more than 0.1 %).
+
+    Notes
+    -----
+    A raw data folder (``fid`` or ``ser`` with its parameters) is processed
+    with the model's ``[processing]`` table (defaults for absent keys) by
+    :func:`powderspin.processing.process`; the spectrum's
+    ``metadata["processing"]`` records how.
     """
     if is_spectrum(item):
         return item, None, []
@@ -146,6 +155,14 @@ def read_measured(item, model: Model, j: int, axis_unit: str | None):
     if not Path(path).exists():
         raise FitError(f"data file {path!r} (measurement {j + 1}) does not exist")
     nuc = model.nucleus.name
+    if is_raw_data(path):
+        from ..io.raw import check_against_model, read_raw
+        from ..processing import ProcessingOptions, process
+
+        opts = ProcessingOptions.from_table(dict(model.processing))
+        raw = read_raw(path, expect="any" if opts.row is not None else "fid")
+        check_against_model(raw, nuc, meas.field_tesla, where=f"measurement {j + 1}")
+        return process(raw, opts), path, []
     try:
         spec = read_spectrum(path, axis=axis_unit, nucleus=nuc)
     except DataError as first:

@@ -10,6 +10,7 @@ written by :mod:`powderspin.io.results`.
 
 from __future__ import annotations
 
+import json
 import math
 import os
 from dataclasses import dataclass, field
@@ -393,6 +394,9 @@ class FitResult:
             res["starts_at_best"] = int(self.starts_at_best)
         if self.posterior is not None:
             res["posterior"] = self.posterior.to_dict()
+        records = [getattr(s, "metadata", {}).get("processing") for s in self.data]
+        if any(records):  # how raw data were processed, one table per measurement ({} for a spectrum file)
+            res["processing"] = [json.loads(r) if r else {} for r in records]
         fit["result"] = res
         return d
 

@@ -32,6 +32,7 @@ from __future__ import annotations
 import difflib
 import math
 import tomllib
+from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
@@ -56,7 +57,7 @@ from .values import (
 )
 
 __all__ = ["load_model", "parse_model", "make_model", "make_site", "model_from_tables", "parse_site_table",
-           "model_to_dict",
+           "model_to_dict", "parse_processing",
            "model_to_toml", "write_model", "MAX_MODEL_BYTES"]
 
 #: largest model file read (bytes); a model file is a few kB of text
@@ -299,6 +300,54 @@ def _parse_fit(t: Any) -> FitSettings:
                        t.get("baseline_order"))
 
 
+def parse_processing(t: Any) -> tuple:
+    """The ``[processing]`` table as sorted (key, value) pairs, each key and value checked against the schema.
+
+    Parameters
+    ----------
+    t : dict
+
+    Returns
+    -------
+    tuple of (str, value)
+
+    Raises
+    ------
+    ModelError
+        Not a table, an unknown key, a value of the wrong kind or out of range.
+
+    Examples
+    --------
+    >>> parse_processing({"exponential_hz": 50, "phase": "auto"})
+    (('exponential_hz', 50.0), ('phase', 'auto'))
+    """
+    if not isinstance(t, dict):
+        raise ModelError(f"[processing] must be a table, got {type(t).__name__}")
+    specs = keys_of("processing")
+    _unknown(t.keys(), specs, "processing")
+    out = []
+    for key in sorted(t):
+        spec, v = specs[key], t[key]
+        if spec.kind == "choice":
+            if v not in spec.choices:
+                allowed = ", ".join(f'"{c}"' for c in spec.choices)
+                raise ModelError(f"processing: {key} = {v!r} must be one of {allowed}")
+        else:
+            if not _is_number(v):
+                raise ModelError(f"processing: {key} = {v!r} must be a number ({spec.doc})")
+            if spec.kind == "integer":
+                if float(v) != int(v):
+                    raise ModelError(f"processing: {key} = {v!r} must be a whole number")
+                v = int(v)
+            else:
+                v = float(v)
+            low_ok = v > spec.low if spec.low_open else v >= spec.low
+            if not (low_ok and v <= spec.high):
+                raise ModelError(f"processing: {key} = {v!r} must be in {spec.range_text()} {spec.unit} ({spec.why})")
+        out.append((key, v))
+    return tuple(out)
+
+
 def _resolve_tie(text: str, key: str, item, sites, n_meas: int, where: str) -> ParameterAddress:
     owner, _, src_key = text.rpartition(".")
     src_item = item
@@ -427,7 +476,7 @@ def parse_model(data: Any, source: str = "") -> Model:
     """
     if not isinstance(data, dict):
         raise ModelError(f"model: expected a table of keys, got {type(data).__name__}")
-    _unknown(data.keys(), {"nucleus", "measurement", "site", "fit"}, "model")
+    _unknown(data.keys(), {"nucleus", "measurement", "site", "fit", "processing"}, "model")
     if "nucleus" not in data:
         raise ModelError("model: 'nucleus' is required, e.g. nucleus = \"27Al\"")
     if not isinstance(data["nucleus"], str):
@@ -450,7 +499,10 @@ def parse_model(data: Any, source: str = "") -> Model:
         sites_t = [sites_t]
     if not isinstance(sites_t, list):
         raise ModelError("model: 'site' must be [[site]] tables")
-    return model_from_tables(nuc, meas_list, sites_t, data.get("fit", {}), source)
+    model = model_from_tables(nuc, meas_list, sites_t, data.get("fit", {}), source)
+    if "processing" in data:
+        model = replace(model, processing=parse_processing(data["processing"]))
+    return model
 
 
 def load_model(path) -> Model:
@@ -634,6 +686,8 @@ def model_to_dict(model: Model) -> dict:
         fit["baseline_order"] = f.baseline_order
     if fit:
         data["fit"] = fit
+    if model.processing:
+        data["processing"] = dict(model.processing)
     return data
 
 

@@ -11,7 +11,9 @@ Tables of a model file: the top level (``nucleus``), ``[measurement]`` (or
 several ``[[measurement]]``), ``[[site]]`` and ``[fit]``.  A fit's result file
 is a model file with a few more entries: ``scale`` and ``baseline`` in each
 measurement (applied by every simulation), and ``stderr`` / ``interval``
-sub-tables and ``[fit.result]``, which are read and ignored.
+sub-tables and ``[fit.result]``, which are read and ignored.  ``[processing]``
+says how raw time-domain data are turned into a spectrum before a fit
+(:mod:`powderspin.processing`).
 """
 
 from __future__ import annotations
@@ -46,7 +48,7 @@ class KeySpec:
 
     Attributes
     ----------
-    table : {"top", "measurement", "site", "fit"}
+    table : {"top", "measurement", "site", "fit", "processing"}
         Where the key lives.
     name : str
         The key.
@@ -267,6 +269,71 @@ KEYS: tuple[KeySpec, ...] = (
             why="higher orders follow the lineshape instead of the baseline"),
     KeySpec("fit", "result", "table", "", None,
             doc="what a fit found (chi-square, correlations, warnings, ...); written by a fit, not used"),
+    # ---- processing (raw time-domain data -> spectrum; powderspin.processing)
+    KeySpec("processing", "row", "integer", "", None, 0, 1.0e6,
+            doc="which FID of a series (ser file or arrayed fid) to process, counted from 0",
+            why="rows are counted from 0"),
+    KeySpec("processing", "group_delay", "choice", "", "remove", choices=("remove", "keep"),
+            doc="remove the digital filter's group delay as an exact first-order phase after the transform"),
+    KeySpec("processing", "group_delay_points", "number", "points", None, 0.0, 1.0e4,
+            doc="group delay in dwell times; taken from the data's parameters when absent",
+            why="digital filters delay the signal by tens to a few thousand points"),
+    KeySpec("processing", "echo", "choice", "", "none", choices=("none", "half", "whole"),
+            doc="echo data: start at the echo top (\"half\") or transform the whole echo about its top"),
+    KeySpec("processing", "echo_top_points", "number", "points", None, 0.0, 1.0e7,
+            doc="position of the echo top in dwell times from the first stored point; found from the "
+                "largest magnitude when absent",
+            why="an echo top lies within the recorded points"),
+    KeySpec("processing", "left_shift_points", "integer", "points", 0, 0, 1.0e7,
+            doc="points dropped from the start of the FID (the remaining delay is removed as a phase)",
+            why="a shift lies within the recorded points"),
+    KeySpec("processing", "echo_train", "choice", "", "none", choices=("none", "coadd", "spikelets"),
+            doc="echo train (CPMG/QCPMG): co-add the echoes into one whole echo, or transform the whole "
+                "train into a spikelet spectrum"),
+    KeySpec("processing", "echo_period_us", "number", "us", None, 0.0, 1.0e6, low_open=True,
+            doc="time from one echo top to the next in an echo train (microseconds)",
+            why="echo periods are microseconds to a second"),
+    KeySpec("processing", "echo_count", "integer", "", None, 1, 1.0e5,
+            doc="number of echoes to co-add; every whole echo in the data when absent",
+            why="at least one echo"),
+    KeySpec("processing", "dc_offset", "choice", "", "tail", choices=("tail", "none"),
+            doc="subtract the mean of the last tenth of the FID (a receiver offset) before anything else"),
+    KeySpec("processing", "exponential_hz", "number", "Hz", 0.0, 0.0, 1.0e6,
+            doc="exponential apodisation: the Lorentzian full width at half height it adds",
+            why="a broadening beyond 1 MHz hides any solid-state lineshape"),
+    KeySpec("processing", "gaussian_hz", "number", "Hz", 0.0, 0.0, 1.0e6,
+            doc="Gaussian apodisation: the Gaussian full width at half height it adds",
+            why="a broadening beyond 1 MHz hides any solid-state lineshape"),
+    KeySpec("processing", "zero_fill_points", "integer", "points", None, 16, 4194304,
+            doc="points after zero filling; the next power of two at least twice the FID's when absent",
+            why="at least 16 points; 2^22 bounds memory"),
+    KeySpec("processing", "phase", "choice", "", "auto", choices=("auto", "entropy", "manual", "none"),
+            doc="zero- and first-order phase: found from causality and the signal at the time origin (\"auto\"), "
+                "by minimum entropy (\"entropy\"), given (phase0_deg, phase1_deg), or none"),
+    KeySpec("processing", "phase0_deg", "number", "deg", 0.0, -360.0, 360.0,
+            doc="zero-order phase correction (with phase = \"manual\")", why="phases repeat every 360 deg"),
+    KeySpec("processing", "phase1_deg", "number", "deg", 0.0, -1.0e5, 1.0e5,
+            doc="first-order phase correction: its change from the low- to the high-frequency edge of the "
+                "spectral width, zero at the carrier (with phase = \"manual\")",
+            why="more than 1e5 deg across the window is a wrong group delay"),
+    KeySpec("processing", "baseline", "choice", "", "none", choices=("none", "polynomial", "spline"),
+            doc="baseline through automatically found signal-free regions (which are reported)"),
+    KeySpec("processing", "baseline_degree", "integer", "", 1, 0, 8,
+            doc="degree of the polynomial baseline", why="higher degrees follow the lineshape"),
+    KeySpec("processing", "referencing", "choice", "", "spectrometer",
+            choices=("spectrometer", "unified", "secondary"),
+            doc="0 ppm at the spectrometer's base frequency, on the IUPAC unified scale from a measured 1H "
+                "frequency (proton_mhz), or from a secondary reference (reference_mhz, reference_shift_ppm)"),
+    KeySpec("processing", "proton_mhz", "number", "MHz", None, 1.0, 2000.0, low_open=True,
+            doc="1H frequency of tetramethylsilane on this magnet (referencing = \"unified\")",
+            why="NMR magnets span about 1 to 35 T, 40 to 1500 MHz for 1H (common practice)"),
+    KeySpec("processing", "reference_mhz", "number", "MHz", None, 0.1, 2000.0,
+            doc="frequency of the secondary reference compound's line on this magnet (referencing = "
+                "\"secondary\")",
+            why="NMR frequencies lie between about 0.1 and 2000 MHz (common practice)"),
+    KeySpec("processing", "reference_shift_ppm", "number", "ppm", None, -1.0e5, 1.0e5,
+            doc="shift of the secondary reference compound's line on the unified scale",
+            why="shifts beyond +-1e5 ppm are outside solid-state NMR"),
 )
 
 #: defaults of the planner's options (here, so that the command line can show them without

@@ -995,6 +995,10 @@ class Model:
     source : str, optional
         Where the model came from (a file path), recorded in the metadata;
         relative ``data`` paths are resolved against its folder.
+    processing : tuple of (str, value), optional
+        The ``[processing]`` table (how raw time-domain data become the
+        spectrum a fit reads; :mod:`powderspin.processing`), as sorted
+        (key, value) pairs.
 
     Examples
     --------
@@ -1011,6 +1015,7 @@ class Model:
     tied: tuple = ()
     fit: FitSettings = field(default_factory=FitSettings)
     source: str = ""
+    processing: tuple = ()
 
     def __post_init__(self):
         if isinstance(self.measurements, Measurement):
