@@ -7,7 +7,7 @@ import sys
 from pathlib import Path
 
 __all__ = ["terminal_progress", "CliError", "SPINNING_CAUTION", "note", "compile_note", "parse_range", "numbers",
-           "add_cache_options", "library", "kernel_store", "interrupted"]
+           "add_cache_options", "library", "kernel_store", "interrupted", "outputs_together", "signal_handlers"]
 
 SPINNING_CAUTION = (
     "caution: simulated spinning rates say nothing about what a rotor can take; never exceed the "
@@ -129,3 +129,60 @@ def terminal_progress(args, delay: float = 2.0):
     mode = os.environ.get("POWDERSPIN_PROGRESS", "auto").strip().lower()
     quiet = getattr(args, "quiet", False) or mode == "never"
     return TerminalProgress(quiet, delay=delay, always=mode == "always")
+
+
+def _finish_without_interrupts() -> None:
+    """Once every output is in place, the command finishes: later SIGINT/SIGTERM are ignored (main restores them)."""
+    import signal
+    import threading
+
+    if threading.current_thread() is threading.main_thread():
+        for sig in (signal.SIGINT, getattr(signal, "SIGTERM", None)):
+            if sig is not None:
+                signal.signal(sig, signal.SIG_IGN)
+
+
+def outputs_together():
+    """The output transaction of a command: every file it writes appears together at the end, or none does.
+
+    After the files are in place the rest of the command (its "wrote ..."
+    lines) cannot be interrupted, so that status 130 always means that
+    nothing was written.
+    """
+    from ..files import output_transaction
+
+    return output_transaction(on_commit=_finish_without_interrupts)
+
+
+class signal_handlers:
+    """While a command runs, SIGTERM stops it like Ctrl-C (a KeyboardInterrupt); the old handlers come back after."""
+
+    def __enter__(self):
+        import signal
+        import threading
+
+        self.saved = {}
+        if threading.current_thread() is not threading.main_thread():
+            return self
+        for sig in (signal.SIGINT, getattr(signal, "SIGTERM", None)):
+            if sig is not None:
+                self.saved[sig] = signal.getsignal(sig)
+        if getattr(signal, "SIGTERM", None) is not None:
+            signal.signal(signal.SIGTERM, _terminate)
+        return self
+
+    def __exit__(self, *exc):
+        import signal
+
+        for sig, handler in self.saved.items():
+            if handler is not None:
+                signal.signal(sig, handler)
+        return False
+
+
+class Terminated(KeyboardInterrupt):
+    """SIGTERM, raised where Ctrl-C would raise KeyboardInterrupt."""
+
+
+def _terminate(signum, frame):
+    raise Terminated()

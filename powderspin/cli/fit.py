@@ -6,7 +6,15 @@ import argparse
 import sys
 from pathlib import Path
 
-from .common import CliError, add_cache_options, compile_note, kernel_store, parse_range, terminal_progress
+from .common import (
+    CliError,
+    add_cache_options,
+    compile_note,
+    kernel_store,
+    outputs_together,
+    parse_range,
+    terminal_progress,
+)
 
 __all__ = ["add_parser", "run", "run_fit", "fit_outputs"]
 
@@ -58,7 +66,7 @@ def fit_outputs(args, n_meas: int):
 
 
 def run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool):
-    """Fit, then write every output; if one write fails, remove what this run wrote."""
+    """Fit, then write every output together: if one write fails, none is written."""
     from ..fitting.fitter import fit
     from ..io.results import write_result
     from ..plotting.report import save_corner, save_report
@@ -74,20 +82,13 @@ def run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool):
     finally:
         progress.close()
     written = []
-    try:
+    with outputs_together():  # the result, its CSV files and the figures appear together, or none does
         written += write_result(result, outputs[0][0], force=force, protect=protect)
         for path, role, *_ in outputs:
             if role == "report":
                 written.append(save_report(result, path, force=force, protect=protect))
             elif role == "corner plot":
                 written.append(save_corner(result, path, force=force, protect=protect))
-    except BaseException:
-        for p in written:
-            try:
-                Path(p).unlink()
-            except OSError:
-                pass
-        raise
     return result, written
 
 
@@ -111,7 +112,7 @@ def run(args) -> int:
             raise FitError(f"data file {str(p)!r} does not exist")
     outputs = fit_outputs(args, n_meas)
     protect = [model_path] + [Path(p) for p in data]
-    check_outputs(outputs, force=args.force, protect=protect)
+    check_outputs(outputs, force=args.force, protect=protect, make_folders=False)
     compile_note(args)
     result, written = run_fit(model, data, args, outputs, protect, force=args.force, quiet=args.quiet)
     print(result.summary(), end="")

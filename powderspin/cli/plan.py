@@ -5,7 +5,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from .common import CliError, compile_note, numbers, terminal_progress
+from .common import CliError, compile_note, numbers, outputs_together, terminal_progress
 
 __all__ = ["add_parser", "run"]
 
@@ -22,7 +22,7 @@ def _run(args) -> int:
         outputs.append((args.json, "JSON output"))
     if args.plot:
         outputs.append((args.plot, "plot", PLOT_SUFFIXES))
-    check_outputs(outputs, force=args.force, protect=protect)
+    check_outputs(outputs, force=args.force, protect=protect, make_folders=False)
     fields = numbers(args.fields, "--fields", "tesla")
     rates = numbers(args.rates, "--rates", "Hz")
     model = load_model(model_path)
@@ -40,15 +40,18 @@ def _run(args) -> int:
                       precision=not args.no_precision, progress=progress)
     finally:
         progress.close()
-    stream = sys.stderr if args.json == STDOUT else sys.stdout
-    print(result.table_text(), end="", file=stream)
-    if args.json:
-        write_plan_json(result, args.json, force=args.force, protect=protect)
-        if args.json != STDOUT:
-            print(f"wrote {args.json}", file=sys.stderr)
-    if args.plot:
-        save_plan_plot(result, args.plot, force=args.force, protect=protect)
-        print(f"wrote {args.plot}", file=sys.stderr)
+    with outputs_together():  # the JSON and the plot appear together at the end, or neither does
+        if args.plot:
+            save_plan_plot(result, args.plot, force=args.force, protect=protect)
+        if args.json and args.json != STDOUT:
+            write_plan_json(result, args.json, force=args.force, protect=protect)
+        stream = sys.stderr if args.json == STDOUT else sys.stdout
+        print(result.table_text(), end="", file=stream)
+        if args.json == STDOUT:
+            write_plan_json(result, args.json, force=args.force, protect=protect)
+    for path in (args.json, args.plot):
+        if path and path != STDOUT:
+            print(f"wrote {path}", file=sys.stderr)
     return 0
 
 
