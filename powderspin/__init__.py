@@ -43,6 +43,10 @@ _EXPORTS = {
     "write_spectrum": "io.results", "write_plan_json": "io.results", "save_plan_plot": "plotting.plan",
     "save_report": "plotting.report", "Simulator": "simulator", "ProgressEvent": "progress",
     "ShiftTensor": "physics.tensors",
+    # every public exception, so that callers can catch them by name
+    "UnknownNuclideError": "physics.nuclides", "TensorError": "physics.tensors",
+    "OrientationSetError": "physics.orientations", "DistributionError": "physics.distributions",
+    "CacheError": "disorder.library", "OutputExistsError": "files", "OutputPathError": "files",
 }
 
 __all__ = sorted(_EXPORTS) + ["__version__"]

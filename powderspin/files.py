@@ -44,6 +44,7 @@ __all__ = [
     "write_via",
     "OutputTransaction",
     "output_transaction",
+    "output_path",
 ]
 
 #: the output name that means standard output (text outputs only)
@@ -91,6 +92,28 @@ class OutputPathError(OSError):
     ...     print(e)
     output '/' is a directory; give a file name
     """
+
+
+def output_path(path, role: str = "output") -> Path:
+    """An output's name as a Path; None, arrays and other objects are refused naming the role.
+
+    Examples
+    --------
+    >>> output_path("a.csv").name
+    'a.csv'
+    >>> try:
+    ...     output_path(None, "plot")
+    ... except OutputPathError as e:
+    ...     print(e)
+    plot must be a file name (text or pathlib.Path), got None
+    """
+    if not isinstance(path, (str, os.PathLike)) or isinstance(path, bytes):
+        got = "None" if path is None else type(path).__name__
+        raise OutputPathError(f"{role} must be a file name (text or pathlib.Path), got {got}")
+    text = os.fspath(path)
+    if not str(text).strip():
+        raise OutputPathError(f"{role} is an empty name; give a file name")
+    return Path(text)
 
 
 def _umask() -> int:
@@ -161,7 +184,7 @@ def check_outputs(outputs: Iterable, *, force: bool = False, protect: Iterable =
     for entry in outputs:
         path, role = entry[0], entry[1]
         suffixes = tuple(entry[2]) if len(entry) > 2 and entry[2] else ()
-        text = str(path)
+        text = str(output_path(path, role)) if not (isinstance(path, str) and path == STDOUT) else STDOUT
         if text == STDOUT:
             if suffixes:
                 raise OutputPathError(f"{role} cannot be standard output ('-'); give a file name ending in "
@@ -256,9 +279,9 @@ def atomic_output(path, *, force: bool = False, protect: Iterable = (), role: st
     ...     dest.read_text()
     'done'
     """
-    p = Path(path)
     if checked:
-        check_outputs([(p, role)], force=force, protect=protect)
+        check_outputs([(path, role)], force=force, protect=protect)
+    p = Path(path)
     try:
         if str(p.parent) and not p.parent.exists():
             p.parent.mkdir(parents=True, exist_ok=True)
@@ -329,7 +352,7 @@ def write_text_atomic(path, text: str, *, force: bool = False, protect: Iterable
     ...     p.read_text()
     'two'
     """
-    if str(path) == STDOUT:
+    if isinstance(path, str) and path == STDOUT:
         sys.stdout.write(text)
         sys.stdout.flush()
         return None
@@ -365,6 +388,7 @@ def write_via(path, writer: Callable[[Path], None], *, force: bool = False, prot
     ...     p.read_bytes()
     b'ok'
     """
+    check_outputs([(path, role)], force=force, protect=protect)
     p = Path(path)
     with atomic_output(p, force=force, protect=protect, role=role, suffix=p.suffix or ".part") as tmp:
         writer(tmp)

@@ -92,6 +92,27 @@ def run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool):
     return result, written
 
 
+def _check_sampler_flags(args, n_free: int) -> None:
+    """--starts, --walkers, --steps and --burn: ranges, and whether the sample fits in memory, before any work."""
+    from ..fitting.fitter import MAX_STARTS, check_sampler_memory
+
+    if args.starts is not None and not (1 <= args.starts <= MAX_STARTS):
+        raise CliError(f"--starts {args.starts} is outside the allowed range [1, {MAX_STARTS}]")
+    if args.walkers is not None and args.walkers < 2 * max(n_free, 1):
+        raise CliError(f"--walkers {args.walkers} must be at least twice the number of free parameters ({n_free})")
+    if args.steps < 10:
+        raise CliError(f"--steps {args.steps} must be at least 10")
+    if args.burn is not None and not (0 <= args.burn < args.steps):
+        raise CliError(f"--burn {args.burn} must be in [0, --steps) = [0, {args.steps})")
+    try:
+        check_sampler_memory(n_free, args.walkers if args.posterior else None,
+                             args.steps if args.posterior else None,
+                             (args.starts or 1) if args.global_search else None,
+                             names={"walkers": "--walkers", "steps": "--steps", "starts": "--starts"})
+    except ValueError as e:
+        raise CliError(str(e)) from None
+
+
 def run(args) -> int:
     from ..files import check_outputs
     from ..fitting.data import FitError, data_items
@@ -106,6 +127,7 @@ def run(args) -> int:
     if not model.free:
         raise FitError(f"{args.model}: the model has no free parameters: mark at least one as "
                        "{ start = ..., min = ..., max = ... }, e.g. cq_mhz = { start = 3.0, min = 1.0, max = 8.0 }")
+    _check_sampler_flags(args, len(model.free))
     data = data_items(model, list(args.data) if args.data else None)
     for p in data:
         if not Path(p).exists():

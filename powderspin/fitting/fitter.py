@@ -72,6 +72,7 @@ import time
 
 import numpy as np
 
+from ..checks import check_memory, show, whole_number
 from ..disorder.summary import distribution_summary
 from ..engine.threads import kernel_threads
 from ..model.values import FitSettings, FreeParameter, Model, ParameterAddress
@@ -94,7 +95,7 @@ from .problem import FitProblem
 from .reported import fitted_model, parameter_warnings, reported_values, stderr_tables
 from .result import FitResult
 
-__all__ = ["fit", "FitError", "DEFAULT_STEPS", "CONVERGED_CHI2"]
+__all__ = ["fit", "FitError", "DEFAULT_STEPS", "CONVERGED_CHI2", "check_sampler_memory", "sampler_memory_bytes"]
 
 #: a start has reached the best fit when its chi-square is within this of the lowest
 CONVERGED_CHI2 = 1.0
@@ -297,9 +298,89 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
                     posterior, walkers, steps, burn, progress, max_evaluations, kernel_store)
 
 
+#: bytes a posterior sample of one parameter costs across emcee's chain, our flattened copy and the summaries
+_POSTERIOR_BYTES_PER_VALUE = 8 * 4
+#: most starts of a global search (each one is a whole least-squares run)
+MAX_STARTS = 100_000
+
+
+def _check_arguments(global_search, starts, seed, posterior, walkers, steps, burn, max_evaluations, axis):
+    """The keyword arguments of :func:`fit`, checked as strictly as the command line checks its flags."""
+    for name, v in (("global_search", global_search), ("posterior", posterior)):
+        if not isinstance(v, (bool, np.bool_)):
+            raise FitError(f"{name} must be True or False, got {show(v)}")
+    out = {}
+    out["starts"] = None if starts is None else whole_number(starts, "starts", FitError, low=1, high=MAX_STARTS)
+    out["seed"] = whole_number(seed, "seed", FitError, low=0)
+    out["walkers"] = None if walkers is None else whole_number(walkers, "walkers", FitError, low=2)
+    out["steps"] = whole_number(steps, "steps", FitError, low=10)
+    out["burn"] = None if burn is None else whole_number(burn, "burn", FitError, low=0)
+    out["max_evaluations"] = (None if max_evaluations is None
+                              else whole_number(max_evaluations, "max_evaluations", FitError, low=1))
+    if axis is not None and axis not in ("ppm", "hz", "khz"):
+        raise FitError(f"axis = {show(axis)} must be 'ppm', 'hz' or 'khz' (or None when the files name their axis)")
+    return out
+
+
+def sampler_memory_bytes(n_free: int, walkers: int | None, steps: int) -> float:
+    """Memory a posterior sample holds: walkers x steps x (parameters + 1) values, in a few copies.
+
+    Parameters
+    ----------
+    n_free : int
+        Free parameters.
+    walkers : int or None
+        Walkers (None: the default ``max(16, 4 n_free)``).
+    steps : int
+        Steps per walker.
+
+    Returns
+    -------
+    float
+        Bytes.
+
+    Examples
+    --------
+    >>> sampler_memory_bytes(3, 16, 2000) / 1e6
+    4.096
+    """
+    nw = walkers if walkers is not None else max(16, 4 * n_free)
+    return float(nw) * float(steps) * (n_free + 1) * _POSTERIOR_BYTES_PER_VALUE
+
+
+def check_sampler_memory(n_free: int, walkers, steps, starts, names=None) -> None:
+    """Refuse posterior and global-search sizes that cannot fit in memory, before any work.
+
+    Parameters
+    ----------
+    n_free : int
+    walkers, steps, starts : int or None
+    names : dict, optional
+        How to name the settings in the message: the command line passes its
+        flags (``{"walkers": "--walkers", ...}``); the default names the
+        keywords of :func:`fit`.
+
+    Raises
+    ------
+    FitError
+    """
+    names = {"walkers": "walkers", "steps": "steps", "starts": "starts", **(names or {})}
+    if walkers is not None or steps is not None:
+        nw = walkers if walkers is not None else max(16, 4 * n_free)
+        check_memory(sampler_memory_bytes(n_free, walkers, steps if steps is not None else DEFAULT_STEPS),
+                     f"the posterior sample ({names['walkers']} {nw} x {names['steps']} {steps} x "
+                     f"{n_free + 1} values)", FitError)
+    if starts is not None:
+        check_memory(float(starts) * (8 * n_free + 136),  # each start: its point (an array) and its chi-square
+                     f"the global search ({names['starts']} {starts} with {n_free} free parameters)", FitError)
+
+
 def _fit(model, data, regions, noise_region, baseline_order, axis, global_search, starts, seed, posterior,
          walkers, steps, burn, progress, max_evaluations, kernel_store=None) -> FitResult:
     t_start = time.perf_counter()
+    args = _check_arguments(global_search, starts, seed, posterior, walkers, steps, burn, max_evaluations, axis)
+    starts, seed, walkers, steps, burn, max_evaluations = (args[k] for k in ("starts", "seed", "walkers", "steps",
+                                                                              "burn", "max_evaluations"))
     model = as_model(model, "fit")
     n_meas = len(model.measurements)
 
@@ -307,6 +388,8 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
         return "measurement" if n_meas == 1 else f"measurement {j + 1}"
 
     free, notes = _free_parameters(model)
+    check_sampler_memory(len(free), walkers if posterior else None, steps if posterior else None,
+                         starts if global_search else None)
     warns: list[str] = []
     # -- settings: arguments override the model's [fit] table
     fs = model.fit
@@ -387,11 +470,14 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
             warns.append("global search over the whole allowed range of " + ", ".join(unbounded)
                          + ": give min and max to search where the value can physically be")
         pts = [x0] + list(_sobol_starts(problem.lo, problem.hi, n_starts - 1, seed)) if n_starts > 1 else [x0]
-        runs = [_least_squares(problem, p, max_evaluations) for p in pts]
-        costs = np.array([2.0 * r.cost for r in runs])
-        best = int(np.argmin(costs))
-        at_best = int(np.sum(costs <= costs[best] + CONVERGED_CHI2))
-        sol = runs[best]
+        costs, sol = [], None
+        for p in pts:  # only the best run is kept: memory does not grow with the number of starts
+            run = _least_squares(problem, p, max_evaluations)
+            costs.append(2.0 * run.cost)
+            if sol is None or run.cost < sol.cost:
+                sol = run
+        costs = np.array(costs)
+        at_best = int(np.sum(costs <= costs.min() + CONVERGED_CHI2))
     else:
         sol = _least_squares(problem, x0, max_evaluations)
     x = sol.x

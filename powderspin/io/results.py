@@ -25,7 +25,7 @@ from pathlib import Path
 import numpy as np
 
 from ..engine.lineshape import baseline_values, make_axis
-from ..files import STDOUT, OutputPathError, check_outputs, write_text_atomic, write_via
+from ..files import STDOUT, OutputPathError, check_outputs, output_path, write_text_atomic, write_via
 from .spectra import MeasuredSpectrum, write_jcamp
 
 __all__ = ["spectrum_csv_text", "sideband_csv_text", "write_spectrum", "SPECTRUM_SUFFIXES", "plan_json_text",
@@ -143,7 +143,7 @@ def spectrum_format(path) -> str:
     """
     if str(path) == STDOUT:
         return ".csv"
-    suffix = Path(path).suffix.lower()
+    suffix = output_path(path).suffix.lower()
     if suffix not in SPECTRUM_SUFFIXES:
         allowed = ", ".join(SPECTRUM_SUFFIXES)
         raise OutputPathError(f"output {str(path)!r}: the suffix {suffix or '(none)'!r} names no format "
@@ -354,7 +354,7 @@ def csv_paths(result_path, n_measurements: int) -> list[Path]:
     >>> [p.name for p in csv_paths("out/fit.toml", 2)]
     ['fit-m1.csv', 'fit-m2.csv']
     """
-    p = Path(result_path)
+    p = output_path(result_path, "result file")
     if n_measurements == 1:
         return [p.with_suffix(".csv")]
     return [p.with_name(f"{p.stem}-m{j + 1}.csv") for j in range(n_measurements)]
@@ -404,7 +404,7 @@ def write_result(result, path, *, force: bool = False, protect=()) -> list[Path]
     ...     print([f.name for f in files], float(np.max(np.abs(again.intensity - r.spectra[0].intensity))) < 1e-12)
     ['fit.toml', 'fit.csv'] True
     """
-    p = Path(path)
+    p = output_path(path, "result file")
     csvs = csv_paths(p, len(result.spectra))
     protect = list(protect) + [q for q in result.data_paths if q is not None]
     if result.model.source:

@@ -442,6 +442,9 @@ def read_spectrum(path, *, axis: str | None = None, nu_ref_hz: float | None = No
     >>> spec.metadata["nu_ref_source"]
     'nucleus and field (given)'
     """
+    if not isinstance(path, (str, os.PathLike)) or isinstance(path, bytes) or not os.fspath(path).strip():
+        got = "None" if path is None else ("an empty name" if isinstance(path, str) else type(path).__name__)
+        raise DataError("read_spectrum", f"path must be a file name (text or pathlib.Path), got {got}")
     source = str(path)
     p = Path(path)
     opts = _check_options(source, axis, nu_ref_hz, nucleus, field_tesla, resample)

@@ -37,6 +37,7 @@ from typing import Any
 
 import tomli_w
 
+from ..checks import is_real, path_argument, show
 from ..files import write_text_atomic
 from ..physics.nuclides import Nuclide, get_nuclide
 from .schema import FREE_TABLE_KEYS, KEYS, TIE_KEY, key_spec, keys_of
@@ -74,7 +75,7 @@ def _unknown(keys, allowed, where):
 
 
 def _is_number(v) -> bool:
-    return isinstance(v, (int, float)) and not isinstance(v, bool)
+    return is_real(v)  # int, float and every numpy integer and floating type; never bool or text
 
 
 def _parameter(table: dict, key: str, where: str, kind_table: str, free: list, tied: list, item=None):
@@ -111,7 +112,7 @@ def _parameter(table: dict, key: str, where: str, kind_table: str, free: list, t
         return st
     if not _is_number(v):
         spec = key_spec(kind_table, key)
-        raise ModelError(f"{where}: {name} must be a number ({spec.unit or 'dimensionless'}), got {v!r}")
+        raise ModelError(f"{where}: {name} must be a number ({spec.unit or 'dimensionless'}), got {show(v)}")
     return float(v)
 
 
@@ -246,7 +247,7 @@ def _parse_measurement(j: int, t: Any, where: str, free: list):
                 kw[k] = val
                 continue
             if not _is_number(v):
-                raise ModelError(f"{where}: {k} must be a number ({spec.unit or 'dimensionless'}), got {v!r}")
+                raise ModelError(f"{where}: {k} must be a number ({spec.unit or 'dimensionless'}), got {show(v)}")
             kw[k] = v
         elif spec.kind == "transitions":
             kw[k] = tuple(v) if isinstance(v, list) else v
@@ -487,7 +488,7 @@ def load_model(path) -> Model:
     >>> m.nucleus.name
     '27Al'
     """
-    p = Path(path)
+    p = path_argument(path, "model file", ModelError)
     name = str(p)
     if not p.exists():
         raise ModelError(f"model file {name!r} does not exist")
@@ -506,20 +507,103 @@ def load_model(path) -> Model:
     if b"\x00" in raw:
         raise ModelError(f"model file {name!r} is binary, not TOML text")
     try:
-        text = raw.decode("utf-8")
+        text = raw.decode("utf-8-sig")  # a byte-order mark, as some editors write, is not part of the text
     except UnicodeDecodeError as e:
         raise ModelError(f"model file {name!r} is not UTF-8 text (byte 0x{raw[e.start]:02x} at position {e.start})") \
             from None
     if not text.strip():
         raise ModelError(f"model file {name!r} is empty; it needs nucleus, [measurement] and [[site]]")
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as e:
-        raise ModelError(f"model file {name!r} is not valid TOML: {e}") from None
+    data = read_toml_text(text, f"model file {name!r}", ModelError)
     try:
         return parse_model(data, name)
     except ModelError as e:
         raise ModelError(f"{name}: {e}") from None
+
+
+#: deepest nesting of arrays and inline tables a model file may have (a model needs three)
+MAX_TOML_NESTING = 32
+
+
+def _nesting_too_deep(text: str, limit: int) -> int | None:
+    """The line (1-based) where brackets or braces outside strings nest deeper than ``limit``, else None."""
+    depth = 0
+    quote = None
+    line = 1
+    i = 0
+    n = len(text)
+    while i < n:
+        c = text[i]
+        if c == "\n":
+            line += 1
+            if quote in ('"', "'"):
+                quote = None  # a one-line string ends at its line (an error the TOML reader reports)
+        elif quote is not None:
+            if c == "\\" and quote in ('"', '"""'):
+                i += 1
+            elif text.startswith(quote, i):
+                i += len(quote) - 1
+                quote = None
+        elif c == "#":
+            j = text.find("\n", i)
+            i = n if j < 0 else j
+            continue
+        elif c in "\"'":
+            quote = c * 3 if text.startswith(c * 3, i) else c
+            i += len(quote) - 1
+        elif c in "[{":
+            depth += 1
+            if depth > limit:
+                return line
+        elif c in "]}":
+            depth = max(depth - 1, 0)
+        i += 1
+    return None
+
+
+def read_toml_text(text: str, what: str, error=None) -> dict:
+    """Parse TOML text, every failure one error naming ``what`` (and the line where it can).
+
+    Parameters
+    ----------
+    text : str
+        The file's text (without a byte-order mark).
+    what : str
+        The file, for messages (e.g. ``"model file 'a.toml'"``).
+    error : type, optional
+        The exception type to raise (default :class:`ModelError`).
+
+    Returns
+    -------
+    dict
+
+    Raises
+    ------
+    ModelError (or ``error``)
+        Not valid TOML, or arrays/inline tables nested deeper than
+        ``MAX_TOML_NESTING`` (which would exhaust the reader's recursion).
+
+    Examples
+    --------
+    >>> read_toml_text("a = 1", "test")["a"]
+    1
+    >>> try:
+    ...     read_toml_text("a = " + "[" * 2000 + "]" * 2000, "model file 'deep.toml'")
+    ... except ModelError as e:
+    ...     print(e)
+    model file 'deep.toml' line 1: arrays or tables nested more than 32 deep; a model file needs at most 3
+    """
+    error = ModelError if error is None else error
+    line = _nesting_too_deep(text, MAX_TOML_NESTING)
+    if line is not None:
+        raise error(f"{what} line {line}: arrays or tables nested more than {MAX_TOML_NESTING} deep; "
+                    "a model file needs at most 3")
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as e:
+        raise error(f"{what} is not valid TOML: {e}") from None
+    except RecursionError:
+        raise error(f"{what}: arrays or tables nested too deep for a model file") from None
+
 
 
 # ---------------------------------------------------------------------------

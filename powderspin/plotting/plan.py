@@ -8,7 +8,7 @@ from pathlib import Path
 import numpy as np
 from matplotlib.figure import Figure
 
-from ..files import check_outputs, write_via
+from ..files import check_outputs, output_path, write_via
 from .spectrum import PLOT_SUFFIXES, plot_spectrum
 
 __all__ = ["plot_plan", "save_plan_plot"]
@@ -107,7 +107,7 @@ def save_plan_plot(plan, path, *, force: bool = False, protect=()) -> Path:
     ...     save_plan_plot(p, pathlib.Path(d) / "plan.png").stat().st_size > 0
     True
     """
-    out = Path(path)
+    out = output_path(path, "plot")
     check_outputs([(out, "plot", PLOT_SUFFIXES)], force=force, protect=protect)
     fig = plot_plan(plan)
     return write_via(out, lambda tmp: fig.savefig(tmp, dpi=110, format=out.suffix[1:].lower()), force=force,

@@ -15,7 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..files import check_outputs, write_via
+from ..files import check_outputs, output_path, write_via
 from ..fitting.result import format_value
 
 __all__ = ["report_figure", "save_report", "save_corner", "REPORT_SUFFIXES"]
@@ -158,7 +158,7 @@ def save_report(result, path, *, force: bool = False, protect=()) -> Path:
     ...     save_report(r, pathlib.Path(d) / "fit.png").stat().st_size > 1000
     True
     """
-    p = Path(path)
+    p = output_path(path, "report")
     check_outputs([(p, "report", REPORT_SUFFIXES)], force=force, protect=protect)
     fig = report_figure(result)
     return write_via(p, lambda tmp: fig.savefig(tmp, dpi=110, format=p.suffix[1:]), force=force, protect=protect,
@@ -204,7 +204,7 @@ def save_corner(result, path, *, force: bool = False, protect=()) -> Path:
     import matplotlib
     from matplotlib.figure import Figure
 
-    p = Path(path)
+    p = output_path(path, "corner plot")
     check_outputs([(p, "corner plot", REPORT_SUFFIXES)], force=force, protect=protect)
     post = result.posterior
     k = len(post.names)

@@ -188,11 +188,10 @@ def save_plot(spectrum, path, *, force: bool = False, protect=(), **options):
     ...     p.stat().st_size > 0
     True
     """
-    from pathlib import Path
 
-    from ..files import check_outputs
+    from ..files import check_outputs, output_path
 
-    p = Path(path)
+    p = output_path(path, "plot")
     check_outputs([(p, "plot", PLOT_SUFFIXES)], force=force, protect=protect)
     fig = Figure(figsize=(7.5, 4.2), layout="constrained")  # not pyplot: the caller's backend is left alone
     plot_spectrum(spectrum, fig.add_subplot(), **options)
