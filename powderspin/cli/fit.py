@@ -41,6 +41,8 @@ def add_parser(sub) -> None:
     f.add_argument("--noise-region", metavar="A:B", help="signal-free region in ppm for the noise level")
     f.add_argument("--axis", choices=("ppm", "hz", "khz"),
                    help="unit of the data files' axis column when the files do not name it")
+    f.add_argument("--accept-mismatch", action="store_true",
+                   help="fit data whose own header states another nucleus or field than the model (refused otherwise)")
     f.add_argument("--force", action="store_true", help="overwrite existing output files")
     f.add_argument("-q", "--quiet", action="store_true", help="no progress bars")
     add_cache_options(f)
@@ -78,7 +80,8 @@ def run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool):
         result = fit(model, data, regions=regions, noise_region=noise, axis=args.axis,
                      global_search=args.global_search, starts=args.starts, seed=args.seed,
                      posterior=args.posterior, walkers=args.walkers, steps=args.steps, burn=args.burn,
-                     progress=progress, kernel_store=kernel_store(args))
+                     progress=progress, kernel_store=kernel_store(args),
+                     accept_mismatch=getattr(args, "accept_mismatch", False))
     finally:
         progress.close()
     written = []

@@ -128,7 +128,8 @@ def _run(args) -> int:
             return 130
         raise
     except (ValueError, OSError, CliError) as e:  # input errors, files: one clear line, no traceback
-        print(f"error: {e}", file=sys.stderr)
+        text = getattr(e, "cli_text", None) or str(e)  # the command line's wording (flags, not keywords)
+        print(f"error: {' '.join(text.split())}", file=sys.stderr)
         return 2
 
 

@@ -189,7 +189,8 @@ def _verdict(sol, max_evaluations) -> tuple[bool, str]:
 def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=None, axis: str | None = None,
         global_search: bool = False, starts: int | None = None, seed: int = 0, posterior: bool = False,
         walkers: int | None = None, steps: int = DEFAULT_STEPS, burn: int | None = None, progress=None,
-        max_evaluations: int | None = None, threads: int | None = 1, kernel_store=None) -> FitResult:
+        max_evaluations: int | None = None, threads: int | None = 1, kernel_store=None,
+        accept_mismatch: bool = False) -> FitResult:
     """Fit a model with free parameters to one or more measured spectra.
 
     Parameters
@@ -213,6 +214,9 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
         default the model's ``[fit] baseline_order``, else none.
     axis : {"ppm", "hz", "khz"}, optional
         Unit of a data file's axis column when the file does not name it.
+        Without it, a headerless text file's unit is taken from the data
+        where only one unit puts the data's signal among the model's lines
+        (a note says which); otherwise the file is refused.
     global_search : bool, optional
         Least squares from a seeded Sobol set of starts within the bounds
         (and the model's own start); keep the best.
@@ -240,6 +244,11 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
         calls, for which starting parallel work costs more than it saves,
         badly so on a busy machine (``benchmarks/bench_fit.py`` measures
         both).
+    accept_mismatch : bool, optional
+        Fit data files whose own header states another nucleus, or a field
+        (or reference frequency) 1 % or more away from the model's; refused
+        by default (:class:`~powderspin.fitting.data.MismatchError`), since
+        C_Q values fitted at the wrong field are wrong.
     kernel_store : powderspin.disorder.store.KernelStore, optional
         Where the kernels of sites with an EFG distribution are kept (default
         the store of the lineshape library folder).  Each evaluation of such
@@ -295,7 +304,7 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
     """
     with kernel_threads(threads):
         return _fit(model, data, regions, noise_region, baseline_order, axis, global_search, starts, seed,
-                    posterior, walkers, steps, burn, progress, max_evaluations, kernel_store)
+                    posterior, walkers, steps, burn, progress, max_evaluations, kernel_store, accept_mismatch)
 
 
 #: bytes a posterior sample of one parameter costs across emcee's chain, our flattened copy and the summaries
@@ -376,7 +385,7 @@ def check_sampler_memory(n_free: int, walkers, steps, starts, names=None) -> Non
 
 
 def _fit(model, data, regions, noise_region, baseline_order, axis, global_search, starts, seed, posterior,
-         walkers, steps, burn, progress, max_evaluations, kernel_store=None) -> FitResult:
+         walkers, steps, burn, progress, max_evaluations, kernel_store=None, accept_mismatch=False) -> FitResult:
     t_start = time.perf_counter()
     args = _check_arguments(global_search, starts, seed, posterior, walkers, steps, burn, max_evaluations, axis)
     starts, seed, walkers, steps, burn, max_evaluations = (args[k] for k in ("starts", "seed", "walkers", "steps",
@@ -401,10 +410,11 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     # -- data
     specs, paths = [], []
     for j, item in enumerate(data_items(model, data)):
-        sp, path, w = read_measured(item, model, j, axis)
+        sp, path, w, said = read_measured(item, model, j, axis, bool(accept_mismatch))
         specs.append(sp)
         paths.append(path)
         warns.extend(w)
+        notes.extend(said)
     axes, centers, widths = [], [], []
     for j, sp in enumerate(specs):
         nu_ref = model.nucleus.larmor_hz(model.measurements[j].field_tesla)
