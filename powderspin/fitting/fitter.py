@@ -263,7 +263,12 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
     ------
     FitError
         No free parameters, no data or a data file per measurement missing,
-        data that do not overlap the model or a region, too few points.
+        data that do not overlap the model or a region, too few points,
+        constant data, or data whose best-fitting curve is no taller than
+        three times the noise (no signal).
+    powderspin.fitting.data.MismatchError
+        A data file states another nucleus or field than the model (a
+        ``FitError``; see ``accept_mismatch``).
     powderspin.io.spectra.DataError
         An unreadable data file.
 
@@ -307,6 +312,10 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
                     posterior, walkers, steps, burn, progress, max_evaluations, kernel_store, accept_mismatch)
 
 
+#: a noise region whose scatter exceeds the point-to-point noise this many times holds more than noise
+NOISE_REGION_EXCESS = 3.0
+#: a fitted curve whose tallest point is below this many noise levels is no signal
+NO_SIGNAL_SNR = 3.0
 #: bytes a posterior sample of one parameter costs across emcee's chain, our flattened copy and the summaries
 _POSTERIOR_BYTES_PER_VALUE = 8 * 4
 #: most starts of a global search (each one is a whole least-squares run)
@@ -431,6 +440,9 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
         if not any((ax.ppm.min() <= hi) and (ax.ppm.max() >= lo) for ax in axes):
             covers = "; ".join(f"{where(j)}: {ax.ppm.max():.6g} to {ax.ppm.min():.6g} ppm" for j, ax in enumerate(axes))
             raise FitError(f"fit region {i + 1} [{hi:g}, {lo:g}] ppm lies outside the data ({covers})")
+    for j, y in enumerate(ys):
+        if float(np.ptp(y)) == 0.0:
+            raise FitError(f"{where(j)}: every data point is {y[0]:.6g}: the data hold no signal to fit")
     masks = [region_mask(ax.ppm, regs) for ax in axes]
     for j, mk in enumerate(masks):
         if not mk.any():
@@ -446,6 +458,12 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
                                f"point(s); it needs at least {MIN_NOISE_POINTS} (the data cover "
                                f"{ax.ppm.max():.6g} to {ax.ppm.min():.6g} ppm)")
             sigmas.append(noise_from_region(ys[j], ax.ppm, noise_reg))
+            pn = point_noise(ys[j])
+            if pn > 0 and sigmas[-1] > NOISE_REGION_EXCESS * pn:
+                warns.append(f"{where(j)}: the noise region [{noise_reg[0]:g}, {noise_reg[1]:g}] ppm varies "
+                             f"{sigmas[-1] / pn:.3g} times more than the point-to-point noise of the data: it holds "
+                             "signal or baseline structure, so the standard errors are about that many times too "
+                             "large; choose a signal-free region")
         noise_source = "noise region"
     else:
         sigmas = [point_noise(y) for y in ys]
@@ -564,6 +582,12 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
                              "noise: the model misses features of the data (look at the residual)")
         notes.append("no noise region: the noise level is the residual's, so the reduced chi-square is 1 by "
                      "construction; give a signal-free noise region to judge the fit")
+    for j in range(n_meas):  # a curve no taller than the noise: the data hold no signal the values could rest on
+        tallest = float(np.max(np.abs(e.coefs[j][0] * e.totals[j][masks[j]])))
+        if problem.sigmas[j] > 0 and tallest < NO_SIGNAL_SNR * problem.sigmas[j]:
+            raise FitError(f"{where(j)}: no signal: the best-fitting curve's tallest point is "
+                           f"{tallest / problem.sigmas[j]:.2g} times the noise (below {NO_SIGNAL_SNR:g}), so the data "
+                           "cannot determine the values; check the data file, its axis and the fit regions")
     # -- the fitted model: values, normalised weights, scale and baseline, data axes
     fitted = fitted_model(problem, x, e, axes, centers, widths, paths, settings, model)
     spectra = tuple(Simulator(fitted, j, kernel_store=kernel_store, cache=cache).spectrum() for j in range(n_meas))

@@ -206,6 +206,10 @@ def parse_site_table(i: int, t: Any, where_default: str | None = None):
         if form == "span_skew":
             if "span_ppm" not in t:
                 raise ModelError(f"{where}: skew needs span_ppm (the span Omega in ppm)")
+            if "skew" not in t:
+                raise ModelError(f"{where}: span_ppm needs skew (from -1 to 1; +1 and -1 are axially symmetric "
+                                 "tensors, 0 lies midway): give skew as well, e.g. skew = 0.0, so that no shape is "
+                                 "assumed for you")
             vals["span_ppm"] = num("span_ppm", 0.0)
             vals["skew"] = num("skew", 0.0)
         elif form == "haeberlen":

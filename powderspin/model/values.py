@@ -465,6 +465,10 @@ class Site:
                 raise ModelError(f"{where}: give the shift anisotropy one way only: span_ppm + skew, "
                                  "aniso_ppm + eta_cs, or principal_ppm")
             shift_form = forms[0] if forms else "iso"
+            if shift_form == "span_skew" and "span_ppm" in values and values.get("skew") is None:
+                raise ModelError(f"{where}: span_ppm needs skew (from -1 to 1; +1 and -1 are axially symmetric "
+                                 "tensors, 0 lies midway): give skew as well, e.g. skew = 0.0, so that no shape is "
+                                 "assumed for you")
 
         def get(key):
             v = values.get(key)

@@ -103,6 +103,7 @@ def test_data_on_the_command_line_and_global_search(tmp_path):
     """DATA arguments override data = ...; --global reports its starts; the result names the file used."""
     shutil.copy(BAD / "no_data.toml", tmp_path / "model.toml")
     shutil.copy(BAD / "line.csv", tmp_path / "spectrum.csv")
+    (tmp_path / "out").mkdir()  # outputs go into existing folders only
     r = _run(["fit", "model.toml", "spectrum.csv", "-o", "out/res.toml", "--global", "--starts", "4", "--region",
               "15:-15", "-q"], tmp_path)
     assert r.returncode == 0, r.stderr

@@ -90,8 +90,9 @@ DATA = Path(__file__).resolve().parents[1] / "bad_inputs" / "data"
 # file that states none is not an error for `fit`; every other case is
 DATA_CASES = [c for c in tomllib.loads((DATA / "cases.toml").read_text())["case"]
               if set(c.get("options", {})) <= {"axis"} and c["file"] != "ppm_no_reference.csv"]
-#: the fit command checks a missing file itself, with its own words
-DATA_WORDS = {"missing.csv": ["does not exist"]}
+#: the fit command checks a missing file itself, with its own words; a headerless file's unit is asked for with
+#: the command line's flag (when the data do not tell it)
+DATA_WORDS = {"missing.csv": ["does not exist"], "no_header.txt": ["no header row", "--axis ppm", "--axis khz"]}
 FIT_MODEL = """nucleus = "27Al"
 [measurement]
 field_tesla = 9.4
