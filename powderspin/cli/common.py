@@ -7,7 +7,8 @@ import sys
 from pathlib import Path
 
 __all__ = ["terminal_progress", "CliError", "SPINNING_CAUTION", "note", "compile_note", "parse_range", "numbers",
-           "add_cache_options", "library", "kernel_store", "interrupted", "outputs_together", "signal_handlers"]
+           "add_cache_options", "library", "kernel_store", "interrupted", "outputs_together", "signal_handlers",
+           "warning_lines"]
 
 SPINNING_CAUTION = (
     "caution: simulated spinning rates say nothing about what a rotor can take; never exceed the "
@@ -61,25 +62,79 @@ def parse_range(text: str | None, what: str):
     return (lo, hi)
 
 
-def library(args):
-    """The lineshape library named by --cache (else $POWDERSPIN_CACHE, else the user cache folder)."""
-    from ..disorder.library import LineshapeLibrary
+def _library_source(args) -> tuple[str | None, str]:
+    """The library folder asked for and how it was named: ``--cache``, ``$POWDERSPIN_CACHE`` or the default."""
+    import os
+
+    from ..disorder.library import ENV_VAR
 
     path = getattr(args, "cache", None)
     if path is not None:
-        p = Path(path)
-        if p.exists() and not p.is_dir():
-            raise CliError(f"--cache {path!r} is a file; give a folder for the lineshape library")
-    return LineshapeLibrary(path)
+        return path, f"--cache {path!r}"
+    env = os.environ.get(ENV_VAR, "")
+    if env.strip():
+        return env, f"${ENV_VAR} = {env!r}"
+    return None, "the lineshape library"
+
+
+def _writable_folder(p: Path) -> str | None:
+    """Why the folder ``p`` (or the folder that would hold it) cannot be written, else None."""
+    import errno
+    import os
+    import tempfile
+
+    probe = p
+    while not probe.exists() and probe != probe.parent:
+        probe = probe.parent
+    if not probe.is_dir():
+        return f"{str(probe)!r} is not a folder"
+    try:
+        fd, trial = tempfile.mkstemp(prefix=".powderspin-check-", dir=str(probe))
+        os.close(fd)
+        os.unlink(trial)
+    except OSError as e:
+        if e.errno == errno.EROFS:
+            return "it is on a read-only file system"
+        return f"it cannot be written ({e.strerror or e})"
+    return None
+
+
+def library(args, *, must_write: bool = False):
+    """The lineshape library named by --cache (else $POWDERSPIN_CACHE, else the user cache folder).
+
+    A folder that is a file is an error, whichever way it was named; one that
+    cannot be written is an error when ``must_write`` (``cache clear``), and
+    otherwise a note (the kernels are then kept in memory only: see
+    :func:`kernel_store`).
+    """
+    from ..disorder.library import LineshapeLibrary
+
+    path, named = _library_source(args)
+    lib = LineshapeLibrary(path)
+    p = lib.path
+    if (p.exists() or p.is_symlink()) and not p.is_dir():
+        raise CliError(f"{named} is {'a file' if p.is_file() else 'not a folder'}; give a folder for the lineshape "
+                       "library")
+    if must_write:
+        problem = _writable_folder(p)
+        if problem is not None:
+            raise CliError(f"{named} ({p}): {problem}")
+    return lib
 
 
 def kernel_store(args):
-    """The kernel store of a command: --no-cache keeps kernels in memory only."""
+    """The kernel store of a command: --no-cache keeps kernels in memory only, and so does a library that cannot
+    be written (with a note naming how the folder was chosen)."""
     from ..disorder.store import KernelStore, default_kernel_store
 
     if getattr(args, "no_cache", False):
         return KernelStore(None)
     lib = library(args)
+    problem = _writable_folder(lib.path)
+    if problem is not None:
+        _, named = _library_source(args)
+        note(args, f"note: {named} ({lib.path}): {problem}; kernels are kept in memory for this run only")
+        return KernelStore(None)
     return default_kernel_store(lib.path)
 
 
@@ -186,3 +241,24 @@ class Terminated(KeyboardInterrupt):
 
 def _terminate(signum, frame):
     raise Terminated()
+
+
+class warning_lines:
+    """While a command runs, Python warnings print as one ``warning: ...`` line (no source line, no category)."""
+
+    def __enter__(self):
+        import warnings
+
+        self.saved = warnings.showwarning
+
+        def show(message, category, filename, lineno, file=None, line=None):
+            print(f"warning: {' '.join(str(message).split())}", file=file or sys.stderr)
+
+        warnings.showwarning = show
+        return self
+
+    def __exit__(self, *exc):
+        import warnings
+
+        warnings.showwarning = self.saved
+        return False

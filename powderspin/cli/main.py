@@ -27,7 +27,7 @@ import os
 import sys
 
 from . import cache, demo, fit, nuclide, plan, simulate
-from .common import CliError, Terminated, interrupted, signal_handlers
+from .common import CliError, Terminated, interrupted, signal_handlers, warning_lines
 
 __all__ = ["main", "build_parser", "console"]
 
@@ -104,7 +104,7 @@ def main(argv=None) -> int:
         args = parser.parse_args(argv)
     except SystemExit as e:  # argparse: usage errors exit 2 after one message, --help/--version exit 0
         return int(e.code or 0)
-    with signal_handlers():
+    with signal_handlers(), warning_lines():
         return _run(args)
 
 
