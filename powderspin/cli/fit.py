@@ -27,6 +27,8 @@ def add_parser(sub) -> None:
     f.add_argument("-o", "--output", required=True,
                    help="result file to write (.toml, a model file); the CSV goes beside it")
     f.add_argument("--report", help="also write the report figure (.png, .pdf or .svg)")
+    f.add_argument("--unit", choices=("ppm", "khz"), default="ppm",
+                   help="x axis of the report: shift in ppm (default) or offset in kHz")
     f.add_argument("--global", dest="global_search", action="store_true",
                    help="least squares from many starts within the bounds (Sobol set); keep the best")
     f.add_argument("--starts", type=int, help="number of starts with --global (default max(8, 4 x free parameters))")
@@ -89,7 +91,8 @@ def run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool):
         written += write_result(result, outputs[0][0], force=force, protect=protect)
         for path, role, *_ in outputs:
             if role == "report":
-                written.append(save_report(result, path, force=force, protect=protect))
+                written.append(save_report(result, path, force=force, protect=protect,
+                                           unit=getattr(args, "unit", "ppm")))
             elif role == "corner plot":
                 written.append(save_corner(result, path, force=force, protect=protect))
     return result, written

@@ -264,8 +264,9 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
     FitError
         No free parameters, no data or a data file per measurement missing,
         data that do not overlap the model or a region, too few points,
-        constant data, or data whose best-fitting curve is no taller than
-        three times the noise (no signal).
+        constant data, or data whose tallest feature is no taller than
+        noise alone reaches (sqrt(2 ln n) + 2 times the point-to-point noise
+        for n points: no signal).
     powderspin.fitting.data.MismatchError
         A data file states another nucleus or field than the model (a
         ``FitError``; see ``accept_mismatch``).
@@ -314,8 +315,6 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
 
 #: a noise region whose scatter exceeds the point-to-point noise this many times holds more than noise
 NOISE_REGION_EXCESS = 3.0
-#: a fitted curve whose tallest point is below this many noise levels is no signal
-NO_SIGNAL_SNR = 3.0
 #: bytes a posterior sample of one parameter costs across emcee's chain, our flattened copy and the summaries
 _POSTERIOR_BYTES_PER_VALUE = 8 * 4
 #: most starts of a global search (each one is a whole least-squares run)
@@ -445,6 +444,18 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
             raise FitError(f"{where(j)}: every data point is {y[0]:.6g}: the data hold no signal to fit")
     masks = [region_mask(ax.ppm, regs) for ax in axes]
     for j, mk in enumerate(masks):
+        if mk.sum() >= MIN_NOISE_POINTS:  # the data themselves: a feature that noise alone would not make
+            seen = ys[j][mk]
+            pn = point_noise(seen)
+            tallest = float(np.max(np.abs(seen - np.median(seen))))
+            # the largest of n standard normal values is about sqrt(2 ln n) (H. Cramér, Mathematical Methods of
+            # Statistics, Princeton 1946, the extreme-value limit; from memory); 2 more keeps noise from passing
+            needed = math.sqrt(2.0 * math.log(seen.size)) + 2.0
+            if pn > 0 and tallest < needed * pn:
+                raise FitError(f"{where(j)}: no signal: the data's tallest feature in the fit regions is "
+                               f"{tallest / pn:.2g} times the point-to-point noise, which noise alone reaches (a "
+                               f"signal needs more than {needed:.2g}); the data cannot determine the values: check "
+                               "the data file, its axis and the fit regions")
         if not mk.any():
             raise FitError(f"{where(j)}: no data point lies in the fit regions "
                            f"{[list(r) for r in regs]} (the data cover {axes[j].ppm.max():.6g} to "
@@ -582,12 +593,6 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
                              "noise: the model misses features of the data (look at the residual)")
         notes.append("no noise region: the noise level is the residual's, so the reduced chi-square is 1 by "
                      "construction; give a signal-free noise region to judge the fit")
-    for j in range(n_meas):  # a curve no taller than the noise: the data hold no signal the values could rest on
-        tallest = float(np.max(np.abs(e.coefs[j][0] * e.totals[j][masks[j]])))
-        if problem.sigmas[j] > 0 and tallest < NO_SIGNAL_SNR * problem.sigmas[j]:
-            raise FitError(f"{where(j)}: no signal: the best-fitting curve's tallest point is "
-                           f"{tallest / problem.sigmas[j]:.2g} times the noise (below {NO_SIGNAL_SNR:g}), so the data "
-                           "cannot determine the values; check the data file, its axis and the fit regions")
     # -- the fitted model: values, normalised weights, scale and baseline, data axes
     fitted = fitted_model(problem, x, e, axes, centers, widths, paths, settings, model)
     spectra = tuple(Simulator(fitted, j, kernel_store=kernel_store, cache=cache).spectrum() for j in range(n_meas))

@@ -43,7 +43,8 @@ skew = 0.5
 """
 
 COMMANDS = {
-    "simulate": (SIM_MODEL, ["simulate", "{model}", "-o", "out.csv", "--plot", "out.png", "-q"], ["out.csv", "out.png"]),
+    "simulate": (SIM_MODEL, ["simulate", "{model}", "-o", "out.csv", "--plot", "out.png", "-q"],
+                 ["out.csv", "out.png"]),
     "plan": (PLAN_MODEL, ["plan", "{model}", "--fields", "9.4", "--rates", "5000", "10000", "--json", "out.json",
                           "--plot", "out.png", "-q"], ["out.json", "out.png"]),
 }
