@@ -73,8 +73,11 @@ def plot_plan(p, fig=None):
             ax.set_yticks(ys, labels, fontsize=7)
             ax.invert_yaxis()
             ax.set_xscale("log")
-            ax.set_xlabel(f"largest relative standard error, SNR {p.snr:g} scaled by each rotor's sample volume "
-                          "(grey: sidebands overlap)")
+            largest = max(p.rotor_table.rotors, key=lambda r: r.sample_volume_ul)
+            # two short lines: a long caption is clipped at the figure's edge
+            ax.set_xlabel("score: largest standard error over its reference (lower is better)\n"
+                          f"at each rotor's SNR (SNR {p.snr:g} with the {largest.name} rotor); grey: sidebands "
+                          "overlap", fontsize=8.5)
             ax.set_title("precision ranking (best first)", fontsize=10)
         else:
             ax.text(0.5, 0.5, "no parameter is determined", ha="center", transform=ax.transAxes)
