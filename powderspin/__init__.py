@@ -47,6 +47,8 @@ _EXPORTS = {
     "UnknownNuclideError": "physics.nuclides", "TensorError": "physics.tensors",
     "OrientationSetError": "physics.orientations", "DistributionError": "physics.distributions",
     "CacheError": "disorder.library", "OutputExistsError": "files", "OutputPathError": "files",
+    "AxisUnitError": "io.spectra", "MismatchError": "fitting.data",
+    "OrientationSetFileMissing": "physics.orientations", "DamagedEntryWarning": "disorder.library",
 }
 
 __all__ = sorted(_EXPORTS) + ["__version__"]

@@ -185,15 +185,22 @@ def read_measured(item, model: Model, j: int, axis_unit: str | None, accept_mism
 
 
 def _read(path, axis_unit, nucleus, field_tesla):
-    try:
-        return read_spectrum(path, axis=axis_unit, nucleus=nucleus)
-    except AxisUnitError:
-        raise
-    except DataError as first:
-        try:  # the file may not state its reference frequency: take it from the model's field
-            return read_spectrum(path, axis=axis_unit, nucleus=nucleus, field_tesla=field_tesla)
-        except DataError:
-            raise first from None
+    """Read a data file with what the model knows; the file's own statements win where they disagree.
+
+    The model's nucleus is offered first, then with the model's field (a file that states no reference
+    frequency); a file stating another nucleus is read as it is, so that the disagreement is reported as
+    such (:func:`_refuse_other_sample`) and not as a bad option.
+    """
+    first = None
+    for options in ({"nucleus": nucleus}, {"nucleus": nucleus, "field_tesla": field_tesla}, {},
+                    {"field_tesla": field_tesla}):
+        try:
+            return read_spectrum(path, axis=axis_unit, **options)
+        except AxisUnitError:
+            raise
+        except DataError as e:
+            first = first or e
+    raise first
 
 
 #: a file's field or reference frequency this far (relative) from the model's is another magnet, not a rounding
