@@ -31,6 +31,7 @@ from __future__ import annotations
 
 import difflib
 import math
+import re
 import tomllib
 from pathlib import Path
 from typing import Any
@@ -564,6 +565,25 @@ def _nesting_too_deep(text: str, limit: int) -> int | None:
     return None
 
 
+_STRING = re.compile(r'"(?:\\.|[^"\\])*"|\'[^\']*\'')
+_NUMBER_TOKEN = re.compile(r"(?<![\w.])[+-]?\d[\d_]*(?:\.[\d_]+)?(?:[eE][+-]?[\d_]+)?(?![\w.])")
+
+
+def _overflowing_number(text: str) -> tuple[int, str] | None:
+    """(line, text) of the first number literal too large for a double ('1e309'), outside strings and comments."""
+    for lineno, line in enumerate(text.splitlines(), 1):
+        bare = _STRING.sub('""', line).split("#", 1)[0]
+        for m in _NUMBER_TOKEN.finditer(bare):
+            token = m.group(0)
+            try:
+                value = float(token.replace("_", ""))
+            except ValueError:
+                continue
+            if math.isinf(value):
+                return lineno, token
+    return None
+
+
 def read_toml_text(text: str, what: str, error=None) -> dict:
     """Parse TOML text, every failure one error naming ``what`` (and the line where it can).
 
@@ -597,6 +617,10 @@ def read_toml_text(text: str, what: str, error=None) -> dict:
     model file 'deep.toml' line 1: arrays or tables nested more than 32 deep; a model file needs at most 3
     """
     error = ModelError if error is None else error
+    big = _overflowing_number(text)
+    if big is not None:
+        raise error(f"{what} line {big[0]}: {big[1]!r} is beyond the largest number (about 1.8e308); write a "
+                    "finite value (or inf where a key allows it)")
     line = _nesting_too_deep(text, MAX_TOML_NESTING)
     if line is not None:
         raise error(f"{what} line {line}: arrays or tables nested more than {MAX_TOML_NESTING} deep; "

@@ -47,6 +47,7 @@ text("sim.toml", MODEL.replace("{ start = 0.0, min = -10.0, max = 10.0 }", "0.0"
 # class 1: hostile input
 text("deep.toml", 'nucleus = "31P"\n[measurement]\nfield_tesla = 9.4\n[[site]]\nlabel = "P"\nnote = '
      + "[" * 3000 + "]" * 3000 + "\n")
+text("model_overflow.toml", MODEL.replace("field_tesla = 9.4", "field_tesla = 1e309"))
 text("rotors_deep.toml", "x = " + "{ a = " * 500 + "1" + " }" * 500 + "\n")
 rows = list(good_rows)
 rows[9] = ("1e309", rows[9][1])
