@@ -69,7 +69,7 @@ def fit_outputs(args, n_meas: int):
     return files
 
 
-def run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool):
+def run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool, also_write=()):
     """Fit, then write every output together: if one write fails, none is written."""
     from ..fitting.fitter import fit
     from ..io.results import write_result
@@ -88,6 +88,10 @@ def run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool):
         progress.close()
     written = []
     with outputs_together():  # the result, its CSV files and the figures appear together, or none does
+        from ..files import write_text_atomic
+
+        for path, text in also_write:
+            written.append(write_text_atomic(path, text, force=force, protect=protect))
         written += write_result(result, outputs[0][0], force=force, protect=protect)
         for path, role, *_ in outputs:
             if role == "report":
