@@ -315,8 +315,6 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
 
 #: a noise region whose scatter exceeds the point-to-point noise this many times holds more than noise
 NOISE_REGION_EXCESS = 3.0
-#: bytes a posterior sample of one parameter costs across emcee's chain, our flattened copy and the summaries
-_POSTERIOR_BYTES_PER_VALUE = 8 * 4
 #: most starts of a global search (each one is a whole least-squares run)
 MAX_STARTS = 100_000
 
@@ -340,7 +338,10 @@ def _check_arguments(global_search, starts, seed, posterior, walkers, steps, bur
 
 
 def sampler_memory_bytes(n_free: int, walkers: int | None, steps: int) -> float:
-    """Memory a posterior sample holds: walkers x steps x (parameters + 1) values, in a few copies.
+    """Memory a posterior sample holds: walkers x steps x (3 parameters + 1) doubles.
+
+    The sampler keeps the chain (walkers x steps x parameters) and the log-probabilities (walkers x
+    steps); the flattened kept chain and the copies the summaries make add about two chains more.
 
     Parameters
     ----------
@@ -359,10 +360,10 @@ def sampler_memory_bytes(n_free: int, walkers: int | None, steps: int) -> float:
     Examples
     --------
     >>> sampler_memory_bytes(3, 16, 2000) / 1e6
-    4.096
+    2.56
     """
     nw = walkers if walkers is not None else max(16, 4 * n_free)
-    return float(nw) * float(steps) * (n_free + 1) * _POSTERIOR_BYTES_PER_VALUE
+    return float(nw) * float(steps) * (3 * n_free + 1) * 8.0
 
 
 def check_sampler_memory(n_free: int, walkers, steps, starts, names=None) -> None:

@@ -73,8 +73,12 @@ def test_fit_command_outputs_and_simulate_reproduces(tmp_path):
     assert r2.returncode == 0, r2.stderr
     fitted = _csv_columns(tmp_path / "res.csv")["fit"]
     again = _csv_columns(tmp_path / "again.csv")["intensity"]
-    # both CSV files print 10-12 significant digits
-    assert np.max(np.abs(again - fitted)) <= 1e-9 * np.max(np.abs(fitted))
+    # the result file writes each value to the digits its standard error supports (a twentieth of the error at
+    # most): the curve comes back to far inside the noise; the fit CSV keeps the full values
+    noise = float(next(line for line in (tmp_path / "res.csv").read_text().splitlines()
+                       if line.startswith("# noise:")).split()[2])
+    assert np.max(np.abs(again - fitted)) <= 0.05 * noise
+    assert any(line.startswith("# fitted P.shift_ppm: ") for line in (tmp_path / "res.csv").read_text().splitlines())
     # a rerun refuses to overwrite, --force replaces
     r3 = _run(["fit", "good.toml", "-o", "res.toml", "-q"], tmp_path)
     assert r3.returncode == 2 and "--force" in r3.stderr
