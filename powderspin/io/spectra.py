@@ -24,7 +24,12 @@ Formats read by :func:`read_spectrum`
   This covers the CSV that powderspin itself writes (``ppm,hz,intensity``,
   possibly followed by per-site columns, which are ignored).  Without a header
   the first column is the axis, whose unit the ``axis=`` option names, the
-  second the real part and an optional third the imaginary part.
+  second the real part and an optional third the imaginary part; without
+  ``axis=`` such a file raises :class:`AxisUnitError` (a ``DataError``), which
+  the fit answers by taking the unit from the data where only one unit fits
+  the model's lines (:mod:`powderspin.fitting.data`).  A UTF-8 byte-order mark
+  is skipped.  A number beyond the largest double (``1e309``) is an error
+  quoting the text as written, with its line.
 - NumPy ``.npy``: a 2 x N or N x 2 float array (3 x N / N x 3 with an
   imaginary row/column, or a complex second row); row/column 0 is the axis,
   whose unit ``axis=`` names.
@@ -34,7 +39,11 @@ Formats read by :func:`read_spectrum`
   PPM), the reference frequency from ``.OBSERVE FREQUENCY`` (MHz); a
   ``.SHIFT REFERENCE`` (or, failing that, a ``$OFFSET`` label giving the shift
   of the first point in ppm) re-anchors the shift scale; the nucleus comes
-  from ``.OBSERVE NUCLEUS``.
+  from ``.OBSERVE NUCLEUS``.  The point form ``##XYPOINTS=(XY..XY)`` (also
+  ``##XYDATA=(XY..XY)``), explicit x, y pairs that nmrglue does not decode,
+  is read here: pairs separated by semicolons, blanks or line ends, scaled by
+  ``##XFACTOR=``/``##YFACTOR=``, errors naming the line (R. S. McDonald, P. A.
+  Wilks, Appl. Spectrosc. 42 (1988) 151).
 - Bruker processed 1D data, read with nmrglue's Bruker reader: a ``pdata/N``
   directory holding ``1r`` (and ``1i``) and ``procs``, or the experiment
   directory that contains ``pdata/1``.  The axis is
