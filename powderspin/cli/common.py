@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextvars
 import math
 import sys
 from pathlib import Path
@@ -15,6 +16,10 @@ SPINNING_CAUTION = (
     "manufacturer's rated spinning rate for your rotor, cap and probe (rotor failure can injure), "
     "and follow your laboratory's rules."
 )
+
+#: True while the command line's main runs a command (it owns the process's signal handlers then)
+_COMMAND_RUNNING: contextvars.ContextVar = contextvars.ContextVar("powderspin_command_running", default=False)
+
 
 class CliError(Exception):
     """A command-line problem reported as one line with exit status 2.
@@ -187,11 +192,14 @@ def terminal_progress(args, delay: float = 2.0):
 
 
 def _finish_without_interrupts() -> None:
-    """Once every output is in place, the command finishes: later SIGINT/SIGTERM are ignored (main restores them)."""
+    """Once every output is in place, the command finishes: later SIGINT/SIGTERM are ignored (main restores them).
+
+    Only inside :class:`signal_handlers` (the command line's ``main``), which puts the handlers back.
+    """
     import signal
     import threading
 
-    if threading.current_thread() is threading.main_thread():
+    if _COMMAND_RUNNING.get() and threading.current_thread() is threading.main_thread():
         for sig in (signal.SIGINT, getattr(signal, "SIGTERM", None)):
             if sig is not None:
                 signal.signal(sig, signal.SIG_IGN)
@@ -216,6 +224,7 @@ class signal_handlers:
         import signal
         import threading
 
+        self.token = _COMMAND_RUNNING.set(True)
         self.saved = {}
         if threading.current_thread() is not threading.main_thread():
             return self
@@ -232,6 +241,7 @@ class signal_handlers:
         for sig, handler in self.saved.items():
             if handler is not None:
                 signal.signal(sig, handler)
+        _COMMAND_RUNNING.reset(self.token)
         return False
 
 
