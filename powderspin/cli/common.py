@@ -233,6 +233,8 @@ class signal_handlers:
                 self.saved[sig] = signal.getsignal(sig)
         if getattr(signal, "SIGTERM", None) is not None:
             signal.signal(signal.SIGTERM, _terminate)
+        if self.saved.get(signal.SIGINT) is signal.default_int_handler:  # not when the caller ignores Ctrl-C
+            signal.signal(signal.SIGINT, _interrupt)
         return self
 
     def __exit__(self, *exc):
@@ -249,7 +251,39 @@ class Terminated(KeyboardInterrupt):
     """SIGTERM, raised where Ctrl-C would raise KeyboardInterrupt."""
 
 
+def _in_finaliser(frame) -> bool:
+    """True when the interrupted code is a finaliser (``__del__``), where Python would swallow the exception."""
+    while frame is not None:
+        if frame.f_code.co_name == "__del__":
+            return True
+        frame = frame.f_back
+    return False
+
+
+def _later(signum: int) -> None:
+    """Deliver the signal again in a moment (from a helper thread; the main thread handles it)."""
+    import os
+    import threading
+    import time
+
+    def again():
+        time.sleep(0.05)
+        os.kill(os.getpid(), signum)
+
+    threading.Thread(target=again, daemon=True).start()
+
+
+def _interrupt(signum, frame):
+    if _in_finaliser(frame):  # an exception raised there would be printed and ignored: try again outside it
+        _later(signum)
+        return
+    raise KeyboardInterrupt()
+
+
 def _terminate(signum, frame):
+    if _in_finaliser(frame):
+        _later(signum)
+        return
     raise Terminated()
 
 
