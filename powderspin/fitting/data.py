@@ -386,10 +386,15 @@ def check_region(r, what: str) -> tuple[float, float]:
     >>> check_region((40, 90), "region 1")
     (90.0, 40.0)
     """
-    try:
-        a, b = (float(x) for x in r)
-    except (TypeError, ValueError):
-        raise FitError(f"{what} = {r!r} must be two shifts (ppm), e.g. (90, 40)") from None
+    from ..checks import is_real, show
+
+    if isinstance(r, (str, bytes)) or not hasattr(r, "__iter__"):
+        raise FitError(f"{what} = {show(r)} must be two shifts (ppm), e.g. (90, 40), not "
+                       f"{'text' if isinstance(r, (str, bytes)) else type(r).__name__}")
+    items = list(r)
+    if len(items) != 2 or not all(is_real(x) for x in items):
+        raise FitError(f"{what} = {show(r)} must be two shifts (ppm), e.g. (90, 40)")
+    a, b = (float(x) for x in items)
     if not (math.isfinite(a) and math.isfinite(b)) or a == b:
         raise FitError(f"{what} = {r!r} must be two different finite shifts (ppm)")
     return (max(a, b), min(a, b))

@@ -411,6 +411,8 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     warns: list[str] = []
     # -- settings: arguments override the model's [fit] table
     fs = model.fit
+    if regions is not None and (isinstance(regions, (str, bytes)) or not hasattr(regions, "__iter__")):
+        raise FitError(f"regions = {show(regions)} must be a list of (ppm, ppm) pairs, e.g. [(90, 40), (20, -10)]")
     regs = fs.regions if regions is None else tuple(check_region(r, f"region {i + 1}") for i, r in enumerate(regions))
     noise_reg = fs.noise_region if noise_region is None else check_region(noise_region, "noise region")
     order = fs.baseline_order if baseline_order is None else baseline_order
