@@ -75,7 +75,7 @@ import numpy as np
 from ..checks import check_memory, show, whole_number
 from ..disorder.summary import distribution_summary
 from ..engine.threads import kernel_threads
-from ..model.values import FitSettings, FreeParameter, Model, ParameterAddress
+from ..model.values import FitSettings, FreeParameter, Model, ModelError, ParameterAddress
 from ..simulator import SimulationCache, Simulator, as_model
 from ..uncertainty import correlation, covariance_from_jacobian, standard_errors
 from .data import (
@@ -416,7 +416,10 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     regs = fs.regions if regions is None else tuple(check_region(r, f"region {i + 1}") for i, r in enumerate(regions))
     noise_reg = fs.noise_region if noise_region is None else check_region(noise_region, "noise region")
     order = fs.baseline_order if baseline_order is None else baseline_order
-    settings = FitSettings(tuple(regs), noise_reg, order)  # validates the order
+    try:
+        settings = FitSettings(tuple(regs), noise_reg, order)  # validates the order
+    except ModelError as e:  # a keyword of fit(): the fit's own error type
+        raise FitError(str(e).removeprefix("fit: ")) from None
     order = settings.baseline_order
     # -- data
     specs, paths = [], []

@@ -619,6 +619,8 @@ def _plan(model, fields, rotors, rotor_table, max_rate_hz, rates_hz, n_rates, mi
     source = model.source or ""
     if not model.sites:
         raise PlanError("model: at least one [[site]] is needed")
+    if not isinstance(precision, (bool, np.bool_)):
+        raise PlanError(f"precision must be True or False, got {show(precision)}")
     fields_t = _check_fields(fields, model)
     threshold = _check_positive("threshold", threshold, 0.0, 1.0, "", open_high=True)
     snr = _check_positive("snr", snr, 0.0, 1e9)
