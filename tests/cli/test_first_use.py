@@ -249,3 +249,30 @@ def test_exported_files_fit_without_options(tmp_path, capsys, name, writer):
     assert abs(r.values["Al.cq_mhz"] - 3.0) < 5 * r.stderr["Al.cq_mhz"] + 1e-3
     if name.endswith(".txt"):
         assert any("read in ppm" in n for n in r.notes)
+
+
+def test_a_cache_folder_on_a_read_only_mount_is_a_note_and_memory_only(tmp_path, monkeypatch, capsys):
+    """EROFS (a read-only mount) is simulated: the folder check says so, the run keeps kernels in memory."""
+    import argparse
+    import errno
+    import os
+    import tempfile
+
+    from powderspin.cli import common
+
+    real = tempfile.mkstemp
+    library = tmp_path / "library"
+    library.mkdir()
+
+    def read_only(*args, dir=None, **kwargs):
+        if dir is not None and os.path.samefile(dir, library):
+            raise OSError(errno.EROFS, os.strerror(errno.EROFS))
+        return real(*args, dir=dir, **kwargs)
+
+    monkeypatch.setattr(tempfile, "mkstemp", read_only)
+    monkeypatch.setenv("POWDERSPIN_CACHE", str(library))
+    assert common._writable_folder(library) == "it is on a read-only file system"
+    store = common.kernel_store(argparse.Namespace(cache=None, no_cache=False, quiet=False))
+    assert store.library is None or not getattr(store.library, "enabled", True)
+    err = capsys.readouterr().err
+    assert err.startswith("note: $POWDERSPIN_CACHE") and "read-only" in err and err.count("\n") == 1
