@@ -89,6 +89,19 @@ def format_value(v: float, e: float) -> str:
     return f"{v:.{digits}f} +- {e:.{digits}f}"
 
 
+def _unit_of(name: str) -> str:
+    """The unit of a fitted parameter from the key table ("AlO4.cq_mhz" -> "MHz"; "" when dimensionless)."""
+    from ..model.schema import key_spec
+
+    owner, _, key = name.rpartition(".")
+    key = key.partition("[")[0]
+    try:
+        u = key_spec("measurement" if owner.startswith("measurement ") else "site", key).unit
+    except (KeyError, ValueError):
+        return ""
+    return {"deg": "degrees"}.get(u, u or "")
+
+
 def _rounded_errors(table) -> dict:
     out = {}
     for k, v in dict(table).items():
@@ -337,7 +350,8 @@ class FitResult:
         w = max((len(n) for n in self.names), default=4)
         for n in self.names:
             v, e = self.values[n], self.stderr[n]
-            line = f"  {n:<{w}}  {format_value(v, e)}"
+            unit = _unit_of(n)
+            line = f"  {n:<{w}}  {format_value(v, e).replace(' +- ', ' ± ')}" + (f" {unit}" if unit else "")
             if self.posterior is not None:
                 lo, hi = self.posterior.interval(n)
                 med = self.posterior.median[self.posterior.names.index(n)]
@@ -350,7 +364,7 @@ class FitResult:
             head += f", {self.starts_at_best} of {self.starts} starts reached the best fit"
         out = [head] + lines
         for n, (v, e) in self.derived.items():
-            out.append(f"  {n:<{w}}  {format_value(v, e)}   (derived)")
+            out.append(f"  {n:<{w}}  {format_value(v, e).replace(' +- ', ' ± ')}   (derived)")
         if self.posterior is not None:
             p = self.posterior
             out.append(f"posterior: {p.walkers} walkers x {p.steps} steps, first {p.burn} discarded; longest "
