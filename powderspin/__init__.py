@@ -45,6 +45,13 @@ _EXPORTS = {
     "ShiftTensor": "physics.tensors",
     "process": "processing.pipeline", "ProcessingOptions": "processing.options", "read_raw": "io.raw",
     "RawFID": "io.raw", "combine_stepped": "processing.stepped",
+    # every public exception, so that callers can catch them by name
+    "UnknownNuclideError": "physics.nuclides", "TensorError": "physics.tensors",
+    "OrientationSetError": "physics.orientations", "DistributionError": "physics.distributions",
+    "CacheError": "disorder.library", "OutputExistsError": "files", "OutputPathError": "files",
+    "AxisUnitError": "io.spectra", "MismatchError": "fitting.data", "ProcessingError": "processing.options",
+    "FitCancelled": "explorer.state",
+    "OrientationSetFileMissing": "physics.orientations", "DamagedEntryWarning": "disorder.library",
 }
 
 __all__ = sorted(_EXPORTS) + ["__version__"]

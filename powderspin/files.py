@@ -11,14 +11,26 @@ private, mode 0600).
 
 :func:`check_outputs` checks a command's outputs before any computing starts,
 so that a bad output name costs nothing.
+
+A command that writes several files (a spectrum and its figure, a plan's JSON
+and plot, a fit's result, CSV files and report) opens one
+:func:`output_transaction`: every atomic write inside it goes to a temporary
+file beside its destination, and only when the block ends without error are
+all of them moved into place together (with interrupts held back for those
+few renames).  An error, a full disk, Ctrl-C or SIGTERM anywhere before that
+leaves none of them, and a file replaced with ``force`` is put back if a later
+rename fails.
 """
 
 from __future__ import annotations
 
 import contextlib
+import contextvars
 import os
+import signal
 import sys
 import tempfile
+import threading
 from pathlib import Path
 from typing import Callable, Iterable, Iterator
 
@@ -30,6 +42,9 @@ __all__ = [
     "atomic_output",
     "write_text_atomic",
     "write_via",
+    "OutputTransaction",
+    "output_transaction",
+    "output_path",
 ]
 
 #: the output name that means standard output (text outputs only)
@@ -79,6 +94,28 @@ class OutputPathError(OSError):
     """
 
 
+def output_path(path, role: str = "output") -> Path:
+    """An output's name as a Path; None, arrays and other objects are refused naming the role.
+
+    Examples
+    --------
+    >>> output_path("a.csv").name
+    'a.csv'
+    >>> try:
+    ...     output_path(None, "plot")
+    ... except OutputPathError as e:
+    ...     print(e)
+    plot must be a file name (text or pathlib.Path), got None
+    """
+    if not isinstance(path, (str, os.PathLike)) or isinstance(path, bytes):
+        got = "None" if path is None else type(path).__name__
+        raise OutputPathError(f"{role} must be a file name (text or pathlib.Path), got {got}")
+    text = os.fspath(path)
+    if not str(text).strip():
+        raise OutputPathError(f"{role} is an empty name; give a file name")
+    return Path(text)
+
+
 def _umask() -> int:
     """The process umask, read without changing it where the system allows (Linux /proc)."""
     try:
@@ -100,7 +137,8 @@ def _same_file(a: Path, b: Path) -> bool:
         return False
 
 
-def check_outputs(outputs: Iterable, *, force: bool = False, protect: Iterable = ()) -> None:
+def check_outputs(outputs: Iterable, *, force: bool = False, protect: Iterable = (),
+                  make_folders: bool = True) -> None:
     """Check output paths before any work is done.
 
     Parameters
@@ -114,6 +152,11 @@ def check_outputs(outputs: Iterable, *, force: bool = False, protect: Iterable =
         Existing files may be replaced.
     protect : iterable of path, optional
         Input files that must never be overwritten, even with ``force``.
+    make_folders : bool, optional
+        Missing folders of an output will be made (the default of the
+        Python API).  The command line passes False: an output in a folder
+        that does not exist is refused (a mistyped folder name should not
+        quietly become a new folder).
 
     Raises
     ------
@@ -122,7 +165,8 @@ def check_outputs(outputs: Iterable, *, force: bool = False, protect: Iterable =
         replaced, even with ``force``).
     OutputPathError
         An output is a folder, named twice, has a suffix that is not
-        allowed, or its folder cannot be written.
+        allowed, its folder does not exist (``make_folders=False``) or
+        cannot be written.
 
     Examples
     --------
@@ -140,7 +184,7 @@ def check_outputs(outputs: Iterable, *, force: bool = False, protect: Iterable =
     for entry in outputs:
         path, role = entry[0], entry[1]
         suffixes = tuple(entry[2]) if len(entry) > 2 and entry[2] else ()
-        text = str(path)
+        text = str(output_path(path, role)) if not (isinstance(path, str) and path == STDOUT) else STDOUT
         if text == STDOUT:
             if suffixes:
                 raise OutputPathError(f"{role} cannot be standard output ('-'); give a file name ending in "
@@ -170,6 +214,9 @@ def check_outputs(outputs: Iterable, *, force: bool = False, protect: Iterable =
             if not p.is_file():
                 raise OutputPathError(f"{role} {text!r} exists and is not a regular file; give another name")
         parent = p.parent if str(p.parent) else Path(".")
+        if not make_folders and not parent.is_dir():
+            raise OutputPathError(f"{role} {text!r}: the folder {str(parent)!r} does not exist; make it first "
+                                  "(outputs are never written into folders made on the fly)")
         probe = parent
         while not probe.exists() and probe != probe.parent:
             probe = probe.parent
@@ -232,9 +279,9 @@ def atomic_output(path, *, force: bool = False, protect: Iterable = (), role: st
     ...     dest.read_text()
     'done'
     """
-    p = Path(path)
     if checked:
-        check_outputs([(p, role)], force=force, protect=protect)
+        check_outputs([(path, role)], force=force, protect=protect)
+    p = Path(path)
     try:
         if str(p.parent) and not p.parent.exists():
             p.parent.mkdir(parents=True, exist_ok=True)
@@ -244,6 +291,8 @@ def atomic_output(path, *, force: bool = False, protect: Iterable = (), role: st
     except OSError as e:
         raise OutputPathError(f"{role} {str(p)!r} cannot be written: {e.strerror or e}") from None
     tmp_path = Path(tmp)
+    transaction = _CURRENT.get() if checked else None
+    staged = False
     try:
         yield tmp_path
         os.chmod(tmp_path, 0o666 & ~_umask())
@@ -252,15 +301,20 @@ def atomic_output(path, *, force: bool = False, protect: Iterable = (), role: st
                 os.fsync(fh.fileno())
         if p.exists() and not force:  # appeared while we were writing
             raise OutputExistsError(f"{role} {str(p)!r} exists; pass --force (force=True) to overwrite it")
-        os.replace(tmp_path, p)
+        if transaction is not None:
+            transaction._stage(tmp_path, p, role, force)
+            staged = True
+        else:
+            os.replace(tmp_path, p)
     except OSError as e:
         if isinstance(e, (OutputExistsError, OutputPathError)):
             raise
         raise OutputPathError(f"{role} {str(p)!r} cannot be written: {e.strerror or e}") from None
     finally:
-        with contextlib.suppress(OSError):
-            if tmp_path.exists():
-                tmp_path.unlink()
+        if not staged:
+            with contextlib.suppress(OSError):
+                if tmp_path.exists():
+                    tmp_path.unlink()
 
 
 def write_text_atomic(path, text: str, *, force: bool = False, protect: Iterable = (),
@@ -298,7 +352,7 @@ def write_text_atomic(path, text: str, *, force: bool = False, protect: Iterable
     ...     p.read_text()
     'two'
     """
-    if str(path) == STDOUT:
+    if isinstance(path, str) and path == STDOUT:
         sys.stdout.write(text)
         sys.stdout.flush()
         return None
@@ -334,7 +388,169 @@ def write_via(path, writer: Callable[[Path], None], *, force: bool = False, prot
     ...     p.read_bytes()
     b'ok'
     """
+    check_outputs([(path, role)], force=force, protect=protect)
     p = Path(path)
     with atomic_output(p, force=force, protect=protect, role=role, suffix=p.suffix or ".part") as tmp:
         writer(tmp)
     return p
+
+
+#: the transaction that atomic writes of this context join (None: each write is moved into place at once)
+_CURRENT: contextvars.ContextVar = contextvars.ContextVar("powderspin_output_transaction", default=None)
+_HELD_SIGNALS = {signal.SIGINT, signal.SIGTERM} if hasattr(signal, "SIGTERM") else {signal.SIGINT}
+
+
+class OutputTransaction:
+    """Files written together: staged as temporary files, moved into place all at once or not at all.
+
+    Made by :func:`output_transaction`; see there.
+
+    Parameters
+    ----------
+    on_commit : callable, optional
+        Called with no arguments right after every file is in place, while
+        interrupts are still held back (the command line uses it to make the
+        rest of a finished command uninterruptible).
+
+    Attributes
+    ----------
+    written : list of pathlib.Path
+        The destinations moved into place by :meth:`commit`, in order.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     with output_transaction() as t:
+    ...         _ = write_text_atomic(pathlib.Path(d) / "a.txt", "one")
+    ...         staged = sorted(q.name for q in pathlib.Path(d).iterdir() if not q.name.startswith("."))
+    ...     print(staged, [q.name for q in t.written])
+    [] ['a.txt']
+    """
+
+    def __init__(self, on_commit: Callable[[], None] | None = None):
+        self._staged: list[tuple[Path, Path, str, bool]] = []
+        self.written: list[Path] = []
+        self._on_commit = on_commit
+
+    def _stage(self, tmp: Path, dest: Path, role: str, force: bool) -> None:
+        self._staged.append((tmp, dest, role, force))
+
+    def discard(self) -> None:
+        """Remove every staged temporary file; no destination is touched."""
+        for tmp, *_ in self._staged:
+            with contextlib.suppress(OSError):
+                tmp.unlink()
+        self._staged = []
+
+    def commit(self) -> list[Path]:
+        """Move every staged file into place; on any failure put everything back as it was.
+
+        Returns
+        -------
+        list of pathlib.Path
+            The destinations, in the order they were written.
+
+        Raises
+        ------
+        OutputExistsError, OutputPathError
+            A destination appeared meanwhile (without ``force``) or a rename
+            failed; no destination is changed then.
+        """
+        hold = threading.current_thread() is threading.main_thread() and hasattr(signal, "pthread_sigmask")
+        old_mask = signal.pthread_sigmask(signal.SIG_BLOCK, _HELD_SIGNALS) if hold else None
+        done: list[tuple[Path, Path | None]] = []  # (destination, backup of the file it replaced)
+        try:
+            try:
+                for tmp, dest, role, force in self._staged:
+                    if (dest.exists() or dest.is_symlink()) and not force:
+                        raise OutputExistsError(f"{role} {str(dest)!r} exists; pass --force (force=True) to "
+                                                "overwrite it")
+                for tmp, dest, role, force in self._staged:
+                    backup = None
+                    if dest.exists():
+                        fd, name = tempfile.mkstemp(prefix=f".{dest.name}.", suffix=".old", dir=str(dest.parent))
+                        os.close(fd)
+                        backup = Path(name)
+                        os.replace(dest, backup)
+                    try:
+                        os.replace(tmp, dest)
+                    except OSError as e:
+                        if backup is not None:
+                            os.replace(backup, dest)
+                        raise OutputPathError(f"{role} {str(dest)!r} cannot be written: {e.strerror or e}") from None
+                    done.append((dest, backup))
+            except BaseException:
+                for dest, backup in reversed(done):
+                    with contextlib.suppress(OSError):
+                        if backup is not None:
+                            os.replace(backup, dest)
+                        else:
+                            dest.unlink()
+                self.discard()
+                raise
+            for _, backup in done:
+                if backup is not None:
+                    with contextlib.suppress(OSError):
+                        backup.unlink()
+            self.written = [dest for dest, _ in done]
+            self._staged = []
+            if self._on_commit is not None:
+                self._on_commit()
+        finally:
+            if old_mask is not None:
+                signal.pthread_sigmask(signal.SIG_SETMASK, old_mask)
+        return self.written
+
+
+@contextlib.contextmanager
+def output_transaction(on_commit: Callable[[], None] | None = None) -> Iterator[OutputTransaction]:
+    """Write every output of one job all together or not at all.
+
+    Inside the block, every atomic write (:func:`atomic_output`,
+    :func:`write_text_atomic`, :func:`write_via` and the writers built on
+    them: spectra, figures, plans, fit results) is staged as a temporary file
+    beside its destination.  When the block ends without error, all staged
+    files are moved into place together, with SIGINT and SIGTERM held back
+    for those renames; if one rename fails, the files already moved are put
+    back (a file replaced with ``force`` is restored).  When the block ends
+    with an error, Ctrl-C or SIGTERM (raised as an exception), every staged
+    file is removed and nothing is changed.  Text written to standard output
+    (``"-"``) is not staged.
+
+    Parameters
+    ----------
+    on_commit : callable, optional
+        Called right after every file is in place, before interrupts are let
+        through again.
+
+    Yields
+    ------
+    OutputTransaction
+        Its ``written`` attribute lists the files once the block has ended.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     a, b = pathlib.Path(d) / "a.txt", pathlib.Path(d) / "b.txt"
+    ...     try:
+    ...         with output_transaction():
+    ...             _ = write_text_atomic(a, "first")
+    ...             raise RuntimeError("the second output failed")
+    ...     except RuntimeError:
+    ...         pass
+    ...     print(a.exists(), sorted(pathlib.Path(d).iterdir()))
+    False []
+    """
+    transaction = OutputTransaction(on_commit)
+    token = _CURRENT.set(transaction)
+    try:
+        try:
+            yield transaction
+        finally:
+            _CURRENT.reset(token)
+    except BaseException:
+        transaction.discard()
+        raise
+    transaction.commit()

@@ -47,7 +47,8 @@ def test_demo_command(tmp_path):
     for name in ("demo_fit.toml", "demo_fit-m1.csv", "demo_fit-m2.csv", "demo_fit.png"):
         assert (d / name).exists(), name
     assert "SYNTHETIC" in r.stdout and "reduced chi-square" in r.stdout
-    # the result file reproduces the fitted curves (CSV precision: 10-12 significant digits)
+    # the result file reproduces the fitted curves (CSV precision: 10-12 significant digits); it shows its values
+    # to the digits their standard errors support and keeps the full values for the reader
     r_sim = _run(["simulate", str(d / "demo_fit.toml"), "-o", str(tmp_path / "again.csv"), "-q"], tmp_path)
     assert r_sim.returncode == 0, r_sim.stderr
     for j in (1, 2):

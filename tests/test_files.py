@@ -80,3 +80,28 @@ def test_outputs_are_checked_together_before_any_work(tmp_path):
 def test_dash_is_standard_output(capsys):
     assert write_text_atomic("-", "hello\n") is None
     assert capsys.readouterr().out == "hello\n"
+
+
+def test_a_transaction_writes_all_files_at_the_end_or_none(tmp_path):
+    from powderspin.files import output_transaction
+
+    a, b = tmp_path / "a.csv", tmp_path / "b.png"
+    with output_transaction() as t:
+        write_text_atomic(a, "one")
+        write_via(b, lambda p: p.write_bytes(b"two"))
+        assert not a.exists() and not b.exists()  # staged, not yet in place
+    assert t.written == [a, b] and a.read_text() == "one"
+    for p in (a, b):
+        p.write_text("earlier")
+    with pytest.raises(KeyboardInterrupt):
+        with output_transaction():
+            write_text_atomic(a, "new", force=True)
+            raise KeyboardInterrupt
+    assert a.read_text() == "earlier" and sorted(p.name for p in tmp_path.iterdir()) == ["a.csv", "b.png"]
+
+
+def test_check_outputs_can_refuse_a_missing_folder(tmp_path):
+    with pytest.raises(OutputPathError, match="does not exist"):
+        check_outputs([(tmp_path / "no" / "a.csv", "output")], make_folders=False)
+    check_outputs([(tmp_path / "no" / "a.csv", "output")])  # the API makes folders
+    assert not (tmp_path / "no").exists()

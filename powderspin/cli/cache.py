@@ -20,7 +20,7 @@ def add_parser(sub) -> None:
 def run(args) -> int:
     from ..disorder.library import cache_summary_text
 
-    lib = library(args)
+    lib = library(args, must_write=args.action == "clear")
     if args.action == "path":
         print(lib.path)
     elif args.action == "info":

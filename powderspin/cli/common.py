@@ -2,18 +2,24 @@
 
 from __future__ import annotations
 
+import contextvars
 import math
 import sys
 from pathlib import Path
 
 __all__ = ["terminal_progress", "CliError", "SPINNING_CAUTION", "note", "compile_note", "parse_range", "numbers",
-           "add_cache_options", "library", "kernel_store", "interrupted"]
+           "add_cache_options", "library", "kernel_store", "interrupted", "outputs_together", "signal_handlers",
+           "warning_lines"]
 
 SPINNING_CAUTION = (
     "caution: simulated spinning rates say nothing about what a rotor can take; never exceed the "
     "manufacturer's rated spinning rate for your rotor, cap and probe (rotor failure can injure), "
     "and follow your laboratory's rules."
 )
+
+#: True while the command line's main runs a command (it owns the process's signal handlers then)
+_COMMAND_RUNNING: contextvars.ContextVar = contextvars.ContextVar("powderspin_command_running", default=False)
+
 
 class CliError(Exception):
     """A command-line problem reported as one line with exit status 2.
@@ -61,25 +67,79 @@ def parse_range(text: str | None, what: str):
     return (lo, hi)
 
 
-def library(args):
-    """The lineshape library named by --cache (else $POWDERSPIN_CACHE, else the user cache folder)."""
-    from ..disorder.library import LineshapeLibrary
+def _library_source(args) -> tuple[str | None, str]:
+    """The library folder asked for and how it was named: ``--cache``, ``$POWDERSPIN_CACHE`` or the default."""
+    import os
+
+    from ..disorder.library import ENV_VAR
 
     path = getattr(args, "cache", None)
     if path is not None:
-        p = Path(path)
-        if p.exists() and not p.is_dir():
-            raise CliError(f"--cache {path!r} is a file; give a folder for the lineshape library")
-    return LineshapeLibrary(path)
+        return path, f"--cache {path!r}"
+    env = os.environ.get(ENV_VAR, "")
+    if env.strip():
+        return env, f"${ENV_VAR} = {env!r}"
+    return None, "the lineshape library"
+
+
+def _writable_folder(p: Path) -> str | None:
+    """Why the folder ``p`` (or the folder that would hold it) cannot be written, else None."""
+    import errno
+    import os
+    import tempfile
+
+    probe = p
+    while not probe.exists() and probe != probe.parent:
+        probe = probe.parent
+    if not probe.is_dir():
+        return f"{str(probe)!r} is not a folder"
+    try:
+        fd, trial = tempfile.mkstemp(prefix=".powderspin-check-", dir=str(probe))
+        os.close(fd)
+        os.unlink(trial)
+    except OSError as e:
+        if e.errno == errno.EROFS:
+            return "it is on a read-only file system"
+        return f"it cannot be written ({e.strerror or e})"
+    return None
+
+
+def library(args, *, must_write: bool = False):
+    """The lineshape library named by --cache (else $POWDERSPIN_CACHE, else the user cache folder).
+
+    A folder that is a file is an error, whichever way it was named; one that
+    cannot be written is an error when ``must_write`` (``cache clear``), and
+    otherwise a note (the kernels are then kept in memory only: see
+    :func:`kernel_store`).
+    """
+    from ..disorder.library import LineshapeLibrary
+
+    path, named = _library_source(args)
+    lib = LineshapeLibrary(path)
+    p = lib.path
+    if (p.exists() or p.is_symlink()) and not p.is_dir():
+        raise CliError(f"{named} is {'a file' if p.is_file() else 'not a folder'}; give a folder for the lineshape "
+                       "library")
+    if must_write:
+        problem = _writable_folder(p)
+        if problem is not None:
+            raise CliError(f"{named} ({p}): {problem}")
+    return lib
 
 
 def kernel_store(args):
-    """The kernel store of a command: --no-cache keeps kernels in memory only."""
+    """The kernel store of a command: --no-cache keeps kernels in memory only, and so does a library that cannot
+    be written (with a note naming how the folder was chosen)."""
     from ..disorder.store import KernelStore, default_kernel_store
 
     if getattr(args, "no_cache", False):
         return KernelStore(None)
     lib = library(args)
+    problem = _writable_folder(lib.path)
+    if problem is not None:
+        _, named = _library_source(args)
+        note(args, f"note: {named} ({lib.path}): {problem}; kernels are kept in memory for this run only")
+        return KernelStore(None)
     return default_kernel_store(lib.path)
 
 
@@ -129,3 +189,120 @@ def terminal_progress(args, delay: float = 2.0):
     mode = os.environ.get("POWDERSPIN_PROGRESS", "auto").strip().lower()
     quiet = getattr(args, "quiet", False) or mode == "never"
     return TerminalProgress(quiet, delay=delay, always=mode == "always")
+
+
+def _finish_without_interrupts() -> None:
+    """Once every output is in place, the command finishes: later SIGINT/SIGTERM are ignored (main restores them).
+
+    Only inside :class:`signal_handlers` (the command line's ``main``), which puts the handlers back.
+    """
+    import signal
+    import threading
+
+    if _COMMAND_RUNNING.get() and threading.current_thread() is threading.main_thread():
+        for sig in (signal.SIGINT, getattr(signal, "SIGTERM", None)):
+            if sig is not None:
+                signal.signal(sig, signal.SIG_IGN)
+
+
+def outputs_together():
+    """The output transaction of a command: every file it writes appears together at the end, or none does.
+
+    After the files are in place the rest of the command (its "wrote ..."
+    lines) cannot be interrupted, so that status 130 always means that
+    nothing was written.
+    """
+    from ..files import output_transaction
+
+    return output_transaction(on_commit=_finish_without_interrupts)
+
+
+class signal_handlers:
+    """While a command runs, SIGTERM stops it like Ctrl-C (a KeyboardInterrupt); the old handlers come back after."""
+
+    def __enter__(self):
+        import signal
+        import threading
+
+        self.token = _COMMAND_RUNNING.set(True)
+        self.saved = {}
+        if threading.current_thread() is not threading.main_thread():
+            return self
+        for sig in (signal.SIGINT, getattr(signal, "SIGTERM", None)):
+            if sig is not None:
+                self.saved[sig] = signal.getsignal(sig)
+        if getattr(signal, "SIGTERM", None) is not None:
+            signal.signal(signal.SIGTERM, _terminate)
+        if self.saved.get(signal.SIGINT) is signal.default_int_handler:  # not when the caller ignores Ctrl-C
+            signal.signal(signal.SIGINT, _interrupt)
+        return self
+
+    def __exit__(self, *exc):
+        import signal
+
+        for sig, handler in self.saved.items():
+            if handler is not None:
+                signal.signal(sig, handler)
+        _COMMAND_RUNNING.reset(self.token)
+        return False
+
+
+class Terminated(KeyboardInterrupt):
+    """SIGTERM, raised where Ctrl-C would raise KeyboardInterrupt."""
+
+
+def _in_finaliser(frame) -> bool:
+    """True when the interrupted code is a finaliser (``__del__``), where Python would swallow the exception."""
+    while frame is not None:
+        if frame.f_code.co_name == "__del__":
+            return True
+        frame = frame.f_back
+    return False
+
+
+def _later(signum: int) -> None:
+    """Deliver the signal again in a moment (from a helper thread; the main thread handles it)."""
+    import os
+    import threading
+    import time
+
+    def again():
+        time.sleep(0.05)
+        os.kill(os.getpid(), signum)
+
+    threading.Thread(target=again, daemon=True).start()
+
+
+def _interrupt(signum, frame):
+    if _in_finaliser(frame):  # an exception raised there would be printed and ignored: try again outside it
+        _later(signum)
+        return
+    raise KeyboardInterrupt()
+
+
+def _terminate(signum, frame):
+    if _in_finaliser(frame):
+        _later(signum)
+        return
+    raise Terminated()
+
+
+class warning_lines:
+    """While a command runs, Python warnings print as one ``warning: ...`` line (no source line, no category)."""
+
+    def __enter__(self):
+        import warnings
+
+        self.saved = warnings.showwarning
+
+        def show(message, category, filename, lineno, file=None, line=None):
+            print(f"warning: {' '.join(str(message).split())}", file=file or sys.stderr)
+
+        warnings.showwarning = show
+        return self
+
+    def __exit__(self, *exc):
+        import warnings
+
+        warnings.showwarning = self.saved
+        return False

@@ -40,7 +40,7 @@ def _demo_folder(requested: str) -> Path:
 
 
 def run(args) -> int:
-    from ..files import check_outputs, write_text_atomic
+    from ..files import check_outputs
     from ..io.results import csv_paths
     from ..model.modelfile import load_model
 
@@ -58,12 +58,13 @@ def run(args) -> int:
     print(f"demo: fit {len(model.sites)} {model.nucleus.name} sites to two SYNTHETIC spectra (an invented "
           f"aluminophosphate) at {fields}, {model.measurement.spinning_hz / 1e3:g} kHz MAS; model: "
           f"{_demo_model_path()}")
-    outdir.mkdir(parents=True, exist_ok=True)
-    write_text_atomic(outdir / DEMO_MARKER, "made by powderspin demo; its files may be replaced by a rerun\n",
-                      force=True)
     ns = argparse.Namespace(region=None, noise_region=None, axis=None, global_search=False, starts=None, seed=0,
                             posterior=False, walkers=None, steps=2000, burn=None)
-    result, written = run_fit(model, None, ns, outputs, [_demo_model_path()], force=True, quiet=args.quiet)
+    marker = (outdir / DEMO_MARKER, "made by powderspin demo; its files may be replaced by a rerun\n")
+    # the folder, its marker and the fit's files appear together at the end (or, after an interrupt, none does)
+    result, written = run_fit(model, None, ns, outputs, [_demo_model_path()], force=True, quiet=args.quiet,
+                              also_write=[marker])
+    written = [w for w in written if Path(w).name != DEMO_MARKER]
     print(result.summary(), end="")
     print("wrote " + ", ".join(str(p) for p in written))
     print(f"check: powderspin simulate {result_path} -o fitted.csv   (gives the fitted curves)")

@@ -6,7 +6,15 @@ import argparse
 import sys
 from pathlib import Path
 
-from .common import CliError, add_cache_options, compile_note, kernel_store, parse_range, terminal_progress
+from .common import (
+    CliError,
+    add_cache_options,
+    compile_note,
+    kernel_store,
+    outputs_together,
+    parse_range,
+    terminal_progress,
+)
 
 __all__ = ["add_parser", "run", "run_fit", "fit_outputs"]
 
@@ -21,6 +29,8 @@ def add_parser(sub) -> None:
     f.add_argument("-o", "--output", required=True,
                    help="result file to write (.toml, a model file); the CSV goes beside it")
     f.add_argument("--report", help="also write the report figure (.png, .pdf or .svg)")
+    f.add_argument("--unit", choices=("ppm", "khz"), default="ppm",
+                   help="x axis of the report: shift in ppm (default) or offset in kHz")
     f.add_argument("--global", dest="global_search", action="store_true",
                    help="least squares from many starts within the bounds (Sobol set); keep the best")
     f.add_argument("--starts", type=int, help="number of starts with --global (default max(8, 4 x free parameters))")
@@ -35,6 +45,8 @@ def add_parser(sub) -> None:
     f.add_argument("--noise-region", metavar="A:B", help="signal-free region in ppm for the noise level")
     f.add_argument("--axis", choices=("ppm", "hz", "khz"),
                    help="unit of the data files' axis column when the files do not name it")
+    f.add_argument("--accept-mismatch", action="store_true",
+                   help="fit data whose own header states another nucleus or field than the model (refused otherwise)")
     f.add_argument("--force", action="store_true", help="overwrite existing output files")
     f.add_argument("-q", "--quiet", action="store_true", help="no progress bars")
     add_cache_options(f)
@@ -59,8 +71,8 @@ def fit_outputs(args, n_meas: int):
     return files
 
 
-def run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool):
-    """Fit, then write every output; if one write fails, remove what this run wrote."""
+def run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool, also_write=()):
+    """Fit, then write every output together: if one write fails, none is written."""
     from ..fitting.fitter import fit
     from ..io.results import write_result
     from ..plotting.report import save_corner, save_report
@@ -72,25 +84,45 @@ def run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool):
         result = fit(model, data, regions=regions, noise_region=noise, axis=args.axis,
                      global_search=args.global_search, starts=args.starts, seed=args.seed,
                      posterior=args.posterior, walkers=args.walkers, steps=args.steps, burn=args.burn,
-                     progress=progress, kernel_store=kernel_store(args))
+                     progress=progress, kernel_store=kernel_store(args),
+                     accept_mismatch=getattr(args, "accept_mismatch", False))
     finally:
         progress.close()
     written = []
-    try:
+    with outputs_together():  # the result, its CSV files and the figures appear together, or none does
+        from ..files import write_text_atomic
+
+        for path, text in also_write:
+            written.append(write_text_atomic(path, text, force=force, protect=protect))
         written += write_result(result, outputs[0][0], force=force, protect=protect)
         for path, role, *_ in outputs:
             if role == "report":
-                written.append(save_report(result, path, force=force, protect=protect))
+                written.append(save_report(result, path, force=force, protect=protect,
+                                           unit=getattr(args, "unit", "ppm")))
             elif role == "corner plot":
                 written.append(save_corner(result, path, force=force, protect=protect))
-    except BaseException:
-        for p in written:
-            try:
-                Path(p).unlink()
-            except OSError:
-                pass
-        raise
     return result, written
+
+
+def _check_sampler_flags(args, n_free: int) -> None:
+    """--starts, --walkers, --steps and --burn: ranges, and whether the sample fits in memory, before any work."""
+    from ..fitting.fitter import MAX_STARTS, check_sampler_memory
+
+    if args.starts is not None and not (1 <= args.starts <= MAX_STARTS):
+        raise CliError(f"--starts {args.starts} is outside the allowed range [1, {MAX_STARTS}]")
+    if args.walkers is not None and args.walkers < 2 * max(n_free, 1):
+        raise CliError(f"--walkers {args.walkers} must be at least twice the number of free parameters ({n_free})")
+    if args.steps < 10:
+        raise CliError(f"--steps {args.steps} must be at least 10")
+    if args.burn is not None and not (0 <= args.burn < args.steps):
+        raise CliError(f"--burn {args.burn} must be in [0, --steps) = [0, {args.steps})")
+    try:
+        check_sampler_memory(n_free, args.walkers if args.posterior else None,
+                             args.steps if args.posterior else None,
+                             (args.starts or 1) if args.global_search else None,
+                             names={"walkers": "--walkers", "steps": "--steps", "starts": "--starts"})
+    except ValueError as e:
+        raise CliError(str(e)) from None
 
 
 def run(args) -> int:
@@ -107,6 +139,7 @@ def run(args) -> int:
     if not model.free:
         raise FitError(f"{args.model}: the model has no free parameters: mark at least one as "
                        "{ start = ..., min = ..., max = ... }, e.g. cq_mhz = { start = 3.0, min = 1.0, max = 8.0 }")
+    _check_sampler_flags(args, len(model.free))
     data = data_items(model, list(args.data) if args.data else None)
     for p in data:
         if not Path(p).exists():
@@ -118,7 +151,7 @@ def run(args) -> int:
                                 f"measurement {j + 1}")
     outputs = fit_outputs(args, n_meas)
     protect = [model_path] + [Path(p) for p in data]
-    check_outputs(outputs, force=args.force, protect=protect)
+    check_outputs(outputs, force=args.force, protect=protect, make_folders=False)
     compile_note(args)
     result, written = run_fit(model, data, args, outputs, protect, force=args.force, quiet=args.quiet)
     print(result.summary(), end="")

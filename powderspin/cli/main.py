@@ -17,7 +17,8 @@
     powderspin --version
 
 Every error is one line on standard error (``error: ...``) with exit status 2;
-Ctrl-C stops at once with status 130 and leaves no partial output.  Outputs
+Ctrl-C or SIGTERM stops at once with status 130 and leaves no output: every
+file of a command is written together at its end, or none is.  Outputs
 are checked before any computing and written atomically; an existing file is
 replaced only with ``--force`` and an input file never.
 """
@@ -29,9 +30,9 @@ import os
 import sys
 
 from . import cache, demo, explore, fit, nuclide, plan, process, simulate
-from .common import CliError, interrupted
+from .common import CliError, Terminated, interrupted, signal_handlers, warning_lines
 
-__all__ = ["main", "build_parser"]
+__all__ = ["main", "build_parser", "console"]
 
 
 class _Parser(argparse.ArgumentParser):
@@ -106,23 +107,53 @@ def main(argv=None) -> int:
         args = parser.parse_args(argv)
     except SystemExit as e:  # argparse: usage errors exit 2 after one message, --help/--version exit 0
         return int(e.code or 0)
+    with signal_handlers(), warning_lines():
+        return _run(args)
+
+
+def _interrupted_line(e: BaseException) -> str:
+    what = "terminated (SIGTERM)" if isinstance(e, Terminated) else "interrupted"
+    return f"{what}; no output was written"
+
+
+def _run(args) -> int:
     try:
         return args.func(args)
-    except KeyboardInterrupt:
-        print("interrupted; no output was written for the unfinished step", file=sys.stderr)
+    except KeyboardInterrupt as e:  # Ctrl-C, or SIGTERM (raised as a KeyboardInterrupt subclass)
+        print(_interrupted_line(e), file=sys.stderr)
         return 130
     except BrokenPipeError:  # the reader of standard output went away (e.g. `| head`): stop quietly
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 0
     except SystemError as e:  # an interrupt that arrives inside a compiled kernel
         if interrupted(e):
-            print("interrupted; no output was written for the unfinished step", file=sys.stderr)
+            print("interrupted; no output was written", file=sys.stderr)
             return 130
         raise
     except (ValueError, OSError, CliError) as e:  # input errors, files: one clear line, no traceback
-        print(f"error: {e}", file=sys.stderr)
+        text = getattr(e, "cli_text", None) or str(e)  # the command line's wording (flags, not keywords)
+        print(f"error: {' '.join(text.split())}", file=sys.stderr)
         return 2
 
 
+def console(argv=None) -> None:  # pragma: no cover - the program's entry point, run in subprocess tests
+    """The ``powderspin`` program: :func:`main`, then exit with its status.
+
+    After an interrupt the process ends at once (``os._exit``): objects left
+    half-built by the interrupt (inside the compiler's bindings, say) are not
+    finalised, so their complaints cannot follow the one line already printed.
+    Every temporary file is gone by then.
+    """
+    status = main(argv)
+    if status == 130:
+        for stream in (sys.stdout, sys.stderr):
+            try:
+                stream.flush()
+            except (OSError, ValueError):
+                pass
+        os._exit(130)
+    sys.exit(status)
+
+
 if __name__ == "__main__":  # pragma: no cover
-    sys.exit(main())
+    console()

@@ -2,10 +2,11 @@
 
 from __future__ import annotations
 
+import math
 import sys
 from pathlib import Path
 
-from .common import CliError, compile_note, numbers, terminal_progress
+from .common import CliError, compile_note, numbers, outputs_together, terminal_progress
 
 __all__ = ["add_parser", "run"]
 
@@ -22,7 +23,7 @@ def _run(args) -> int:
         outputs.append((args.json, "JSON output"))
     if args.plot:
         outputs.append((args.plot, "plot", PLOT_SUFFIXES))
-    check_outputs(outputs, force=args.force, protect=protect)
+    check_outputs(outputs, force=args.force, protect=protect, make_folders=False)
     fields = numbers(args.fields, "--fields", "tesla")
     rates = numbers(args.rates, "--rates", "Hz")
     model = load_model(model_path)
@@ -40,15 +41,18 @@ def _run(args) -> int:
                       precision=not args.no_precision, progress=progress)
     finally:
         progress.close()
-    stream = sys.stderr if args.json == STDOUT else sys.stdout
-    print(result.table_text(), end="", file=stream)
-    if args.json:
-        write_plan_json(result, args.json, force=args.force, protect=protect)
-        if args.json != STDOUT:
-            print(f"wrote {args.json}", file=sys.stderr)
-    if args.plot:
-        save_plan_plot(result, args.plot, force=args.force, protect=protect)
-        print(f"wrote {args.plot}", file=sys.stderr)
+    with outputs_together():  # the JSON and the plot appear together at the end, or neither does
+        if args.plot:
+            save_plan_plot(result, args.plot, force=args.force, protect=protect)
+        if args.json and args.json != STDOUT:
+            write_plan_json(result, args.json, force=args.force, protect=protect)
+        stream = sys.stderr if args.json == STDOUT else sys.stdout
+        print(result.table_text(), end="", file=stream)
+        if args.json == STDOUT:
+            write_plan_json(result, args.json, force=args.force, protect=protect)
+    for path in (args.json, args.plot):
+        if path and path != STDOUT:
+            print(f"wrote {path}", file=sys.stderr)
     return 0
 
 
@@ -82,14 +86,41 @@ def add_parser(sub) -> None:
     p.set_defaults(func=run)
 
 
+def _in_range(flag: str, text: str, value: float, low: float, high: float, *, open_low: bool = True,
+              open_high: bool = False, unit: str = "") -> float:
+    ok = (value > low if open_low else value >= low) and (value < high if open_high else value <= high)
+    if not (math.isfinite(value) and ok):
+        lb, rb = "(" if open_low else "[", ")" if open_high else "]"
+        raise CliError(f"{flag} {text} is outside the allowed range {lb}{low:g}, {high:g}{rb}{unit}")
+    return value
+
+
 def run(args) -> int:
+    from ..model.schema import field_hint, key_spec
+
+    texts = {}
     for name, what, unit in (("max_rate", "--max-rate", "Hz"), ("threshold", "--threshold", ""),
                              ("snr", "--snr", "")):
         v = getattr(args, name)
+        texts[name] = v
         if v is not None:
             setattr(args, name, numbers([v], what, unit or "a number")[0])
+    if args.max_rate is not None:
+        _in_range("--max-rate", texts["max_rate"], args.max_rate, 0.0, 2.0e5, unit=" Hz")
+    _in_range("--threshold", texts["threshold"], args.threshold, 0.0, 1.0, open_high=True)
+    _in_range("--snr", texts["snr"], args.snr, 0.0, 1e9)
     try:
-        args.rate_count = int(args.rate_count)
+        text = args.rate_count
+        args.rate_count = int(text)
     except ValueError:
-        raise CliError(f"--rate-count: {args.rate_count!r} is not a whole number") from None
+        raise CliError(f"--rate-count {args.rate_count!r} is not a whole number") from None
+    if not 2 <= args.rate_count <= 200:
+        raise CliError(f"--rate-count {text} is outside the allowed range [2, 200]")
+    spec = key_spec("measurement", "field_tesla")
+    for text, value in zip(args.fields or [], numbers(args.fields, "--fields", "tesla") or []):
+        if not (spec.low <= value <= spec.high):
+            raise CliError(f"--fields {text} T is outside the allowed range {spec.range_text()} T ({spec.why})"
+                           + field_hint(value))
+    for text, value in zip(args.rates or [], numbers(args.rates, "--rates", "Hz") or []):
+        _in_range("--rates", text, value, 0.0, 2.0e5, unit=" Hz")
     return _run(args)

@@ -13,6 +13,7 @@ from .common import (
     compile_note,
     kernel_store,
     note,
+    outputs_together,
     parse_range,
     terminal_progress,
 )
@@ -83,7 +84,7 @@ def run(args) -> int:
             outputs.append((name_for(args.plot, j), "plot", PLOT_SUFFIXES))
         if sidebands_file:
             outputs.append((name_for(sidebands_file, j), "sideband table"))
-    check_outputs(outputs, force=args.force, protect=[model_path])
+    check_outputs(outputs, force=args.force, protect=[model_path], make_folders=False)
     for j in which:  # after the checks above, so that an input named as output is said first
         spectrum_format(name_for(args.output, j))
     from ..engine.site_lines import check_high_field
@@ -104,32 +105,43 @@ def run(args) -> int:
                                         allow_strong_coupling=args.allow_strong_coupling, kernel_store=store)))
     finally:
         progress.close()
-    for j, spec in spectra:
-        for text in spec.metadata.get("notes", []):
-            if "nu_Q is" in text:
-                continue  # already said before computing
-            print(f"note: {text}", file=sys.stderr)
-        meas = model.measurements[j]
-        if meas.spinning_hz > 0 and math.isfinite(meas.spinning_hz):
-            note(args, SPINNING_CAUTION)
-        out = name_for(args.output, j)
-        write_spectrum(spec, out, force=args.force, protect=[model_path])
-        if out != STDOUT:
-            print(f"wrote {out} ({spec.hz.size} points, {len(spec.site_labels)} site(s))", file=sys.stderr)
-        if args.plot:
-            from ..plotting.spectrum import save_plot
+    wrote = []
+    tables = []
+    with outputs_together():  # every file appears at the end, together, or none does
+        for j, spec in spectra:
+            for text in spec.metadata.get("notes", []):
+                if "nu_Q is" in text:
+                    continue  # already said before computing
+                print(f"note: {text}", file=sys.stderr)
+            meas = model.measurements[j]
+            if meas.spinning_hz > 0 and math.isfinite(meas.spinning_hz):
+                note(args, SPINNING_CAUTION)
+            out = name_for(args.output, j)
+            if out == STDOUT:
+                stdout_spectrum = spec
+            else:
+                write_spectrum(spec, out, force=args.force, protect=[model_path])
+                wrote.append(f"wrote {out} ({spec.hz.size} points, {len(spec.site_labels)} site(s))")
+            if args.plot:
+                from ..plotting.spectrum import save_plot
 
-            p = name_for(args.plot, j)
-            save_plot(spec, p, force=args.force, protect=[model_path], **plot_opts)
-            print(f"wrote {p}", file=sys.stderr)
-        if sidebands_file:
-            from ..files import write_text_atomic
+                p = name_for(args.plot, j)
+                save_plot(spec, p, force=args.force, protect=[model_path], **plot_opts)
+                wrote.append(f"wrote {p}")
+            if sidebands_file:
+                from ..files import write_text_atomic
 
-            p = name_for(sidebands_file, j)
-            write_text_atomic(p, sideband_csv_text(spec), force=args.force, protect=[model_path],
-                              role="sideband table")
-            print(f"wrote {p}", file=sys.stderr)
-        if args.sidebands is True or sidebands_file:
-            stream = sys.stderr if args.output == STDOUT else sys.stdout
-            print(spec.sideband_table(), end="", file=stream)
+                p = name_for(sidebands_file, j)
+                write_text_atomic(p, sideband_csv_text(spec), force=args.force, protect=[model_path],
+                                  role="sideband table")
+                wrote.append(f"wrote {p}")
+            if args.sidebands is True or sidebands_file:
+                tables.append(spec.sideband_table())
+        if args.output == STDOUT:  # standard output last: it cannot be taken back
+            write_spectrum(stdout_spectrum, STDOUT, force=args.force, protect=[model_path])
+    for line in wrote:
+        print(line, file=sys.stderr)
+    stream = sys.stderr if args.output == STDOUT else sys.stdout
+    for table in tables:
+        print(table, end="", file=stream)
     return 0

@@ -190,11 +190,11 @@ def load_inputs(model_path, data_paths=(), axis_unit: str | None = None):
             data.append(None)
             paths.append(None)
             continue
-        spec, path, warns = read_measured(item, model, j, axis_unit)
+        spec, path, warns, notes = read_measured(item, model, j, axis_unit)
         data_axis(spec, model.nucleus.larmor_hz(model.measurements[j].field_tesla), f"measurement {j + 1}")
         data.append(spec)
         paths.append(str(Path(path).resolve()) if path else None)
-        warnings.extend(warns)
+        warnings.extend(warns + notes)
     return model, data, paths, warnings
 
 

@@ -17,11 +17,11 @@ import numpy as np
 from ..engine.lineshape import Axis, make_axis
 from ..engine.site_lines import estimate_span_hz
 from ..io.raw import is_raw_data
-from ..io.spectra import DataError, compare_with_model, read_spectrum
+from ..io.spectra import AxisUnitError, DataError, compare_with_model, read_spectrum
 from ..model.values import Model
 
-__all__ = ["FitError", "is_spectrum", "data_items", "read_measured", "data_axis", "region_mask", "check_region",
-           "noise_from_region", "point_noise", "check_overlap", "MIN_NOISE_POINTS"]
+__all__ = ["FitError", "MismatchError", "is_spectrum", "data_items", "read_measured", "data_axis", "region_mask",
+           "check_region", "noise_from_region", "point_noise", "check_overlap", "line_range_hz", "MIN_NOISE_POINTS"]
 
 #: fewest points a noise region must hold in every measurement
 MIN_NOISE_POINTS = 8
@@ -42,6 +42,30 @@ class FitError(ValueError):
     >>> str(FitError("no free parameters"))
     'no free parameters'
     """
+
+
+class MismatchError(FitError):
+    """A data file states another nucleus or field than the model (a :class:`FitError`).
+
+    Refused unless accepted (``accept_mismatch=True``, ``--accept-mismatch``):
+    C_Q values fitted at the wrong field are wrong.  ``cli_text`` is the
+    message with the command line's flag.
+
+    Parameters
+    ----------
+    message : str
+    cli_text : str, optional
+
+    Examples
+    --------
+    >>> e = MismatchError("... accept_mismatch=True", "... --accept-mismatch")
+    >>> isinstance(e, FitError), e.cli_text
+    (True, '... --accept-mismatch')
+    """
+
+    def __init__(self, message: str, cli_text: str | None = None):
+        super().__init__(message)
+        self.cli_text = cli_text or message
 
 
 def is_spectrum(x) -> bool:
@@ -114,7 +138,7 @@ def data_items(model: Model, data) -> list:
     return out
 
 
-def read_measured(item, model: Model, j: int, axis_unit: str | None):
+def read_measured(item, model: Model, j: int, axis_unit: str | None, accept_mismatch: bool = False):
     """Read one measurement's spectrum; returns (spectrum, path or None, warnings).
 
     Parameters
@@ -129,9 +153,10 @@ def read_measured(item, model: Model, j: int, axis_unit: str | None):
     Returns
     -------
     tuple
-        The spectrum, where it was read from (None for one in memory), and
+        The spectrum, where it was read from (None for one in memory),
         plain-language warnings where the file's nucleus, field or reference
-        disagrees with the model.
+        disagrees slightly with the model, and notes (the axis unit taken
+        from the data).
 
     Raises
     ------
@@ -149,7 +174,7 @@ def read_measured(item, model: Model, j: int, axis_unit: str | None):
     ``metadata["processing"]`` records how.
     """
     if is_spectrum(item):
-        return item, None, []
+        return item, None, [], []
     path = str(item)
     meas = model.measurements[j]
     if not Path(path).exists():
@@ -162,16 +187,162 @@ def read_measured(item, model: Model, j: int, axis_unit: str | None):
         opts = ProcessingOptions.from_table(dict(model.processing))
         raw = read_raw(path, expect="any" if opts.row is not None else "fid")
         check_against_model(raw, nuc, meas.field_tesla, where=f"measurement {j + 1}")
-        return process(raw, opts), path, []
+        return process(raw, opts), path, [], []
+    notes = []
     try:
-        spec = read_spectrum(path, axis=axis_unit, nucleus=nuc)
-    except DataError as first:
-        try:  # the file may not state its reference frequency: take it from the model's field
-            spec = read_spectrum(path, axis=axis_unit, nucleus=nuc, field_tesla=meas.field_tesla)
+        spec = _read(path, axis_unit, nuc, meas.field_tesla)
+    except AxisUnitError as e:
+        spec, unit = _infer_axis_unit(path, e, model, j)
+        notes.append(f"{path}: no header names the axis column; it was read in {unit}, the only unit under which "
+                     "the data look like the model's lines (give the unit to choose another)")
+    found = compare_with_model(spec, nuc, meas.field_tesla)
+    _refuse_other_sample(spec, path, model, j, accept_mismatch)
+    warns = [f"measurement {j + 1}: {t}" for t in found]
+    return spec, path, warns, notes
+
+
+def _read(path, axis_unit, nucleus, field_tesla):
+    """Read a data file with what the model knows; the file's own statements win where they disagree.
+
+    The model's nucleus is offered first, then with the model's field (a file that states no reference
+    frequency); a file stating another nucleus is read as it is, so that the disagreement is reported as
+    such (:func:`_refuse_other_sample`) and not as a bad option.
+    """
+    first = None
+    for options in ({"nucleus": nucleus}, {"nucleus": nucleus, "field_tesla": field_tesla}, {},
+                    {"field_tesla": field_tesla}):
+        try:
+            return read_spectrum(path, axis=axis_unit, **options)
+        except AxisUnitError:
+            raise
+        except DataError as e:
+            first = first or e
+    raise first
+
+
+#: a file's field or reference frequency this far (relative) from the model's is another magnet, not a rounding
+MISMATCH_REFUSED = 0.01
+
+
+def _refuse_other_sample(spec, path, model: Model, j: int, accept: bool) -> None:
+    """Refuse data whose own header states another nucleus, or a field 1 % or more away, unless accepted."""
+    if accept:
+        return
+    meas = model.measurements[j]
+    nuc = model.nucleus
+    problem = None
+    if spec.nucleus is not None and spec.nucleus.strip().lower() != nuc.name.lower():
+        from ..io.spectra import _canonical_nucleus
+
+        canonical = _canonical_nucleus(spec.nucleus) or spec.nucleus.strip()
+        if canonical.lower() != nuc.name.lower():
+            problem = f"states the nucleus {spec.nucleus} but the model's is {nuc.name}"
+    stated = spec.metadata.get("field_source") == "stated by the file"
+    if problem is None and spec.field_tesla is not None and stated:
+        rel = abs(spec.field_tesla - meas.field_tesla) / meas.field_tesla
+        if rel >= MISMATCH_REFUSED:
+            problem = (f"states a field of {spec.field_tesla:.6g} T but measurement {j + 1} has field_tesla = "
+                       f"{meas.field_tesla:.6g} T (C_Q and shifts fitted at the wrong field are wrong)")
+    if problem is None and spec.nu_ref_hz is not None:
+        model_nu = nuc.larmor_hz(meas.field_tesla)
+        rel = abs(spec.nu_ref_hz - model_nu) / model_nu
+        if rel >= MISMATCH_REFUSED:
+            problem = (f"states a reference frequency of {spec.nu_ref_hz / 1e6:.6g} MHz but {nuc.name} at "
+                       f"field_tesla = {meas.field_tesla:.6g} T (measurement {j + 1}) has {model_nu / 1e6:.6g} MHz: "
+                       f"the file is from about {meas.field_tesla * spec.nu_ref_hz / model_nu:.4g} T")
+    if problem is not None:
+        raise MismatchError(f"data file {str(path)!r} {problem}; correct the model, or accept the difference "
+                            "with accept_mismatch=True",
+                            f"data file {str(path)!r} {problem}; correct the model, or accept the difference "
+                            "with --accept-mismatch")
+
+
+#: a headerless file's unit fits when its signal's extent is within this factor of the model's lines' extent
+AXIS_EXTENT_FACTOR = 4.0
+
+
+def _lines_extent_hz(model: Model, j: int) -> float:
+    """How wide the model's lines are at the start values (Hz): the sites' spans plus the broadening."""
+    meas = model.measurements[j]
+    lo = hi = None
+    wide = 0.0
+    for s in model.sites:
+        a, b = estimate_span_hz(s, meas, model.nucleus)
+        lo = a if lo is None else min(lo, a)
+        hi = b if hi is None else max(hi, b)
+        wide = max(wide, s.lorentz_hz + meas.lorentz_hz + math.hypot(s.gauss_hz, meas.gauss_hz))
+    return max(hi - lo, 0.0) + max(wide, 1.0)
+
+
+def line_range_hz(model: Model, j: int, nu_ref: float) -> tuple[float, float]:
+    """Where measurement ``j``'s lines lie at the start values (Hz from nu_ref), broadening and sidebands included.
+
+    Parameters
+    ----------
+    model : Model
+    j : int
+    nu_ref : float
+        Reference frequency (Hz).
+
+    Returns
+    -------
+    (low, high) : tuple of float
+    """
+    meas = model.measurements[j]
+    off = meas.shift_offset_ppm * nu_ref * 1e-6
+    lo = hi = None
+    for s in model.sites:
+        a, b = estimate_span_hz(s, meas, model.nucleus)
+        wide = s.lorentz_hz + meas.lorentz_hz + 2 * math.hypot(s.gauss_hz, meas.gauss_hz)
+        a, b = a + off - 3 * wide, b + off + 3 * wide
+        if meas.spinning_hz > 0 and math.isfinite(meas.spinning_hz):
+            a, b = a - 4 * meas.spinning_hz, b + 4 * meas.spinning_hz
+        lo = a if lo is None else min(lo, a)
+        hi = b if hi is None else max(hi, b)
+    return lo, hi
+
+
+def _infer_axis_unit(path, error, model: Model, j: int):
+    """The unit of a headerless file's axis: the only one under which the data's signal looks like the model's lines.
+
+    For each unit the file is read and placed on the model's frequency scale.
+    A unit fits when the data's tallest point (the median taken off) lies
+    among the model's lines at the start values, and the signal's extent (the
+    points above a quarter of the tallest) is within a factor of
+    ``AXIS_EXTENT_FACTOR`` of the lines' extent.  The units differ by factors
+    of nu_ref / 1 MHz (ppm and Hz), nu_ref / 1 kHz (ppm and kHz) and 1000 (Hz and
+    kHz), so at most one fits unless the reference frequency is low; the unit
+    is taken when exactly one fits.  Otherwise ``error`` (naming ``axis`` /
+    ``--axis``) is raised with the reason.
+    """
+    meas = model.measurements[j]
+    nu_ref = model.nucleus.larmor_hz(meas.field_tesla)
+    lo, hi = line_range_hz(model, j, nu_ref)
+    extent = _lines_extent_hz(model, j)
+    fits = []
+    for unit in ("ppm", "hz", "khz"):
+        try:
+            spec = _read(path, unit, model.nucleus.name, meas.field_tesla)
         except DataError:
-            raise first from None
-    warns = [f"measurement {j + 1}: {t}" for t in compare_with_model(spec, nuc, meas.field_tesla)]
-    return spec, path, warns
+            continue
+        y = np.asarray(spec.intensity, dtype=float)
+        if y.size < 2 or not np.all(np.isfinite(y)):
+            continue
+        hz = np.asarray(spec.ppm, dtype=float) * nu_ref * 1e-6
+        signal = y - np.median(y)
+        k = int(np.argmax(np.abs(signal)))
+        strong = np.abs(signal) >= 0.25 * abs(signal[k])
+        seen = float(hz[strong].max() - hz[strong].min()) + abs(float(hz[1] - hz[0]))
+        if lo <= hz[k] <= hi and extent / AXIS_EXTENT_FACTOR <= seen <= extent * AXIS_EXTENT_FACTOR:
+            fits.append((unit, spec))
+    if len(fits) == 1:
+        return fits[0][1], fits[0][0]
+    if fits:
+        why = (f"no header row names the axis column, and {' and '.join(u for u, _ in fits)} would each make the "
+               "data look like the model's lines")
+    else:
+        why = "no header row names the axis column, and no unit makes the data look like the model's lines"
+    raise type(error)(error.path, why) from None
 
 
 def data_axis(spec, nu_ref: float, where: str) -> tuple[Axis, float, float]:
@@ -232,10 +403,15 @@ def check_region(r, what: str) -> tuple[float, float]:
     >>> check_region((40, 90), "region 1")
     (90.0, 40.0)
     """
-    try:
-        a, b = (float(x) for x in r)
-    except (TypeError, ValueError):
-        raise FitError(f"{what} = {r!r} must be two shifts (ppm), e.g. (90, 40)") from None
+    from ..checks import is_real, show
+
+    if isinstance(r, (str, bytes)) or not hasattr(r, "__iter__"):
+        raise FitError(f"{what} = {show(r)} must be two shifts (ppm), e.g. (90, 40), not "
+                       f"{'text' if isinstance(r, (str, bytes)) else type(r).__name__}")
+    items = list(r)
+    if len(items) != 2 or not all(is_real(x) for x in items):
+        raise FitError(f"{what} = {show(r)} must be two shifts (ppm), e.g. (90, 40)")
+    a, b = (float(x) for x in items)
     if not (math.isfinite(a) and math.isfinite(b)) or a == b:
         raise FitError(f"{what} = {r!r} must be two different finite shifts (ppm)")
     return (max(a, b), min(a, b))
@@ -335,18 +511,8 @@ def check_overlap(model: Model, axes, where) -> None:
     FitError
     """
     for j, ax in enumerate(axes):
-        meas = model.measurements[j]
         nu_ref = ax.nu_ref_hz
-        off = meas.shift_offset_ppm * nu_ref * 1e-6
-        lo = hi = None
-        for s in model.sites:
-            a, b = estimate_span_hz(s, meas, model.nucleus)
-            wide = s.lorentz_hz + meas.lorentz_hz + 2 * math.hypot(s.gauss_hz, meas.gauss_hz)
-            a, b = a + off - 3 * wide, b + off + 3 * wide
-            if meas.spinning_hz > 0 and math.isfinite(meas.spinning_hz):
-                a, b = a - 4 * meas.spinning_hz, b + 4 * meas.spinning_hz
-            lo = a if lo is None else min(lo, a)
-            hi = b if hi is None else max(hi, b)
+        lo, hi = line_range_hz(model, j, nu_ref)
         d_lo, d_hi = ax.hz[0], ax.hz[-1]
         if hi < d_lo or lo > d_hi:
             raise FitError(

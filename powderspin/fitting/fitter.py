@@ -72,11 +72,12 @@ import time
 
 import numpy as np
 
+from ..checks import check_memory, show, whole_number
 from ..disorder.summary import distribution_summary
 from ..engine.pulses import regime_note
 from ..engine.site_lines import site_job
 from ..engine.threads import kernel_threads
-from ..model.values import FitSettings, FreeParameter, Model, ParameterAddress
+from ..model.values import FitSettings, FreeParameter, Model, ModelError, ParameterAddress
 from ..simulator import SimulationCache, Simulator, as_model
 from ..uncertainty import correlation, covariance_from_jacobian, standard_errors
 from .data import (
@@ -96,7 +97,7 @@ from .problem import FitProblem
 from .reported import fitted_model, parameter_warnings, reported_values, stderr_tables
 from .result import FitResult
 
-__all__ = ["fit", "FitError", "DEFAULT_STEPS", "CONVERGED_CHI2"]
+__all__ = ["fit", "FitError", "DEFAULT_STEPS", "CONVERGED_CHI2", "check_sampler_memory", "sampler_memory_bytes"]
 
 #: a start has reached the best fit when its chi-square is within this of the lowest
 CONVERGED_CHI2 = 1.0
@@ -190,7 +191,8 @@ def _verdict(sol, max_evaluations) -> tuple[bool, str]:
 def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=None, axis: str | None = None,
         global_search: bool = False, starts: int | None = None, seed: int = 0, posterior: bool = False,
         walkers: int | None = None, steps: int = DEFAULT_STEPS, burn: int | None = None, progress=None,
-        max_evaluations: int | None = None, threads: int | None = 1, kernel_store=None) -> FitResult:
+        max_evaluations: int | None = None, threads: int | None = 1, kernel_store=None,
+        accept_mismatch: bool = False) -> FitResult:
     """Fit a model with free parameters to one or more measured spectra.
 
     Parameters
@@ -214,6 +216,9 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
         default the model's ``[fit] baseline_order``, else none.
     axis : {"ppm", "hz", "khz"}, optional
         Unit of a data file's axis column when the file does not name it.
+        Without it, a headerless text file's unit is taken from the data
+        where only one unit puts the data's signal among the model's lines
+        (a note says which); otherwise the file is refused.
     global_search : bool, optional
         Least squares from a seeded Sobol set of starts within the bounds
         (and the model's own start); keep the best.
@@ -241,6 +246,11 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
         calls, for which starting parallel work costs more than it saves,
         badly so on a busy machine (``benchmarks/bench_fit.py`` measures
         both).
+    accept_mismatch : bool, optional
+        Fit data files whose own header states another nucleus, or a field
+        (or reference frequency) 1 % or more away from the model's; refused
+        by default (:class:`~powderspin.fitting.data.MismatchError`), since
+        C_Q values fitted at the wrong field are wrong.
     kernel_store : powderspin.disorder.store.KernelStore, optional
         Where the kernels of sites with an EFG distribution are kept (default
         the store of the lineshape library folder).  Each evaluation of such
@@ -255,7 +265,13 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
     ------
     FitError
         No free parameters, no data or a data file per measurement missing,
-        data that do not overlap the model or a region, too few points.
+        data that do not overlap the model or a region, too few points,
+        constant data, or data whose tallest feature is no taller than
+        noise alone reaches (sqrt(2 ln n) + 2 times the point-to-point noise
+        for n points: no signal).
+    powderspin.fitting.data.MismatchError
+        A data file states another nucleus or field than the model (a
+        ``FitError``; see ``accept_mismatch``).
     powderspin.io.spectra.DataError
         An unreadable data file.
 
@@ -296,12 +312,95 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
     """
     with kernel_threads(threads):
         return _fit(model, data, regions, noise_region, baseline_order, axis, global_search, starts, seed,
-                    posterior, walkers, steps, burn, progress, max_evaluations, kernel_store)
+                    posterior, walkers, steps, burn, progress, max_evaluations, kernel_store, accept_mismatch)
+
+
+#: a noise region whose scatter exceeds the point-to-point noise this many times holds more than noise
+NOISE_REGION_EXCESS = 3.0
+#: most starts of a global search (each one is a whole least-squares run)
+MAX_STARTS = 100_000
+
+
+def _check_arguments(global_search, starts, seed, posterior, walkers, steps, burn, max_evaluations, axis):
+    """The keyword arguments of :func:`fit`, checked as strictly as the command line checks its flags."""
+    for name, v in (("global_search", global_search), ("posterior", posterior)):
+        if not isinstance(v, (bool, np.bool_)):
+            raise FitError(f"{name} must be True or False, got {show(v)}")
+    out = {}
+    out["starts"] = None if starts is None else whole_number(starts, "starts", FitError, low=1, high=MAX_STARTS)
+    out["seed"] = whole_number(seed, "seed", FitError, low=0)
+    out["walkers"] = None if walkers is None else whole_number(walkers, "walkers", FitError, low=2)
+    out["steps"] = whole_number(steps, "steps", FitError, low=10)
+    out["burn"] = None if burn is None else whole_number(burn, "burn", FitError, low=0)
+    out["max_evaluations"] = (None if max_evaluations is None
+                              else whole_number(max_evaluations, "max_evaluations", FitError, low=1))
+    if axis is not None and axis not in ("ppm", "hz", "khz"):
+        raise FitError(f"axis = {show(axis)} must be 'ppm', 'hz' or 'khz' (or None when the files name their axis)")
+    return out
+
+
+def sampler_memory_bytes(n_free: int, walkers: int | None, steps: int) -> float:
+    """Memory a posterior sample holds: walkers x steps x (3 parameters + 1) doubles.
+
+    The sampler keeps the chain (walkers x steps x parameters) and the log-probabilities (walkers x
+    steps); the flattened kept chain and the copies the summaries make add about two chains more.
+
+    Parameters
+    ----------
+    n_free : int
+        Free parameters.
+    walkers : int or None
+        Walkers (None: the default ``max(16, 4 n_free)``).
+    steps : int
+        Steps per walker.
+
+    Returns
+    -------
+    float
+        Bytes.
+
+    Examples
+    --------
+    >>> sampler_memory_bytes(3, 16, 2000) / 1e6
+    2.56
+    """
+    nw = walkers if walkers is not None else max(16, 4 * n_free)
+    return float(nw) * float(steps) * (3 * n_free + 1) * 8.0
+
+
+def check_sampler_memory(n_free: int, walkers, steps, starts, names=None) -> None:
+    """Refuse posterior and global-search sizes that cannot fit in memory, before any work.
+
+    Parameters
+    ----------
+    n_free : int
+    walkers, steps, starts : int or None
+    names : dict, optional
+        How to name the settings in the message: the command line passes its
+        flags (``{"walkers": "--walkers", ...}``); the default names the
+        keywords of :func:`fit`.
+
+    Raises
+    ------
+    FitError
+    """
+    names = {"walkers": "walkers", "steps": "steps", "starts": "starts", **(names or {})}
+    if walkers is not None or steps is not None:
+        nw = walkers if walkers is not None else max(16, 4 * n_free)
+        check_memory(sampler_memory_bytes(n_free, walkers, steps if steps is not None else DEFAULT_STEPS),
+                     f"the posterior sample ({names['walkers']} {nw} x {names['steps']} {steps} x "
+                     f"{n_free + 1} values)", FitError)
+    if starts is not None:
+        check_memory(float(starts) * (8 * n_free + 136),  # each start: its point (an array) and its chi-square
+                     f"the global search ({names['starts']} {starts} with {n_free} free parameters)", FitError)
 
 
 def _fit(model, data, regions, noise_region, baseline_order, axis, global_search, starts, seed, posterior,
-         walkers, steps, burn, progress, max_evaluations, kernel_store=None) -> FitResult:
+         walkers, steps, burn, progress, max_evaluations, kernel_store=None, accept_mismatch=False) -> FitResult:
     t_start = time.perf_counter()
+    args = _check_arguments(global_search, starts, seed, posterior, walkers, steps, burn, max_evaluations, axis)
+    starts, seed, walkers, steps, burn, max_evaluations = (args[k] for k in ("starts", "seed", "walkers", "steps",
+                                                                              "burn", "max_evaluations"))
     model = as_model(model, "fit")
     n_meas = len(model.measurements)
 
@@ -309,21 +408,29 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
         return "measurement" if n_meas == 1 else f"measurement {j + 1}"
 
     free, notes = _free_parameters(model)
+    check_sampler_memory(len(free), walkers if posterior else None, steps if posterior else None,
+                         starts if global_search else None)
     warns: list[str] = []
     # -- settings: arguments override the model's [fit] table
     fs = model.fit
+    if regions is not None and (isinstance(regions, (str, bytes)) or not hasattr(regions, "__iter__")):
+        raise FitError(f"regions = {show(regions)} must be a list of (ppm, ppm) pairs, e.g. [(90, 40), (20, -10)]")
     regs = fs.regions if regions is None else tuple(check_region(r, f"region {i + 1}") for i, r in enumerate(regions))
     noise_reg = fs.noise_region if noise_region is None else check_region(noise_region, "noise region")
     order = fs.baseline_order if baseline_order is None else baseline_order
-    settings = FitSettings(tuple(regs), noise_reg, order)  # validates the order
+    try:
+        settings = FitSettings(tuple(regs), noise_reg, order)  # validates the order
+    except ModelError as e:  # a keyword of fit(): the fit's own error type
+        raise FitError(str(e).removeprefix("fit: ")) from None
     order = settings.baseline_order
     # -- data
     specs, paths = [], []
     for j, item in enumerate(data_items(model, data)):
-        sp, path, w = read_measured(item, model, j, axis)
+        sp, path, w, said = read_measured(item, model, j, axis, bool(accept_mismatch))
         specs.append(sp)
         paths.append(path)
         warns.extend(w)
+        notes.extend(said)
     axes, centers, widths = [], [], []
     for j, sp in enumerate(specs):
         nu_ref = model.nucleus.larmor_hz(model.measurements[j].field_tesla)
@@ -340,8 +447,23 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
         if not any((ax.ppm.min() <= hi) and (ax.ppm.max() >= lo) for ax in axes):
             covers = "; ".join(f"{where(j)}: {ax.ppm.max():.6g} to {ax.ppm.min():.6g} ppm" for j, ax in enumerate(axes))
             raise FitError(f"fit region {i + 1} [{hi:g}, {lo:g}] ppm lies outside the data ({covers})")
+    for j, y in enumerate(ys):
+        if float(np.ptp(y)) == 0.0:
+            raise FitError(f"{where(j)}: every data point is {y[0]:.6g}: the data hold no signal to fit")
     masks = [region_mask(ax.ppm, regs) for ax in axes]
     for j, mk in enumerate(masks):
+        if mk.sum() >= MIN_NOISE_POINTS:  # the data themselves: a feature that noise alone would not make
+            seen = ys[j][mk]
+            pn = point_noise(seen)
+            tallest = float(np.max(np.abs(seen - np.median(seen))))
+            # the largest of n standard normal values is about sqrt(2 ln n) (H. Cramér, Mathematical Methods of
+            # Statistics, Princeton 1946, the extreme-value limit; from memory); 2 more keeps noise from passing
+            needed = math.sqrt(2.0 * math.log(seen.size)) + 2.0
+            if pn > 0 and tallest < needed * pn:
+                raise FitError(f"{where(j)}: no signal: the data's tallest feature in the fit regions is "
+                               f"{tallest / pn:.2g} times the point-to-point noise, which noise alone reaches (a "
+                               f"signal needs more than {needed:.2g}); the data cannot determine the values: check "
+                               "the data file, its axis and the fit regions")
         if not mk.any():
             raise FitError(f"{where(j)}: no data point lies in the fit regions "
                            f"{[list(r) for r in regs]} (the data cover {axes[j].ppm.max():.6g} to "
@@ -355,6 +477,12 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
                                f"point(s); it needs at least {MIN_NOISE_POINTS} (the data cover "
                                f"{ax.ppm.max():.6g} to {ax.ppm.min():.6g} ppm)")
             sigmas.append(noise_from_region(ys[j], ax.ppm, noise_reg))
+            pn = point_noise(ys[j])
+            if pn > 0 and sigmas[-1] > NOISE_REGION_EXCESS * pn:
+                warns.append(f"{where(j)}: the noise region [{noise_reg[0]:g}, {noise_reg[1]:g}] ppm varies "
+                             f"{sigmas[-1] / pn:.3g} times more than the point-to-point noise of the data: it holds "
+                             "signal or baseline structure, so the standard errors are about that many times too "
+                             "large; choose a signal-free region")
         noise_source = "noise region"
     else:
         sigmas = [point_noise(y) for y in ys]
@@ -389,11 +517,14 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
             warns.append("global search over the whole allowed range of " + ", ".join(unbounded)
                          + ": give min and max to search where the value can physically be")
         pts = [x0] + list(_sobol_starts(problem.lo, problem.hi, n_starts - 1, seed)) if n_starts > 1 else [x0]
-        runs = [_least_squares(problem, p, max_evaluations) for p in pts]
-        costs = np.array([2.0 * r.cost for r in runs])
-        best = int(np.argmin(costs))
-        at_best = int(np.sum(costs <= costs[best] + CONVERGED_CHI2))
-        sol = runs[best]
+        costs, sol = [], None
+        for p in pts:  # only the best run is kept: memory does not grow with the number of starts
+            run = _least_squares(problem, p, max_evaluations)
+            costs.append(2.0 * run.cost)
+            if sol is None or run.cost < sol.cost:
+                sol = run
+        costs = np.array(costs)
+        at_best = int(np.sum(costs <= costs.min() + CONVERGED_CHI2))
     else:
         sol = _least_squares(problem, x0, max_evaluations)
     x = sol.x

@@ -26,6 +26,58 @@ from ..model.values import Model
 __all__ = ["FitResult", "PosteriorSummary", "format_value"]
 
 
+def supported_digits(e: float) -> int | None:
+    """Decimal places a value with standard error ``e`` is written to: the error's two significant digits, plus one.
+
+    The guard digit keeps rounding far below the error (a twentieth of it at most), so that a
+    rounded result still reproduces the fit.  None when the error gives no guide (0, infinite, NaN).
+
+    Examples
+    --------
+    >>> supported_digits(0.0123), supported_digits(25.0), supported_digits(float("inf")) is None
+    (4, 1, True)
+    """
+    if not (math.isfinite(e) and e > 0):
+        return None
+    return 2 - int(math.floor(math.log10(e)))
+
+
+def round_to_error(v: float, e: float) -> float:
+    """``v`` rounded to :func:`supported_digits` of its standard error (unchanged when the error gives no guide).
+
+    Examples
+    --------
+    >>> round_to_error(3.14159265358979, 0.0123), round_to_error(1234.5678, 25.0)
+    (3.1416, 1234.6)
+    """
+    d = supported_digits(e)
+    if d is None or not math.isfinite(v):
+        return float(v)
+    return float(round(v, d)) if d > -300 else float(v)
+
+
+def _value_entries(d: dict, meas: list) -> dict:
+    """Every number of the site and measurement tables, by parameter name (``A.cq_mhz``, ``A.euler_deg[1]``,
+    ``measurement 1.baseline[0]``)."""
+    out = {}
+    owners = [(t.get("label", ""), t) for t in d.get("site", [])]
+    owners += [(f"measurement {j + 1}", t) for j, t in enumerate(meas)]
+    for owner, t in owners:
+        for k, v in t.items():
+            if isinstance(v, float):
+                out[f"{owner}.{k}"] = v
+            elif isinstance(v, list) and v and all(isinstance(x, float) for x in v):
+                out.update({f"{owner}.{k}[{i}]": x for i, x in enumerate(v)})
+    return out
+
+
+def _two_digits(e: float) -> float:
+    """A standard error to two significant digits."""
+    if not (math.isfinite(e) and e > 0):
+        return float(e)
+    return float(f"{e:.2g}")
+
+
 def format_value(v: float, e: float) -> str:
     """A value with its standard error, to the digits the error supports.
 
@@ -51,6 +103,26 @@ def format_value(v: float, e: float) -> str:
     if digits > 10 or abs(v) >= 1e7:
         return f"{v:.6g} +- {e:.2g}"
     return f"{v:.{digits}f} +- {e:.{digits}f}"
+
+
+def _unit_of(name: str) -> str:
+    """The unit of a fitted parameter from the key table ("AlO4.cq_mhz" -> "MHz"; "" when dimensionless)."""
+    from ..model.schema import key_spec
+
+    owner, _, key = name.rpartition(".")
+    key = key.partition("[")[0]
+    try:
+        u = key_spec("measurement" if owner.startswith("measurement ") else "site", key).unit
+    except (KeyError, ValueError):
+        return ""
+    return {"deg": "degrees"}.get(u, u or "")
+
+
+def _rounded_errors(table) -> dict:
+    out = {}
+    for k, v in dict(table).items():
+        out[k] = [_two_digits(float(x)) for x in v] if isinstance(v, (list, tuple)) else _two_digits(float(v))
+    return out
 
 
 @dataclass(frozen=True)
@@ -300,7 +372,8 @@ class FitResult:
         w = max((len(n) for n in self.names), default=4)
         for n in self.names:
             v, e = self.values[n], self.stderr[n]
-            line = f"  {n:<{w}}  {format_value(v, e)}"
+            unit = _unit_of(n)
+            line = f"  {n:<{w}}  {format_value(v, e).replace(' +- ', ' ± ')}" + (f" {unit}" if unit else "")
             if self.posterior is not None:
                 lo, hi = self.posterior.interval(n)
                 med = self.posterior.median[self.posterior.names.index(n)]
@@ -313,7 +386,7 @@ class FitResult:
             head += f", {self.starts_at_best} of {self.starts} starts reached the best fit"
         out = [head] + lines
         for n, (v, e) in self.derived.items():
-            out.append(f"  {n:<{w}}  {format_value(v, e)}   (derived)")
+            out.append(f"  {n:<{w}}  {format_value(v, e).replace(' +- ', ' ± ')}   (derived)")
         if self.posterior is not None:
             p = self.posterior
             out.append(f"posterior: {p.walkers} walkers x {p.steps} steps, first {p.burn} discarded; longest "
@@ -356,25 +429,29 @@ class FitResult:
         d = model_to_dict(self.model)
         meas = d["measurement"] if isinstance(d["measurement"], list) else [d["measurement"]]
         base = Path(path).resolve().parent if path is not None else None
+        full = _value_entries(d, meas)
+        self._round_values(d, meas)
+        rounded = _value_entries(d, meas)
+        exact_values = {n: [rounded[n], v] for n, v in full.items() if n in rounded and rounded[n] != v}
         for j, t in enumerate(meas):
             if self.data_paths[j] is not None and base is not None:
                 t["data"] = os.path.relpath(Path(self.data_paths[j]).resolve(), base)
             if self.measurement_stderr[j]:
-                t["stderr"] = dict(self.measurement_stderr[j])
+                t["stderr"] = _rounded_errors(self.measurement_stderr[j])
         for i, t in enumerate(d["site"]):
             if self.site_stderr[i]:
-                t["stderr"] = dict(self.site_stderr[i])
+                t["stderr"] = _rounded_errors(self.site_stderr[i])
         if self.posterior is not None:
             self._intervals(d, meas)
         fit = d.setdefault("fit", {})
         res: dict = {
             "success": bool(self.success),
             "message": str(self.message),
-            "reduced_chi_square": float(self.reduced_chi_square),
-            "chi_square": float(self.chi_square),
+            "reduced_chi_square": float(f"{self.reduced_chi_square:.4g}"),
+            "chi_square": float(f"{self.chi_square:.6g}"),
             "degrees_of_freedom": int(self.degrees_of_freedom),
             "noise_source": self.noise_source,
-            "noise": [float(s) for s in self.noise],
+            "noise": [float(f"{s:.4g}") for s in self.noise],
             "evaluations": int(self.n_evaluations),
             "time_s": round(float(self.time_s), 3),
             "parameters": list(self.names),
@@ -385,10 +462,12 @@ class FitResult:
             "notes": list(self.notes),
         }
         if self.derived:
-            res["derived"] = {n: float(v) for n, (v, _) in self.derived.items()}
-            res["derived_stderr"] = {n: float(e) for n, (_, e) in self.derived.items()}
+            res["derived"] = {n: round_to_error(v, e) for n, (v, e) in self.derived.items()}
+            res["derived_stderr"] = {n: _two_digits(e) for n, (_, e) in self.derived.items()}
         if self.excitation:
             res["excitation"] = {j: {lab: dict(d) for lab, d in sites.items()} for j, sites in self.excitation.items()}
+        if exact_values:  # read back by the model reader: simulating the file gives the fitted curve exactly
+            res["exact_values"] = exact_values
         if self.starts > 1:
             res["starts"] = int(self.starts)
             res["starts_at_best"] = int(self.starts_at_best)
@@ -399,6 +478,28 @@ class FitResult:
             res["processing"] = [json.loads(r) if r else {} for r in records]
         fit["result"] = res
         return d
+
+    def _round_values(self, d: dict, meas: list) -> None:
+        """Fitted values written to the digits their standard errors support (full values: the fit CSV)."""
+        for n in self.names:
+            try:
+                a = self.model.address_of(n)
+            except ValueError:
+                continue
+            target = d["site"][a.index] if a.table == "site" else meas[a.index]
+            if a.key not in target:
+                continue
+            value = target[a.key]
+            if a.item is not None and isinstance(value, list):
+                value[a.item] = round_to_error(value[a.item], self.stderr[n])
+            elif isinstance(value, float):
+                target[a.key] = round_to_error(value, self.stderr[n])
+        for j, t in enumerate(meas):  # the linear parameters alike
+            if isinstance(t.get("scale"), float) and j < len(self.scale_stderr):
+                t["scale"] = round_to_error(t["scale"], float(self.scale_stderr[j]))
+            errs = self.baseline_stderr[j] if j < len(self.baseline_stderr) else ()
+            if isinstance(t.get("baseline"), list) and len(errs) == len(t["baseline"]):
+                t["baseline"] = [round_to_error(float(b), float(e)) for b, e in zip(t["baseline"], errs)]
 
     def _intervals(self, d: dict, meas: list) -> None:
         post = self.posterior

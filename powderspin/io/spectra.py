@@ -24,7 +24,12 @@ Formats read by :func:`read_spectrum`
   This covers the CSV that powderspin itself writes (``ppm,hz,intensity``,
   possibly followed by per-site columns, which are ignored).  Without a header
   the first column is the axis, whose unit the ``axis=`` option names, the
-  second the real part and an optional third the imaginary part.
+  second the real part and an optional third the imaginary part; without
+  ``axis=`` such a file raises :class:`AxisUnitError` (a ``DataError``), which
+  the fit answers by taking the unit from the data where only one unit fits
+  the model's lines (:mod:`powderspin.fitting.data`).  A UTF-8 byte-order mark
+  is skipped.  A number beyond the largest double (``1e309``) is an error
+  quoting the text as written, with its line.
 - NumPy ``.npy``: a 2 x N or N x 2 float array (3 x N / N x 3 with an
   imaginary row/column, or a complex second row); row/column 0 is the axis,
   whose unit ``axis=`` names.
@@ -34,7 +39,11 @@ Formats read by :func:`read_spectrum`
   PPM), the reference frequency from ``.OBSERVE FREQUENCY`` (MHz); a
   ``.SHIFT REFERENCE`` (or, failing that, a ``$OFFSET`` label giving the shift
   of the first point in ppm) re-anchors the shift scale; the nucleus comes
-  from ``.OBSERVE NUCLEUS``.
+  from ``.OBSERVE NUCLEUS``.  The point form ``##XYPOINTS=(XY..XY)`` (also
+  ``##XYDATA=(XY..XY)``), explicit x, y pairs that nmrglue does not decode,
+  is read here: pairs separated by semicolons, blanks or line ends, scaled by
+  ``##XFACTOR=``/``##YFACTOR=``, errors naming the line (R. S. McDonald, P. A.
+  Wilks, Appl. Spectrosc. 42 (1988) 151).
 - Bruker processed 1D data, read with nmrglue's Bruker reader: a ``pdata/N``
   directory holding ``1r`` (and ``1i``) and ``procs``, or the experiment
   directory that contains ``pdata/1``.  The axis is
@@ -117,6 +126,7 @@ from ..physics.nuclides import UnknownNuclideError, get_nuclide
 
 __all__ = [
     "DataError",
+    "AxisUnitError",
     "MeasuredSpectrum",
     "read_spectrum",
     "write_spectrum_text",
@@ -192,6 +202,37 @@ class DataError(ValueError):
 
 def _rebuild_data_error(path, problem, line):
     return DataError(path, problem, line=line)
+
+
+class AxisUnitError(DataError):
+    """A text file without a header row, read without saying the unit of its axis column.
+
+    A :class:`DataError`.  ``powderspin.fit`` first tries to tell the unit
+    from the data (the unit that puts the data's signal over the model's
+    lines, where only one does); the message names the keyword ``axis`` and
+    ``cli_text`` the command line's ``--axis`` flag.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+    problem : str
+        Why the unit is not known.
+
+    Examples
+    --------
+    >>> e = AxisUnitError("scan.txt", "no header row names the axis column")
+    >>> isinstance(e, DataError), "--axis ppm" in e.cli_text, "axis='ppm'" in str(e)
+    (True, True, True)
+    """
+
+    def __init__(self, path, problem: str, *, line: int | None = None):
+        super().__init__(path, f"{problem}; pass axis='ppm', 'hz' or 'khz' to say what column 1 holds", line=line)
+        self.cli_text = f"{self.path}: {' '.join(problem.split())}; pass --axis ppm, --axis hz or --axis khz to say " \
+                        "what column 1 holds"
+        self.reason = problem
+
+    def __reduce__(self):
+        return (AxisUnitError, (self.path, self.reason))
 
 
 # --------------------------------------------------------------------------
@@ -442,6 +483,9 @@ def read_spectrum(path, *, axis: str | None = None, nu_ref_hz: float | None = No
     >>> spec.metadata["nu_ref_source"]
     'nucleus and field (given)'
     """
+    if not isinstance(path, (str, os.PathLike)) or isinstance(path, bytes) or not os.fspath(path).strip():
+        got = "None" if path is None else ("an empty name" if isinstance(path, str) else type(path).__name__)
+        raise DataError("read_spectrum", f"path must be a file name (text or pathlib.Path), got {got}")
     source = str(path)
     p = Path(path)
     opts = _check_options(source, axis, nu_ref_hz, nucleus, field_tesla, resample)
@@ -562,9 +606,14 @@ def _is_number_text(text: str) -> bool:
 
 
 def _parse_number(source, text: str, lineno: int, col: int, colname: str) -> float:
-    if _NUMBER.fullmatch(text):
-        return float(text)
     label = f"column {col} ({colname!r})" if colname else f"column {col}"
+    if _NUMBER.fullmatch(text):
+        v = float(text)
+        if not math.isfinite(v):  # '1e309': beyond the largest double
+            shown = text if len(text) <= 40 else text[:37] + "..."
+            raise DataError(source, f"{label} holds {shown!r}, which is too large for a number (the largest is "
+                            "about 1.8e308)", line=lineno)
+        return v
     if _NONFINITE.fullmatch(text):
         raise DataError(source, f"{label} holds {text!r}; every value must be a finite number", line=lineno)
     if text == "":
@@ -580,7 +629,9 @@ def _decimal_precision(text: str) -> float:
         exp = decimal.Decimal(text).as_tuple().exponent
     except decimal.InvalidOperation:
         return 0.0
-    return 10.0 ** exp if isinstance(exp, int) else 0.0
+    if not isinstance(exp, int):
+        return 0.0
+    return 10.0 ** max(min(exp, 300), -320)  # '1e309' is refused elsewhere; never an OverflowError here
 
 
 def _parse_file_keys(source, keys: dict) -> tuple[dict, dict]:
@@ -708,8 +759,7 @@ def _read_text(source, data: bytes, opts: dict) -> _Raw:
             raise DataError(source, f"{ncols} columns and no header; expected 2 (axis, intensity) or 3 "
                             "(axis, real, imag), or a header row naming the columns", line=first_line)
         if opts["axis"] is None:
-            raise DataError(source, "no header row names the axis column; pass axis='ppm', 'hz' or 'khz' "
-                            "to say what column 1 holds")
+            raise AxisUnitError(source, "no header row names the axis column")
         unit, axis_col, real_col = opts["axis"], 0, 1
         imag_col = 2 if ncols == 3 else None
         second = None
@@ -854,6 +904,124 @@ def _jcamp_unit(source, text: str, label: str) -> str:
     raise DataError(source, f"JCAMP-DX {label} is {text!r}; only HZ, KHZ and PPM frequency axes are read")
 
 
+def _jcamp_label(text: str) -> str:
+    """A JCAMP-DX label in its compared form: upper case without spaces, dashes, slashes or underscores."""
+    return re.sub(r"[\s\-/_]", "", text).upper()
+
+
+#: labels whose (XY..XY) table lists the points one by one
+_POINT_TABLE_LABELS = ("XYPOINTS", "XYDATA")
+
+
+def _jcamp_point_table(source, data: bytes) -> _Raw | None:
+    """A JCAMP-DX spectrum in the point form ``##XYPOINTS=(XY..XY)``: explicit x, y pairs.
+
+    The pairs are separated by semicolons, spaces or line ends, x from y by a
+    comma (or spaces); ``##XFACTOR=`` and ``##YFACTOR=`` scale them.  Returns
+    None when the file holds no such table.
+
+    References
+    ----------
+    R. S. McDonald, P. A. Wilks, Appl. Spectrosc. 42 (1988) 151 (JCAMP-DX, the
+    (XY..XY) form); A. N. Davies, P. Lampen, Appl. Spectrosc. 47 (1993) 1093
+    (JCAMP-DX for NMR).
+    """
+    text = data.decode("utf-8-sig", errors="replace")
+    labels: dict = {}
+    pairs: list[tuple[str, str, int]] = []
+    in_table = False
+    for lineno, line in enumerate(re.split(r"\r\n|\n|\r", text), 1):
+        body = line.split("$$", 1)[0].strip()  # $$ starts a comment
+        if body.startswith("##"):
+            in_table = False
+            label, _, value = body[2:].partition("=")
+            key = _jcamp_label(label)
+            labels.setdefault(key, (value.strip(), lineno))
+            if key in _POINT_TABLE_LABELS and _jcamp_label(value).startswith("(XY..XY)"):
+                in_table = True
+                if pairs:
+                    raise DataError(source, "holds more than one (XY..XY) table; give one spectrum per file",
+                                    line=lineno)
+            continue
+        if not in_table or not body:
+            continue
+        for group in re.split(r"[;]|\s{2,}|\t", body):
+            group = group.strip()
+            if not group:
+                continue
+            parts = [q for q in re.split(r"[,\s]+", group) if q]
+            if len(parts) % 2:
+                raise DataError(source, f"(XY..XY) point {group!r} is not an x, y pair", line=lineno)
+            for k in range(0, len(parts), 2):
+                pairs.append((parts[k], parts[k + 1], lineno))
+    if not pairs:
+        return None
+    xfactor = _point_factor(source, labels, "XFACTOR")
+    yfactor = _point_factor(source, labels, "YFACTOR")
+    n = len(pairs)
+    x = np.empty(n)
+    y = np.empty(n)
+    lines = np.empty(n, dtype=int)
+    precision = np.empty(n)
+    for i, (xt, yt, lineno) in enumerate(pairs):
+        x[i] = _parse_number(source, xt, lineno, 1, "x") * xfactor
+        y[i] = _parse_number(source, yt, lineno, 2, "y") * yfactor
+        lines[i] = lineno
+        precision[i] = _decimal_precision(xt) * abs(xfactor)
+    if not np.all(np.isfinite(x)) or not np.all(np.isfinite(y)):
+        raise DataError(source, "##XFACTOR= or ##YFACTOR= scales the (XY..XY) points beyond the largest number")
+    unit_text, unit_line = labels.get("XUNITS", (None, None))
+    if not unit_text:
+        raise DataError(source, "JCAMP-DX file lacks ##XUNITS=; it defines the axis of the (XY..XY) points")
+    unit = _jcamp_unit(source, unit_text, "XUNITS")
+    dtype = labels.get("DATATYPE", ("", 0))[0]
+    norm = _jcamp_label(dtype)
+    if norm == "NMRFID":
+        raise DataError(source, "JCAMP-DX DATA TYPE is NMR FID (time-domain data); give the processed "
+                        "spectrum (NMR SPECTRUM)")
+    if dtype and norm != "NMRSPECTRUM":
+        raise DataError(source, f"JCAMP-DX DATA TYPE is {dtype!r}; only NMR SPECTRUM is read")
+
+    def number(key, label):
+        value, lineno = labels.get(key, (None, None))
+        if not value:
+            return None
+        if not _NUMBER.fullmatch(value.strip()):
+            raise DataError(source, f"JCAMP-DX ##{label}= holds {value!r}, not a number", line=lineno)
+        v = float(value)
+        if not (math.isfinite(v) and v > 0):
+            raise DataError(source, f"JCAMP-DX ##{label}= holds {value!r}; it must be a finite number > 0",
+                            line=lineno)
+        return v
+
+    npoints = labels.get("NPOINTS", (None, None))
+    if npoints[0] and _NUMBER.fullmatch(npoints[0].strip()) and float(npoints[0]) != n:
+        raise DataError(source, f"JCAMP-DX ##NPOINTS={npoints[0].strip()}, but the (XY..XY) table holds {n} "
+                        "points (damaged or truncated data?)", line=npoints[1])
+    obs = number(".OBSERVEFREQUENCY", ".OBSERVE FREQUENCY")
+    field_t = number("$FIELDTESLA", "$FIELD TESLA")
+    nuc_text = labels.get(".OBSERVENUCLEUS", ("", 0))[0]
+    nucleus = (_canonical_nucleus(nuc_text) or nuc_text.replace("^", "").strip()) if nuc_text else None
+    meta = {"format": "JCAMP-DX XYPOINTS"}
+    for key, name in (("TITLE", "title"), ("JCAMPDX", "jcamp_dx"), ("ORIGIN", "origin"), ("OWNER", "owner"),
+                      ("DATE", "date"), ("LONGDATE", "long_date"), ("XUNITS", "xunits"), ("YUNITS", "yunits")):
+        if labels.get(key, ("",))[0]:
+            meta[f"file.{name}"] = " ".join(labels[key][0].split())
+    return _Raw(fmt=meta["format"], axis=x, unit=unit, real=y, imag=None, lines=lines,
+                nu_ref_hz=None if obs is None else obs * 1e6, nucleus=nucleus, field_tesla=field_t,
+                precision=precision, metadata=meta)
+
+
+def _point_factor(source, labels: dict, key: str) -> float:
+    value, lineno = labels.get(key, ("", None))
+    if not value:
+        return 1.0
+    if not _NUMBER.fullmatch(value.strip()) or not math.isfinite(float(value)) or float(value) == 0:
+        raise DataError(source, f"JCAMP-DX ##{key}= holds {value!r}; it must be a finite number other than 0",
+                        line=lineno)
+    return float(value)
+
+
 def _read_jcamp(source, p: Path, opts: dict, data: bytes) -> _Raw:
     _check_binary(source, data, "JCAMP-DX text")
     if not data.lstrip(b"\xef\xbb\xbf \t\r\n").startswith(b"##"):
@@ -872,8 +1040,11 @@ def _read_jcamp(source, p: Path, opts: dict, data: bytes) -> _Raw:
             raise DataError(source, f"not a readable JCAMP-DX spectrum ({type(err).__name__}: {err})") from None
     notes = [" ".join(str(w.message).split()) for w in caught]
     if values is None:
+        points = _jcamp_point_table(source, data)
+        if points is not None:
+            return points
         said = f" (the reader says: {notes[0]})" if notes else ""
-        raise DataError(source, f"no spectrum data could be decoded from ##XYDATA or ##DATA TABLE{said}")
+        raise DataError(source, f"no spectrum data could be decoded from ##XYDATA, ##XYPOINTS or ##DATA TABLE{said}")
 
     dtype = _jcamp_value(dic, "DATATYPE")
     norm = (dtype or "").upper().replace(" ", "")

@@ -31,6 +31,7 @@ from __future__ import annotations
 
 import difflib
 import math
+import re
 import tomllib
 from dataclasses import replace
 from pathlib import Path
@@ -38,6 +39,7 @@ from typing import Any
 
 import tomli_w
 
+from ..checks import is_real, path_argument, show
 from ..files import write_text_atomic
 from ..physics.nuclides import Nuclide, get_nuclide
 from .schema import FREE_TABLE_KEYS, KEYS, TIE_KEY, key_spec, keys_of
@@ -75,7 +77,7 @@ def _unknown(keys, allowed, where):
 
 
 def _is_number(v) -> bool:
-    return isinstance(v, (int, float)) and not isinstance(v, bool)
+    return is_real(v)  # int, float and every numpy integer and floating type; never bool or text
 
 
 def _parameter(table: dict, key: str, where: str, kind_table: str, free: list, tied: list, item=None):
@@ -112,7 +114,7 @@ def _parameter(table: dict, key: str, where: str, kind_table: str, free: list, t
         return st
     if not _is_number(v):
         spec = key_spec(kind_table, key)
-        raise ModelError(f"{where}: {name} must be a number ({spec.unit or 'dimensionless'}), got {v!r}")
+        raise ModelError(f"{where}: {name} must be a number ({spec.unit or 'dimensionless'}), got {show(v)}")
     return float(v)
 
 
@@ -206,6 +208,10 @@ def parse_site_table(i: int, t: Any, where_default: str | None = None):
         if form == "span_skew":
             if "span_ppm" not in t:
                 raise ModelError(f"{where}: skew needs span_ppm (the span Omega in ppm)")
+            if "skew" not in t:
+                raise ModelError(f"{where}: span_ppm needs skew (from -1 to 1; +1 and -1 are axially symmetric "
+                                 "tensors, 0 lies midway): give skew as well, e.g. skew = 0.0, so that no shape is "
+                                 "assumed for you")
             vals["span_ppm"] = num("span_ppm", 0.0)
             vals["skew"] = num("skew", 0.0)
         elif form == "haeberlen":
@@ -247,7 +253,7 @@ def _parse_measurement(j: int, t: Any, where: str, free: list):
                 kw[k] = val
                 continue
             if not _is_number(v):
-                raise ModelError(f"{where}: {k} must be a number ({spec.unit or 'dimensionless'}), got {v!r}")
+                raise ModelError(f"{where}: {k} must be a number ({spec.unit or 'dimensionless'}), got {show(v)}")
             kw[k] = v
         elif spec.kind == "transitions":
             kw[k] = tuple(v) if isinstance(v, list) else v
@@ -273,6 +279,51 @@ def _parse_measurement(j: int, t: Any, where: str, free: list):
         if where != "measurement" and msg.startswith("measurement:"):
             msg = where + msg[len("measurement"):]
         raise ModelError(msg) from None
+
+
+def _exact_values(fit: Any, meas_list: list, sites_t: list) -> tuple[list, list]:
+    """Put back the full values of a result file's rounded fitted values, where the file still holds them.
+
+    A result file shows each fitted value to the digits its standard error
+    supports; ``[fit.result] exact_values`` keeps, per parameter name,
+    ``[written, full]``.  Where the table's value is still the written one,
+    the full value is used, so that simulating a result file gives the fitted
+    curve exactly; a value the user has since edited is left as edited.
+    """
+    try:
+        exact = fit["result"]["exact_values"]
+    except (TypeError, KeyError):
+        return meas_list, sites_t
+    if not isinstance(exact, dict):
+        return meas_list, sites_t
+    meas_list = [dict(t) if isinstance(t, dict) else t for t in meas_list]
+    sites_t = [dict(t) if isinstance(t, dict) else t for t in sites_t]
+    labels = [t.get("label") if isinstance(t, dict) else None for t in sites_t]
+    for name, pair in exact.items():
+        if not (isinstance(name, str) and isinstance(pair, list) and len(pair) == 2
+                and all(_is_number(x) for x in pair)):
+            continue
+        owner, _, key = name.rpartition(".")
+        item = None
+        if key.endswith("]") and "[" in key:
+            key, _, idx = key[:-1].partition("[")
+            item = int(idx) if idx.isdigit() else None
+            if item is None:
+                continue
+        if owner.startswith("measurement ") and owner.split()[-1].isdigit():
+            j = int(owner.split()[-1]) - 1
+            table = meas_list[j] if 0 <= j < len(meas_list) else None
+        else:
+            table = sites_t[labels.index(owner)] if owner in labels else None
+        if not isinstance(table, dict) or key not in table:
+            continue
+        written, full = pair
+        value = table[key]
+        if item is None and _is_number(value) and value == written:
+            table[key] = full
+        elif item is not None and isinstance(value, list) and item < len(value) and value[item] == written:
+            table[key] = value[:item] + [full] + value[item + 1:]
+    return meas_list, sites_t
 
 
 def _check_written_table(v: Any, where: str) -> None:
@@ -499,6 +550,7 @@ def parse_model(data: Any, source: str = "") -> Model:
         sites_t = [sites_t]
     if not isinstance(sites_t, list):
         raise ModelError("model: 'site' must be [[site]] tables")
+    meas_list, sites_t = _exact_values(data.get("fit"), meas_list, sites_t)
     model = model_from_tables(nuc, meas_list, sites_t, data.get("fit", {}), source)
     if "processing" in data:
         model = replace(model, processing=parse_processing(data["processing"]))
@@ -539,7 +591,7 @@ def load_model(path) -> Model:
     >>> m.nucleus.name
     '27Al'
     """
-    p = Path(path)
+    p = path_argument(path, "model file", ModelError)
     name = str(p)
     if not p.exists():
         raise ModelError(f"model file {name!r} does not exist")
@@ -558,20 +610,126 @@ def load_model(path) -> Model:
     if b"\x00" in raw:
         raise ModelError(f"model file {name!r} is binary, not TOML text")
     try:
-        text = raw.decode("utf-8")
+        text = raw.decode("utf-8-sig")  # a byte-order mark, as some editors write, is not part of the text
     except UnicodeDecodeError as e:
         raise ModelError(f"model file {name!r} is not UTF-8 text (byte 0x{raw[e.start]:02x} at position {e.start})") \
             from None
     if not text.strip():
         raise ModelError(f"model file {name!r} is empty; it needs nucleus, [measurement] and [[site]]")
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as e:
-        raise ModelError(f"model file {name!r} is not valid TOML: {e}") from None
+    data = read_toml_text(text, f"model file {name!r}", ModelError)
     try:
         return parse_model(data, name)
     except ModelError as e:
         raise ModelError(f"{name}: {e}") from None
+
+
+#: deepest nesting of arrays and inline tables a model file may have (a model needs three)
+MAX_TOML_NESTING = 32
+
+
+def _nesting_too_deep(text: str, limit: int) -> int | None:
+    """The line (1-based) where brackets or braces outside strings nest deeper than ``limit``, else None."""
+    depth = 0
+    quote = None
+    line = 1
+    i = 0
+    n = len(text)
+    while i < n:
+        c = text[i]
+        if c == "\n":
+            line += 1
+            if quote in ('"', "'"):
+                quote = None  # a one-line string ends at its line (an error the TOML reader reports)
+        elif quote is not None:
+            if c == "\\" and quote in ('"', '"""'):
+                i += 1
+            elif text.startswith(quote, i):
+                i += len(quote) - 1
+                quote = None
+        elif c == "#":
+            j = text.find("\n", i)
+            i = n if j < 0 else j
+            continue
+        elif c in "\"'":
+            quote = c * 3 if text.startswith(c * 3, i) else c
+            i += len(quote) - 1
+        elif c in "[{":
+            depth += 1
+            if depth > limit:
+                return line
+        elif c in "]}":
+            depth = max(depth - 1, 0)
+        i += 1
+    return None
+
+
+_STRING = re.compile(r'"(?:\\.|[^"\\])*"|\'[^\']*\'')
+_NUMBER_TOKEN = re.compile(r"(?<![\w.])[+-]?\d[\d_]*(?:\.[\d_]+)?(?:[eE][+-]?[\d_]+)?(?![\w.])")
+
+
+def _overflowing_number(text: str) -> tuple[int, str] | None:
+    """(line, text) of the first number literal too large for a double ('1e309'), outside strings and comments."""
+    for lineno, line in enumerate(text.splitlines(), 1):
+        bare = _STRING.sub('""', line).split("#", 1)[0]
+        for m in _NUMBER_TOKEN.finditer(bare):
+            token = m.group(0)
+            try:
+                value = float(token.replace("_", ""))
+            except ValueError:
+                continue
+            if math.isinf(value):
+                return lineno, token
+    return None
+
+
+def read_toml_text(text: str, what: str, error=None) -> dict:
+    """Parse TOML text, every failure one error naming ``what`` (and the line where it can).
+
+    Parameters
+    ----------
+    text : str
+        The file's text (without a byte-order mark).
+    what : str
+        The file, for messages (e.g. ``"model file 'a.toml'"``).
+    error : type, optional
+        The exception type to raise (default :class:`ModelError`).
+
+    Returns
+    -------
+    dict
+
+    Raises
+    ------
+    ModelError (or ``error``)
+        Not valid TOML, or arrays/inline tables nested deeper than
+        ``MAX_TOML_NESTING`` (which would exhaust the reader's recursion).
+
+    Examples
+    --------
+    >>> read_toml_text("a = 1", "test")["a"]
+    1
+    >>> try:
+    ...     read_toml_text("a = " + "[" * 2000 + "]" * 2000, "model file 'deep.toml'")
+    ... except ModelError as e:
+    ...     print(e)
+    model file 'deep.toml' line 1: arrays or tables nested more than 32 deep; a model file needs at most 3
+    """
+    error = ModelError if error is None else error
+    big = _overflowing_number(text)
+    if big is not None:
+        raise error(f"{what} line {big[0]}: {big[1]!r} is beyond the largest number (about 1.8e308); write a "
+                    "finite value (or inf where a key allows it)")
+    line = _nesting_too_deep(text, MAX_TOML_NESTING)
+    if line is not None:
+        raise error(f"{what} line {line}: arrays or tables nested more than {MAX_TOML_NESTING} deep; "
+                    "a model file needs at most 3")
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as e:
+        raise error(f"{what} is not valid TOML: {e}") from None
+    except RecursionError:
+        raise error(f"{what}: arrays or tables nested too deep for a model file") from None
+
 
 
 # ---------------------------------------------------------------------------

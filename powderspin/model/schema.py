@@ -445,3 +445,40 @@ def key_reference_markdown() -> str:
 
 if __name__ == "__main__":  # pragma: no cover - prints the table for the README
     print(key_reference_markdown(), end="")
+
+
+def field_hint(value: float) -> str:
+    """A hint for a field that looks like a proton frequency in MHz (``400`` for 9.4 T), else ``""``.
+
+    The field of a magnet whose protons resonate at f MHz is f / 42.577 T (the proton's
+    gyromagnetic ratio, 42.577 MHz/T; CODATA 2018, from memory).
+
+    Parameters
+    ----------
+    value : float
+        The field that was given, in tesla.
+
+    Returns
+    -------
+    str
+        ``"; did you mean 9.4 T? (400 looks like a proton frequency in MHz)"`` or ``""``.
+
+    Examples
+    --------
+    >>> field_hint(600)
+    '; did you mean 14.1 T? (600 looks like a proton frequency in MHz, not a field in tesla)'
+    >>> field_hint(9.4)
+    ''
+    """
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return ""
+    tesla = v / PROTON_MHZ_PER_TESLA
+    if not (100.0 <= v <= 1500.0 and 1.0 <= tesla <= 35.5):
+        return ""
+    return f"; did you mean {tesla:.1f} T? ({v:g} looks like a proton frequency in MHz, not a field in tesla)"
+
+
+#: the proton's gyromagnetic ratio over 2 pi, MHz per tesla (CODATA 2018 value, 42.577478 MHz/T; from memory)
+PROTON_MHZ_PER_TESLA = 42.577478

@@ -25,11 +25,12 @@ from typing import Any, Mapping
 
 import numpy as np
 
+from ..checks import show
 from ..physics.distributions import DistributionError, explicit_axis
 from ..physics.nuclides import Nuclide
 from ..physics.orientations import OrientationSetError, orientation_set_by_name
 from ..physics.tensors import ShiftTensor, TensorError
-from .schema import KEYS, key_spec
+from .schema import KEYS, field_hint, key_spec
 
 __all__ = [
     "SHIFT_KEYS",
@@ -107,16 +108,18 @@ def check_number(where: str, key: str, value, table: str) -> float:
     9.4
     """
     spec = key_spec(table, key)
-    if isinstance(value, bool):
-        raise ModelError(f"{where}: {key} must be a number ({spec.unit or 'dimensionless'}), got {value!r}")
+    if isinstance(value, (bool, np.bool_)):
+        raise ModelError(f"{where}: {key} must be a number ({spec.unit or 'dimensionless'}), got {show(value)}")
     try:
         v = float(value)
     except (TypeError, ValueError):
-        raise ModelError(f"{where}: {key} must be a number ({spec.unit or 'dimensionless'}), got {value!r}") from None
+        raise ModelError(f"{where}: {key} must be a number ({spec.unit or 'dimensionless'}), got "
+                         f"{show(value)}") from None
     low_bad = v <= spec.low if spec.low_open else v < spec.low
     if math.isnan(v) or low_bad or v > spec.high:
         why = f" ({spec.why})" if spec.why else ""
-        raise ModelError(f"{where}: {key} = {value!r} is outside the allowed range {spec.range_text()}{why}")
+        hint = field_hint(v) if key == "field_tesla" else ""
+        raise ModelError(f"{where}: {key} = {show(value)} is outside the allowed range {spec.range_text()}{why}{hint}")
     return v
 
 
@@ -462,6 +465,10 @@ class Site:
                 raise ModelError(f"{where}: give the shift anisotropy one way only: span_ppm + skew, "
                                  "aniso_ppm + eta_cs, or principal_ppm")
             shift_form = forms[0] if forms else "iso"
+            if shift_form == "span_skew" and "span_ppm" in values and values.get("skew") is None:
+                raise ModelError(f"{where}: span_ppm needs skew (from -1 to 1; +1 and -1 are axially symmetric "
+                                 "tensors, 0 lies midway): give skew as well, e.g. skew = 0.0, so that no shape is "
+                                 "assumed for you")
 
         def get(key):
             v = values.get(key)
@@ -761,7 +768,7 @@ class Measurement:
         pts = self.points
         if isinstance(pts, bool) or not isinstance(pts, (int, np.integer)) or not (spec.low <= pts <= spec.high):
             raise ModelError(
-                f"measurement: points = {pts!r} must be an integer in [{spec.low:g}, {spec.high:g}] ({spec.why})"
+                f"measurement: points = {show(pts)} must be an integer in [{spec.low:g}, {spec.high:g}] ({spec.why})"
             )
         object.__setattr__(self, "points", int(pts))
         for key in ("center_ppm", "width_ppm"):
@@ -957,7 +964,7 @@ class FitSettings:
             spec = key_spec("fit", "baseline_order")
             if isinstance(b, bool) or not isinstance(b, (int, np.integer)) or not (spec.low <= b <= spec.high):
                 raise ModelError(
-                    f"fit: baseline_order = {b!r} must be an integer in [{spec.low:g}, {spec.high:g}] ({spec.why})"
+                    f"fit: baseline_order = {show(b)} must be an integer in [{spec.low:g}, {spec.high:g}] ({spec.why})"
                 )
             object.__setattr__(self, "baseline_order", int(b))
 

@@ -156,6 +156,7 @@ from types import MappingProxyType
 
 import numpy as np
 
+from ..checks import is_real, real_numbers, show
 from ..engine.lineshape import Axis
 from ..engine.site_lines import STRONG_COUPLING_LIMIT_RATIO, quadrupole_to_zeeman_ratio
 from ..engine.threads import kernel_threads
@@ -220,9 +221,7 @@ def _as_model(model) -> Model:
 def _check_fields(fields, model: Model) -> tuple:
     if fields is None:
         fields = sorted(set(DEFAULT_FIELDS_T) | {model.measurement.field_tesla})
-    if isinstance(fields, (int, float)):
-        fields = [fields]
-    fields = list(fields)
+    fields = real_numbers(fields, "fields", PlanError)
     if not fields:
         raise PlanError("fields: give at least one field in tesla, e.g. --fields 9.4 14.1 18.8")
     spec = key_spec("measurement", "field_tesla")
@@ -238,25 +237,25 @@ def _check_fields(fields, model: Model) -> tuple:
 
 
 def _check_positive(name: str, value, low: float, high: float, unit: str = "", open_high: bool = False) -> float:
-    if isinstance(value, bool):
-        raise PlanError(f"{name} must be a number, got {value!r}")
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise PlanError(f"{name} must be a number, got {value!r}") from None
+    if not is_real(value):
+        what = "text" if isinstance(value, (str, bytes)) else type(value).__name__
+        raise PlanError(f"{name} must be a number, got {what} ({show(value)})")
+    v = float(value)
     hi_ok = v < high if open_high else v <= high
     if not (math.isfinite(v) and v > low and hi_ok):
         rb = ")" if open_high else "]"
-        raise PlanError(f"{name} = {value!r} is outside the allowed range ({low:g}, {high:g}{rb}{unit}")
+        raise PlanError(f"{name} = {show(value)} is outside the allowed range ({low:g}, {high:g}{rb}{unit}")
     return v
 
 
 def _select_rotors(table: RotorTable, rotors) -> RotorTable:
     if rotors is None:
         return table
-    if isinstance(rotors, (str, int, float)):
+    if isinstance(rotors, (str, int, float)) or is_real(rotors):
         rotors = [rotors]
-    rotors = list(rotors)
+    if isinstance(rotors, (dict, set, bytes)) or not hasattr(rotors, "__iter__"):
+        raise PlanError(f"rotors must be a list of rotor names, got {type(rotors).__name__} ({show(rotors)})")
+    rotors = [r.item() if isinstance(r, np.generic) else r for r in rotors]
     if not rotors:
         raise PlanError("rotors: give at least one rotor name, e.g. --rotors 3.2 1.3")
     chosen = []
@@ -281,7 +280,7 @@ def _check_rates(table: RotorTable, rates_hz, max_rate_hz, n_rates, min_rate_hz)
         cap = m
     if rates_hz is not None:
         rates = []
-        for r in (rates_hz if not isinstance(rates_hz, (int, float)) else [rates_hz]):
+        for r in real_numbers(rates_hz, "rates_hz", PlanError, example="[10000, 15000]"):
             v = _check_positive("rates", r, 0.0, 2.0e5, " Hz")
             spec = key_spec("measurement", "spinning_hz")
             if v < 10.0:
@@ -298,8 +297,8 @@ def _check_rates(table: RotorTable, rates_hz, max_rate_hz, n_rates, min_rate_hz)
     if not cap > low:
         raise PlanError(f"max rate {cap:g} Hz must exceed the slowest candidate rate {low:g} Hz")
     n = n_rates
-    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or not (2 <= int(n) <= 200):
-        raise PlanError(f"rate count {n!r} must be an integer in [2, 200]")
+    if isinstance(n, (bool, np.bool_)) or not isinstance(n, (int, np.integer)) or not (2 <= int(n) <= 200):
+        raise PlanError(f"n_rates = {show(n)} must be a whole number (an int) in [2, 200]")
     return candidate_rates(cap, int(n), low)
 
 
@@ -620,6 +619,8 @@ def _plan(model, fields, rotors, rotor_table, max_rate_hz, rates_hz, n_rates, mi
     source = model.source or ""
     if not model.sites:
         raise PlanError("model: at least one [[site]] is needed")
+    if not isinstance(precision, (bool, np.bool_)):
+        raise PlanError(f"precision must be True or False, got {show(precision)}")
     fields_t = _check_fields(fields, model)
     threshold = _check_positive("threshold", threshold, 0.0, 1.0, "", open_high=True)
     snr = _check_positive("snr", snr, 0.0, 1e9)

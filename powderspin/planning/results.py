@@ -613,8 +613,60 @@ def _pct(v: float) -> str:
     return f"{100 * v:.2g} %" if v < 0.1 else f"{100 * v:.0f} %"
 
 
+def _pct_number(v: float) -> str:
+    """A fraction as a number of percent, without the sign (the column heading says %)."""
+    if not math.isfinite(v):
+        return "-"
+    return f"{100 * v:.2g}" if v < 0.1 else f"{100 * v:.0f}"
+
+
 def _num(v: float, digits: int = 3) -> str:
     return "-" if v is None or not math.isfinite(v) else f"{v:.{digits}g}"
+
+
+#: the error columns of the plan table: (heading, unit, keys, relative?); each column is one kind of number
+_ERROR_COLUMNS = (
+    ("rel err", "%", None, True),                                # stderr / |value| of parameters with a natural zero
+    ("shift err", "ppm", ("shift_ppm", "shift_offset_ppm"), False),
+    ("skew err", "", ("skew",), False),
+    ("angle err", "deg", ("euler_deg",), False),
+)
+
+
+def _key_of(name: str) -> str:
+    key = name.rpartition(".")[2]
+    return key.partition("[")[0]
+
+
+def _error_columns(p: Plan) -> list:
+    """The error columns the plan's parameters need, with the parameters of each."""
+    from .precision import reference_floor
+
+    cols = []
+    usable = [q for q in p.parameters if not q.at_bound]
+    for head, unit, keys, relative in _ERROR_COLUMNS:
+        if relative:
+            members = [q for q in usable if reference_floor(_key_of(q.name))[0] == "scale"]
+        else:
+            members = [q for q in usable if _key_of(q.name) in keys]
+        if members:
+            cols.append((head, unit, members, relative))
+    return cols
+
+
+def _column_value(r: RateResult, members, relative: bool) -> float:
+    """Largest error of a column's parameters at the SNR of the largest rotor reaching the rate."""
+    scale = 1.0 / r.relative_signal if r.relative_signal > 0 else math.inf
+    worst = -math.inf
+    for q in members:
+        e = r.stderr.get(q.name, math.nan)
+        if not math.isfinite(e):
+            if e == math.inf:
+                return math.inf
+            continue
+        v = 100.0 * e / q.reference if relative else e
+        worst = max(worst, v * scale)
+    return worst if worst > -math.inf else math.nan
 
 
 def _table_text(p: Plan) -> str:
@@ -622,11 +674,15 @@ def _table_text(p: Plan) -> str:
     lw = max(8, max(len(x) for x in labels))
     out = []
     src = f" (model {p.source})" if p.source else ""
+    largest = max(p.rotor_table.rotors, key=lambda r: r.sample_volume_ul)
     out.append(f"plan for {p.model.nucleus.name}, {len(labels)} site(s){src}")
-    out.append(f"threshold: every sideband-on-centreband overlap below {_pct(p.threshold)}; "
-               f"SNR {p.snr:g} (tallest point / noise per {p.point_spacing_hz:.3g} Hz point, largest rotor)")
+    out.append(f"threshold: every sideband-on-centreband overlap below {_pct(p.threshold)}")
+    out.append(f"SNR {p.snr:g} is the signal-to-noise ratio (tallest point / noise per {p.point_spacing_hz:.3g} Hz "
+               f"point) with the {largest.name} rotor ({largest.sample_volume_ul:g} uL, the largest considered); "
+               "a smaller rotor gives less, in proportion to its sample volume")
     out.append("widths: central 99 % of the intensity, without broadening; QIS: quadrupolar-induced shift")
     prec = bool(p.ranking)
+    cols = _error_columns(p) if prec else []
     for f in p.fields:
         out.append("")
         out.append(f"{f.field_tesla:g} T ({p.model.nucleus.name} at {f.nu_ref_hz / 1e6:.6g} MHz)")
@@ -636,11 +692,19 @@ def _table_text(p: Plan) -> str:
             out.append(f"  {s.label:<{lw}}  {s.static_width_hz / 1e3:>7.3g} {s.static_width_ppm:>8.4g}  "
                        f"{s.mas_width_hz / 1e3:>7.3g} {s.mas_width_ppm:>8.4g}  "
                        f"{s.quadrupolar_induced_shift_ppm + 0.0:>8.2f}  {s.span_hz / 1e3:>8.3g}")
-        head = (f"  {'rate/kHz':>8}  {'overlap':>8}  {'sidebands of -> centreband of':<{2 * lw + 4}}  "
-                f"{'in sb':>7}  ")
-        if prec:
-            head += f"{'err@SNR':>8}  {'w/ rotor':>8}  "
-        out.append(head + "largest rotor")
+        pw = max(2 * lw + 4, 29)
+        head = f"  {'rate':>8}  {'overlap':>8}  {'sidebands of -> centreband of':<{pw}}  {'in sb':>7}  "
+        units = f"  {'kHz':>8}  {'%':>8}  {'':<{pw}}  {'%':>7}  "
+        head += f"{'largest rotor':<14}"
+        units += f"{'reaching it':<14}"
+        if cols:
+            head += f"  {'SNR':>6}"
+            units += f"  {'(rotor)':>6}"
+            for h, u, _, _ in cols:
+                head += f"  {h:>9}"
+                units += f"  {u:>9}"
+        out.append(head.rstrip())
+        out.append(units.rstrip())
         for r in f.rates:
             mark = "*" if f.recommended_rate_hz is not None and r.rate_hz == f.recommended_rate_hz else " "
             if not r.computed:
@@ -650,11 +714,13 @@ def _table_text(p: Plan) -> str:
             rot = r.rotors[0] if r.rotors else "none"
             if len(r.rotors) > 1:
                 rot += f" (+{len(r.rotors) - 1})"
-            line = (f" {mark}{r.rate_hz / 1e3:>8.4g}  {_pct(r.max_overlap):>8}  {pair:<{2 * lw + 4}}  "
-                    f"{_pct(max(r.sideband_fraction)):>7}  ")
-            if prec:
-                line += f"{_num(r.criterion):>8}  {_num(r.rotor_criterion):>8}  "
-            out.append(line + rot)
+            line = (f" {mark}{r.rate_hz / 1e3:>8.4g}  {_pct_number(r.max_overlap):>8}  {pair:<{pw}}  "
+                    f"{_pct_number(max(r.sideband_fraction)):>7}  {rot:<14}")
+            if cols:
+                line += f"  {_num(p.snr * r.relative_signal):>6}"
+                for _, _, members, relative in cols:
+                    line += f"  {_num(_column_value(r, members, relative)):>9}"
+            out.append(line.rstrip())
         if f.recommended_rate_hz is not None:
             vol = {r.name: r for r in p.rotor_table.rotors}
             rots = ", ".join(f"{n} ({vol[n].sample_volume_ul:g} uL)" for n in f.recommended_rotors) or \
@@ -667,16 +733,18 @@ def _table_text(p: Plan) -> str:
         for n in f.notes:
             out.append(f"  note: {n}")
     out.append("")
-    out.append("overlap: largest share of a centreband under sidebands; in sb: largest share of a site in sidebands")
-    if prec:
-        out.append(f"err@SNR: largest relative standard error of {len(p.parameters)} parameter(s) at SNR {p.snr:g}; "
-                   "w/ rotor: the same with the SNR the largest rotor reaching the rate gives (sample volume as "
-                   "the proxy for signal)")
+    out.append("overlap: largest share of a centreband under sidebands (%); in sb: largest share of a site in "
+               "sidebands (%)")
+    if cols:
+        out.append("errors: standard errors a fit would give at the SNR of the largest rotor reaching the rate (the "
+                   "SNR column), the largest of each kind: rel err, the error over the value (%) of C_Q, eta, "
+                   "span, widths and fractions; shift err in ppm; skew err in skew units; angle err in degrees")
     out.append(f"best field by centreband resolution: {p.best_field_tesla:g} T ({p.best_field_reason})")
     if prec:
         clean = [t for t in p.ranking if p.field(t[0]).rate(t[1]).passes(p.threshold)]
-        out.append("best single experiments meeting the threshold (w/ rotor; lower is better):"
-                   + ("" if clean else " none"))
+        out.append("best single experiments meeting the threshold, by score at the rotor's SNR (lower is better; "
+                   "the score is the largest error over its reference: the value for relative errors, 1 ppm for "
+                   "shifts, 0.1 for skew, 10 degrees for angles):" + ("" if clean else " none"))
         for k, (ft, rt, c, w) in enumerate(clean[:5]):
             out.append(f"  {k + 1}. {ft:g} T at {rt / 1e3:g} kHz: {_num(c)} ({w})")
         if p.ranking and (not clean or p.ranking[0] != clean[0]):

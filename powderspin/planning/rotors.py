@@ -281,11 +281,11 @@ def load_rotor_table(path) -> RotorTable:
         raw = p.read_bytes()
         if len(raw) > 1 << 20:
             raise PlanError(f"rotor table {str(p)!r} is larger than 1 MB; a rotor table is a few lines of TOML")
-        data = tomllib.loads(raw.decode("utf-8"))
+        from ..model.modelfile import read_toml_text
+
+        data = read_toml_text(raw.decode("utf-8-sig"), f"rotor table {str(p)!r}", PlanError)
     except UnicodeDecodeError:
         raise PlanError(f"rotor table {str(p)!r} is not UTF-8 text") from None
-    except tomllib.TOMLDecodeError as e:
-        raise PlanError(f"rotor table {str(p)!r} is not valid TOML: {e}") from None
     except OSError as e:
         raise PlanError(f"rotor table {str(p)!r} cannot be read: {e.strerror or e}") from None
     return _rotor_table_from(data, repr(str(p)))

@@ -8,7 +8,7 @@ from pathlib import Path
 import numpy as np
 from matplotlib.figure import Figure
 
-from ..files import check_outputs, write_via
+from ..files import check_outputs, output_path, write_via
 from .spectrum import PLOT_SUFFIXES, plot_spectrum
 
 __all__ = ["plot_plan", "save_plan_plot"]
@@ -73,8 +73,11 @@ def plot_plan(p, fig=None):
             ax.set_yticks(ys, labels, fontsize=7)
             ax.invert_yaxis()
             ax.set_xscale("log")
-            ax.set_xlabel(f"largest relative standard error, SNR {p.snr:g} scaled by each rotor's sample volume "
-                          "(grey: sidebands overlap)")
+            largest = max(p.rotor_table.rotors, key=lambda r: r.sample_volume_ul)
+            # two short lines: a long caption is clipped at the figure's edge
+            ax.set_xlabel("score: largest standard error over its reference (lower is better)\n"
+                          f"at each rotor's SNR (SNR {p.snr:g} with the {largest.name} rotor); grey: sidebands "
+                          "overlap", fontsize=8.5)
             ax.set_title("precision ranking (best first)", fontsize=10)
         else:
             ax.text(0.5, 0.5, "no parameter is determined", ha="center", transform=ax.transAxes)
@@ -107,7 +110,7 @@ def save_plan_plot(plan, path, *, force: bool = False, protect=()) -> Path:
     ...     save_plan_plot(p, pathlib.Path(d) / "plan.png").stat().st_size > 0
     True
     """
-    out = Path(path)
+    out = output_path(path, "plot")
     check_outputs([(out, "plot", PLOT_SUFFIXES)], force=force, protect=protect)
     fig = plot_plan(plan)
     return write_via(out, lambda tmp: fig.savefig(tmp, dpi=110, format=out.suffix[1:].lower()), force=force,

@@ -10,12 +10,10 @@ transition.
 
 from __future__ import annotations
 
-from pathlib import Path
-
 import numpy as np
 from matplotlib.figure import Figure
 
-from ..files import check_outputs, write_via
+from ..files import check_outputs, output_path, write_via
 
 __all__ = ["plot_spectrum", "save_plot", "PLOT_SUFFIXES"]
 
@@ -190,7 +188,7 @@ def save_plot(spectrum, path, *, force: bool = False, protect=(), **options):
     ...     p.stat().st_size > 0
     True
     """
-    p = Path(path)
+    p = output_path(path, "plot")
     check_outputs([(p, "plot", PLOT_SUFFIXES)], force=force, protect=protect)
     fig = Figure(figsize=(7.5, 4.2), layout="constrained")  # not pyplot: the caller's backend is left alone
     plot_spectrum(spectrum, fig.add_subplot(), **options)

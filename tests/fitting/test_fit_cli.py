@@ -73,8 +73,9 @@ def test_fit_command_outputs_and_simulate_reproduces(tmp_path):
     assert r2.returncode == 0, r2.stderr
     fitted = _csv_columns(tmp_path / "res.csv")["fit"]
     again = _csv_columns(tmp_path / "again.csv")["intensity"]
-    # both CSV files print 10-12 significant digits
+    # both CSV files print 10-12 significant digits (the result file shows rounded values and keeps the full ones)
     assert np.max(np.abs(again - fitted)) <= 1e-9 * np.max(np.abs(fitted))
+    assert any(line.startswith("# fitted P.shift_ppm: ") for line in (tmp_path / "res.csv").read_text().splitlines())
     # a rerun refuses to overwrite, --force replaces
     r3 = _run(["fit", "good.toml", "-o", "res.toml", "-q"], tmp_path)
     assert r3.returncode == 2 and "--force" in r3.stderr
@@ -103,6 +104,7 @@ def test_data_on_the_command_line_and_global_search(tmp_path):
     """DATA arguments override data = ...; --global reports its starts; the result names the file used."""
     shutil.copy(BAD / "no_data.toml", tmp_path / "model.toml")
     shutil.copy(BAD / "line.csv", tmp_path / "spectrum.csv")
+    (tmp_path / "out").mkdir()  # outputs go into existing folders only
     r = _run(["fit", "model.toml", "spectrum.csv", "-o", "out/res.toml", "--global", "--starts", "4", "--region",
               "15:-15", "-q"], tmp_path)
     assert r.returncode == 0, r.stderr

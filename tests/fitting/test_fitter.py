@@ -18,6 +18,7 @@ the method rather than the engine's powder error; trials start at the truth
 
 from __future__ import annotations
 
+import ast
 import functools
 
 import numpy as np
@@ -340,11 +341,37 @@ def test_result_file_reproduces_the_fit(tmp_path):
     assert [f.name for f in files] == ["res.toml", "res-m1.csv", "res-m2.csv"]
     again = ps.load_model(files[0])
     assert not again.free and len(again.tied) == 1
+    # the result file shows each value to the digits its standard error supports and keeps the full values in
+    # [fit.result] exact_values, which the reader puts back: simulating the file gives the fitted curve exactly
     for j in range(2):
         y = ps.simulate(again, measurement=j).intensity
         ref = r.spectra[j].intensity
         assert np.max(np.abs(y - ref)) <= 1e-10 * np.max(np.abs(ref))
         assert len(again.measurements[j].baseline) == 2
+    # a value the user edits after the fit is taken as edited, not replaced by the stored full value
+    text = files[0].read_text()
+    shown = next(line for line in text.splitlines() if line.startswith("cq_mhz = "))
+    edited = tmp_path / "edited.toml"
+    edited.write_text(text.replace(shown, "cq_mhz = 3.3", 1))
+    assert ps.load_model(edited).sites[0].cq_mhz == 3.3
+    # the fit CSV also carries the full values; with them the curve is the fitted one to 1e-10
+    full, linear = {}, {}
+    for j, csv_file in enumerate(files[1:]):
+        for line in csv_file.read_text().splitlines():
+            if line.startswith("# fitted "):
+                name, _, rest = line[len("# fitted "):].partition(": ")
+                full[name] = float(rest.split(" +- ")[0])
+            elif line.startswith(("# scale: ", "# baseline: ")):
+                key, _, rest = line[2:].partition(": ")
+                linear.setdefault(j, {})[key] = ast.literal_eval(rest)  # a float, a list of floats
+    assert set(full) == set(r.names) and all(full[n] == r.values[n] for n in r.names)
+    exact = again.with_parameters({again.address_of(n): v for n, v in full.items()})
+    for j in range(2):
+        exact = exact.with_measurement(j, scale=linear[j]["scale"], baseline=tuple(linear[j]["baseline"]))
+    for j in range(2):
+        y = ps.simulate(exact, measurement=j).intensity
+        ref = r.spectra[j].intensity
+        assert np.max(np.abs(y - ref)) <= 1e-10 * np.max(np.abs(ref))
     # the fitted curve is the least-squares one: residual orthogonal to the scale and baseline columns
     for j in range(2):
         res = r.residual(j)

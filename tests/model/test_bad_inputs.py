@@ -91,8 +91,10 @@ DATA = Path(__file__).resolve().parents[1] / "bad_inputs" / "data"
 DATA_CASES = [c for c in tomllib.loads((DATA / "cases.toml").read_text())["case"]
               if set(c.get("options", {})) <= {"axis"} and c["file"] != "ppm_no_reference.csv"]
 #: the fit command checks a missing file itself, with its own words; it reads raw data folders itself too
-#: (powderspin.io.raw), and this one's acqus states no TD
-DATA_WORDS = {"missing.csv": ["does not exist"], "raw_only_experiment": ["acqus lacks a usable TD"]}
+#: (powderspin.io.raw), and this one's acqus states no TD; a headerless file's unit is asked for with the command
+#: line's flag (when the data do not tell it)
+DATA_WORDS = {"missing.csv": ["does not exist"], "raw_only_experiment": ["acqus lacks a usable TD"],
+              "no_header.txt": ["no header row", "--axis ppm", "--axis khz"]}
 FIT_MODEL = """nucleus = "27Al"
 [measurement]
 field_tesla = 9.4
