@@ -1,0 +1,301 @@
+"""Two-dimensional MQMAS and STMAS spectra: per-crystallite (F1, F2) lines, binning and broadening.
+
+The F2 dimension is the central transition (CT) exactly as in a 1D MAS
+spectrum: the same :class:`~powderspin.engine.site_lines.SiteJob`, the same
+:func:`~powderspin.engine.site_lines.compute_lines` (positions, sideband
+intensities, weights) and the same tent kernel, so the F2 projection of an
+ideal-excitation 2D spectrum is the 1D MAS CT spectrum.
+
+The F1 dimension is the sheared isotropic frequency of
+:mod:`powderspin.physics.multiple_quantum`,
+``nu_F1 = (nu_t1 - R nu_CT) / (p - R)``, evaluated per crystallite from the
+rotor-averaged offsets of the t1 transition (the symmetric +m <-> -m
+transition for MQMAS, both inner satellites for STMAS) and of the CT, by the
+site's producer (perturbation theory or exact diagonalisation).  With
+perturbation theory at the magic angle and infinite rate every crystallite
+has the same F1 position (the rank-4 parts cancel); exact diagonalisation
+adds the higher-order terms and a mis-set rotor angle adds the rank-2 parts
+(and, for STMAS, the first-order satellite frequency), which spread F1.
+
+Spinning: infinite rate, or a finite rate with rotor-synchronised t1: the t1
+increments are whole rotor periods, so the t1 phase of every crystallite
+returns to its start and F1 sidebands fold onto the centre band; F2 carries
+the CT sidebands of the 1D spectrum.  (An experiment whose t1 is not
+synchronised would show F1 sidebands too; not computed here.)
+
+Binning: each triangle of the orientation mesh adds its F2 tent (Alderman,
+Solum and Grant's interpolation, as in 1D) to the two F1 rows around the
+triangle's mean F1 position, shared linearly so the F1 centre of gravity is
+kept.  The result is a density per ppm^2: each site integrates to its weight.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from ..model.values import ModelError
+from ..physics.multiple_quantum import TwoDimensionalScale
+from . import _kernels as _k
+from .frequencies import _axes, _exact_pairs, _perturbative_pairs
+from .lineshape import Axis, broaden
+from .site_lines import (
+    BIN_CUTOFF,
+    INFINITE_RATE_PHASES,
+    INFINITE_RATE_PHASES_EXACT,
+    SiteLines,
+    _chunks,
+)
+
+__all__ = ["F1Lines", "t1_offsets", "compute_f1_lines", "bin_two_dimensional", "render_two_dimensional",
+           "RenderedSite2D"]
+
+#: orientations per chunk when computing F1 lines (Ctrl-C responds between chunks)
+_F1_CHUNK = 4096
+
+
+def t1_offsets(frame, directions, pairs, *, method: str, rotor_angle_rad: float, spinning: bool) -> np.ndarray:
+    """Rotor-averaged offsets (Hz) of the level pairs that evolve in t1.
+
+    Parameters
+    ----------
+    frame : SiteFrame
+        The site's tensors in its crystallite frame.
+    directions : array_like, shape (N, 3)
+        Rotor-axis directions (B0 directions when static).
+    pairs : sequence of (float, float)
+        Level pairs (m_hi, m_lo); the offset is E(m_hi) - E(m_lo) - (m_hi - m_lo) nu0.
+    method : {"perturbation", "exact"}
+    rotor_angle_rad : float
+        Rotor angle.
+    spinning : bool
+        Average over a rotor period (False: static).
+
+    Returns
+    -------
+    numpy.ndarray, shape (N, len(pairs))
+
+    References
+    ----------
+    M. M. Maricq, J. S. Waugh, J. Chem. Phys. 70 (1979) 3300 (the rotor-averaged
+    frequency is the centre-band position).
+
+    Examples
+    --------
+    >>> from powderspin.engine.frequencies import site_frame
+    >>> from powderspin.model.values import Site
+    >>> from powderspin.physics.nuclides import get_nuclide
+    >>> f = site_frame(Site(cq_mhz=3.0), get_nuclide("23Na"), 9.4)
+    >>> off = t1_offsets(f, [[0, 0, 1], [1, 0, 0]], [(1.5, -1.5)], method="perturbation",
+    ...                  rotor_angle_rad=math.acos(3 ** -0.5), spinning=True)
+    >>> off.shape
+    (2, 1)
+    """
+    ax = _axes(directions)
+    theta = rotor_angle_rad if spinning else 0.0
+    spin = frame.spin
+    if method == "exact":
+        phases = INFINITE_RATE_PHASES_EXACT if spinning else 1
+        up = np.array([int(round(spin - a)) for a, _ in pairs], dtype=np.int64)
+        lo = np.array([int(round(spin - b)) for _, b in pairs], dtype=np.int64)
+        off, _ = _exact_pairs(frame, ax, up, lo, theta, phases)
+    else:
+        phases = INFINITE_RATE_PHASES if spinning else 1
+        off = _perturbative_pairs(frame, ax, np.array([a for a, _ in pairs], dtype=float),
+                                  np.array([b for _, b in pairs], dtype=float), theta, phases, True)
+    return off.mean(axis=2)
+
+
+@dataclass(frozen=True, eq=False)
+class F1Lines:
+    """Sheared F1 positions of one site's crystallites.
+
+    Attributes
+    ----------
+    scale : TwoDimensionalScale
+        The experiment, its ratio R and order p.
+    f1_hz : ndarray (n_v, n_t1)
+        Sheared F1 position (Hz from nu_ref, at the job's isotropic shift) per
+        orientation and t1 transition.
+    pair_weights : ndarray (n_t1,)
+        Share of each t1 transition (1 for MQMAS, 1/2 each for the two STMAS satellites).
+    """
+
+    scale: TwoDimensionalScale
+    f1_hz: np.ndarray
+    pair_weights: np.ndarray
+
+
+def compute_f1_lines(ct_lines: SiteLines, scale: TwoDimensionalScale) -> F1Lines:
+    """Sheared F1 positions, per orientation, of a site whose CT lines are given.
+
+    Parameters
+    ----------
+    ct_lines : SiteLines
+        The site's central-transition lines (the F2 dimension).
+    scale : TwoDimensionalScale
+
+    Returns
+    -------
+    F1Lines
+
+    References
+    ----------
+    L. Frydman, J. S. Harwood, J. Am. Chem. Soc. 117 (1995) 5367; Z. Gan, J. Am.
+    Chem. Soc. 122 (2000) 3242.
+
+    Examples
+    --------
+    >>> from powderspin.engine.site_lines import compute_lines, site_job
+    >>> from powderspin.model.values import Measurement, Site
+    >>> from powderspin.physics.multiple_quantum import two_dimensional_scale
+    >>> from powderspin.physics.nuclides import get_nuclide
+    >>> job = site_job(Site(cq_mhz=3.0), Measurement(14.1, spinning_hz="inf", orientations=8),
+    ...                get_nuclide("27Al"), "perturbation")
+    >>> f1 = compute_f1_lines(compute_lines(job), two_dimensional_scale(2.5, "mqmas", 3))
+    >>> bool(np.ptp(f1.f1_hz) < 1e-6)     # isotropic: the same for every crystallite
+    True
+    """
+    job = ct_lines.job
+    if tuple(ct_lines.transitions) != (0.5,):
+        raise ValueError("compute_f1_lines needs the central-transition lines (transitions = (0.5,))")
+    frame = job.frame()
+    oset = ct_lines.orientations
+    spinning = job.spinning_hz > 0
+    theta = math.radians(job.rotor_angle_deg)
+    pairs = scale.t1_pairs
+    f_t1 = np.empty((oset.size, len(pairs)))
+    for a, b in _chunks(oset.size, _F1_CHUNK):
+        f_t1[a:b] = t1_offsets(frame, oset.vectors[a:b], pairs, method=job.method, rotor_angle_rad=theta,
+                               spinning=spinning)
+    p, r = scale.order, scale.ratio
+    f1 = (f_t1 - r * ct_lines.mean[:, :1]) / (p - r)
+    return F1Lines(scale, f1, np.full(len(pairs), 1.0 / len(pairs)))
+
+
+def bin_two_dimensional(f2_axis: Axis, f1_axis: Axis, ct: SiteLines, f1: F1Lines, *,
+                        cutoff: float = BIN_CUTOFF, threads: int | None = None) -> np.ndarray:
+    """Bin a site's 2D lines: intensity fraction per (F1, F2) point.
+
+    Parameters
+    ----------
+    f2_axis, f1_axis : Axis
+        The two axes (Hz, already translated by the site's shift).
+    ct : SiteLines
+        F2 lines (CT), on a triangulated orientation set.
+    f1 : F1Lines
+    cutoff : float, optional
+        Contributions at or below this fraction are skipped.
+    threads : int, optional
+        Chunks of triangles worked on in parallel (default: numba's thread count).
+
+    Returns
+    -------
+    numpy.ndarray, shape (f1_axis.points, f2_axis.points)
+        Sums to 1 less what falls off the axes.
+
+    References
+    ----------
+    D. W. Alderman, M. S. Solum, D. M. Grant, J. Chem. Phys. 84 (1986) 3717.
+    """
+    oset = ct.orientations
+    if not oset.has_triangles:
+        raise ModelError(f"orientations: the set '{oset.name}' has no triangles, which a 2D spectrum needs; use "
+                         "orientations = \"auto\" or a \"tri-...\" set")
+    if ct.intensity is None:
+        raise ModelError("a 2D spectrum needs the sideband intensities in memory; spin faster or use fewer "
+                         "orientations")
+    import numba
+
+    nchunk = max(1, int(threads if threads is not None else numba.get_num_threads()))
+    if oset.triangles.shape[0] < 2048:
+        nchunk = 1
+    rate = ct.rate_hz if math.isfinite(ct.rate_hz) else 0.0
+    return _k._bin_tent_2d(
+        np.ascontiguousarray(ct.mean[:, 0]), np.ascontiguousarray(ct.intensity[:, 0, :]),
+        np.ascontiguousarray(ct.weights[:, 0]), np.ascontiguousarray(f1.f1_hz),
+        np.ascontiguousarray(f1.pair_weights), np.ascontiguousarray(oset.triangles, dtype=np.int64),
+        np.ascontiguousarray(oset.triangle_weights), float(rate), f2_axis.left_edge_hz, f2_axis.dx_hz,
+        f2_axis.points, f1_axis.left_edge_hz, f1_axis.dx_hz, f1_axis.points, nchunk, float(cutoff))
+
+
+@dataclass(frozen=True)
+class RenderedSite2D:
+    """A site's 2D spectrum on the two axes.
+
+    Attributes
+    ----------
+    intensity : ndarray (n1, n2)
+        Density per ppm^2; integrates to the site's weight (less what lies off the axes).
+    lost_fraction : float
+        Fraction of the site's intensity off the axes.
+    """
+
+    intensity: np.ndarray
+    lost_fraction: float
+
+
+def render_two_dimensional(ct: SiteLines, f1: F1Lines, f2_axis: Axis, f1_axis: Axis, *, shift_hz: float = 0.0,
+                           weight: float = 1.0, lorentz_hz: float = 0.0, gauss_hz: float = 0.0,
+                           f1_lorentz_hz: float = 0.0, f1_gauss_hz: float = 0.0,
+                           memo: dict | None = None) -> RenderedSite2D:
+    """Bin, translate, weigh and broaden a site's 2D lines.
+
+    Parameters
+    ----------
+    ct : SiteLines
+        F2 (CT) lines.
+    f1 : F1Lines
+        Sheared F1 positions.
+    f2_axis, f1_axis : Axis
+    shift_hz : float, optional
+        Translation (Hz) of every line in both dimensions: a pure shift lies on
+        the diagonal of the sheared spectrum.
+    weight : float, optional
+        The site's weight.
+    lorentz_hz, gauss_hz : float, optional
+        F2 broadening (FWHM, Hz).
+    f1_lorentz_hz, f1_gauss_hz : float, optional
+        F1 broadening (FWHM, Hz of the sheared F1 scale).
+    memo : dict, optional
+        Binned lines shared between calls.
+
+    Returns
+    -------
+    RenderedSite2D
+
+    Examples
+    --------
+    >>> from powderspin.engine.site_lines import compute_lines, site_job
+    >>> from powderspin.engine.lineshape import make_axis
+    >>> from powderspin.model.values import Measurement, Site
+    >>> from powderspin.physics.multiple_quantum import two_dimensional_scale
+    >>> from powderspin.physics.nuclides import get_nuclide
+    >>> nu = get_nuclide("27Al").larmor_hz(14.1)
+    >>> ct = compute_lines(site_job(Site(cq_mhz=3.0), Measurement(14.1, spinning_hz="inf", orientations=16),
+    ...                             get_nuclide("27Al"), "perturbation"))
+    >>> f1 = compute_f1_lines(ct, two_dimensional_scale(2.5, "mqmas", 3))
+    >>> a2, a1 = make_axis(128, nu, 0.0, 40.0), make_axis(64, nu, 0.0, 40.0)
+    >>> r = render_two_dimensional(ct, f1, a2, a1, f1_gauss_hz=100.0)
+    >>> round(float(r.intensity.sum() * a1.dx_ppm * a2.dx_ppm), 4)
+    1.0
+    """
+    s2 = replace(f2_axis, center_hz=f2_axis.center_hz - float(shift_hz))
+    s1 = replace(f1_axis, center_hz=f1_axis.center_hz - float(shift_hz))
+    key = ("binned2d", ct.job, f1.scale, s2, s1)
+    frac = memo.get(key) if memo is not None else None
+    if frac is None:
+        frac = bin_two_dimensional(s2, s1, ct, f1)
+        if memo is not None:
+            frac.flags.writeable = False
+            memo[key] = frac
+    inside = float(frac.sum())
+    y = frac * (weight / (f1_axis.dx_ppm * f2_axis.dx_ppm))
+    if lorentz_hz > 0 or gauss_hz > 0:
+        y = broaden(y, f2_axis.dx_hz, lorentz_hz, gauss_hz)
+    if f1_lorentz_hz > 0 or f1_gauss_hz > 0:
+        y = np.ascontiguousarray(broaden(np.ascontiguousarray(y.T), f1_axis.dx_hz, f1_lorentz_hz, f1_gauss_hz).T)
+    kept = float(y.sum() * f1_axis.dx_ppm * f2_axis.dx_ppm / weight) if weight > 0 else inside
+    return RenderedSite2D(y, max(0.0, 1.0 - min(inside, kept)))
