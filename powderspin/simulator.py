@@ -55,8 +55,11 @@ from .engine.site_lines import (
     site_job,
 )
 from .engine.spectrum import Spectrum
+from .engine.spectrum2d import Spectrum2D
+from .engine.two_dimensional import compute_f1_lines, render_two_dimensional
 from .model.modelfile import load_model
 from .model.values import Model, ModelError, ParameterAddress, selected_transitions
+from .physics.multiple_quantum import isotropic_shifts_ppm, two_dimensional_scale
 from .physics.orientations import OrientationSet, orientation_set_by_name
 from .progress import emit
 
@@ -285,6 +288,11 @@ class Simulator:
         meas = model.measurements[measurement]
         nuc = model.nucleus
         n = len(model.sites)
+        self._two_d = None
+        if meas.is_two_dimensional:
+            self._init_two_dimensional(model, measurement, axis=axis, orientations=orientations, methods=methods,
+                                       parameters=parameters, cache=cache)
+            return
         self.nu_ref_hz = nu_ref = nuc.larmor_hz(meas.field_tesla)
         notes = check_high_field(model.sites, nuc, meas.field_tesla, allow_strong_coupling=allow_strong_coupling)
         self.parameters = self._addresses(parameters)
@@ -386,6 +394,141 @@ class Simulator:
             axis = axis_from(spans)
         self.axis = axis
         self._notes = list(notes)
+
+    def _init_two_dimensional(self, model: Model, index: int, *, axis, orientations, methods, parameters, cache):
+        """A 2D measurement: F2 decided by a 1D Simulator of its central transition, then the F1 axis."""
+        meas = model.measurements[index]
+        for k, site in enumerate(model.sites):
+            if _has_distribution(model, k) or site.shift_fwhm_ppm:
+                raise ModelError(f"site '{site.label}': distributed parameters (czjzek_sigma_mhz, cq_distribution_mhz, "
+                                 f"eta_distribution, shift_fwhm_ppm) are not available for experiment = "
+                                 f"{meas.experiment!r}; give fixed values (allowed: none, or 0)")
+        scale = two_dimensional_scale(model.nucleus.spin, meas.experiment, meas.mq_order)
+        inner = Simulator(_central_transition_twin(model, index), index, axis=axis, orientations=orientations,
+                          methods=methods, parameters=parameters, allow_strong_coupling=self.allow_strong_coupling,
+                          progress=self.progress, cache=cache)
+        self._two_d = scale
+        self._inner = inner
+        for name in ("nu_ref_hz", "parameters", "_tied_sources", "cache", "axis", "_distributed", "kernel_store",
+                     "_methods", "_sets", "_job_meas", "_orientation_error", "_phases"):
+            setattr(self, name, getattr(inner, name))
+        notes = list(inner.notes)
+        if meas.spinning_hz > 0 and math.isfinite(meas.spinning_hz):
+            notes.append("t1 is rotor-synchronised: F1 sidebands fold onto the centre band (F1 spectral width = "
+                         "spinning rate in the unsheared t1 scale)")
+        self._notes = notes
+        f = self.nu_ref_hz * 1e-6
+        if meas.f1_center_ppm is not None and meas.f1_width_ppm is not None:
+            self.f1_axis = make_axis(meas.f1_points, self.nu_ref_hz, meas.f1_center_ppm, meas.f1_width_ppm)
+            return
+        lo, hi = math.inf, -math.inf
+        for k, site in enumerate(model.sites):
+            lines, f1 = self._two_d_lines(model, k)
+            sh = (site.shift.iso_ppm - lines.job.iso_ppm) * f + meas.shift_offset_ppm * f
+            lo = min(lo, float(f1.f1_hz.min()) + sh)
+            hi = max(hi, float(f1.f1_hz.max()) + sh)
+        pad = max(4.0 * (meas.f1_lorentz_hz + meas.f1_gauss_hz), 0.25 * self.axis.width_hz)
+        self.f1_axis = make_axis(meas.f1_points, self.nu_ref_hz, meas.f1_center_ppm, meas.f1_width_ppm,
+                                 (lo - pad, hi + pad))
+
+    def _two_d_lines(self, model: Model, k: int):
+        """(CT lines, F1 lines) of site k of a 2D measurement."""
+        site = model.sites[k]
+        job = site_job(site, self._job_meas[k], model.nucleus, self._methods[k], self._sets[k])
+        lines = self._inner._lines(job, k, site.label)
+        key = ("f1", job, self._two_d)
+        f1 = self.cache.lines.get(key)
+        if f1 is None:
+            f1 = compute_f1_lines(lines, self._two_d)
+            self.cache.lines[key] = f1
+        return lines, f1
+
+    def _render_site_2d(self, model: Model, k: int):
+        meas = model.measurements[self.index]
+        site = model.sites[k]
+        f = self.nu_ref_hz * 1e-6
+        lines, f1 = self._two_d_lines(model, k)
+        sh = (site.shift.iso_ppm - lines.job.iso_ppm) * f + meas.shift_offset_ppm * f
+        r = render_two_dimensional(lines, f1, self.axis, self.f1_axis, shift_hz=sh, weight=site.weight,
+                                   lorentz_hz=site.lorentz_hz + meas.lorentz_hz,
+                                   gauss_hz=math.hypot(site.gauss_hz, meas.gauss_hz),
+                                   f1_lorentz_hz=meas.f1_lorentz_hz, f1_gauss_hz=meas.f1_gauss_hz,
+                                   memo=self.cache.rendered)
+        return r, lines, sh
+
+    def _spectrum_2d(self, values) -> Spectrum2D:
+        model = self.model_at(values)
+        meas = model.measurements[self.index]
+        nuc = model.nucleus
+        scale = self._two_d
+        notes = list(self._notes)
+        parts = self._render(model)
+        ys = []
+        for site, (r, _, _) in zip(model.sites, parts):
+            ys.append(r.intensity)
+            if r.lost_fraction > LOST_NOTE_FRACTION and site.weight > 0:
+                notes.append(f"site '{site.label}': {r.lost_fraction:.2%} of its intensity lies outside the axes "
+                             "(widen width_ppm / f1_width_ppm or move center_ppm / f1_center_ppm)")
+        ys = np.array(ys)
+        total = ys.sum(axis=0)
+        if meas.scale != 1.0:
+            ys = ys * meas.scale
+            total = total * meas.scale
+        labels = [s.label for s in model.sites]
+        cogs = {}
+        for s in model.sites:
+            d1, d2 = isotropic_shifts_ppm(scale, s.cq_mhz, s.eta_q, self.nu_ref_hz,
+                                          s.shift.iso_ppm + meas.shift_offset_ppm)
+            cogs[s.label] = {"f1": d1, "f2": d2}
+        meta = {
+            "powderspin_version": __version__,
+            "nucleus": nuc.name,
+            "spin": nuc.spin_label,
+            "field_tesla": meas.field_tesla,
+            "nu_ref_hz": self.nu_ref_hz,
+            "experiment": meas.experiment,
+            "f1_convention": scale.describe(),
+            "centres_of_gravity_ppm": cogs,
+            "centres_of_gravity_note": ("second-order theory at the magic angle and infinite rate "
+                                        "(powderspin.physics.multiple_quantum)"),
+            "excitation": "ideal: each site's 2D integral equals its weight",
+            "spinning_hz": "inf" if meas.is_infinite_rate else meas.spinning_hz,
+            "rotor_angle_deg": meas.rotor_angle_deg,
+            "t1_mode": meas.t1_mode,
+            "method": {lab: lines.method for lab, (_, lines, _) in zip(labels, parts)},
+            "orientations": {lab: f"{lines.orientations.name} ({lines.orientations.size} directions)"
+                             for lab, (_, lines, _) in zip(labels, parts)},
+            "rotor_phases": {lab: lines.phases for lab, (_, lines, _) in zip(labels, parts)},
+            "lorentz_hz": meas.lorentz_hz,
+            "gauss_hz": meas.gauss_hz,
+            "f1_lorentz_hz": meas.f1_lorentz_hz,
+            "f1_gauss_hz": meas.f1_gauss_hz,
+            "shift_offset_ppm": meas.shift_offset_ppm,
+            "points": [self.f1_axis.points, self.axis.points],
+            "sites": {s.label: _site_record(s) for s in model.sites},
+            "intensity_units": "density per ppm^2; each site integrates to its weight",
+            "notes": notes,
+        }
+        if meas.experiment == "mqmas":
+            meta["mq_order"] = meas.mq_order
+        if meas.scale != 1.0:
+            meta["scale"] = meas.scale
+        if len(model.measurements) > 1:
+            meta["measurement"] = f"{self.index + 1} of {len(model.measurements)}"
+        if model.source:
+            meta["model"] = model.source
+        a1, a2 = self.f1_axis, self.axis
+        return Spectrum2D(a1.hz, a1.ppm, a2.hz, a2.ppm, total, tuple(labels), ys, meta)
+
+    @property
+    def is_two_dimensional(self) -> bool:
+        """True when the measurement is an MQMAS or STMAS experiment (:meth:`spectrum` returns a Spectrum2D).
+
+        Returns
+        -------
+        bool
+        """
+        return self._two_d is not None
 
     # -- what was decided
 
@@ -553,6 +696,8 @@ class Simulator:
 
     def _render_site(self, model: Model, k: int):
         """(RenderedSite, SiteLines or None, translation Hz) of site k of ``model``."""
+        if self._two_d is not None:
+            return self._render_site_2d(model, k)
         meas = model.measurements[self.index]
         nuc = model.nucleus
         site = model.sites[k]
@@ -633,6 +778,8 @@ class Simulator:
         >>> round(Simulator(m).spectrum().area(), 3)
         1.0
         """
+        if self._two_d is not None:
+            return self._spectrum_2d(values)
         model = self.model_at(values)
         meas = model.measurements[self.index]
         nuc = model.nucleus
@@ -780,10 +927,10 @@ class Simulator:
                 k = a.index
                 mk = self.model_at(t)
                 r, _, _ = self._render_site(mk, k)
-                cols.append((r.intensity - y0[k]) / h[q])
+                cols.append(((r.intensity - y0[k]) / h[q]).ravel())
             else:
-                cols.append((self.site_intensities(t).sum(axis=0) - total0) / h[q])
-        return np.column_stack(cols) if cols else np.zeros((self.axis.points, 0))
+                cols.append(((self.site_intensities(t).sum(axis=0) - total0) / h[q]).ravel())
+        return np.column_stack(cols) if cols else np.zeros((total0.size, 0))
 
     # -- what the planner reads
 
@@ -856,6 +1003,11 @@ class Simulator:
             tot = float(lines.band_intensity.sum())
             out.append(float(lines.band_position_hz.sum() / tot) + sh if tot > 0 else math.nan)
         return np.array(out)
+
+
+def _central_transition_twin(model: Model, index: int) -> Model:
+    """The model with measurement ``index`` made a 1D central-transition spectrum (the F2 dimension of a 2D one)."""
+    return model.with_measurement(index, experiment="1d")
 
 
 def estimate_spans_hz(model, measurement: int = 0) -> list[tuple[float, float]]:
