@@ -427,7 +427,7 @@ class Simulator:
             sh = (site.shift.iso_ppm - lines.job.iso_ppm) * f + meas.shift_offset_ppm * f
             lo = min(lo, float(f1.f1_hz.min()) + sh)
             hi = max(hi, float(f1.f1_hz.max()) + sh)
-        pad = max(4.0 * (meas.f1_lorentz_hz + meas.f1_gauss_hz), 0.25 * self.axis.width_hz)
+        pad = max(4.0 * (meas.f1_lorentz_hz + meas.f1_gauss_hz), 0.05 * self.axis.width_hz)
         self.f1_axis = make_axis(meas.f1_points, self.nu_ref_hz, meas.f1_center_ppm, meas.f1_width_ppm,
                                  (lo - pad, hi + pad))
 
