@@ -99,6 +99,10 @@ def _invariant_legendre() -> tuple[np.ndarray, np.ndarray]:
     return out[0], out[1]
 
 
+#: Legendre coefficients (L = 0..4) of A and B, computed once (immutable)
+_LEGENDRE_AB = tuple(tuple(float(x) for x in c) for c in _invariant_legendre())
+
+
 def _level_terms(spin: float, m: float) -> tuple[float, float]:
     x = spin * (spin + 1.0)
     return m * (4 * x - 8 * m * m - 1), m * (2 * x - 2 * m * m - 1)
@@ -136,7 +140,7 @@ def rank_coefficients(spin: float, m_hi: float, m_lo: float) -> tuple[float, flo
     >>> round(q_3q[2] / q_ct[2], 12)      # -7/9 (Frydman and Harwood 1995)
     -0.777777777778
     """
-    la, lb = _invariant_legendre()
+    la, lb = (np.array(c) for c in _LEGENDRE_AB)
     ah, bh = _level_terms(spin, m_hi)
     al, bl = _level_terms(spin, m_lo)
     ca, cb = ah - al, bh - bl
