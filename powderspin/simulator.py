@@ -421,13 +421,16 @@ class Simulator:
         if meas.f1_center_ppm is not None and meas.f1_width_ppm is not None:
             self.f1_axis = make_axis(meas.f1_points, self.nu_ref_hz, meas.f1_center_ppm, meas.f1_width_ppm)
             return
-        lo, hi = math.inf, -math.inf
+        lo, hi, ct_span = math.inf, -math.inf, 0.0
         for k, site in enumerate(model.sites):
             lines, f1 = self._two_d_lines(model, k)
             sh = (site.shift.iso_ppm - lines.job.iso_ppm) * f + meas.shift_offset_ppm * f
             lo = min(lo, float(f1.f1_hz.min()) + sh)
             hi = max(hi, float(f1.f1_hz.max()) + sh)
-        pad = max(4.0 * (meas.f1_lorentz_hz + meas.f1_gauss_hz), 0.05 * self.axis.width_hz)
+            ct_span = max(ct_span, float(np.ptp(lines.mean)))
+        # margin: the F1 broadening, and half the widest centre-band CT pattern (at least 1 ppm), so the F1 axis
+        # shows the sites with room for their neighbours' usual spread
+        pad = max(4.0 * (meas.f1_lorentz_hz + meas.f1_gauss_hz), 0.5 * ct_span, f)
         self.f1_axis = make_axis(meas.f1_points, self.nu_ref_hz, meas.f1_center_ppm, meas.f1_width_ppm,
                                  (lo - pad, hi + pad))
 

@@ -34,8 +34,19 @@ def _k_f1(spectrum) -> float | None:
     return None
 
 
+def _signal_range(ppm: np.ndarray, profile: np.ndarray, fraction: float) -> tuple[float, float]:
+    """ppm range where the profile exceeds ``fraction`` of its maximum, with a margin of 15 % (whole axis if flat)."""
+    top = float(np.max(np.abs(profile))) if profile.size else 0.0
+    if top <= 0:
+        return float(ppm.min()), float(ppm.max())
+    idx = np.flatnonzero(np.abs(profile) > fraction * top)
+    lo, hi = float(ppm[idx].min()), float(ppm[idx].max())
+    m = 0.15 * max(hi - lo, 10 * abs(float(ppm[1] - ppm[0])) if ppm.size > 1 else 1.0)
+    return max(lo - m, float(ppm.min())), min(hi + m, float(ppm.max()))
+
+
 def plot_spectrum_2d(spectrum, fig: Figure | None = None, *, levels: int = 14, lowest: float = 0.02,
-                     show_axes: bool = True) -> Figure:
+                     show_axes: bool = True, limits: str | None = "signal") -> Figure:
     """Draw contours, projections and the CS and QIS axes of a 2D spectrum.
 
     Parameters
@@ -49,6 +60,10 @@ def plot_spectrum_2d(spectrum, fig: Figure | None = None, *, levels: int = 14, l
         Lowest contour as a fraction of the maximum (0 < lowest < 1).
     show_axes : bool, optional
         Draw the CS (diagonal) and QIS axes.
+    limits : {"signal", None}, optional
+        ``"signal"``: show the region where the projections exceed ``lowest``
+        times their maximum (a finite-rate F2 axis covers the whole sideband
+        manifold); None: the whole axes.
 
     Returns
     -------
@@ -119,8 +134,15 @@ def plot_spectrum_2d(spectrum, fig: Figure | None = None, *, levels: int = 14, l
                         label="QIS axis" if first else None)
                 first = False
         ax.legend(frameon=False, fontsize=8, loc="lower right")
-    ax.set_xlim(x.max(), x.min())  # ppm decreasing to the right
-    ax.set_ylim(y.max(), y.min())  # and upwards
+    if limits == "signal":
+        x0, x1 = _signal_range(x, spectrum.f2_projection(), lowest)
+        y0, y1 = _signal_range(y, spectrum.f1_projection(), lowest)
+    elif limits is None:
+        x0, x1, y0, y1 = float(x.min()), float(x.max()), float(y.min()), float(y.max())
+    else:
+        raise ValueError(f"limits = {limits!r} is not one of 'signal', None")
+    ax.set_xlim(x1, x0)  # ppm decreasing to the right
+    ax.set_ylim(y1, y0)  # and upwards
     nuc = spectrum.metadata.get("nucleus", "")
     ax.set_xlabel(f"F2 {nuc} shift / ppm".replace("  ", " "))
     ax.set_ylabel(f"F1 {nuc} isotropic shift / ppm (sheared)".replace("  ", " "))
