@@ -223,6 +223,10 @@ class Simulator:
         stages ``"lines"`` and ``"kernels"``, labelled by site.
     cache : SimulationCache, optional
         Memos shared with other Simulators of the same sample.
+    f1_axis : Axis, optional
+        The F1 axis of a 2D measurement (e.g. a measured spectrum's); the
+        measurement's ``f1_points``, ``f1_center_ppm`` and ``f1_width_ppm`` are
+        then not used.
 
     Attributes
     ----------
@@ -274,7 +278,7 @@ class Simulator:
 
     def __init__(self, model, measurement: int = 0, *, axis: Axis | None = None, orientations=None, methods=None,
                  parameters=None, kernel_store=None, allow_strong_coupling: bool = False, progress=None,
-                 cache: SimulationCache | None = None):
+                 cache: SimulationCache | None = None, f1_axis: Axis | None = None):
         model = as_model(model)
         if isinstance(measurement, bool) or not isinstance(measurement, (int, np.integer)) or \
                 not 0 <= measurement < len(model.measurements):
@@ -291,8 +295,11 @@ class Simulator:
         self._two_d = None
         if meas.is_two_dimensional:
             self._init_two_dimensional(model, measurement, axis=axis, orientations=orientations, methods=methods,
-                                       parameters=parameters, cache=cache)
+                                       parameters=parameters, cache=cache, f1_axis=f1_axis)
             return
+        if f1_axis is not None:
+            raise ModelError("simulate: f1_axis is for a 2D measurement (experiment = 'mqmas' or 'stmas'); this one "
+                             "is experiment = '1d'")
         self.nu_ref_hz = nu_ref = nuc.larmor_hz(meas.field_tesla)
         notes = check_high_field(model.sites, nuc, meas.field_tesla, allow_strong_coupling=allow_strong_coupling)
         self.parameters = self._addresses(parameters)
@@ -395,7 +402,8 @@ class Simulator:
         self.axis = axis
         self._notes = list(notes)
 
-    def _init_two_dimensional(self, model: Model, index: int, *, axis, orientations, methods, parameters, cache):
+    def _init_two_dimensional(self, model: Model, index: int, *, axis, orientations, methods, parameters, cache,
+                              f1_axis):
         """A 2D measurement: F2 decided by a 1D Simulator of its central transition, then the F1 axis."""
         meas = model.measurements[index]
         for k, site in enumerate(model.sites):
@@ -418,6 +426,12 @@ class Simulator:
                          "spinning rate in the unsheared t1 scale)")
         self._notes = notes
         f = self.nu_ref_hz * 1e-6
+        if f1_axis is not None:
+            if abs(f1_axis.nu_ref_hz - self.nu_ref_hz) > 1e-9 * self.nu_ref_hz:
+                raise ModelError(f"simulate: the F1 axis has nu_ref = {f1_axis.nu_ref_hz:.9g} Hz but the "
+                                 f"measurement's is {self.nu_ref_hz:.9g} Hz")
+            self.f1_axis = f1_axis
+            return
         if meas.f1_center_ppm is not None and meas.f1_width_ppm is not None:
             self.f1_axis = make_axis(meas.f1_points, self.nu_ref_hz, meas.f1_center_ppm, meas.f1_width_ppm)
             return
