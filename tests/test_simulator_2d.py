@@ -133,3 +133,35 @@ def test_model_file_round_trip_keeps_2d_keys_and_1d_files_unchanged(tmp_path):
     one = ps.make_model("27Al", {"field_tesla": 14.1}, [{"cq_mhz": 3.0}])
     assert not any(k.startswith("f1_") or k in ("experiment", "mq_order", "t1_mode")
                    for k in model_to_dict(one)["measurement"])
+
+
+def _f1_width_ppm(s):
+    p = s.f1_projection()
+    c = (p * s.f1_ppm).sum() / p.sum()
+    return float(np.sqrt((p * (s.f1_ppm - c) ** 2).sum() / p.sum()))
+
+
+def test_stmas_needs_the_exact_magic_angle():
+    """A rotor angle 0.1 deg off the magic angle leaves the satellites' first-order quadrupolar frequency
+    scaled by P2(cos theta) ~ -3 sin(2 theta_m) d_theta / 2 (Gan, J. Am. Chem. Soc. 122 (2000) 3242; Ashbrook and
+    Wimperis 2004): the STMAS F1 line broadens by far more than its 3QMAS counterpart, whose t1 transition has no
+    first-order term."""
+    base = {"orientations": 24, "f1_points": 256, "f1_center_ppm": 60.0, "f1_width_ppm": 100.0,
+            "f1_gauss_hz": 100.0}
+    site = [{"label": "A", "shift_ppm": 60.0, "cq_mhz": 3.0, "eta_q": 0.3}]
+    widths = {}
+    for exp in ("mqmas", "stmas"):
+        for angle in (54.7356103, 54.8356103):
+            widths[exp, angle] = _f1_width_ppm(ps.simulate(_model(sites=site, experiment=exp,
+                                                                  rotor_angle_deg=angle, **base)))
+    magic, off = 54.7356103, 54.8356103
+    assert widths["stmas", off] > 10 * widths["stmas", magic]
+    assert widths["stmas", off] > 10 * widths["mqmas", off]
+    # first-order estimate of the STMAS F1 spread: nu_Q-scale satellite frequency times |P2(cos theta)|, sheared
+    # by 1/(1 - R); its RMS over a powder is of the order of that maximum divided by a few
+    import math
+    nu_q = 3 * 3.0e6 / (2 * 2.5 * 4)
+    p2 = 0.5 * (3 * math.cos(math.radians(off)) ** 2 - 1)
+    r = two_dimensional_scale(2.5, "stmas").ratio
+    bound_ppm = nu_q * abs(p2) / (1 - r) / (ps.make_model("27Al", {"field_tesla": 14.1}, [{}]).larmor_hz * 1e-6)
+    assert 0.05 * bound_ppm < widths["stmas", off] < bound_ppm

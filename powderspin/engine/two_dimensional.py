@@ -180,7 +180,8 @@ def compute_f1_lines(ct_lines: SiteLines, scale: TwoDimensionalScale) -> F1Lines
 
 
 def bin_two_dimensional(f2_axis: Axis, f1_axis: Axis, ct: SiteLines, f1: F1Lines, *,
-                        cutoff: float = BIN_CUTOFF, threads: int | None = None) -> np.ndarray:
+                        cutoff: float = BIN_CUTOFF, threads: int | None = None,
+                        excitation: np.ndarray | None = None) -> np.ndarray:
     """Bin a site's 2D lines: intensity fraction per (F1, F2) point.
 
     Parameters
@@ -194,11 +195,16 @@ def bin_two_dimensional(f2_axis: Axis, f1_axis: Axis, ct: SiteLines, f1: F1Lines
         Contributions at or below this fraction are skipped.
     threads : int, optional
         Chunks of triangles worked on in parallel (default: numba's thread count).
+    excitation : ndarray (n_v,), optional
+        Per-crystallite efficiency of the whole coherence-transfer pathway
+        (excitation times conversion), multiplying each orientation's weight;
+        None is ideal excitation (1 everywhere).  This is where a finite-pulse
+        propagator's result enters; none is computed here.
 
     Returns
     -------
     numpy.ndarray, shape (f1_axis.points, f2_axis.points)
-        Sums to 1 less what falls off the axes.
+        Sums to 1 less what falls off the axes (ideal excitation).
 
     References
     ----------
@@ -218,9 +224,16 @@ def bin_two_dimensional(f2_axis: Axis, f1_axis: Axis, ct: SiteLines, f1: F1Lines
     if work < _PARALLEL_WORK:
         nchunk = 1
     rate = ct.rate_hz if math.isfinite(ct.rate_hz) else 0.0
+    weights = np.ascontiguousarray(ct.weights[:, 0])
+    if excitation is not None:
+        eff = np.asarray(excitation, dtype=float)
+        if eff.shape != weights.shape or not np.all(np.isfinite(eff)):
+            raise ValueError(f"excitation must be {weights.shape[0]} finite numbers (one per orientation), got "
+                             f"shape {eff.shape}")
+        weights = weights * eff
     return _k._bin_tent_2d(
         np.ascontiguousarray(ct.mean[:, 0]), np.ascontiguousarray(ct.intensity[:, 0, :]),
-        np.ascontiguousarray(ct.weights[:, 0]), np.ascontiguousarray(f1.f1_hz),
+        weights, np.ascontiguousarray(f1.f1_hz),
         np.ascontiguousarray(f1.pair_weights), np.ascontiguousarray(oset.triangles, dtype=np.int64),
         np.ascontiguousarray(oset.triangle_weights), float(rate), f2_axis.left_edge_hz, f2_axis.dx_hz,
         f2_axis.points, f1_axis.left_edge_hz, f1_axis.dx_hz, f1_axis.points, nchunk, float(cutoff))

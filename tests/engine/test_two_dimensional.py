@@ -144,3 +144,20 @@ def test_perturbative_f1_is_isotropic_at_the_magic_angle_and_spreads_off_it():
     spread = {exp: np.ptp(compute_f1_lines(off, two_dimensional_scale(2.5, exp, 3)).f1_hz) for exp in ("mqmas",
                                                                                                      "stmas")}
     assert spread["mqmas"] > 0.1 and spread["stmas"] > 30 * spread["mqmas"]
+
+
+def test_excitation_hook_weights_each_crystallite():
+    """The hook for finite-pulse excitation: per-orientation efficiencies multiply the weights (linear)."""
+    ct = _lines(Measurement(11.7, spinning_hz="inf", orientations=6), Site(cq_mhz=3.0))
+    f1 = compute_f1_lines(ct, two_dimensional_scale(2.5, "mqmas", 3))
+    nu = get_nuclide("27Al").larmor_hz(11.7)
+    lo, hi = ct.frequency_range()
+    a2 = Axis(0.5 * (lo + hi), 1.5 * (hi - lo), 32, nu)
+    a1 = Axis(float(f1.f1_hz.mean()), 2000.0, 16, nu)
+    ideal = bin_two_dimensional(a2, a1, ct, f1)
+    assert np.allclose(bin_two_dimensional(a2, a1, ct, f1, excitation=np.ones(ct.orientations.size)), ideal)
+    eff = np.random.default_rng(3).random(ct.orientations.size)
+    half = bin_two_dimensional(a2, a1, ct, f1, excitation=0.5 * eff)
+    assert np.allclose(2 * half, bin_two_dimensional(a2, a1, ct, f1, excitation=eff))
+    with pytest.raises(ValueError, match="excitation must be"):
+        bin_two_dimensional(a2, a1, ct, f1, excitation=np.ones(3))

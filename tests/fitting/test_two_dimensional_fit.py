@@ -75,3 +75,30 @@ def test_free_weights_with_2d_data_are_warned_about():
     r = fit_two_dimensional(m, {0: MeasuredSpectrum2D(s.f1_ppm, s.f2_ppm, y, s.metadata["nu_ref_hz"], "x")})
     assert any("not quantitative" in w for w in r.warnings)
     assert r.values["B.weight"] == pytest.approx(1.0, abs=5 * r.stderr["B.weight"])
+
+
+def test_joint_fit_of_2d_and_1d_measurements_shares_the_site_parameters():
+    """One model, two measurements (3QMAS at 9.4 T and 1D MAS at 14.1 T) sharing the site's parameters; each
+    measurement keeps its own scale (SYNTHETIC data, fixed seed)."""
+    def model(cq, shift):
+        site = [{"label": "A", "cq_mhz": {"start": cq, "min": 1.0, "max": 6.0},
+                 "shift_ppm": {"start": shift, "min": 40.0, "max": 80.0}, "eta_q": 0.4}]
+        two = {"field_tesla": 9.4, "spinning_hz": "inf", "experiment": "mqmas", "points": 96, "f1_points": 24,
+               "orientations": 12, "gauss_hz": 300.0, "f1_gauss_hz": 300.0}
+        one = {"field_tesla": 14.1, "spinning_hz": "inf", "points": 256, "orientations": 12, "gauss_hz": 300.0}
+        return ps.make_model("27Al", [two, one], site)
+    truth = model(3.2, 61.0)
+    rng = np.random.default_rng(7)
+    s2 = ps.simulate(truth, measurement=0)
+    s1 = ps.simulate(truth, measurement=1)
+    d2 = MeasuredSpectrum2D(s2.f1_ppm, s2.f2_ppm, 3.0 * s2.intensity + rng.normal(0, 0.01 * 3 * s2.intensity.max(),
+                                                                                      s2.shape),
+                            s2.metadata["nu_ref_hz"], "synthetic 2D")
+    d1 = MeasuredSpectrum(s1.hz, s1.ppm, 0.5 * s1.intensity + rng.normal(0, 0.005 * s1.intensity.max(), s1.hz.size),
+                          None, s1.metadata["nu_ref_hz"], "synthetic 1D")
+    # the data axes are the simulations' own, so the fit's Simulators render on the same grids
+    r = fit_two_dimensional(model(2.8, 58.0), {0: d2, 1: d1})
+    assert r.success
+    assert abs(r.values["A.cq_mhz"] - 3.2) < 3 * r.stderr["A.cq_mhz"]
+    assert abs(r.values["A.shift_ppm"] - 61.0) < 3 * r.stderr["A.shift_ppm"]
+    assert r.scales[0] == pytest.approx(3.0, rel=0.05) and r.scales[1] == pytest.approx(0.5, rel=0.05)
