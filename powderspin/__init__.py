@@ -43,6 +43,10 @@ _EXPORTS = {
     "write_spectrum": "io.results", "write_plan_json": "io.results", "save_plan_plot": "plotting.plan",
     "save_report": "plotting.report", "Simulator": "simulator", "ProgressEvent": "progress",
     "ShiftTensor": "physics.tensors",
+    "Spectrum2D": "engine.spectrum2d", "read_spectrum_2d": "io.spectra2d", "MeasuredSpectrum2D": "io.spectra2d",
+    "write_spectrum_2d": "io.spectra2d", "plot_spectrum_2d": "plotting.spectrum2d",
+    "save_plot_2d": "plotting.spectrum2d",
+    "fit_two_dimensional": "fitting.two_dimensional", "plan_f1_resolution": "planning.two_dimensional",
 }
 
 __all__ = sorted(_EXPORTS) + ["__version__"]
