@@ -20,8 +20,11 @@ adds the higher-order terms and a mis-set rotor angle adds the rank-2 parts
 Spinning: infinite rate, or a finite rate with rotor-synchronised t1: the t1
 increments are whole rotor periods, so the t1 phase of every crystallite
 returns to its start and F1 sidebands fold onto the centre band; F2 carries
-the CT sidebands of the 1D spectrum.  (An experiment whose t1 is not
-synchronised would show F1 sidebands too; not computed here.)
+the CT sidebands of the 1D spectrum, each placed at the F1 position of its
+centre band (the picture of a shear applied to the centre-band frequencies).
+A frequency-domain shear of an unsheared spectrum would instead move the F2
+sideband of order n by -R n nu_r / (p - R) in F1 (folded into the F1 window),
+and a t1 that is not synchronised adds F1 sidebands; neither is computed here.
 
 Binning: each triangle of the orientation mesh adds its F2 tent (Alderman,
 Solum and Grant's interpolation, as in 1D) to the two F1 rows around the

@@ -33,7 +33,7 @@ from .measures import resolution_overlap
 from .planner import DEFAULT_LINEWIDTH_HZ, DEFAULT_THRESHOLD, _check_fields
 from .rotors import PlanError
 
-__all__ = ["F1Resolution", "plan_f1_resolution"]
+__all__ = ["F1Resolution", "plan_f1_resolution", "f1_resolution_text"]
 
 
 @dataclass(frozen=True)
@@ -173,3 +173,39 @@ def plan_f1_resolution(model, fields=None, *, orders=(3, 5), threshold: float = 
             out.append(F1Resolution(b, int(p), {k: v["f1"] for k, v in cog.items()},
                                     {k: v["f2"] for k, v in cog.items()}, f1o, f2o, threshold, tuple(notes)))
     return tuple(out)
+
+
+def f1_resolution_text(results) -> str:
+    """A plain-text table of :func:`plan_f1_resolution` results: per field and order, each pair's overlaps.
+
+    Parameters
+    ----------
+    results : sequence of F1Resolution
+
+    Returns
+    -------
+    str
+
+    Examples
+    --------
+    >>> r = F1Resolution(9.4, 3, {"a": 10.0, "b": 2.0}, {"a": 5.0, "b": 0.0}, {"a | b": 0.001}, {"a | b": 0.6}, 0.01)
+    >>> print(f1_resolution_text([r]), end="")
+    MQMAS F1 resolution (overlap = shared area / smaller site; resolved below 0.01)
+     field/T  order  pair              F1 overlap  F2 (1D) overlap  resolved
+         9.4      3  a | b                  0.001            0.600  yes
+    """
+    rows = list(results)
+    thr = rows[0].threshold if rows else 0.0
+    lines = [f"MQMAS F1 resolution (overlap = shared area / smaller site; resolved below {thr:g})",
+             f"{'field/T':>8}  {'order':>5}  {'pair':<16}  {'F1 overlap':>10}  {'F2 (1D) overlap':>15}  resolved"]
+    notes: list = []
+    for r in rows:
+        if not r.f1_overlaps:
+            lines.append(f"{r.field_tesla:>8g}  {r.mq_order:>5d}  {'-':<16}  {'-':>10}  {'-':>15}  "
+                         + ("n/a" if r.notes else "yes (one site)"))
+        for pair, o1 in r.f1_overlaps.items():
+            lines.append(f"{r.field_tesla:>8g}  {r.mq_order:>5d}  {pair:<16}  {o1:>10.3f}  "
+                         f"{r.f2_overlaps[pair]:>15.3f}  {'yes' if o1 < r.threshold else 'no'}")
+        notes.extend(n for n in r.notes if n not in notes)
+    lines.extend(f"note: {n}" for n in notes)
+    return "\n".join(lines) + "\n"

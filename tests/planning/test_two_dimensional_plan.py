@@ -58,3 +58,44 @@ def test_bad_input(kw, words):
     sites = [{"label": "p"}] if nucleus == "31P" else SITES
     with pytest.raises(PlanError, match=words):
         plan_f1_resolution(_model(nucleus, sites), **kw)
+
+
+PLAN_MODEL = """nucleus = "27Al"
+[measurement]
+field_tesla = 9.4
+spinning_hz = 15000.0
+experiment = "mqmas"
+gauss_hz = 400.0
+orientations = 16
+[[site]]
+label = "A"
+shift_ppm = 60.0
+cq_mhz = 3.5
+eta_q = 0.5
+[[site]]
+label = "B"
+shift_ppm = 52.0
+cq_mhz = 2.0
+eta_q = 0.2
+"""
+
+
+def test_plan_command_with_mqmas_table(tmp_path, capsys):
+    """A model whose measurement is 2D is planned as its 1D central transition, and --mqmas adds the F1 table."""
+    from powderspin.cli.main import main
+    p = tmp_path / "m.toml"
+    p.write_text(PLAN_MODEL)
+    assert main(["plan", str(p), "--fields", "9.4", "--rates", "20000", "--no-precision", "--mqmas", "-q"]) == 0
+    out = capsys.readouterr().out
+    assert "MQMAS F1 resolution" in out and "A | B" in out
+    row = [line for line in out.splitlines() if line.strip().startswith("9.4      3")][0]
+    assert row.split()[-1] == "yes"
+
+
+def test_plan_command_refuses_mqmas_for_spin_half(tmp_path, capsys):
+    from powderspin.cli.main import main
+    p = tmp_path / "p.toml"
+    p.write_text('nucleus = "31P"\n[measurement]\nfield_tesla = 9.4\n[[site]]\nlabel = "P"\n')
+    assert main(["plan", str(p), "--mqmas", "-q"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "--mqmas" in err[0] and "no multiple-quantum" in err[0]
