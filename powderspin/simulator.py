@@ -537,6 +537,12 @@ class Simulator:
         a1, a2 = self.f1_axis, self.axis
         return Spectrum2D(a1.hz, a1.ppm, a2.hz, a2.ppm, total, tuple(labels), ys, meta)
 
+    def _one_dimensional_only(self, what: str) -> None:
+        if self._two_d is not None:
+            raise ModelError(f"simulate: {what} is for 1D measurements; this one is experiment = "
+                             f"{self.measurement.experiment!r} (its F2 dimension is the measurement with "
+                             "experiment = \"1d\")")
+
     @property
     def is_two_dimensional(self) -> bool:
         """True when the measurement is an MQMAS or STMAS experiment (:meth:`spectrum` returns a Spectrum2D).
@@ -780,8 +786,11 @@ class Simulator:
 
         Returns
         -------
-        Spectrum
-            Axis in Hz and ppm, per-site and summed intensities (densities per
+        Spectrum or Spectrum2D
+            A 2D measurement (``experiment = "mqmas"``/``"stmas"``) gives a
+            :class:`~powderspin.engine.spectrum2d.Spectrum2D` (sheared, F1 the
+            isotropic dimension; :mod:`powderspin.engine.two_dimensional`).
+            Otherwise: axis in Hz and ppm, per-site and summed intensities (densities per
             ppm; each site integrates to its weight), the metadata that made
             it and, under finite-rate spinning, the sideband table.  The
             measurement's ``scale`` (default 1) multiplies every site, and its
@@ -964,6 +973,7 @@ class Simulator:
             Static and infinite-rate sites: the whole site.  Sites with an EFG
             distribution (rendered from kernels without bands): the whole site.
         """
+        self._one_dimensional_only("centrebands")
         model = self.model_at(values)
         meas = model.measurements[self.index]
         out = []
@@ -995,6 +1005,7 @@ class Simulator:
         list of numpy.ndarray
             Normalised to a total of 1 per site; ``[1.0]`` for a distributed site.
         """
+        self._one_dimensional_only("band_intensities")
         model = self.model_at(values)
         return [np.ones(1) if lines is None else np.asarray(lines.band_intensity)
                 for _, lines, _ in self._render(model)]
@@ -1011,6 +1022,7 @@ class Simulator:
         numpy.ndarray, shape (n_sites,)
             NaN for a site with an EFG distribution.
         """
+        self._one_dimensional_only("centres_of_gravity_hz")
         model = self.model_at(values)
         out = []
         for _, lines, sh in self._render(model):
@@ -1091,8 +1103,10 @@ def simulate(model, *, measurement: int = 0, orientations=None, axis: Axis | Non
 
     Returns
     -------
-    Spectrum
-        As :meth:`Simulator.spectrum` at the model's own values.
+    Spectrum or Spectrum2D
+        As :meth:`Simulator.spectrum` at the model's own values: a
+        :class:`~powderspin.engine.spectrum2d.Spectrum2D` for a measurement with
+        ``experiment = "mqmas"`` or ``"stmas"``.
 
     See Also
     --------

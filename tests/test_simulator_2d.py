@@ -165,3 +165,18 @@ def test_stmas_needs_the_exact_magic_angle():
     r = two_dimensional_scale(2.5, "stmas").ratio
     bound_ppm = nu_q * abs(p2) / (1 - r) / (ps.make_model("27Al", {"field_tesla": 14.1}, [{}]).larmor_hz * 1e-6)
     assert 0.05 * bound_ppm < widths["stmas", off] < bound_ppm
+
+
+def test_one_dimensional_helpers_and_the_1d_fit_refuse_2d_measurements():
+    sim = ps.Simulator(_model())
+    assert sim.is_two_dimensional
+    for name in ("centrebands", "band_intensities", "centres_of_gravity_hz"):
+        with pytest.raises(ModelError, match=f"{name} is for 1D measurements"):
+            getattr(sim, name)()
+    from powderspin.fitting.data import FitError
+    m = _model(sites=[{"label": "A", "cq_mhz": {"start": 3.0, "min": 1.0, "max": 5.0}}])
+    with pytest.raises(FitError, match="fit_two_dimensional"):
+        ps.fit(m, data=[ps.simulate(m.with_measurement(0, experiment="1d"))])
+    assert sim.jacobian().shape == (128 * 512, 0)
+    j = ps.Simulator(m).jacobian()
+    assert j.shape == (128 * 512, 1) and np.abs(j).max() > 0
