@@ -56,6 +56,7 @@ from .engine.site_lines import (
 )
 from .engine.spectrum import Spectrum
 from .engine.spectrum2d import Spectrum2D
+from .engine.threads import kernel_threads
 from .engine.two_dimensional import compute_f1_lines, render_two_dimensional
 from .model.modelfile import load_model
 from .model.values import Model, ModelError, ParameterAddress, selected_transitions
@@ -406,11 +407,6 @@ class Simulator:
                               f1_axis):
         """A 2D measurement: F2 decided by a 1D Simulator of its central transition, then the F1 axis."""
         meas = model.measurements[index]
-        for k, site in enumerate(model.sites):
-            if _has_distribution(model, k) or site.shift_fwhm_ppm:
-                raise ModelError(f"site '{site.label}': distributed parameters (czjzek_sigma_mhz, cq_distribution_mhz, "
-                                 f"eta_distribution, shift_fwhm_ppm) are not available for experiment = "
-                                 f"{meas.experiment!r}; give fixed values (allowed: none, or 0)")
         scale = two_dimensional_scale(model.nucleus.spin, meas.experiment, meas.mq_order)
         inner = Simulator(_central_transition_twin(model, index), index, axis=axis, orientations=orientations,
                           methods=methods, parameters=parameters, allow_strong_coupling=self.allow_strong_coupling,
@@ -437,14 +433,14 @@ class Simulator:
             return
         lo, hi, ct_span = math.inf, -math.inf, 0.0
         for k, site in enumerate(model.sites):
-            lines, f1 = self._two_d_lines(model, k)
-            sh = (site.shift.iso_ppm - lines.job.iso_ppm) * f + meas.shift_offset_ppm * f
-            lo = min(lo, float(f1.f1_hz.min()) + sh)
-            hi = max(hi, float(f1.f1_hz.max()) + sh)
-            ct_span = max(ct_span, float(np.ptp(lines.mean)))
+            for lines, f1, sh, _ in self._two_d_parts(model, k):
+                lo = min(lo, float(f1.f1_hz.min()) + sh)
+                hi = max(hi, float(f1.f1_hz.max()) + sh)
+                ct_span = max(ct_span, float(np.ptp(lines.mean)))
         # margin: the F1 broadening, and half the widest centre-band CT pattern (at least 1 ppm), so the F1 axis
         # shows the sites with room for their neighbours' usual spread
-        pad = max(4.0 * (meas.f1_lorentz_hz + meas.f1_gauss_hz), 0.5 * ct_span, f)
+        widest_shift = max(s.shift_fwhm_ppm for s in model.sites) * f
+        pad = max(4.0 * (meas.f1_lorentz_hz + meas.f1_gauss_hz) + 2.0 * widest_shift, 0.5 * ct_span, f)
         self.f1_axis = make_axis(meas.f1_points, self.nu_ref_hz, meas.f1_center_ppm, meas.f1_width_ppm,
                                  (lo - pad, hi + pad))
 
@@ -460,18 +456,86 @@ class Simulator:
             self.cache.lines[key] = f1
         return lines, f1
 
+    def _two_d_parts(self, model: Model, k: int) -> list:
+        """(CT lines, F1 lines, translation Hz, share) of site k: one part, or one per node of its EFG distribution.
+
+        An EFG distribution is sampled on the (C_Q, eta) grid of :mod:`powderspin.physics.distributions`, each
+        node a site of its own; a shift distribution is applied when rendering, along the diagonal.
+        """
+        site = model.sites[k]
+        meas = model.measurements[self.index]
+        f = self.nu_ref_hz * 1e-6
+        base = (site.shift.iso_ppm + meas.shift_offset_ppm) * f
+        if not (site.has_efg_distribution or k in self._distributed):
+            lines, f1 = self._two_d_lines(model, k)
+            return [(lines, f1, base - lines.job.iso_ppm * f, 1.0)]
+        plain = replace(site, czjzek_sigma_mhz=0.0, cq_distribution_mhz=None, eta_distribution=None,
+                        shift_fwhm_ppm=0.0)
+        efg = [(plain, 1.0)]
+        if site.has_efg_distribution:
+            grid = self._efg_grid_2d(model, k)
+            top = float(grid.weights.max())
+            efg = [(replace(plain, cq_mhz=float(c), eta_q=float(e)), float(grid.weights[i, j]))
+                   for i, c in enumerate(grid.cq_mhz) for j, e in enumerate(grid.eta)
+                   if grid.weights[i, j] > 1e-9 * top]
+        nuc = model.nucleus
+        twin = _central_transition_twin(model, self.index).measurements[self.index]
+        method = "exact" if meas.method == "exact" else "perturbation"
+        parts = []
+        with kernel_threads(1):  # many small calls (engine/threads.py)
+            for variant, w_e in efg:
+                job = site_job(variant, twin, nuc, method)
+                lines = self.cache.lines.get(job)
+                if lines is None:
+                    lines = compute_lines(job)
+                    self.cache.lines[job] = lines
+                key = ("f1", job, self._two_d)
+                f1 = self.cache.lines.get(key)
+                if f1 is None:
+                    f1 = compute_f1_lines(lines, self._two_d)
+                    self.cache.lines[key] = f1
+                parts.append((lines, f1, base - lines.job.iso_ppm * f, w_e))
+        return parts
+
+    def _efg_grid_2d(self, model: Model, k: int):
+        """The (C_Q, eta) grid of site k's EFG distribution, spaced for the F2 axis and broadening."""
+        from .physics.distributions import czjzek_grid, explicit_grid
+
+        site = model.sites[k]
+        meas = model.measurements[self.index]
+        if site.czjzek_sigma_mhz > 0:
+            # the grid's spacing criterion (powderspin.physics.distributions.czjzek_grid) at the F2 resolution:
+            # the point spacing, or what broadens the site more (its broadening, its shift distribution)
+            res = max(self.axis.dx_hz, site.lorentz_hz + meas.lorentz_hz, math.hypot(site.gauss_hz, meas.gauss_hz),
+                      site.shift_fwhm_ppm * self.nu_ref_hz * 1e-6)
+            key = ("czjzek-2d", site.czjzek_sigma_mhz, site.cq_mhz, site.eta_q, model.nucleus.spin, self.nu_ref_hz,
+                   res)
+            grid = self.cache.lines.get(key)
+            if grid is None:
+                grid = czjzek_grid(site.czjzek_sigma_mhz, model.nucleus.spin, self.nu_ref_hz, res,
+                                   cq0_mhz=site.cq_mhz, eta0=site.eta_q)
+                self.cache.lines[key] = grid
+            return grid
+
+        def dist(given, value):
+            if given is None:
+                return {"values": [value], "weights": [1.0]}
+            return {"values": list(given[0]), "weights": list(given[1])}
+
+        return explicit_grid(dist(site.cq_distribution_mhz, site.cq_mhz), dist(site.eta_distribution, site.eta_q))
+
     def _render_site_2d(self, model: Model, k: int):
         meas = model.measurements[self.index]
         site = model.sites[k]
-        f = self.nu_ref_hz * 1e-6
-        lines, f1 = self._two_d_lines(model, k)
-        sh = (site.shift.iso_ppm - lines.job.iso_ppm) * f + meas.shift_offset_ppm * f
-        r = render_two_dimensional(lines, f1, self.axis, self.f1_axis, shift_hz=sh, weight=site.weight,
-                                   lorentz_hz=site.lorentz_hz + meas.lorentz_hz,
-                                   gauss_hz=math.hypot(site.gauss_hz, meas.gauss_hz),
-                                   f1_lorentz_hz=meas.f1_lorentz_hz, f1_gauss_hz=meas.f1_gauss_hz,
-                                   memo=self.cache.rendered)
-        return r, lines, sh
+        parts = self._two_d_parts(model, k)
+        common = dict(weight=site.weight, lorentz_hz=site.lorentz_hz + meas.lorentz_hz,
+                      gauss_hz=math.hypot(site.gauss_hz, meas.gauss_hz), f1_lorentz_hz=meas.f1_lorentz_hz,
+                      f1_gauss_hz=meas.f1_gauss_hz, memo=self.cache.rendered, shift_fwhm_ppm=site.shift_fwhm_ppm)
+        if len(parts) == 1:
+            lines, f1, sh, _ = parts[0]
+            return render_two_dimensional(lines, f1, self.axis, self.f1_axis, shift_hz=sh, **common), lines, sh
+        r = render_two_dimensional(None, None, self.axis, self.f1_axis, parts=parts, **common)
+        return r, parts[0][0], parts[0][2]
 
     def _spectrum_2d(self, values) -> Spectrum2D:
         model = self.model_at(values)

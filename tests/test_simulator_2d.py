@@ -118,9 +118,48 @@ def test_bad_input_names_the_key_and_range(nucleus, meas, words):
         _model(nucleus, sites, **meas)
 
 
-def test_distributed_sites_are_refused_in_2d():
-    with pytest.raises(ModelError, match="not available for experiment = 'mqmas'"):
-        ps.simulate(_model(sites=[{"label": "g", "cq_mhz": 0.0, "czjzek_sigma_mhz": 2.0}]))
+def test_shift_distribution_lies_along_the_diagonal():
+    """A Gaussian distribution of isotropic shifts moves a C_Q = 0 site along the diagonal (delta_F1 = delta_F2 for
+    a pure shift, design.md section 8): both projections have the distribution's variance (plus the hat sharing's
+    dx^2/6, lineshape module notes) and F1 and F2 are fully correlated."""
+    fw = 6.0
+    m = _model(sites=[{"label": "s", "shift_ppm": 20.0, "shift_fwhm_ppm": fw}], center_ppm=20.0, width_ppm=60.0,
+               f1_center_ppm=20.0, f1_width_ppm=60.0, f1_points=256)
+    s = ps.simulate(m)
+    var = (fw / (2 * np.sqrt(2 * np.log(2)))) ** 2
+    y = s.intensity
+    w = y.sum()
+    c1 = (y.sum(axis=1) * s.f1_ppm).sum() / w
+    c2 = (y.sum(axis=0) * s.f2_ppm).sum() / w
+    v1 = (y.sum(axis=1) * (s.f1_ppm - c1) ** 2).sum() / w
+    v2 = (y.sum(axis=0) * (s.f2_ppm - c2) ** 2).sum() / w
+    cov = (y * np.outer(s.f1_ppm - c1, s.f2_ppm - c2)).sum() / w
+    assert c1 == pytest.approx(20.0, abs=1e-3) and c2 == pytest.approx(20.0, abs=1e-3)
+    assert v1 == pytest.approx(var + s.dx1_ppm ** 2 / 6, rel=0.02)
+    assert v2 == pytest.approx(var + s.dx2_ppm ** 2 / 6, rel=0.02)
+    assert cov / np.sqrt(v1 * v2) > 0.99
+
+
+def test_czjzek_site_in_2d_has_the_averaged_centres():
+    """Pure Czjzek distribution: <P_Q^2> = 5 sigma^2 (G. Czjzek et al., Phys. Rev. B 23 (1981) 2513; DEVELOPERS.md,
+    'EFG distributions'), so the centres of gravity are delta_iso + <delta_QIS> in F2 and delta_iso - (10/17)
+    <delta_QIS> in F1 (Samoson 1985 with the mean P_Q^2; design.md section 8).  The F2 projection follows the 1D
+    kernel route's spectrum of the same site (different discretisations of the distribution: 1 % of the maximum)."""
+    sigma, iso = 1.5, 60.0
+    site = [{"label": "g", "shift_ppm": iso, "cq_mhz": 0.0, "czjzek_sigma_mhz": sigma}]
+    m = _model(sites=site, gauss_hz=150.0, f1_gauss_hz=150.0, center_ppm=50.0, width_ppm=120.0, points=1024,
+               f1_center_ppm=65.0, f1_width_ppm=60.0, f1_points=256, orientations=16)
+    s = ps.simulate(m)
+    nu = m.larmor_hz
+    x = 2.5 * 3.5
+    qis = -(3 / 40) * 5 * (sigma * 1e6) ** 2 / nu ** 2 * (x - 0.75) / (2.5 ** 2 * 16) * 1e6
+    p1, p2 = s.f1_projection(), s.f2_projection()
+    c1 = (p1 * s.f1_ppm).sum() / p1.sum()
+    c2 = (p2 * s.f2_ppm).sum() / p2.sum()
+    assert c2 - iso == pytest.approx(qis, rel=0.01)
+    assert c1 - iso == pytest.approx(-10 / 17 * qis, rel=0.01)
+    one = ps.simulate(m.with_measurement(0, experiment="1d"))
+    assert np.abs(p2 - one.intensity).max() < 0.01 * one.intensity.max()
 
 
 def test_model_file_round_trip_keeps_2d_keys_and_1d_files_unchanged(tmp_path):
