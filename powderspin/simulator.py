@@ -412,6 +412,7 @@ class Simulator:
                           methods=methods, parameters=parameters, allow_strong_coupling=self.allow_strong_coupling,
                           progress=self.progress, cache=cache)
         self._two_d = scale
+        self._two_d_convention = scale.describe()
         self._inner = inner
         for name in ("nu_ref_hz", "parameters", "_tied_sources", "cache", "axis", "_distributed", "kernel_store",
                      "_methods", "_sets", "_job_meas", "_orientation_error", "_phases"):
@@ -568,7 +569,7 @@ class Simulator:
             "field_tesla": meas.field_tesla,
             "nu_ref_hz": self.nu_ref_hz,
             "experiment": meas.experiment,
-            "f1_convention": scale.describe(),
+            "f1_convention": dict(self._two_d_convention),
             "centres_of_gravity_ppm": cogs,
             "centres_of_gravity_note": ("second-order theory at the magic angle and infinite rate "
                                         "(powderspin.physics.multiple_quantum)"),

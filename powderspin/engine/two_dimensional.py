@@ -175,9 +175,11 @@ def compute_f1_lines(ct_lines: SiteLines, scale: TwoDimensionalScale) -> F1Lines
     theta = math.radians(job.rotor_angle_deg)
     pairs = scale.t1_pairs
     f_t1 = np.empty((oset.size, len(pairs)))
-    for a, b in _chunks(oset.size, _F1_CHUNK):
-        f_t1[a:b] = t1_offsets(frame, oset.vectors[a:b], pairs, method=job.method, rotor_angle_rad=theta,
-                               spinning=spinning)
+    small = oset.size * len(pairs) < _PARALLEL_WORK // 64 and job.method != "exact"
+    with kernel_threads(1 if small else None):  # a small set: waking idle threads costs more than it saves
+        for a, b in _chunks(oset.size, _F1_CHUNK):
+            f_t1[a:b] = t1_offsets(frame, oset.vectors[a:b], pairs, method=job.method, rotor_angle_rad=theta,
+                                   spinning=spinning)
     p, r = scale.order, scale.ratio
     f1 = (f_t1 - r * ct_lines.mean[:, :1]) / (p - r)
     return F1Lines(scale, f1, np.full(len(pairs), 1.0 / len(pairs)))
@@ -228,6 +230,12 @@ def bin_two_dimensional(f2_axis: Axis, f1_axis: Axis, ct: SiteLines, f1: F1Lines
     if work < _PARALLEL_WORK:
         nchunk = 1
     rate = ct.rate_hz if math.isfinite(ct.rate_hz) else 0.0
+    with kernel_threads(1 if nchunk == 1 else None):  # one chunk: do not wake idle threads for nothing
+        return _bin(f2_axis, f1_axis, ct, f1, cutoff, nchunk, rate, excitation)
+
+
+def _bin(f2_axis, f1_axis, ct, f1, cutoff, nchunk, rate, excitation):
+    oset = ct.orientations
     weights = np.ascontiguousarray(ct.weights[:, 0])
     if excitation is not None:
         eff = np.asarray(excitation, dtype=float)
