@@ -33,6 +33,9 @@ def add_parser(sub) -> None:
     f.add_argument("--noise-region", metavar="A:B", help="signal-free region in ppm for the noise level")
     f.add_argument("--axis", choices=("ppm", "hz", "khz"),
                    help="unit of the data files' axis column when the files do not name it")
+    f.add_argument("--f1-referencing", choices=("isotropic", "file"),
+                   help="F1 scale of 2D (MQMAS/STMAS) data files: already powderspin's sheared isotropic scale, or "
+                        "as stated in the file (overrides the measurements' f1_referencing)")
     f.add_argument("--force", action="store_true", help="overwrite existing output files")
     f.add_argument("-q", "--quiet", action="store_true", help="no progress bars")
     add_cache_options(f)
@@ -109,6 +112,8 @@ def run(args) -> int:
     for p in data:
         if not Path(p).exists():
             raise FitError(f"data file {str(p)!r} does not exist")
+    if any(m.is_two_dimensional for m in model.measurements):
+        return _run_two_dimensional(model, model_path, data, args)
     outputs = fit_outputs(args, n_meas)
     protect = [model_path] + [Path(p) for p in data]
     check_outputs(outputs, force=args.force, protect=protect)
@@ -117,4 +122,43 @@ def run(args) -> int:
     print(result.summary(), end="")
     for p in written:
         print(f"wrote {p}", file=sys.stderr)
+    return 0
+
+
+def _run_two_dimensional(model, model_path: Path, data, args) -> int:
+    """A model with a 2D measurement: :func:`powderspin.fitting.two_dimensional.fit_two_dimensional`."""
+    from ..files import check_outputs
+    from ..fitting.data import read_measured
+    from ..fitting.two_dimensional import fit_two_dimensional
+    from ..io.spectra2d import read_spectrum_2d
+    from ..model.modelfile import write_model
+
+    refused = [name for name, on in (("--report", args.report), ("--posterior", args.posterior),
+                                     ("--global", args.global_search), ("--region", args.region),
+                                     ("--noise-region", args.noise_region)) if on]
+    if refused:
+        raise CliError(f"{', '.join(refused)}: not available yet when the model has a 2D (MQMAS/STMAS) measurement")
+    out = Path(args.output)
+    if out.suffix.lower() != ".toml":
+        raise CliError(f"-o {args.output!r}: the result is a model file; give a name ending in .toml")
+    protect = [model_path] + [Path(p) for p in data]
+    check_outputs([(out, "result file")], force=args.force, protect=protect)
+    spectra = {}
+    for j, (meas, item) in enumerate(zip(model.measurements, data)):
+        if meas.is_two_dimensional:
+            ref = args.f1_referencing or meas.f1_referencing
+            spectra[j] = read_spectrum_2d(item, f1_referencing=ref,
+                                          nu_ref_hz=model.nucleus.larmor_hz(meas.field_tesla))
+        else:
+            spectra[j], _, warns = read_measured(item, model, j, args.axis)
+            for w in warns:
+                print(f"warning: {w}", file=sys.stderr)
+    compile_note(args)
+    result = fit_two_dimensional(model, spectra)
+    header = ("# fitted by powderspin fit (2D): the values are the fitted ones, each measurement's scale the solved "
+              "intensity factor\n" + "".join(f"# {k} = {v:.8g} +- {result.stderr[k]:.3g}\n"
+                                                for k, v in result.values.items()))
+    write_model(result.fitted_model(), out, force=args.force, protect=protect, header=header)
+    print(result.summary(), end="")
+    print(f"wrote {out}", file=sys.stderr)
     return 0

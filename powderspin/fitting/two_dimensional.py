@@ -26,7 +26,7 @@ data give a warning.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from types import MappingProxyType
 from typing import Mapping
 
@@ -81,6 +81,38 @@ class TwoDimensionalFit:
     def __post_init__(self):
         object.__setattr__(self, "values", MappingProxyType(dict(self.values)))
         object.__setattr__(self, "stderr", MappingProxyType(dict(self.stderr)))
+
+    def summary(self) -> str:
+        """Plain text: verdict, values with standard errors, chi-square, scales and warnings.
+
+        Returns
+        -------
+        str
+        """
+        lines = [f"fit {'converged' if self.success else 'did NOT converge'}: {self.message}",
+                 f"{'parameter':<24} {'value':>14} {'std. error':>12}"]
+        for k, v in self.values.items():
+            lines.append(f"{k:<24} {v:>14.6g} {self.stderr[k]:>12.3g}")
+        lines.append(f"chi-square {self.chi_square:.6g}, reduced {self.reduced_chi_square:.4g}, "
+                     f"{self.n_evaluations} evaluations")
+        lines.append("scale per measurement: " + ", ".join(f"{c:.6g}" for c in self.scales))
+        lines.extend(f"warning: {w}" for w in self.warnings)
+        return "\n".join(lines) + "\n"
+
+    def fitted_model(self) -> Model:
+        """The fitted model with each measurement's solved scale written in (simulating it gives the fit).
+
+        Returns
+        -------
+        Model
+        """
+        m = self.model
+        for j, c in enumerate(self.scales):
+            m = m.with_measurement(j, scale=float(c))
+        # the free parameters start where the fit ended (a model file writes a free parameter's start)
+        free = tuple(replace(p, start=min(max(float(self.values.get(p.name, p.start)), p.min), p.max))
+                     for p in m.free)
+        return replace(m, free=free)
 
 
 def _axis_2d(item: MeasuredSpectrum2D, nu_ref: float, j: int) -> tuple[Axis, Axis]:

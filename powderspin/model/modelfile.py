@@ -528,7 +528,7 @@ def load_model(path) -> Model:
 
 #: measurement keys of a two-dimensional experiment, written only when experiment != "1d"
 _TWO_D_KEYS = ("experiment", "mq_order", "f1_points", "f1_center_ppm", "f1_width_ppm", "f1_lorentz_hz",
-               "f1_gauss_hz", "t1_mode")
+               "f1_gauss_hz", "t1_mode", "f1_referencing")
 
 
 def _measurement_table(meas: Measurement) -> dict:

@@ -190,6 +190,9 @@ KEYS: tuple[KeySpec, ...] = (
     KeySpec("measurement", "f1_gauss_hz", "number", "Hz", 0.0, 0.0, 1.0e7,
             doc="Gaussian broadening (FWHM) along F1 of a 2D spectrum, in Hz of the sheared F1 scale",
             why="a width beyond 10 MHz is wider than any solid-state spectrum"),
+    KeySpec("measurement", "f1_referencing", "choice", "", None, choices=("isotropic", "file"),
+            doc="F1 scale of this measurement's 2D data file: \"isotropic\" (already powderspin's sheared "
+                "isotropic scale) or \"file\" (stated in the file's metadata); required to fit 2D data"),
     KeySpec("measurement", "t1_mode", "choice", "", "synchronised", choices=("synchronised",),
             doc="t1 increments: \"synchronised\" with the rotor period (F1 sidebands fold onto the centre band)"),
     KeySpec("measurement", "stderr", "table", "", None,

@@ -706,6 +706,7 @@ class Measurement:
     f1_lorentz_hz: float = 0.0
     f1_gauss_hz: float = 0.0
     t1_mode: str = "synchronised"
+    f1_referencing: str | None = None
 
     def __post_init__(self):
         w = "measurement"
@@ -771,8 +772,10 @@ class Measurement:
     def _check_two_dimensional(self) -> None:
         """The keys of a 2D experiment (MQMAS, STMAS); the spin's own orders are checked by the Model."""
         w = "measurement"
-        for key in ("experiment", "t1_mode"):
+        for key in ("experiment", "t1_mode", "f1_referencing"):
             choices = key_spec(w, key).choices
+            if key == "f1_referencing" and self.f1_referencing is None:
+                continue
             if getattr(self, key) not in choices:
                 raise ModelError(f"measurement: {key} = {getattr(self, key)!r} is not one of "
                                  + ", ".join(repr(c) for c in choices))

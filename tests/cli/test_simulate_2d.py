@@ -103,3 +103,60 @@ def test_text_form_lists_every_site(tmp_path):
     import powderspin as ps
     s = ps.simulate(str(_model(tmp_path)))
     assert spectrum_2d_text(s).count("# site: ") == 2
+
+
+FIT_MODEL = """nucleus = "23Na"
+[measurement]
+field_tesla = 11.7
+spinning_hz = "inf"
+experiment = "mqmas"
+points = 128
+f1_points = 32
+orientations = 12
+gauss_hz = 150.0
+f1_gauss_hz = 150.0
+data = "mq.npz"
+{ref}
+[[site]]
+label = "Na1"
+shift_ppm = {{ start = 4.0, min = -20.0, max = 30.0 }}
+cq_mhz = {{ start = 1.7, min = 0.5, max = 4.0 }}
+eta_q = 0.6
+"""
+
+
+def _synthetic_2d(tmp_path):
+    import powderspin as ps
+    from powderspin.engine.spectrum2d import Spectrum2D
+    from powderspin.io.spectra2d import write_spectrum_2d
+    truth = ps.make_model("23Na", {"field_tesla": 11.7, "spinning_hz": "inf", "experiment": "mqmas", "points": 128,
+                                   "f1_points": 32, "orientations": 12, "gauss_hz": 150.0, "f1_gauss_hz": 150.0},
+                          [{"label": "Na1", "shift_ppm": 5.0, "cq_mhz": 1.5, "eta_q": 0.6}])
+    s = ps.simulate(truth)
+    y = s.intensity + np.random.default_rng(5).normal(0.0, 0.005 * s.intensity.max(), s.shape)  # SYNTHETIC data
+    noisy = Spectrum2D(s.f1_hz, s.f1_ppm, s.f2_hz, s.f2_ppm, y, s.site_labels, s.site_intensities, s.metadata)
+    write_spectrum_2d(noisy, tmp_path / "mq.npz")
+
+
+def test_fit_command_fits_2d_data(tmp_path, capsys):
+    _synthetic_2d(tmp_path)
+    model = _model(tmp_path, FIT_MODEL.format(ref='f1_referencing = "file"'))
+    out = tmp_path / "res.toml"
+    assert main(["fit", str(model), "-o", str(out), "-q"]) == 0
+    text = capsys.readouterr().out
+    assert "converged" in text and "Na1.cq_mhz" in text
+    from powderspin.model.modelfile import load_model
+    fitted = load_model(out)
+    assert fitted.sites[0].cq_mhz == pytest.approx(1.5, abs=0.05)
+    assert fitted.sites[0].shift.iso_ppm == pytest.approx(5.0, abs=0.2)
+
+
+def test_fit_command_needs_the_f1_referencing(tmp_path, capsys):
+    _synthetic_2d(tmp_path)
+    model = _model(tmp_path, FIT_MODEL.format(ref=""))
+    out = tmp_path / "res.toml"
+    assert main(["fit", str(model), "-o", str(out)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "f1_referencing must be given" in err[0]
+    assert not out.exists()
+    assert main(["fit", str(model), "-o", str(out), "-q", "--f1-referencing", "file"]) == 0
