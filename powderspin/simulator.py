@@ -577,6 +577,9 @@ class Simulator:
             "spinning_hz": "inf" if meas.is_infinite_rate else meas.spinning_hz,
             "rotor_angle_deg": meas.rotor_angle_deg,
             "t1_mode": meas.t1_mode,
+            "f2_sidebands": ("none (infinite rate)" if meas.is_infinite_rate else
+                             "the central transition's, each at the F1 position of its centre band (rotor-"
+                             "synchronised t1; a frequency-domain shear would move them in F1)"),
             "method": {lab: lines.method for lab, (_, lines, _) in zip(labels, parts)},
             "orientations": {lab: f"{lines.orientations.name} ({lines.orientations.size} directions)"
                              for lab, (_, lines, _) in zip(labels, parts)},
