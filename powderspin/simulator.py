@@ -296,7 +296,7 @@ class Simulator:
         self._two_d = None
         if meas.is_two_dimensional:
             self._init_two_dimensional(model, measurement, axis=axis, orientations=orientations, methods=methods,
-                                       parameters=parameters, cache=cache, f1_axis=f1_axis)
+                                       parameters=parameters, cache=cache, f1_axis=f1_axis, kernel_store=kernel_store)
             return
         if f1_axis is not None:
             raise ModelError("simulate: f1_axis is for a 2D measurement (experiment = 'mqmas' or 'stmas'); this one "
@@ -404,13 +404,13 @@ class Simulator:
         self._notes = list(notes)
 
     def _init_two_dimensional(self, model: Model, index: int, *, axis, orientations, methods, parameters, cache,
-                              f1_axis):
+                              f1_axis, kernel_store):
         """A 2D measurement: F2 decided by a 1D Simulator of its central transition, then the F1 axis."""
         meas = model.measurements[index]
         scale = two_dimensional_scale(model.nucleus.spin, meas.experiment, meas.mq_order)
         inner = Simulator(_central_transition_twin(model, index), index, axis=axis, orientations=orientations,
                           methods=methods, parameters=parameters, allow_strong_coupling=self.allow_strong_coupling,
-                          progress=self.progress, cache=cache)
+                          progress=self.progress, cache=cache, kernel_store=kernel_store)
         self._two_d = scale
         self._two_d_convention = scale.describe()
         self._inner = inner
