@@ -161,3 +161,27 @@ def test_excitation_hook_weights_each_crystallite():
     assert np.allclose(2 * half, bin_two_dimensional(a2, a1, ct, f1, excitation=eff))
     with pytest.raises(ValueError, match="excitation must be"):
         bin_two_dimensional(a2, a1, ct, f1, excitation=np.ones(3))
+
+
+@pytest.mark.parametrize("experiment,order", [("mqmas", 4), ("stmas", 3)])
+def test_exact_f1_width_comes_from_higher_orders_only(experiment, order):
+    """With no broadening, the perturbative F1 line of a site has zero width at the magic angle (second order
+    refocused); on the exact route its spread over the powder comes from the neglected orders, growing as
+    (C_Q/nu0)^4 for MQMAS (no third-order term for symmetric transitions and the CT) and (C_Q/nu0)^3 for STMAS
+    (the satellites' third-order term) -- measured slopes, cf. test_sheared_f1_against_exact_diagonalisation."""
+    nuc = get_nuclide("27Al")
+    spreads = []
+    cqs = np.array([6.0, 9.0, 13.5])
+    for cq in cqs:
+        job = site_job(Site(cq_mhz=float(cq), eta_q=0.3), Measurement(9.4, spinning_hz="inf", orientations=6), nuc,
+                       "exact")
+        ct = compute_lines(job)
+        f1 = compute_f1_lines(ct, two_dimensional_scale(2.5, experiment, 3)).f1_hz[:, 0]
+        w = ct.orientations.weights
+        mean = (w * f1).sum() / w.sum()
+        spreads.append(np.sqrt((w * (f1 - mean) ** 2).sum() / w.sum()))
+    slope = np.polyfit(np.log(cqs), np.log(spreads), 1)[0]
+    assert abs(slope - order) < 0.3, (spreads, slope)
+    perturbative = compute_f1_lines(_lines(Measurement(9.4, spinning_hz="inf", orientations=6),
+                                           Site(cq_mhz=13.5, eta_q=0.3)), two_dimensional_scale(2.5, experiment, 3))
+    assert np.ptp(perturbative.f1_hz) < 1e-6 * spreads[-1] + 1e-9
