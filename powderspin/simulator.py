@@ -57,7 +57,7 @@ from .engine.site_lines import (
 from .engine.spectrum import Spectrum
 from .engine.spectrum2d import Spectrum2D
 from .engine.threads import kernel_threads
-from .engine.two_dimensional import compute_f1_lines, render_two_dimensional
+from .engine.two_dimensional import compute_f1_lines, free_t1_bands, render_two_dimensional
 from .model.modelfile import load_model
 from .model.values import Model, ModelError, ParameterAddress, selected_transitions
 from .physics.multiple_quantum import isotropic_shifts_ppm, two_dimensional_scale
@@ -419,8 +419,12 @@ class Simulator:
             setattr(self, name, getattr(inner, name))
         notes = list(inner.notes)
         if meas.spinning_hz > 0 and math.isfinite(meas.spinning_hz):
-            notes.append("t1 is rotor-synchronised: F1 sidebands fold onto the centre band (F1 spectral width = "
-                         "spinning rate in the unsheared t1 scale)")
+            if meas.t1_mode == "free":
+                notes.append("t1 is not rotor-synchronised: F1 sidebands n nu_r / (p - R) apart; each band pair "
+                             "carries the real part of its rotor-phase-averaged amplitude (may be negative)")
+            else:
+                notes.append("t1 is rotor-synchronised: F1 sidebands fold onto the centre band (F1 spectral width = "
+                             "spinning rate in the unsheared t1 scale)")
         self._notes = notes
         f = self.nu_ref_hz * 1e-6
         if f1_axis is not None:
@@ -450,12 +454,19 @@ class Simulator:
         site = model.sites[k]
         job = site_job(site, self._job_meas[k], model.nucleus, self._methods[k], self._sets[k])
         lines = self._inner._lines(job, k, site.label)
-        key = ("f1", job, self._two_d)
+        return lines, self._f1_of(lines, model.measurements[self.index])
+
+    def _f1_of(self, lines, meas):
+        """F1 lines of a site's CT lines (memoised), with the F1 band pairs when t1 is not synchronised."""
+        free = meas.t1_mode == "free" and meas.spinning_hz > 0 and math.isfinite(meas.spinning_hz)
+        key = ("f1", lines.job, self._two_d, free)
         f1 = self.cache.lines.get(key)
         if f1 is None:
             f1 = compute_f1_lines(lines, self._two_d)
+            if free:
+                f1 = free_t1_bands(lines, f1)
             self.cache.lines[key] = f1
-        return lines, f1
+        return f1
 
     def _two_d_parts(self, model: Model, k: int) -> list:
         """(CT lines, F1 lines, translation Hz, share) of site k: one part, or one per node of its EFG distribution.
@@ -490,11 +501,7 @@ class Simulator:
                 if lines is None:
                     lines = compute_lines(job)
                     self.cache.lines[job] = lines
-                key = ("f1", job, self._two_d)
-                f1 = self.cache.lines.get(key)
-                if f1 is None:
-                    f1 = compute_f1_lines(lines, self._two_d)
-                    self.cache.lines[key] = f1
+                f1 = self._f1_of(lines, meas)
                 parts.append((lines, f1, base - lines.job.iso_ppm * f, w_e))
         return parts
 
@@ -578,8 +585,8 @@ class Simulator:
             "rotor_angle_deg": meas.rotor_angle_deg,
             "t1_mode": meas.t1_mode,
             "f2_sidebands": ("none (infinite rate)" if meas.is_infinite_rate else
-                             "the central transition's, each at the F1 position of its centre band (rotor-"
-                             "synchronised t1; a frequency-domain shear would move them in F1)"),
+                             "the central transition's, each at the F1 position of its F1 band (the shear acts "
+                             "on the rotor-averaged frequencies; a frequency-domain shear would move them in F1)"),
             "method": {lab: lines.method for lab, (_, lines, _) in zip(labels, parts)},
             "orientations": {lab: f"{lines.orientations.name} ({lines.orientations.size} directions)"
                              for lab, (_, lines, _) in zip(labels, parts)},

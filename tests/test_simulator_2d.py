@@ -110,7 +110,7 @@ def test_finite_rate_adds_f2_sidebands_only():
     ("27Al", {"transitions": "all"}, "cannot be chosen for experiment"),
     ("27Al", {"f1_points": 4}, r"f1_points = 4 must be an integer in \[16, 65536\]"),
     ("27Al", {"f1_gauss_hz": -1.0}, "f1_gauss_hz"),
-    ("27Al", {"t1_mode": "free"}, "t1_mode = 'free' is not one of 'synchronised'"),
+    ("27Al", {"t1_mode": "sometimes"}, "t1_mode = 'sometimes' is not one of 'synchronised', 'free'"),
 ])
 def test_bad_input_names_the_key_and_range(nucleus, meas, words):
     sites = [{"cq_mhz": 0.0}] if nucleus == "31P" else [{"cq_mhz": 1.0}]
@@ -219,3 +219,21 @@ def test_one_dimensional_helpers_and_the_1d_fit_refuse_2d_measurements():
     assert sim.jacobian().shape == (128 * 512, 0)
     j = ps.Simulator(m).jacobian()
     assert j.shape == (128 * 512, 1) and np.abs(j).max() > 0
+
+
+def test_free_t1_shows_f1_sidebands_at_the_sheared_spacing():
+    """Without rotor synchronisation F1 carries sidebands n nu_r / (p - R) from the centre band (the unsheared
+    multiple-quantum bands n nu_r, scaled like every F1 frequency); with an F1 axis that holds them all, the F2
+    projection is that of the synchronised spectrum, i.e. the 1D MAS CT."""
+    base = dict(spinning_hz=8000.0, points=512, f1_points=1024, center_ppm=40.0, width_ppm=300.0,
+                f1_center_ppm=60.0, f1_width_ppm=4000.0, orientations=12)
+    site = [{"label": "A", "shift_ppm": 60.0, "cq_mhz": 4.0, "eta_q": 0.3}]
+    sync = ps.simulate(_model(sites=site, **base))
+    free = ps.simulate(_model(sites=site, t1_mode="free", **base))
+    assert np.abs(free.f2_projection() - sync.f2_projection()).max() <= 1e-6 * sync.f2_projection().max()
+    p1 = free.f1_projection()
+    peaks = [i for i in range(1, p1.size - 1) if p1[i] > p1[i - 1] and p1[i] >= p1[i + 1] and p1[i] > 1e-3 * p1.max()]
+    spacing_ppm = 8000.0 / (3 - two_dimensional_scale(2.5, "mqmas", 3).ratio) / (free.metadata["nu_ref_hz"] * 1e-6)
+    gaps = np.diff(free.f1_ppm[peaks])
+    assert len(peaks) >= 3 and np.allclose(gaps, spacing_ppm, atol=1.01 * free.dx1_ppm)
+    assert "not rotor-synchronised" in " ".join(free.metadata["notes"])

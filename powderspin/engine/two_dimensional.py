@@ -23,8 +23,17 @@ returns to its start and F1 sidebands fold onto the centre band; F2 carries
 the CT sidebands of the 1D spectrum, each placed at the F1 position of its
 centre band (the picture of a shear applied to the centre-band frequencies).
 A frequency-domain shear of an unsheared spectrum would instead move the F2
-sideband of order n by -R n nu_r / (p - R) in F1 (folded into the F1 window),
-and a t1 that is not synchronised adds F1 sidebands; neither is computed here.
+sideband of order n by -R n nu_r / (p - R) in F1 (folded into the F1 window);
+not computed here.  A t1 that is not synchronised (``t1_mode = "free"``,
+:func:`free_t1_bands`) gives every crystallite band pairs (n1, n2) at
+n1 nu_r / (p - R) in F1 and n2 nu_r in F2 from its centre band, weighted by
+the real part of the rotor-phase-averaged amplitude
+conj(A_n1) B_n2 sum_a A_a conj(B_(a + n2 - n1)) (:func:`band_pair_weights`;
+A and B the complex band coefficients of the t1 transition and the CT).  Its
+sum over n1 is |B_n2|^2, so folding F1 by nu_r / (p - R) gives back the
+synchronised spectrum.  The pair weights can be negative (the dispersive
+share of the amplitudes); bands whose F1 position lies off the axis are lost
+with their signed weight.
 
 Binning: each triangle of the orientation mesh adds its F2 tent (Alderman,
 Solum and Grant's interpolation, as in 1D) to the two F1 rows around the
@@ -51,10 +60,11 @@ from .site_lines import (
     SiteLines,
     _chunks,
 )
+from .spinning import choose_rotor_phases
 from .threads import kernel_threads
 
 __all__ = ["F1Lines", "t1_offsets", "compute_f1_lines", "bin_two_dimensional", "render_two_dimensional",
-           "RenderedSite2D", "diagonal_gaussian"]
+           "RenderedSite2D", "diagonal_gaussian", "band_amplitudes", "band_pair_weights", "free_t1_bands"]
 
 #: orientations per chunk when computing F1 lines (Ctrl-C responds between chunks)
 _F1_CHUNK = 4096
@@ -129,11 +139,19 @@ class F1Lines:
         orientation and t1 transition.
     pair_weights : ndarray (n_t1,)
         Share of each t1 transition (1 for MQMAS, 1/2 each for the two STMAS satellites).
+    band_weights : ndarray (n_v, n_t1, Q) or None
+        Free (not synchronised) t1 only: the real part of each band pair's gamma-averaged amplitude
+        (:func:`band_pair_weights`); None: F1 sidebands folded onto the centre band.
+    band_f2_hz, band_f1_hz : ndarray (Q,) or None
+        The pairs' offsets from the centre band: n2 nu_r in F2 and n1 nu_r / (p - R) in sheared F1.
     """
 
     scale: TwoDimensionalScale
     f1_hz: np.ndarray
     pair_weights: np.ndarray
+    band_weights: np.ndarray | None = None
+    band_f2_hz: np.ndarray | None = None
+    band_f1_hz: np.ndarray | None = None
 
 
 def compute_f1_lines(ct_lines: SiteLines, scale: TwoDimensionalScale) -> F1Lines:
@@ -183,6 +201,142 @@ def compute_f1_lines(ct_lines: SiteLines, scale: TwoDimensionalScale) -> F1Lines
     p, r = scale.order, scale.ratio
     f1 = (f_t1 - r * ct_lines.mean[:, :1]) / (p - r)
     return F1Lines(scale, f1, np.full(len(pairs), 1.0 / len(pairs)))
+
+
+def band_amplitudes(traj: np.ndarray, rate_hz: float) -> np.ndarray:
+    """Complex Fourier coefficients F_n of exp(i xi(phi)) over one rotor period (band n at index n mod P).
+
+    ``xi(phi) = sum_{k != 0} c_k / (i k nu_r) e^{i k phi}`` with c_k the Fourier
+    components of the offset trajectory; ``|F_n|^2`` are the 1D sideband
+    intensities (DEVELOPERS.md, "Sidebands").
+
+    Parameters
+    ----------
+    traj : ndarray (..., P)
+        Offsets (Hz) at P equally spaced rotor phases.
+    rate_hz : float
+        Spinning rate (Hz).
+
+    Returns
+    -------
+    numpy.ndarray (..., P), complex
+
+    References
+    ----------
+    M. M. Maricq, J. S. Waugh, J. Chem. Phys. 70 (1979) 3300; M. H. Levitt, J. Magn. Reson. 82 (1989) 427.
+
+    Examples
+    --------
+    >>> t = np.arange(16) / 16.0
+    >>> f = band_amplitudes(1000.0 * np.cos(2 * np.pi * t), 1000.0)   # modulation index 1
+    >>> round(float(abs(f[0]) ** 2), 4)                                  # J0(1)^2
+    0.5855
+    """
+    traj = np.asarray(traj, dtype=float)
+    p = traj.shape[-1]
+    c = np.fft.fft(traj, axis=-1) / p
+    k = np.fft.fftfreq(p, 1.0 / p)
+    keep = (k != 0) & (np.abs(k) < p / 2)
+    g = np.zeros_like(c)
+    g[..., keep] = c[..., keep] / (1j * k[keep] * rate_hz)
+    xi = np.real(np.fft.ifft(g, axis=-1)) * p
+    return np.fft.fft(np.exp(1j * xi), axis=-1) / p
+
+
+def band_pair_weights(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Gamma-averaged complex amplitude of every (F1 band n1, F2 band n2) pair of one 2D experiment.
+
+    For a t1 transition with band coefficients A (coherence in t1 from rotor
+    phase gamma) followed, with an instantaneous transfer, by the CT with B in
+    t2, the rotor-phase average of exp(i Phi_t1(t1)) exp(i Phi_CT(t2)) is
+    ``sum S[n1, n2] exp(i 2 pi ((nu_t1 + n1 nu_r) t1 + (nu_CT + n2 nu_r) t2))`` with
+    ``S[n1, n2] = conj(A[n1]) B[n2] G[n2 - n1]``, ``G[m] = sum_a A[a] conj(B[a + m])``
+    (indices mod P).  Its sum over n1 is ``|B[n2]|^2`` (the 1D CT bands) and over n2
+    ``|A[n1]|^2``.
+
+    Parameters
+    ----------
+    a, b : ndarray (..., P), complex
+        :func:`band_amplitudes` of the t1 transition and of the CT (same P).
+
+    Returns
+    -------
+    numpy.ndarray (..., P, P), complex
+        S with n1 on the second-to-last and n2 on the last axis (FFT order).
+
+    References
+    ----------
+    M. H. Levitt, J. Magn. Reson. 82 (1989) 427 (the gamma average of sideband amplitudes); the 2D product is
+    derived here in the same way.
+
+    Examples
+    --------
+    >>> t = np.arange(16) / 16.0
+    >>> a = band_amplitudes(800.0 * np.cos(2 * np.pi * t), 1000.0)
+    >>> b = band_amplitudes(300.0 * np.sin(2 * np.pi * t), 1000.0)
+    >>> s = band_pair_weights(a, b)
+    >>> bool(np.allclose(s.sum(axis=0), abs(b) ** 2)), bool(np.allclose(s.sum(axis=1), abs(a) ** 2))
+    (True, True)
+    """
+    p = a.shape[-1]
+    g = np.fft.fft(np.fft.fft(a, axis=-1) * np.conj(np.fft.fft(b, axis=-1)), axis=-1) / p
+    n = np.arange(p)
+    diff = (n[None, :] - n[:, None]) % p  # [n1, n2] -> n2 - n1
+    return np.conj(a)[..., :, None] * b[..., None, :] * g[..., diff]
+
+
+def free_t1_bands(ct_lines: SiteLines, f1: F1Lines, *, tolerance: float = 1e-10) -> F1Lines:
+    """Add the band pairs of a t1 that is not rotor-synchronised (F1 sidebands) to a site's F1 lines.
+
+    Parameters
+    ----------
+    ct_lines : SiteLines
+        The site's CT lines at a finite spinning rate.
+    f1 : F1Lines
+        Its centre-band F1 positions (:func:`compute_f1_lines`).
+    tolerance : float, optional
+        Bands whose largest intensity over the powder is at or below this are dropped.
+
+    Returns
+    -------
+    F1Lines
+        With ``band_weights`` (the real part of the gamma-averaged amplitudes) and the
+        pairs' offsets: n2 nu_r in F2, n1 nu_r / (p - R) in sheared F1 (the shear acts on the
+        rotor-averaged frequencies, so with a synchronised t1 every F1 band folds back onto the
+        centre band and the pair weights sum to the 1D CT bands).
+    """
+    job = ct_lines.job
+    rate = job.spinning_hz
+    if not (rate > 0 and math.isfinite(rate)):
+        raise ValueError("free t1 bands need a finite spinning rate")
+    frame = job.frame()
+    oset = ct_lines.orientations
+    theta = math.radians(job.rotor_angle_deg)
+    scale = f1.scale
+    pairs = list(scale.t1_pairs) + [(0.5, -0.5)]
+    up = np.array([a for a, _ in pairs])
+    lo = np.array([b for _, b in pairs])
+    probe = _perturbative_pairs(frame, oset.vectors[:: max(1, oset.size // 256)], up, lo, theta, 16, True)
+    spread = float(np.max(np.abs(probe - probe.mean(axis=2, keepdims=True)))) if probe.size else 0.0
+    p = max(int(ct_lines.phases), choose_rotor_phases(spread, rate))
+    if job.method == "exact":
+        ui = np.array([int(round(frame.spin - a)) for a in up], dtype=np.int64)
+        li = np.array([int(round(frame.spin - b)) for b in lo], dtype=np.int64)
+        traj, _ = _exact_pairs(frame, oset.vectors, ui, li, theta, p)
+    else:
+        traj = _perturbative_pairs(frame, oset.vectors, up, lo, theta, p, True)
+    amps = band_amplitudes(traj, rate)  # (n_v, n_t1 + 1, P)
+    a, b = amps[:, :-1, :], amps[:, -1:, :]
+    band = np.fft.fftfreq(p, 1.0 / p).astype(int)
+    keep1 = np.flatnonzero(np.max(np.abs(a) ** 2, axis=(0, 1)) > tolerance)
+    keep2 = np.flatnonzero(np.max(np.abs(b) ** 2, axis=(0, 1)) > tolerance)
+    s_full = band_pair_weights(a, np.broadcast_to(b, a.shape))  # (n_v, n_t1, P, P)
+    w = np.real(s_full[:, :, keep1[:, None], keep2[None, :]]).reshape(a.shape[0], a.shape[1], -1)
+    n1 = band[keep1][:, None] * np.ones(keep2.size, dtype=int)[None, :]
+    n2 = np.ones(keep1.size, dtype=int)[:, None] * band[keep2][None, :]
+    d1 = (n1.ravel() * rate) / (scale.order - scale.ratio)
+    d2 = n2.ravel() * rate
+    return replace(f1, band_weights=np.ascontiguousarray(w), band_f2_hz=d2.astype(float), band_f1_hz=d1)
 
 
 def bin_two_dimensional(f2_axis: Axis, f1_axis: Axis, ct: SiteLines, f1: F1Lines, *,
@@ -243,6 +397,14 @@ def _bin(f2_axis, f1_axis, ct, f1, cutoff, nchunk, rate, excitation):
             raise ValueError(f"excitation must be {weights.shape[0]} finite numbers (one per orientation), got "
                              f"shape {eff.shape}")
         weights = weights * eff
+    if f1.band_weights is not None:
+        return _k._bin_tent_2d_pairs(
+            np.ascontiguousarray(ct.mean[:, 0]), np.ascontiguousarray(f1.f1_hz),
+            np.ascontiguousarray(f1.band_weights), np.ascontiguousarray(f1.band_f2_hz),
+            np.ascontiguousarray(f1.band_f1_hz), weights, np.ascontiguousarray(f1.pair_weights),
+            np.ascontiguousarray(oset.triangles, dtype=np.int64), np.ascontiguousarray(oset.triangle_weights),
+            f2_axis.left_edge_hz, f2_axis.dx_hz, f2_axis.points, f1_axis.left_edge_hz, f1_axis.dx_hz,
+            f1_axis.points, nchunk, float(cutoff))
     return _k._bin_tent_2d(
         np.ascontiguousarray(ct.mean[:, 0]), np.ascontiguousarray(ct.intensity[:, 0, :]),
         weights, np.ascontiguousarray(f1.f1_hz),
@@ -377,7 +539,7 @@ def render_two_dimensional(ct: SiteLines | None, f1: F1Lines | None, f2_axis: Ax
     if parts is None:
         s2 = replace(f2_axis, center_hz=f2_axis.center_hz - float(shift_hz))
         s1 = replace(f1_axis, center_hz=f1_axis.center_hz - float(shift_hz))
-        key = ("binned2d", ct.job, f1.scale, s2, s1)
+        key = ("binned2d", ct.job, f1.scale, f1.band_weights is not None, s2, s1)
         frac = memo.get(key) if memo is not None else None
         if frac is None:
             frac = bin_two_dimensional(s2, s1, ct, f1)

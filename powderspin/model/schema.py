@@ -193,8 +193,9 @@ KEYS: tuple[KeySpec, ...] = (
     KeySpec("measurement", "f1_referencing", "choice", "", None, choices=("isotropic", "file"),
             doc="F1 scale of this measurement's 2D data file: \"isotropic\" (already powderspin's sheared "
                 "isotropic scale) or \"file\" (stated in the file's metadata); required to fit 2D data"),
-    KeySpec("measurement", "t1_mode", "choice", "", "synchronised", choices=("synchronised",),
-            doc="t1 increments: \"synchronised\" with the rotor period (F1 sidebands fold onto the centre band)"),
+    KeySpec("measurement", "t1_mode", "choice", "", "synchronised", choices=("synchronised", "free"),
+            doc="t1 increments: \"synchronised\" with the rotor period (F1 sidebands fold onto the centre band) "
+                "or \"free\" (F1 sidebands n nu_r / (p - R) apart)"),
     KeySpec("measurement", "stderr", "table", "", None,
             doc="standard errors of this measurement's fitted values (written by a fit; not used)"),
     KeySpec("measurement", "interval", "table", "", None,

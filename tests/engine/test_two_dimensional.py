@@ -185,3 +185,68 @@ def test_exact_f1_width_comes_from_higher_orders_only(experiment, order):
     perturbative = compute_f1_lines(_lines(Measurement(9.4, spinning_hz="inf", orientations=6),
                                            Site(cq_mhz=13.5, eta_q=0.3)), two_dimensional_scale(2.5, experiment, 3))
     assert np.ptp(perturbative.f1_hz) < 1e-6 * spreads[-1] + 1e-9
+
+
+# --------------------------------------------------------------------------- free (not synchronised) t1
+
+def test_band_amplitudes_match_the_sideband_kernel():
+    """|F_n|^2 of the complex band amplitudes equals the 1D sideband intensities of _sideband_intensities."""
+    from powderspin.engine.spinning import rotor_lines
+    from powderspin.engine.two_dimensional import band_amplitudes
+    rng = np.random.default_rng(2)
+    t = np.arange(64) / 64.0
+    traj = np.zeros((5, 1, 64))
+    for k in range(1, 5):
+        traj += rng.normal(0, 2000.0 / k, (5, 1, 1)) * np.cos(2 * np.pi * k * t + rng.random((5, 1, 1)) * 6)
+    _, amp = rotor_lines(traj, 3000.0)
+    f = band_amplitudes(traj, 3000.0)
+    assert np.allclose(np.abs(f) ** 2, amp, atol=1e-12)
+
+
+def test_band_pair_weights_against_a_time_domain_gamma_average():
+    """The 2D amplitudes reproduce the rotor-phase average of exp(i Phi_A(gamma, t1)) exp(i Phi_B(gamma + w t1,
+    t2)), computed directly from the phase integrals of two trajectories at many rotor phases (the derivation of
+    M. H. Levitt, J. Magn. Reson. 82 (1989) 427, carried to two time variables)."""
+    from powderspin.engine.two_dimensional import band_amplitudes, band_pair_weights
+    rate = 2000.0
+    p = 64
+    ph = 2 * np.pi * np.arange(p) / p
+    a_c = [(1, 1500.0, 0.3), (2, -700.0, 1.1)]   # (harmonic k, amplitude Hz, phase)
+    b_c = [(1, 900.0, -0.4), (2, 400.0, 2.0), (4, 150.0, 0.0)]
+
+    def nu(coefs, phi):
+        return sum(a * np.cos(k * phi + d) for k, a, d in coefs)
+
+    def phase(coefs, g, t):  # 2 pi * integral_0^t nu(g + w tau) d tau, analytic
+        w = 2 * np.pi * rate
+        return sum(2 * np.pi * a * (np.sin(k * (g + w * t) + d) - np.sin(k * g + d)) / (k * w) for k, a, d in coefs)
+
+    s = band_pair_weights(band_amplitudes(nu(a_c, ph), rate), band_amplitudes(nu(b_c, ph), rate))
+    n = np.fft.fftfreq(p, 1.0 / p)
+    gam = 2 * np.pi * np.arange(720) / 720
+    for t1, t2 in [(0.0, 0.0), (1.3e-4, 0.0), (0.0, 2.1e-4), (3.7e-4, 1.9e-4), (7.1e-4, 4.4e-4)]:
+        direct = np.mean(np.exp(1j * phase(a_c, gam, t1)) * np.exp(1j * phase(b_c, gam + 2 * np.pi * rate * t1, t2)))
+        bands = (s * np.exp(2j * np.pi * rate * (n[:, None] * t1 + n[None, :] * t2))).sum()
+        assert abs(bands - direct) < 1e-9
+
+
+def test_pair_kernel_matches_slow_twin_and_free_t1_projects_onto_the_1d_ct():
+    """_bin_tent_2d_pairs against tests/reference/binning2d_numpy.py (bin_pairs_2d); with an F1 axis that holds
+    every F1 band, summing over F1 gives the synchronised spectrum (the amplitudes' sum over n1 is |B_n2|^2)."""
+    from powderspin.engine.two_dimensional import free_t1_bands
+    from tests.reference.binning2d_numpy import bin_pairs_2d
+    ct = _lines(Measurement(9.4, spinning_hz=8000.0, orientations=3), Site(cq_mhz=4.0, eta_q=0.3))
+    f1 = compute_f1_lines(ct, two_dimensional_scale(2.5, "mqmas", 3))
+    fr = free_t1_bands(ct, f1)
+    nu = get_nuclide("27Al").larmor_hz(9.4)
+    lo, hi = ct.frequency_range()
+    a2 = Axis(0.5 * (lo + hi), 1.3 * (hi - lo), 96, nu)
+    a1 = Axis(float(f1.f1_hz.mean()), 400000.0, 64, nu)
+    got = bin_two_dimensional(a2, a1, ct, fr)
+    oset = ct.orientations
+    ref = bin_pairs_2d(ct.mean[:, 0], fr.f1_hz, fr.band_weights, fr.band_f2_hz, fr.band_f1_hz, ct.weights[:, 0],
+                       fr.pair_weights, oset.triangles, oset.triangle_weights, a2.hz, a1.hz, cutoff=1e-13)
+    assert np.abs(got - ref).max() <= 1e-12 * np.abs(ref).max()
+    sync = bin_two_dimensional(a2, a1, ct, f1)
+    assert np.abs(got.sum(axis=0) - sync.sum(axis=0)).max() <= 1e-9 * sync.sum(axis=0).max()
+    assert got.min() < 0 < got.max()   # signed pair weights: the joint spectrum is not positive everywhere

@@ -32,3 +32,22 @@ def bin_triangles_2d(mean, amp, weights, f1, w1, tris, tri_w, rate_hz, f2_points
                 col = triangle_weights_clipped([mean[v] + offs[s] for v in tri], f2_points)
                 out += w * np.outer(row, col)
     return out
+
+
+def bin_pairs_2d(mean, f1, amp, d2, d1, weights, w1, tris, tri_w, f2_points, f1_points, cutoff=0.0):
+    """(n1, n2) intensity of band pairs: amp (n_v, n_t1, Q) signed weights, offsets d2, d1 (Q,) in Hz."""
+    mean = np.asarray(mean, dtype=float)
+    f1 = np.asarray(f1, dtype=float)
+    amp = np.asarray(amp, dtype=float)
+    out = np.zeros((len(f1_points), len(f2_points)))
+    for q, tri in enumerate(np.asarray(tris)):
+        for t in range(f1.shape[1]):
+            fc = np.mean([f1[v, t] for v in tri])
+            for s in range(amp.shape[2]):
+                w = tri_w[q] * np.mean([amp[v, t, s] * weights[v] for v in tri]) * w1[t]
+                if abs(w) <= cutoff:
+                    continue
+                row = hat_weights(fc + d1[s], f1_points)
+                col = triangle_weights_clipped([mean[v] + d2[s] for v in tri], f2_points)
+                out += w * np.outer(row, col)
+    return out
