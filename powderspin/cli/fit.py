@@ -133,7 +133,7 @@ def _run_two_dimensional(model, model_path: Path, data, args) -> int:
     from ..io.spectra2d import read_spectrum_2d
     from ..model.modelfile import write_model
 
-    refused = [name for name, on in (("--report", args.report), ("--posterior", args.posterior),
+    refused = [name for name, on in (("--posterior", args.posterior),
                                      ("--global", args.global_search), ("--region", args.region),
                                      ("--noise-region", args.noise_region)) if on]
     if refused:
@@ -142,7 +142,16 @@ def _run_two_dimensional(model, model_path: Path, data, args) -> int:
     if out.suffix.lower() != ".toml":
         raise CliError(f"-o {args.output!r}: the result is a model file; give a name ending in .toml")
     protect = [model_path] + [Path(p) for p in data]
-    check_outputs([(out, "result file")], force=args.force, protect=protect)
+    two_d = [j for j, m in enumerate(model.measurements) if m.is_two_dimensional]
+    reports = {}
+    if args.report:
+        from ..plotting.spectrum import PLOT_SUFFIXES
+
+        rp = Path(args.report)
+        for j in two_d:
+            reports[j] = rp if len(two_d) == 1 else rp.with_name(f"{rp.stem}-m{j + 1}{rp.suffix}")
+    check_outputs([(out, "result file")] + [(r, "report", PLOT_SUFFIXES) for r in reports.values()],
+                  force=args.force, protect=protect)
     spectra = {}
     for j, (meas, item) in enumerate(zip(model.measurements, data)):
         if meas.is_two_dimensional:
@@ -161,4 +170,15 @@ def _run_two_dimensional(model, model_path: Path, data, args) -> int:
     write_model(result.fitted_model(), out, force=args.force, protect=protect, header=header)
     print(result.summary(), end="")
     print(f"wrote {out}", file=sys.stderr)
+    if reports:
+        from ..engine.lineshape import Axis
+        from ..plotting.spectrum2d import save_fit_report_2d
+        from ..simulator import Simulator
+
+        for j, rp in reports.items():
+            d = spectra[j]
+            sim = Simulator(result.fitted_model(), j, axis=Axis.from_points(d.f2_hz, d.nu_ref_hz, rtol=1e-3),
+                            f1_axis=Axis.from_points(d.f1_hz, d.nu_ref_hz, rtol=1e-3))
+            save_fit_report_2d(d, sim.spectrum(), rp, force=args.force, protect=protect + [out])
+            print(f"wrote {rp}", file=sys.stderr)
     return 0

@@ -20,7 +20,7 @@ from matplotlib.figure import Figure
 
 from ..files import check_outputs, write_via
 
-__all__ = ["plot_spectrum_2d", "save_plot_2d"]
+__all__ = ["plot_spectrum_2d", "save_plot_2d", "plot_fit_2d", "save_fit_report_2d"]
 
 
 def _k_f1(spectrum) -> float | None:
@@ -189,3 +189,114 @@ def save_plot_2d(spectrum, path, *, force: bool = False, protect=(), **options):
     fig = plot_spectrum_2d(spectrum, **options)
     return write_via(p, lambda tmp: fig.savefig(tmp, dpi=120, format=p.suffix[1:].lower()), force=force,
                      protect=protect, role="plot")
+
+
+def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lowest: float = 0.05) -> Figure:
+    """A 2D fit at a glance: data and fit contours side by side, the residual, and each site's F2 slice.
+
+    Parameters
+    ----------
+    data : MeasuredSpectrum2D
+        The measured spectrum (:func:`powderspin.io.spectra2d.read_spectrum_2d`).
+    fitted : Spectrum2D
+        The fitted model simulated on the data's axes (its measurement's scale applied).
+    fig : matplotlib.figure.Figure, optional
+    levels : int, optional
+        Contour levels (geometric, from ``lowest`` to 1 of the data's maximum).
+    lowest : float, optional
+        Lowest contour as a fraction of the data's maximum.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+
+    Raises
+    ------
+    ValueError
+        Data and fit on different points.
+
+    Examples
+    --------
+    >>> from powderspin.engine.spectrum2d import Spectrum2D
+    >>> from powderspin.io.spectra2d import MeasuredSpectrum2D
+    >>> f1, f2 = np.linspace(0, 20, 21), np.linspace(0, 30, 31)
+    >>> z = np.exp(-((f1[:, None] - 10) ** 2 + (f2[None, :] - 15) ** 2) / 8)
+    >>> d = MeasuredSpectrum2D(f1, f2, z, 1e8, "x")
+    >>> s = Spectrum2D(f1 * 100, f1, f2 * 100, f2, z, ("a",), z[None], {"centres_of_gravity_ppm": {"a": {"f1": 10.0}}})
+    >>> len(plot_fit_2d(d, s).axes)
+    4
+    """
+    if data.intensity.shape != fitted.intensity.shape or not (
+            np.allclose(data.f1_ppm, fitted.f1_ppm) and np.allclose(data.f2_ppm, fitted.f2_ppm)):
+        raise ValueError("data and fit must be on the same F1 and F2 points")
+    if fig is None:
+        fig = Figure(figsize=(10.0, 8.0), layout="constrained")
+    x, y = data.f2_ppm, data.f1_ppm
+    top = float(np.max(np.abs(data.intensity))) or 1.0
+    lv = top * np.geomspace(lowest, 1.0, int(levels))
+    axes = fig.subplots(2, 2)
+    for ax, z, title in ((axes[0, 0], data.intensity, "data"), (axes[0, 1], fitted.intensity, "fit")):
+        ax.contour(x, y, z, levels=lv, colors="k", linewidths=0.6)
+        ax.set_title(title, fontsize=10)
+    res = data.intensity - fitted.intensity
+    # residual contours from three standard deviations of the residual itself (so noise alone draws little)
+    big = float(np.max(np.abs(res)))
+    start = 3.0 * float(np.std(res))
+    ax = axes[1, 0]
+    if big > start > 0:
+        rl = np.geomspace(start, big, int(levels))
+        if np.any(res > start):
+            ax.contour(x, y, res, levels=rl, colors="C3", linewidths=0.6)
+        if np.any(-res > start):
+            ax.contour(x, y, -res, levels=rl, colors="C0", linewidths=0.6)
+    ax.set_title(f"residual, from 3 s.d. (red +, blue -); largest {100 * big / top:.2g} % of the data's maximum",
+                 fontsize=9)
+    for a in (axes[0, 0], axes[0, 1], axes[1, 0]):
+        a.set_xlim(x.max(), x.min())
+        a.set_ylim(y.max(), y.min())
+        a.set_xlabel("F2 / ppm")
+        a.set_ylabel("F1 / ppm (sheared)")
+    ax = axes[1, 1]
+    cogs = fitted.metadata.get("centres_of_gravity_ppm", {})
+    offset = 0.0
+    for k, label in enumerate(fitted.site_labels):
+        c = (cogs.get(label) or {}).get("f1")
+        if c is None or not (y.min() <= c <= y.max()):
+            continue
+        j = int(np.argmin(np.abs(y - c)))
+        d_row, f_row = data.intensity[j], fitted.intensity[j]
+        ax.plot(x, d_row + offset, color="k", lw=0.8, label="data" if k == 0 else None)
+        ax.plot(x, f_row + offset, color=f"C{k % 10}", lw=1.0, label=f"{label} (F1 {y[j]:.1f} ppm)")
+        offset += 1.1 * max(float(np.max(np.abs(d_row))), float(np.max(np.abs(f_row))))
+    ax.set_xlim(x.max(), x.min())
+    ax.set_yticks([])
+    ax.set_xlabel("F2 / ppm")
+    ax.set_title("F2 slice at each site's F1 centre", fontsize=10)
+    ax.legend(frameon=False, fontsize=8)
+    return fig
+
+
+def save_fit_report_2d(data, fitted, path, *, force: bool = False, protect=()):
+    """Save :func:`plot_fit_2d` (PNG, PDF or SVG by suffix); never overwrites without force.
+
+    Parameters
+    ----------
+    data : MeasuredSpectrum2D
+    fitted : Spectrum2D
+    path : str or pathlib.Path
+    force : bool, optional
+    protect : iterable of path, optional
+
+    Returns
+    -------
+    pathlib.Path
+    """
+    from pathlib import Path
+
+    from .spectrum import PLOT_SUFFIXES
+
+    p = Path(path)
+    check_outputs([(p, "report", PLOT_SUFFIXES)], force=force, protect=protect)
+    fig = plot_fit_2d(data, fitted)
+    return write_via(p, lambda tmp: fig.savefig(tmp, dpi=110, format=p.suffix[1:].lower()), force=force,
+                     protect=protect, role="report")

@@ -142,7 +142,9 @@ def test_fit_command_fits_2d_data(tmp_path, capsys):
     _synthetic_2d(tmp_path)
     model = _model(tmp_path, FIT_MODEL.format(ref='f1_referencing = "file"'))
     out = tmp_path / "res.toml"
-    assert main(["fit", str(model), "-o", str(out), "-q"]) == 0
+    report = tmp_path / "fit.png"
+    assert main(["fit", str(model), "-o", str(out), "--report", str(report), "-q"]) == 0
+    assert report.read_bytes()[:4] == b"\x89PNG"
     text = capsys.readouterr().out
     assert "converged" in text and "Na1.cq_mhz" in text
     from powderspin.model.modelfile import load_model
