@@ -210,7 +210,7 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
     sol = least_squares(problem.residual, x0, jac=problem.jacobian, bounds=(problem.lo, problem.hi),
                         method="trf", x_scale="jac", max_nfev=max_evaluations)
     e = problem.evaluate(sol.x)
-    chi2 = float(e.residual @ e.residual)
+    chi2 = float(np.einsum("i,i->", e.residual, e.residual))
     jfull, n_lin = problem.full_jacobian(sol.x)
     dof = max(1, e.residual.size - sol.x.size - sum(n_lin))
     red = chi2 / dof
