@@ -439,8 +439,13 @@ class Simulator:
         lo, hi, ct_span = math.inf, -math.inf, 0.0
         for k, site in enumerate(model.sites):
             for lines, f1, sh, _ in self._two_d_parts(model, k):
-                lo = min(lo, float(f1.f1_hz.min()) + sh)
-                hi = max(hi, float(f1.f1_hz.max()) + sh)
+                ext = (0.0, 0.0)
+                if f1.band_weights is not None:  # free t1: the F1 bands that carry intensity
+                    big = np.max(np.abs(f1.band_weights), axis=(0, 1))
+                    on = f1.band_f1_hz[big > 1e-4 * big.max()]
+                    ext = (float(on.min()), float(on.max()))
+                lo = min(lo, float(f1.f1_hz.min()) + sh + ext[0])
+                hi = max(hi, float(f1.f1_hz.max()) + sh + ext[1])
                 ct_span = max(ct_span, float(np.ptp(lines.mean)))
         # margin: the F1 broadening, and half the widest centre-band CT pattern (at least 1 ppm), so the F1 axis
         # shows the sites with room for their neighbours' usual spread

@@ -57,6 +57,7 @@ from .site_lines import (
     BIN_CUTOFF,
     INFINITE_RATE_PHASES,
     INFINITE_RATE_PHASES_EXACT,
+    LINES_MEMORY_BUDGET,
     SiteLines,
     _chunks,
 )
@@ -319,6 +320,11 @@ def free_t1_bands(ct_lines: SiteLines, f1: F1Lines, *, tolerance: float = 1e-10)
     probe = _perturbative_pairs(frame, oset.vectors[:: max(1, oset.size // 256)], up, lo, theta, 16, True)
     spread = float(np.max(np.abs(probe - probe.mean(axis=2, keepdims=True)))) if probe.size else 0.0
     p = max(int(ct_lines.phases), choose_rotor_phases(spread, rate))
+    need = oset.size * len(pairs) * p * 16 * 4  # trajectories, band coefficients and their transforms
+    if need > LINES_MEMORY_BUDGET:
+        raise ModelError(f"t1_mode = 'free': {p} rotor phases for {oset.size} orientations would need "
+                         f"{need / 2 ** 20:.0f} MB (more than {LINES_MEMORY_BUDGET / 2 ** 20:.0f} MB); spin faster, "
+                         "use fewer orientations, or t1_mode = \"synchronised\"")
     if job.method == "exact":
         ui = np.array([int(round(frame.spin - a)) for a in up], dtype=np.int64)
         li = np.array([int(round(frame.spin - b)) for b in lo], dtype=np.int64)
@@ -330,8 +336,16 @@ def free_t1_bands(ct_lines: SiteLines, f1: F1Lines, *, tolerance: float = 1e-10)
     band = np.fft.fftfreq(p, 1.0 / p).astype(int)
     keep1 = np.flatnonzero(np.max(np.abs(a) ** 2, axis=(0, 1)) > tolerance)
     keep2 = np.flatnonzero(np.max(np.abs(b) ** 2, axis=(0, 1)) > tolerance)
-    s_full = band_pair_weights(a, np.broadcast_to(b, a.shape))  # (n_v, n_t1, P, P)
-    w = np.real(s_full[:, :, keep1[:, None], keep2[None, :]]).reshape(a.shape[0], a.shape[1], -1)
+    need = a.shape[0] * a.shape[1] * keep1.size * keep2.size * 8
+    if need > LINES_MEMORY_BUDGET:
+        raise ModelError(f"t1_mode = 'free': {keep1.size} F1 x {keep2.size} F2 bands over {a.shape[0]} orientations "
+                         f"would need {need / 2 ** 20:.0f} MB (more than {LINES_MEMORY_BUDGET / 2 ** 20:.0f} MB); "
+                         "spin faster, use fewer orientations, or t1_mode = \"synchronised\"")
+    # S[n1, n2] = conj(A[n1]) B[n2] G[n2 - n1] (band_pair_weights) on the kept bands only
+    g = np.fft.fft(np.fft.fft(a, axis=-1) * np.conj(np.fft.fft(np.broadcast_to(b, a.shape), axis=-1)), axis=-1) / p
+    diff = (keep2[None, :] - keep1[:, None]) % p
+    s_kept = (np.conj(a[:, :, keep1])[:, :, :, None] * b[:, :, keep2][:, :, None, :] * g[:, :, diff])
+    w = np.real(s_kept).reshape(a.shape[0], a.shape[1], -1)
     n1 = band[keep1][:, None] * np.ones(keep2.size, dtype=int)[None, :]
     n2 = np.ones(keep1.size, dtype=int)[:, None] * band[keep2][None, :]
     d1 = (n1.ravel() * rate) / (scale.order - scale.ratio)
