@@ -237,3 +237,16 @@ def test_free_t1_shows_f1_sidebands_at_the_sheared_spacing():
     gaps = np.diff(free.f1_ppm[peaks])
     assert len(peaks) >= 3 and np.allclose(gaps, spacing_ppm, atol=1.01 * free.dx1_ppm)
     assert "not rotor-synchronised" in " ".join(free.metadata["notes"])
+
+
+def test_free_t1_stmas_covers_its_f1_manifold_and_refuses_what_memory_cannot_hold(monkeypatch):
+    """Non-synchronised STMAS spreads the satellites' first-order manifold over F1 sidebands; the automatic F1
+    axis holds them (each site integrates to its weight), and a case beyond the memory budget is refused."""
+    m = _model(sites=[{"label": "A", "shift_ppm": 60.0, "cq_mhz": 3.0, "eta_q": 0.3}], experiment="stmas",
+               t1_mode="free", spinning_hz=20000.0, orientations=12, f1_points=256)
+    s = ps.simulate(m)
+    assert s.intensity.sum() * s.dx1_ppm * s.dx2_ppm == pytest.approx(1.0, abs=1e-4)
+    import powderspin.engine.two_dimensional as td
+    monkeypatch.setattr(td, "LINES_MEMORY_BUDGET", 1000)
+    with pytest.raises(ModelError, match="t1_mode = 'free'.*MB"):
+        ps.simulate(m)
