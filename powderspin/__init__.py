@@ -52,6 +52,10 @@ _EXPORTS = {
     "AxisUnitError": "io.spectra", "MismatchError": "fitting.data", "ProcessingError": "processing.options",
     "FitCancelled": "explorer.state",
     "OrientationSetFileMissing": "physics.orientations", "DamagedEntryWarning": "disorder.library",
+    "Spectrum2D": "engine.spectrum2d", "read_spectrum_2d": "io.spectra2d", "MeasuredSpectrum2D": "io.spectra2d",
+    "write_spectrum_2d": "io.spectra2d", "plot_spectrum_2d": "plotting.spectrum2d",
+    "save_plot_2d": "plotting.spectrum2d",
+    "fit_two_dimensional": "fitting.two_dimensional", "plan_f1_resolution": "planning.two_dimensional",
 }
 
 __all__ = sorted(_EXPORTS) + ["__version__"]

@@ -57,8 +57,12 @@ from .engine.site_lines import (
     site_job,
 )
 from .engine.spectrum import Spectrum
+from .engine.spectrum2d import Spectrum2D
+from .engine.threads import kernel_threads
+from .engine.two_dimensional import compute_f1_lines, free_t1_bands, render_two_dimensional
 from .model.modelfile import load_model
 from .model.values import Model, ModelError, ParameterAddress, selected_transitions
+from .physics.multiple_quantum import isotropic_shifts_ppm, two_dimensional_scale
 from .physics.orientations import OrientationSet, orientation_set_by_name
 from .progress import emit
 
@@ -222,6 +226,10 @@ class Simulator:
         stages ``"lines"`` and ``"kernels"``, labelled by site.
     cache : SimulationCache, optional
         Memos shared with other Simulators of the same sample.
+    f1_axis : Axis, optional
+        The F1 axis of a 2D measurement (e.g. a measured spectrum's); the
+        measurement's ``f1_points``, ``f1_center_ppm`` and ``f1_width_ppm`` are
+        then not used.
 
     Attributes
     ----------
@@ -273,7 +281,7 @@ class Simulator:
 
     def __init__(self, model, measurement: int = 0, *, axis: Axis | None = None, orientations=None, methods=None,
                  parameters=None, kernel_store=None, allow_strong_coupling: bool = False, progress=None,
-                 cache: SimulationCache | None = None):
+                 cache: SimulationCache | None = None, f1_axis: Axis | None = None):
         model = as_model(model)
         if isinstance(measurement, bool) or not isinstance(measurement, (int, np.integer)) or \
                 not 0 <= measurement < len(model.measurements):
@@ -287,6 +295,14 @@ class Simulator:
         meas = model.measurements[measurement]
         nuc = model.nucleus
         n = len(model.sites)
+        self._two_d = None
+        if meas.is_two_dimensional:
+            self._init_two_dimensional(model, measurement, axis=axis, orientations=orientations, methods=methods,
+                                       parameters=parameters, cache=cache, f1_axis=f1_axis, kernel_store=kernel_store)
+            return
+        if f1_axis is not None:
+            raise ModelError("simulate: f1_axis is for a 2D measurement (experiment = 'mqmas' or 'stmas'); this one "
+                             "is experiment = '1d'")
         self.nu_ref_hz = nu_ref = nuc.larmor_hz(meas.field_tesla)
         notes = check_high_field(model.sites, nuc, meas.field_tesla, allow_strong_coupling=allow_strong_coupling)
         self.parameters = self._addresses(parameters)
@@ -405,6 +421,236 @@ class Simulator:
                                          meas.echo_train_output)
             self._comb.flags.writeable = False
         self._notes = list(notes)
+
+    def _init_two_dimensional(self, model: Model, index: int, *, axis, orientations, methods, parameters, cache,
+                              f1_axis, kernel_store):
+        """A 2D measurement: F2 decided by a 1D Simulator of its central transition, then the F1 axis."""
+        meas = model.measurements[index]
+        scale = two_dimensional_scale(model.nucleus.spin, meas.experiment, meas.mq_order)
+        inner = Simulator(_central_transition_twin(model, index), index, axis=axis, orientations=orientations,
+                          methods=methods, parameters=parameters, allow_strong_coupling=self.allow_strong_coupling,
+                          progress=self.progress, cache=cache, kernel_store=kernel_store)
+        self._two_d = scale
+        self._two_d_convention = scale.describe()
+        self._inner = inner
+        for name in ("nu_ref_hz", "parameters", "_tied_sources", "cache", "axis", "_distributed", "kernel_store",
+                     "_methods", "_sets", "_job_meas", "_orientation_error", "_phases"):
+            setattr(self, name, getattr(inner, name))
+        notes = list(inner.notes)
+        if meas.spinning_hz > 0 and math.isfinite(meas.spinning_hz):
+            if meas.t1_mode == "free":
+                notes.append("t1 is not rotor-synchronised: F1 sidebands n nu_r / (p - R) apart; each band pair "
+                             "carries the real part of its rotor-phase-averaged amplitude (may be negative)")
+            else:
+                notes.append("t1 is rotor-synchronised: F1 sidebands fold onto the centre band (F1 spectral width = "
+                             "spinning rate in the unsheared t1 scale)")
+        self._notes = notes
+        f = self.nu_ref_hz * 1e-6
+        if f1_axis is not None:
+            if abs(f1_axis.nu_ref_hz - self.nu_ref_hz) > 1e-9 * self.nu_ref_hz:
+                raise ModelError(f"simulate: the F1 axis has nu_ref = {f1_axis.nu_ref_hz:.9g} Hz but the "
+                                 f"measurement's is {self.nu_ref_hz:.9g} Hz")
+            self.f1_axis = f1_axis
+            return
+        if meas.f1_center_ppm is not None and meas.f1_width_ppm is not None:
+            self.f1_axis = make_axis(meas.f1_points, self.nu_ref_hz, meas.f1_center_ppm, meas.f1_width_ppm)
+            return
+        lo, hi, ct_span = math.inf, -math.inf, 0.0
+        for k, site in enumerate(model.sites):
+            for lines, f1, sh, _ in self._two_d_parts(model, k):
+                ext = (0.0, 0.0)
+                if f1.band_weights is not None:  # free t1: the F1 bands that carry intensity
+                    big = np.max(np.abs(f1.band_weights), axis=(0, 1))
+                    on = f1.band_f1_hz[big > 1e-4 * big.max()]
+                    ext = (float(on.min()), float(on.max()))
+                lo = min(lo, float(f1.f1_hz.min()) + sh + ext[0])
+                hi = max(hi, float(f1.f1_hz.max()) + sh + ext[1])
+                ct_span = max(ct_span, float(np.ptp(lines.mean)))
+        # margin: the F1 broadening, and half the widest centre-band CT pattern (at least 1 ppm), so the F1 axis
+        # shows the sites with room for their neighbours' usual spread
+        widest_shift = max(s.shift_fwhm_ppm for s in model.sites) * f
+        pad = max(4.0 * (meas.f1_lorentz_hz + meas.f1_gauss_hz) + 2.0 * widest_shift, 0.5 * ct_span, f)
+        self.f1_axis = make_axis(meas.f1_points, self.nu_ref_hz, meas.f1_center_ppm, meas.f1_width_ppm,
+                                 (lo - pad, hi + pad))
+
+    def _two_d_lines(self, model: Model, k: int):
+        """(CT lines, F1 lines) of site k of a 2D measurement."""
+        site = model.sites[k]
+        job = site_job(site, self._job_meas[k], model.nucleus, self._methods[k], self._sets[k])
+        lines = self._inner._lines(job, k, site.label)
+        return lines, self._f1_of(lines, model.measurements[self.index])
+
+    def _f1_of(self, lines, meas):
+        """F1 lines of a site's CT lines (memoised), with the F1 band pairs when t1 is not synchronised."""
+        free = meas.t1_mode == "free" and meas.spinning_hz > 0 and math.isfinite(meas.spinning_hz)
+        key = ("f1", lines.job, self._two_d, free)
+        f1 = self.cache.lines.get(key)
+        if f1 is None:
+            f1 = compute_f1_lines(lines, self._two_d)
+            if free:
+                f1 = free_t1_bands(lines, f1)
+            self.cache.lines[key] = f1
+        return f1
+
+    def _two_d_parts(self, model: Model, k: int) -> list:
+        """(CT lines, F1 lines, translation Hz, share) of site k: one part, or one per node of its EFG distribution.
+
+        An EFG distribution is sampled on the (C_Q, eta) grid of :mod:`powderspin.physics.distributions`, each
+        node a site of its own; a shift distribution is applied when rendering, along the diagonal.
+        """
+        site = model.sites[k]
+        meas = model.measurements[self.index]
+        f = self.nu_ref_hz * 1e-6
+        base = (site.shift.iso_ppm + meas.shift_offset_ppm) * f
+        if not (site.has_efg_distribution or k in self._distributed):
+            lines, f1 = self._two_d_lines(model, k)
+            return [(lines, f1, base - lines.job.iso_ppm * f, 1.0)]
+        plain = replace(site, czjzek_sigma_mhz=0.0, cq_distribution_mhz=None, eta_distribution=None,
+                        shift_fwhm_ppm=0.0)
+        efg = [(plain, 1.0)]
+        if site.has_efg_distribution:
+            grid = self._efg_grid_2d(model, k)
+            top = float(grid.weights.max())
+            efg = [(replace(plain, cq_mhz=float(c), eta_q=float(e)), float(grid.weights[i, j]))
+                   for i, c in enumerate(grid.cq_mhz) for j, e in enumerate(grid.eta)
+                   if grid.weights[i, j] > 1e-9 * top]
+        nuc = model.nucleus
+        twin = _central_transition_twin(model, self.index).measurements[self.index]
+        method = "exact" if meas.method == "exact" else "perturbation"
+        parts = []
+        with kernel_threads(1):  # many small calls (engine/threads.py)
+            for variant, w_e in efg:
+                job = site_job(variant, twin, nuc, method)
+                lines = self.cache.lines.get(job)
+                if lines is None:
+                    lines = compute_lines(job)
+                    self.cache.lines[job] = lines
+                f1 = self._f1_of(lines, meas)
+                parts.append((lines, f1, base - lines.job.iso_ppm * f, w_e))
+        return parts
+
+    def _efg_grid_2d(self, model: Model, k: int):
+        """The (C_Q, eta) grid of site k's EFG distribution, spaced for the F2 axis and broadening."""
+        from .physics.distributions import czjzek_grid, explicit_grid
+
+        site = model.sites[k]
+        meas = model.measurements[self.index]
+        if site.czjzek_sigma_mhz > 0:
+            # the grid's spacing criterion (powderspin.physics.distributions.czjzek_grid) at the F2 resolution:
+            # the point spacing, or what broadens the site more (its broadening, its shift distribution)
+            res = max(self.axis.dx_hz, site.lorentz_hz + meas.lorentz_hz, math.hypot(site.gauss_hz, meas.gauss_hz),
+                      site.shift_fwhm_ppm * self.nu_ref_hz * 1e-6)
+            key = ("czjzek-2d", site.czjzek_sigma_mhz, site.cq_mhz, site.eta_q, model.nucleus.spin, self.nu_ref_hz,
+                   res)
+            grid = self.cache.lines.get(key)
+            if grid is None:
+                grid = czjzek_grid(site.czjzek_sigma_mhz, model.nucleus.spin, self.nu_ref_hz, res,
+                                   cq0_mhz=site.cq_mhz, eta0=site.eta_q)
+                self.cache.lines[key] = grid
+            return grid
+
+        def dist(given, value):
+            if given is None:
+                return {"values": [value], "weights": [1.0]}
+            return {"values": list(given[0]), "weights": list(given[1])}
+
+        return explicit_grid(dist(site.cq_distribution_mhz, site.cq_mhz), dist(site.eta_distribution, site.eta_q))
+
+    def _render_site_2d(self, model: Model, k: int):
+        meas = model.measurements[self.index]
+        site = model.sites[k]
+        parts = self._two_d_parts(model, k)
+        common = dict(weight=site.weight, lorentz_hz=site.lorentz_hz + meas.lorentz_hz,
+                      gauss_hz=math.hypot(site.gauss_hz, meas.gauss_hz), f1_lorentz_hz=meas.f1_lorentz_hz,
+                      f1_gauss_hz=meas.f1_gauss_hz, memo=self.cache.rendered, shift_fwhm_ppm=site.shift_fwhm_ppm)
+        if len(parts) == 1:
+            lines, f1, sh, _ = parts[0]
+            return render_two_dimensional(lines, f1, self.axis, self.f1_axis, shift_hz=sh, **common), lines, sh
+        r = render_two_dimensional(None, None, self.axis, self.f1_axis, parts=parts, **common)
+        return r, parts[0][0], parts[0][2]
+
+    def _spectrum_2d(self, values) -> Spectrum2D:
+        model = self.model_at(values)
+        meas = model.measurements[self.index]
+        nuc = model.nucleus
+        scale = self._two_d
+        notes = list(self._notes)
+        parts = self._render(model)
+        ys = []
+        for site, (r, _, _) in zip(model.sites, parts):
+            ys.append(r.intensity)
+            if r.lost_fraction > LOST_NOTE_FRACTION and site.weight > 0:
+                notes.append(f"site '{site.label}': {r.lost_fraction:.2%} of its intensity lies outside the axes "
+                             "(widen width_ppm / f1_width_ppm or move center_ppm / f1_center_ppm)")
+        ys = np.array(ys)
+        total = ys.sum(axis=0)
+        if meas.scale != 1.0:
+            ys = ys * meas.scale
+            total = total * meas.scale
+        labels = [s.label for s in model.sites]
+        cogs = {}
+        for s in model.sites:
+            d1, d2 = isotropic_shifts_ppm(scale, s.cq_mhz, s.eta_q, self.nu_ref_hz,
+                                          s.shift.iso_ppm + meas.shift_offset_ppm)
+            cogs[s.label] = {"f1": d1, "f2": d2}
+        meta = {
+            "powderspin_version": __version__,
+            "nucleus": nuc.name,
+            "spin": nuc.spin_label,
+            "field_tesla": meas.field_tesla,
+            "nu_ref_hz": self.nu_ref_hz,
+            "experiment": meas.experiment,
+            "f1_convention": dict(self._two_d_convention),
+            "centres_of_gravity_ppm": cogs,
+            "centres_of_gravity_note": ("second-order theory at the magic angle and infinite rate "
+                                        "(powderspin.physics.multiple_quantum)"),
+            "excitation": "ideal: each site's 2D integral equals its weight",
+            "spinning_hz": "inf" if meas.is_infinite_rate else meas.spinning_hz,
+            "rotor_angle_deg": meas.rotor_angle_deg,
+            "t1_mode": meas.t1_mode,
+            "f2_sidebands": ("none (infinite rate)" if meas.is_infinite_rate else
+                             "the central transition's, each at the F1 position of its F1 band (the shear acts "
+                             "on the rotor-averaged frequencies; a frequency-domain shear would move them in F1)"),
+            "method": {lab: lines.method for lab, (_, lines, _) in zip(labels, parts)},
+            "orientations": {lab: f"{lines.orientations.name} ({lines.orientations.size} directions)"
+                             for lab, (_, lines, _) in zip(labels, parts)},
+            "rotor_phases": {lab: lines.phases for lab, (_, lines, _) in zip(labels, parts)},
+            "lorentz_hz": meas.lorentz_hz,
+            "gauss_hz": meas.gauss_hz,
+            "f1_lorentz_hz": meas.f1_lorentz_hz,
+            "f1_gauss_hz": meas.f1_gauss_hz,
+            "shift_offset_ppm": meas.shift_offset_ppm,
+            "points": [self.f1_axis.points, self.axis.points],
+            "sites": {s.label: _site_record(s) for s in model.sites},
+            "intensity_units": "density per ppm^2; each site integrates to its weight",
+            "notes": notes,
+        }
+        if meas.experiment == "mqmas":
+            meta["mq_order"] = meas.mq_order
+        if meas.scale != 1.0:
+            meta["scale"] = meas.scale
+        if len(model.measurements) > 1:
+            meta["measurement"] = f"{self.index + 1} of {len(model.measurements)}"
+        if model.source:
+            meta["model"] = model.source
+        a1, a2 = self.f1_axis, self.axis
+        return Spectrum2D(a1.hz, a1.ppm, a2.hz, a2.ppm, total, tuple(labels), ys, meta)
+
+    def _one_dimensional_only(self, what: str) -> None:
+        if self._two_d is not None:
+            raise ModelError(f"simulate: {what} is for 1D measurements; this one is experiment = "
+                             f"{self.measurement.experiment!r} (its F2 dimension is the measurement with "
+                             "experiment = \"1d\")")
+
+    @property
+    def is_two_dimensional(self) -> bool:
+        """True when the measurement is an MQMAS or STMAS experiment (:meth:`spectrum` returns a Spectrum2D).
+
+        Returns
+        -------
+        bool
+        """
+        return self._two_d is not None
 
     # -- what was decided
 
@@ -572,6 +818,8 @@ class Simulator:
 
     def _render_site(self, model: Model, k: int):
         """(RenderedSite, SiteLines or None, translation Hz) of site k of ``model``."""
+        if self._two_d is not None:
+            return self._render_site_2d(model, k)
         meas = model.measurements[self.index]
         site = model.sites[k]
         f = self.nu_ref_hz * 1e-6
@@ -649,8 +897,11 @@ class Simulator:
 
         Returns
         -------
-        Spectrum
-            Axis in Hz and ppm, per-site and summed intensities (densities per
+        Spectrum or Spectrum2D
+            A 2D measurement (``experiment = "mqmas"``/``"stmas"``) gives a
+            :class:`~powderspin.engine.spectrum2d.Spectrum2D` (sheared, F1 the
+            isotropic dimension; :mod:`powderspin.engine.two_dimensional`).
+            Otherwise: axis in Hz and ppm, per-site and summed intensities (densities per
             ppm; each site integrates to its weight), the metadata that made
             it and, under finite-rate spinning, the sideband table.  The
             measurement's ``scale`` (default 1) multiplies every site, and its
@@ -664,6 +915,8 @@ class Simulator:
         >>> round(Simulator(m).spectrum().area(), 3)
         1.0
         """
+        if self._two_d is not None:
+            return self._spectrum_2d(values)
         model = self.model_at(values)
         meas = model.measurements[self.index]
         nuc = model.nucleus
@@ -829,10 +1082,10 @@ class Simulator:
                 k = a.index
                 mk = self.model_at(t)
                 r, _, _ = self._render_site(mk, k)
-                cols.append((r.intensity - y0[k]) / h[q])
+                cols.append(((r.intensity - y0[k]) / h[q]).ravel())
             else:
-                cols.append((self.site_intensities(t).sum(axis=0) - total0) / h[q])
-        return np.column_stack(cols) if cols else np.zeros((self.axis.points, 0))
+                cols.append(((self.site_intensities(t).sum(axis=0) - total0) / h[q]).ravel())
+        return np.column_stack(cols) if cols else np.zeros((total0.size, 0))
 
     # -- what the planner reads
 
@@ -849,6 +1102,7 @@ class Simulator:
             Static and infinite-rate sites: the whole site.  Sites with an EFG
             distribution (rendered from kernels without bands): the whole site.
         """
+        self._one_dimensional_only("centrebands")
         model = self.model_at(values)
         meas = model.measurements[self.index]
         out = []
@@ -881,6 +1135,7 @@ class Simulator:
         list of numpy.ndarray
             Normalised to a total of 1 per site; ``[1.0]`` for a distributed site.
         """
+        self._one_dimensional_only("band_intensities")
         model = self.model_at(values)
         return [np.ones(1) if k in self._distributed else np.asarray(self._site_lines(model, k)[0].band_intensity)
                 for k in range(len(model.sites))]
@@ -897,6 +1152,7 @@ class Simulator:
         numpy.ndarray, shape (n_sites,)
             NaN for a site with an EFG distribution.
         """
+        self._one_dimensional_only("centres_of_gravity_hz")
         model = self.model_at(values)
         out = []
         for k in range(len(model.sites)):
@@ -907,6 +1163,11 @@ class Simulator:
             tot = float(lines.band_intensity.sum())
             out.append(float(lines.band_position_hz.sum() / tot) + sh if tot > 0 else math.nan)
         return np.array(out)
+
+
+def _central_transition_twin(model: Model, index: int) -> Model:
+    """The model with measurement ``index`` made a 1D central-transition spectrum (the F2 dimension of a 2D one)."""
+    return model.with_measurement(index, experiment="1d")
 
 
 def estimate_spans_hz(model, measurement: int = 0) -> list[tuple[float, float]]:
@@ -973,8 +1234,10 @@ def simulate(model, *, measurement: int = 0, orientations=None, axis: Axis | Non
 
     Returns
     -------
-    Spectrum
-        As :meth:`Simulator.spectrum` at the model's own values.
+    Spectrum or Spectrum2D
+        As :meth:`Simulator.spectrum` at the model's own values: a
+        :class:`~powderspin.engine.spectrum2d.Spectrum2D` for a measurement with
+        ``experiment = "mqmas"`` or ``"stmas"``.
 
     See Also
     --------

@@ -47,6 +47,9 @@ def add_parser(sub) -> None:
                    help="unit of the data files' axis column when the files do not name it")
     f.add_argument("--accept-mismatch", action="store_true",
                    help="fit data whose own header states another nucleus or field than the model (refused otherwise)")
+    f.add_argument("--f1-referencing", choices=("isotropic", "file"),
+                   help="F1 scale of 2D (MQMAS/STMAS) data files: already powderspin's sheared isotropic scale, or "
+                        "as stated in the file (overrides the measurements' f1_referencing)")
     f.add_argument("--force", action="store_true", help="overwrite existing output files")
     f.add_argument("-q", "--quiet", action="store_true", help="no progress bars")
     add_cache_options(f)
@@ -149,6 +152,8 @@ def run(args) -> int:
         if is_raw_data(p):
             check_against_model(read_raw(p, expect="any"), model.nucleus.name, model.measurements[j].field_tesla,
                                 f"measurement {j + 1}")
+    if any(m.is_two_dimensional for m in model.measurements):
+        return _run_two_dimensional(model, model_path, data, args)
     outputs = fit_outputs(args, n_meas)
     protect = [model_path] + [Path(p) for p in data]
     check_outputs(outputs, force=args.force, protect=protect, make_folders=False)
@@ -157,4 +162,63 @@ def run(args) -> int:
     print(result.summary(), end="")
     for p in written:
         print(f"wrote {p}", file=sys.stderr)
+    return 0
+
+
+def _run_two_dimensional(model, model_path: Path, data, args) -> int:
+    """A model with a 2D measurement: :func:`powderspin.fitting.two_dimensional.fit_two_dimensional`."""
+    from ..files import check_outputs
+    from ..fitting.data import read_measured
+    from ..fitting.two_dimensional import fit_two_dimensional
+    from ..io.spectra2d import read_spectrum_2d
+    from ..model.modelfile import write_model
+
+    refused = [name for name, on in (("--posterior", args.posterior),
+                                     ("--global", args.global_search), ("--region", args.region),
+                                     ("--noise-region", args.noise_region)) if on]
+    if refused:
+        raise CliError(f"{', '.join(refused)}: not available yet when the model has a 2D (MQMAS/STMAS) measurement")
+    out = Path(args.output)
+    if out.suffix.lower() != ".toml":
+        raise CliError(f"-o {args.output!r}: the result is a model file; give a name ending in .toml")
+    protect = [model_path] + [Path(p) for p in data]
+    two_d = [j for j, m in enumerate(model.measurements) if m.is_two_dimensional]
+    reports = {}
+    if args.report:
+        from ..plotting.spectrum import PLOT_SUFFIXES
+
+        rp = Path(args.report)
+        for j in two_d:
+            reports[j] = rp if len(two_d) == 1 else rp.with_name(f"{rp.stem}-m{j + 1}{rp.suffix}")
+    check_outputs([(out, "result file")] + [(r, "report", PLOT_SUFFIXES) for r in reports.values()],
+                  force=args.force, protect=protect)
+    spectra = {}
+    for j, (meas, item) in enumerate(zip(model.measurements, data)):
+        if meas.is_two_dimensional:
+            ref = args.f1_referencing or meas.f1_referencing
+            spectra[j] = read_spectrum_2d(item, f1_referencing=ref,
+                                          nu_ref_hz=model.nucleus.larmor_hz(meas.field_tesla))
+        else:
+            spectra[j], _, warns = read_measured(item, model, j, args.axis)
+            for w in warns:
+                print(f"warning: {w}", file=sys.stderr)
+    compile_note(args)
+    result = fit_two_dimensional(model, spectra)
+    header = ("# fitted by powderspin fit (2D): the values are the fitted ones, each measurement's scale the solved "
+              "intensity factor\n" + "".join(f"# {k} = {v:.8g} +- {result.stderr[k]:.3g}\n"
+                                                for k, v in result.values.items()))
+    write_model(result.fitted_model(), out, force=args.force, protect=protect, header=header)
+    print(result.summary(), end="")
+    print(f"wrote {out}", file=sys.stderr)
+    if reports:
+        from ..engine.lineshape import Axis
+        from ..plotting.spectrum2d import save_fit_report_2d
+        from ..simulator import Simulator
+
+        for j, rp in reports.items():
+            d = spectra[j]
+            sim = Simulator(result.fitted_model(), j, axis=Axis.from_points(d.f2_hz, d.nu_ref_hz, rtol=1e-3),
+                            f1_axis=Axis.from_points(d.f1_hz, d.nu_ref_hz, rtol=1e-3))
+            save_fit_report_2d(d, sim.spectrum(), rp, force=args.force, protect=protect + [out])
+            print(f"wrote {rp}", file=sys.stderr)
     return 0

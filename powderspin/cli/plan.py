@@ -6,6 +6,7 @@ import math
 import sys
 from pathlib import Path
 
+from ..planning.two_dimensional import f1_resolution_text, plan_f1_resolution
 from .common import CliError, compile_note, numbers, outputs_together, terminal_progress
 
 __all__ = ["add_parser", "run"]
@@ -27,6 +28,12 @@ def _run(args) -> int:
     fields = numbers(args.fields, "--fields", "tesla")
     rates = numbers(args.rates, "--rates", "Hz")
     model = load_model(model_path)
+    if args.mqmas:
+        from ..physics.multiple_quantum import allowed_mq_orders
+
+        if not allowed_mq_orders(model.nucleus.spin):
+            raise CliError(f"--mqmas: {model.nucleus.name} (I = {model.nucleus.spin_label}) has no multiple-quantum "
+                           "transitions to correlate with a central transition (a half-integer spin >= 3/2 is needed)")
     from ..io.results import write_plan_json
     from ..planning.planner import plan
     from ..planning.rotors import load_rotor_table
@@ -48,6 +55,9 @@ def _run(args) -> int:
             write_plan_json(result, args.json, force=args.force, protect=protect)
         stream = sys.stderr if args.json == STDOUT else sys.stdout
         print(result.table_text(), end="", file=stream)
+        if args.mqmas:
+            print(f1_resolution_text(plan_f1_resolution(model, fields, threshold=args.threshold)), end="",
+                  file=stream)
         if args.json == STDOUT:
             write_plan_json(result, args.json, force=args.force, protect=protect)
     for path in (args.json, args.plot):
@@ -79,6 +89,8 @@ def add_parser(sub) -> None:
     p.add_argument("--snr", type=str, default=str(DEFAULT_SNR),
                    help="signal-to-noise ratio: tallest point / noise per point (default 100)")
     p.add_argument("--no-precision", action="store_true", help="skip the standard errors and the ranking")
+    p.add_argument("--mqmas", action="store_true",
+                   help="also tell, per field, whether the sites are resolved in F1 of 3QMAS and 5QMAS")
     p.add_argument("--json", metavar="OUT.json", help="write every number behind the plan as JSON ('-': stdout)")
     p.add_argument("--plot", metavar="OUT.png", help="write a figure (.png, .pdf or .svg)")
     p.add_argument("--force", action="store_true", help="overwrite existing output files")

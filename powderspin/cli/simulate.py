@@ -27,7 +27,8 @@ def add_parser(sub) -> None:
     s.add_argument("model", help="model file (TOML)")
     s.add_argument("-o", "--output", required=True,
                    help="spectrum file to write, format by suffix: .csv/.txt, .jdx/.dx (JCAMP-DX), .npz/.npy "
-                        "('-': CSV on standard output)")
+                        "('-': CSV on standard output); a 2D (MQMAS/STMAS) measurement: .npz or a .csv/.txt "
+                        "matrix")
     s.add_argument("--plot", help="also write a figure (.png, .pdf or .svg)")
     s.add_argument("--sidebands", nargs="?", const=True, default=None, metavar="FILE",
                    help="print the sideband table; with FILE also write it as CSV")
@@ -86,7 +87,12 @@ def run(args) -> int:
             outputs.append((name_for(sidebands_file, j), "sideband table"))
     check_outputs(outputs, force=args.force, protect=[model_path], make_folders=False)
     for j in which:  # after the checks above, so that an input named as output is said first
-        spectrum_format(name_for(args.output, j))
+        if model.measurements[j].is_two_dimensional:
+            from ..io.spectra2d import spectrum_2d_format
+
+            spectrum_2d_format(name_for(args.output, j))
+        else:
+            spectrum_format(name_for(args.output, j))
     from ..engine.site_lines import check_high_field
     from ..io.results import sideband_csv_text, write_spectrum
     from ..simulator import simulate
@@ -117,16 +123,23 @@ def run(args) -> int:
             if meas.spinning_hz > 0 and math.isfinite(meas.spinning_hz):
                 note(args, SPINNING_CAUTION)
             out = name_for(args.output, j)
+            two_d = meas.is_two_dimensional
             if out == STDOUT:
                 stdout_spectrum = spec
             else:
                 write_spectrum(spec, out, force=args.force, protect=[model_path])
-                wrote.append(f"wrote {out} ({spec.hz.size} points, {len(spec.site_labels)} site(s))")
+                size = f"{spec.shape[0]} x {spec.shape[1]} points" if two_d else f"{spec.hz.size} points"
+                wrote.append(f"wrote {out} ({size}, {len(spec.site_labels)} site(s))")
             if args.plot:
-                from ..plotting.spectrum import save_plot
-
                 p = name_for(args.plot, j)
-                save_plot(spec, p, force=args.force, protect=[model_path], **plot_opts)
+                if two_d:
+                    from ..plotting.spectrum2d import save_plot_2d
+
+                    save_plot_2d(spec, p, force=args.force, protect=[model_path])
+                else:
+                    from ..plotting.spectrum import save_plot
+
+                    save_plot(spec, p, force=args.force, protect=[model_path], **plot_opts)
                 wrote.append(f"wrote {p}")
             if sidebands_file:
                 from ..files import write_text_atomic
@@ -135,7 +148,10 @@ def run(args) -> int:
                 write_text_atomic(p, sideband_csv_text(spec), force=args.force, protect=[model_path],
                                   role="sideband table")
                 wrote.append(f"wrote {p}")
-            if args.sidebands is True or sidebands_file:
+            if two_d and (args.sidebands is True or sidebands_file):
+                print("note: --sidebands lists 1D sideband tables; a 2D spectrum has none (its F2 projection is the "
+                      "1D central-transition spectrum: simulate it with experiment = \"1d\")", file=sys.stderr)
+            elif args.sidebands is True or sidebands_file:
                 tables.append(spec.sideband_table())
         if args.output == STDOUT:  # standard output last: it cannot be taken back
             write_spectrum(stdout_spectrum, STDOUT, force=args.force, protect=[model_path])

@@ -1112,3 +1112,136 @@ def _excitation_amplitudes(levels, ix_off, mz, nu1, phase1, t1, phase2, t2, echo
                 else:
                     out[i, j] = cj * r_ab
     return out
+
+
+# ---------------------------------------------------------------------------
+# two-dimensional binning (MQMAS, STMAS)
+
+
+@njit(parallel=True, cache=True)
+def _bin_tent_2d(mean, amp, weights, f1, w1, tris, tri_w, rate_hz, x0, dx, nb, y0, dy, nb1, nchunk, cutoff):
+    """Lines of a 2D experiment onto an (F1, F2) grid: tents in F2, hat sharing in F1.
+
+    mean (n_v,): F2 (central-transition) line centres per vertex (Hz); amp
+    (n_v, P): F2 sideband intensities (P = 1 at infinite rate); weights (n_v,):
+    the CT weight per vertex; f1 (n_v, n_t1): sheared F1 positions per vertex
+    and t1 transition (Hz); w1 (n_t1,): weight of each t1 transition.  Each
+    triangle and t1 transition gives, in F2, the same tent as ``_bin_tent``
+    (``_add_tent_points``) and, in F1, the triangle's mean F1 position shared
+    linearly between the two neighbouring F1 points (point j at y0 + (j + 1/2)
+    dy), so area and first moment are kept in both dimensions.  Returns
+    (nb1, nb) summed intensities.
+    """
+    m = tris.shape[0]
+    nt1 = f1.shape[1]
+    p = amp.shape[1]
+    bufs = np.zeros((nchunk, nb1, nb))
+    step = (m + nchunk - 1) // nchunk
+    inv = 1.0 / dx
+    inv1 = 1.0 / dy
+    step_pts = rate_hz * inv
+    for c in prange(nchunk):
+        lo = c * step
+        hi = min(m, lo + step)
+        for q in range(lo, hi):
+            a = tris[q, 0]
+            b = tris[q, 1]
+            d = tris[q, 2]
+            f_1 = mean[a]
+            f_2 = mean[b]
+            f_3 = mean[d]
+            if f_1 > f_2:
+                f_1, f_2 = f_2, f_1
+            if f_2 > f_3:
+                f_2, f_3 = f_3, f_2
+            if f_1 > f_2:
+                f_1, f_2 = f_2, f_1
+            u1 = (f_1 - x0) * inv - 0.5
+            u2 = (f_2 - x0) * inv - 0.5
+            u3 = (f_3 - x0) * inv - 0.5
+            for t in range(nt1):
+                r = ((f1[a, t] + f1[b, t] + f1[d, t]) / 3.0 - y0) * inv1 - 0.5
+                if r <= -1.0 or r >= nb1:
+                    continue
+                j = int(math.floor(r))
+                fr = r - j
+                for s in range(p):
+                    w = (amp[a, s] * weights[a] + amp[b, s] * weights[b] + amp[d, s] * weights[d]) * (
+                        tri_w[q] / 3.0) * w1[t]
+                    if w <= cutoff:
+                        continue
+                    n = s if s < (p + 1) // 2 else s - p
+                    sh = n * step_pts if p > 1 else 0.0
+                    if j >= 0 and fr < 1.0:
+                        _add_tent_points(bufs[c, j], u1 + sh, u2 + sh, u3 + sh, w * (1.0 - fr), nb)
+                    if j + 1 < nb1 and fr > 0.0:
+                        _add_tent_points(bufs[c, j + 1], u1 + sh, u2 + sh, u3 + sh, w * fr, nb)
+    out = np.zeros((nb1, nb))
+    for c in range(nchunk):
+        for i in range(nb1):
+            for k in range(nb):
+                out[i, k] += bufs[c, i, k]
+    return out
+
+
+@njit(parallel=True, cache=True)
+def _bin_tent_2d_pairs(mean, f1, amp, d2, d1, weights, w1, tris, tri_w, x0, dx, nb, y0, dy, nb1, nchunk, cutoff):
+    """2D binning of band pairs: each (F1 band, F2 band) of each crystallite with its own signed weight.
+
+    mean (n_v,): F2 centre-band position per vertex (Hz); f1 (n_v, n_t1): sheared F1
+    centre-band position (Hz); amp (n_v, n_t1, Q): the real weight of band pair q;
+    d2, d1 (Q,): the pair's offsets (Hz) in F2 and in sheared F1; weights (n_v,):
+    the CT weight per vertex; w1 (n_t1,): share of each t1 transition.  Each triangle
+    and pair adds the F2 tent (``_add_tent_points``) shifted by d2 to the two F1 rows
+    around its mean F1 position plus d1, shared linearly.  Contributions with
+    |weight| <= cutoff are skipped (weights may be negative).  Returns (nb1, nb).
+    """
+    m = tris.shape[0]
+    nt1 = f1.shape[1]
+    q_n = amp.shape[2]
+    bufs = np.zeros((nchunk, nb1, nb))
+    step = (m + nchunk - 1) // nchunk
+    inv = 1.0 / dx
+    inv1 = 1.0 / dy
+    for c in prange(nchunk):
+        lo = c * step
+        hi = min(m, lo + step)
+        for q in range(lo, hi):
+            a = tris[q, 0]
+            b = tris[q, 1]
+            d = tris[q, 2]
+            f_1 = mean[a]
+            f_2 = mean[b]
+            f_3 = mean[d]
+            if f_1 > f_2:
+                f_1, f_2 = f_2, f_1
+            if f_2 > f_3:
+                f_2, f_3 = f_3, f_2
+            if f_1 > f_2:
+                f_1, f_2 = f_2, f_1
+            u1 = (f_1 - x0) * inv - 0.5
+            u2 = (f_2 - x0) * inv - 0.5
+            u3 = (f_3 - x0) * inv - 0.5
+            for t in range(nt1):
+                fc = (f1[a, t] + f1[b, t] + f1[d, t]) / 3.0
+                for s in range(q_n):
+                    w = (amp[a, t, s] * weights[a] + amp[b, t, s] * weights[b] + amp[d, t, s] * weights[d]) * (
+                        tri_w[q] / 3.0) * w1[t]
+                    if abs(w) <= cutoff:
+                        continue
+                    r = (fc + d1[s] - y0) * inv1 - 0.5
+                    if r <= -1.0 or r >= nb1:
+                        continue
+                    j = int(math.floor(r))
+                    fr = r - j
+                    sh = d2[s] * inv
+                    if j >= 0 and fr < 1.0:
+                        _add_tent_points(bufs[c, j], u1 + sh, u2 + sh, u3 + sh, w * (1.0 - fr), nb)
+                    if j + 1 < nb1 and fr > 0.0:
+                        _add_tent_points(bufs[c, j + 1], u1 + sh, u2 + sh, u3 + sh, w * fr, nb)
+    out = np.zeros((nb1, nb))
+    for c in range(nchunk):
+        for i in range(nb1):
+            for k in range(nb):
+                out[i, k] += bufs[c, i, k]
+    return out

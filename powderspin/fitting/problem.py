@@ -61,8 +61,9 @@ class FitProblem:
         The model to fit (its measurements carry the data axes' pinned choices).
     params : sequence of FreeParameter
         The free parameters, in the order of the vectors.
-    axes : sequence of Axis
-        The data axis of each measurement.
+    axes : sequence of Axis or (Axis, Axis)
+        The data axis of each measurement; (F2 axis, F1 axis) for a 2D one
+        (its data, mask and model are then (n1, n2) arrays, and it has no baseline).
     ys : sequence of ndarray
         The data of each measurement.
     masks : sequence of ndarray of bool
@@ -102,6 +103,9 @@ class FitProblem:
         self.hi = np.array([p.max for p in self.params], dtype=float)
         self.basis = []
         for ax, mk in zip(self.axes, masks):
+            if isinstance(ax, tuple):  # a 2D measurement (F2 axis, F1 axis): no baseline
+                self.basis.append([])
+                continue
             u = (ax.hz - ax.center_hz) / (0.5 * ax.width_hz)
             self.basis.append([] if order is None else [u[mk] ** k for k in range(order + 1)])
         self.n_evaluations = 0
@@ -112,9 +116,13 @@ class FitProblem:
     def set_model(self, model: Model, methods) -> None:
         """(Re)build the Simulators for a model and producers (a fit refines with new choices this way)."""
         self.model = model
-        self.sims = [Simulator(model, j, axis=self.axes[j], methods=None if methods is None else methods[j],
+        def axes_of(j):
+            a = self.axes[j]
+            return {"axis": a[0], "f1_axis": a[1]} if isinstance(a, tuple) else {"axis": a}
+
+        self.sims = [Simulator(model, j, methods=None if methods is None else methods[j],
                                parameters=[p.address for p in self.params], kernel_store=self.kernel_store,
-                               progress=self.progress, cache=self.cache)
+                               progress=self.progress, cache=self.cache, **axes_of(j))
                      for j in range(len(self.axes))]
         self.methods = [list(s.methods) for s in self.sims]
         self._recent = []
@@ -149,13 +157,15 @@ class FitProblem:
             b = self.ys[j][mk] / self.sigmas[j]
             c, *_ = np.linalg.lstsq(a, b, rcond=None)
             coefs.append(c)
-            res.append(b - a @ c)
-            sign, ld = np.linalg.slogdet(a.T @ a)
+            # einsum, not a threaded BLAS call: a 2D measurement has tens of thousands of rows, where BLAS
+            # threads cost milliseconds per call on a busy machine
+            res.append(b - np.einsum("ij,j->i", a, c))
+            sign, ld = np.linalg.slogdet(np.einsum("ki,kj->ij", a, a))
             logdet += ld if sign > 0 else 700.0
         r = np.concatenate(res)
         e = Evaluation(theta.copy(), totals, sites, coefs, r, logdet)
         self._recent = ([e] + self._recent)[:2]
-        self.best_cost = min(self.best_cost, float(r @ r))
+        self.best_cost = min(self.best_cost, float(np.einsum("i,i->", r, r)))
         emit(self.progress, "fit", self.n_evaluations, unit="evaluations", value=self.best_cost)
         return e
 

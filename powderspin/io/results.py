@@ -25,8 +25,10 @@ from pathlib import Path
 import numpy as np
 
 from ..engine.lineshape import baseline_values, make_axis
+from ..engine.spectrum2d import Spectrum2D
 from ..files import STDOUT, OutputPathError, check_outputs, output_path, write_text_atomic, write_via
 from .spectra import MeasuredSpectrum, write_jcamp
+from .spectra2d import write_spectrum_2d
 
 __all__ = ["spectrum_csv_text", "sideband_csv_text", "write_spectrum", "SPECTRUM_SUFFIXES", "plan_json_text",
            "write_plan_json", "spectrum_format", "result_to_toml", "fit_csv_text", "csv_paths", "write_result"]
@@ -156,7 +158,9 @@ def write_spectrum(spectrum, path, *, force: bool = False, protect=()) -> Path |
 
     Parameters
     ----------
-    spectrum : Spectrum
+    spectrum : Spectrum or Spectrum2D
+        A :class:`~powderspin.engine.spectrum2d.Spectrum2D` is written by
+        :func:`powderspin.io.spectra2d.write_spectrum_2d` (``.npz`` or a text matrix).
     path : str or pathlib.Path
         ``.csv``/``.txt`` (text, see :func:`spectrum_csv_text`), ``.jdx``/``.dx``
         (JCAMP-DX 5.01, the sum only), ``.npz`` (arrays ``ppm``, ``hz``,
@@ -196,6 +200,8 @@ def write_spectrum(spectrum, path, *, force: bool = False, protect=()) -> Path |
     ...     p.read_text().splitlines()[2]
     'ppm,hz,intensity,a'
     """
+    if isinstance(spectrum, Spectrum2D):
+        return write_spectrum_2d(spectrum, path, force=force, protect=protect)
     kind = spectrum_format(path)
     if kind in (".csv", ".txt"):
         return write_text_atomic(path, spectrum_csv_text(spectrum), force=force, protect=protect)

@@ -736,10 +736,19 @@ def read_toml_text(text: str, what: str, error=None) -> dict:
 # writing
 
 
+#: measurement keys of a two-dimensional experiment, written only when experiment != "1d"
+_TWO_D_KEYS = ("experiment", "mq_order", "f1_points", "f1_center_ppm", "f1_width_ppm", "f1_lorentz_hz",
+               "f1_gauss_hz", "t1_mode", "f1_referencing")
+
+
 def _measurement_table(meas: Measurement) -> dict:
     t: dict = {}
     for k, spec in keys_of("measurement").items():
         if spec.kind == "table":
+            continue
+        if k in _TWO_D_KEYS and not meas.is_two_dimensional:
+            continue
+        if k == "mq_order" and meas.experiment != "mqmas":
             continue
         v = getattr(meas, k)
         if k == "spinning_hz":

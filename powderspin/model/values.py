@@ -27,6 +27,7 @@ import numpy as np
 
 from ..checks import show
 from ..physics.distributions import DistributionError, explicit_axis
+from ..physics.multiple_quantum import two_dimensional_scale
 from ..physics.nuclides import Nuclide
 from ..physics.orientations import OrientationSetError, orientation_set_by_name
 from ..physics.tensors import ShiftTensor, TensorError
@@ -738,6 +739,15 @@ class Measurement:
     echo_train_echoes: int = 32
     echo_train_t2_ms: float | None = None
     echo_train_output: str = "spikelets"
+    experiment: str = "1d"
+    mq_order: int = 3
+    f1_points: int = 256
+    f1_center_ppm: float | None = None
+    f1_width_ppm: float | None = None
+    f1_lorentz_hz: float = 0.0
+    f1_gauss_hz: float = 0.0
+    t1_mode: str = "synchronised"
+    f1_referencing: str | None = None
 
     def __post_init__(self):
         w = "measurement"
@@ -799,6 +809,59 @@ class Measurement:
             raise ModelError(f"measurement: data = {self.data!r} must be a file path (text)")
         object.__setattr__(self, "scale", check_number(w, "scale", self.scale, w))
         object.__setattr__(self, "baseline", _check_baseline(self.baseline))
+        self._check_two_dimensional()
+
+    def _check_two_dimensional(self) -> None:
+        """The keys of a 2D experiment (MQMAS, STMAS); the spin's own orders are checked by the Model."""
+        w = "measurement"
+        for key in ("experiment", "t1_mode", "f1_referencing"):
+            choices = key_spec(w, key).choices
+            if key == "f1_referencing" and self.f1_referencing is None:
+                continue
+            if getattr(self, key) not in choices:
+                raise ModelError(f"measurement: {key} = {getattr(self, key)!r} is not one of "
+                                 + ", ".join(repr(c) for c in choices))
+        for key in ("mq_order", "f1_points"):
+            spec = key_spec(w, key)
+            v = getattr(self, key)
+            if isinstance(v, bool) or not isinstance(v, (int, np.integer)) or not (spec.low <= v <= spec.high):
+                raise ModelError(f"measurement: {key} = {v!r} must be an integer in [{spec.low:g}, {spec.high:g}] "
+                                 f"({spec.why})")
+            object.__setattr__(self, key, int(v))
+        for key in ("f1_center_ppm", "f1_width_ppm"):
+            if getattr(self, key) is not None:
+                object.__setattr__(self, key, check_number(w, key, getattr(self, key), w))
+        for key in ("f1_lorentz_hz", "f1_gauss_hz"):
+            object.__setattr__(self, key, check_number(w, key, getattr(self, key), w))
+        if self.experiment == "1d":
+            return
+        if self.spinning_hz == 0.0:
+            raise ModelError(f"measurement: experiment = {self.experiment!r} needs a spinning sample; "
+                             "spinning_hz must be 10 to 200000 Hz or \"inf\" (it is 0, static)")
+        if self.transitions != "central":
+            raise ModelError(f"measurement: transitions = {self.transitions!r} cannot be chosen for experiment = "
+                             f"{self.experiment!r} (the experiment fixes them: F2 is the central transition); "
+                             "leave transitions out or set it to \"central\"")
+        if self.binning != "interpolate":
+            raise ModelError(f"measurement: binning = {self.binning!r} is not available for experiment = "
+                             f"{self.experiment!r}; the allowed value is \"interpolate\"")
+
+    @property
+    def is_two_dimensional(self) -> bool:
+        """True for an MQMAS or STMAS measurement (experiment != "1d").
+
+        Returns
+        -------
+        bool
+
+        Examples
+        --------
+        >>> Measurement(9.4).is_two_dimensional
+        False
+        >>> Measurement(9.4, spinning_hz="inf", experiment="mqmas").is_two_dimensional
+        True
+        """
+        return self.experiment != "1d"
 
     @property
     def is_static(self) -> bool:
@@ -1064,6 +1127,11 @@ class Model:
         check_model_distributions(self)
         for j, m in enumerate(meas):
             where = "measurement" if len(meas) == 1 else f"measurement {j + 1}"
+            if m.is_two_dimensional:
+                try:
+                    two_dimensional_scale(nuc.spin, m.experiment, m.mq_order)
+                except ValueError as e:
+                    raise ModelError(f"{where}: {e} ({nuc.name})") from None
             try:
                 selected_transitions(nuc.spin, m.transitions)
             except ModelError as e:

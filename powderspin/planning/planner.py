@@ -211,11 +211,17 @@ RESOLUTION_TIE = 1e-3
 
 def _as_model(model) -> Model:
     try:
-        return as_model(model, "plan")
+        model = as_model(model, "plan")
     except ModelError as e:
         if str(e).startswith("plan: expected"):
             raise PlanError(str(e)) from None
         raise
+    # a 2D (MQMAS/STMAS) measurement is planned as its 1D central transition (its F2 dimension);
+    # powderspin.planning.two_dimensional plans the F1 resolution
+    for j, m in enumerate(model.measurements):
+        if m.is_two_dimensional:
+            model = model.with_measurement(j, experiment="1d")
+    return model
 
 
 def _check_fields(fields, model: Model) -> tuple:

@@ -1,0 +1,83 @@
+"""Two-dimensional MQMAS: warm timings and their ratio to the 1D MAS spectrum of the same site.
+
+Target (design.md section 6): one 27Al site, 3QMAS, infinite rate, 256 x 512
+points <= 50 ms warm.  Printed: the whole simulation (Simulator built, lines,
+F1 positions, 2D binning, broadening in both dimensions), a re-simulation at a
+new C_Q through one Simulator (what a fit step costs), and the same two for the
+1D MAS central-transition spectrum of the same site, with the ratios.  Best of
+several repeats (a shared machine; see DEVELOPERS.md, 'Performance').
+
+Run:  python benchmarks/bench_mqmas.py
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+sys.path.insert(0, str(ROOT))
+from _common import best_time  # noqa: E402
+
+from powderspin.engine.threads import kernel_threads  # noqa: E402
+from powderspin.model.modelfile import make_model  # noqa: E402
+from powderspin.simulator import Simulator, simulate  # noqa: E402
+
+
+def main() -> None:
+    meas = {"field_tesla": 14.1, "spinning_hz": "inf", "experiment": "mqmas", "mq_order": 3, "points": 512,
+            "f1_points": 256, "gauss_hz": 150.0, "f1_gauss_hz": 150.0}
+    site = {"label": "Al", "shift_ppm": 60.0, "cq_mhz": {"start": 4.0, "min": 1.0, "max": 10.0}, "eta_q": 0.4}
+    two_d = make_model("27Al", meas, [site])
+    one_d = two_d.with_measurement(0, experiment="1d")
+    s2, s1 = Simulator(two_d), Simulator(one_d)
+    print(f"orientation set: {s2.orientations[0]}; 2D shape {s2.spectrum().shape}")
+    values = iter(4.0 + 1e-3 * k for k in range(1, 10000))
+    for threads in (1, 2):
+        with kernel_threads(threads):
+            t2 = best_time(lambda: simulate(two_d), repeat=7)
+            t1 = best_time(lambda: simulate(one_d), repeat=7)
+            r2 = best_time(lambda: s2.spectrum([next(values)]), repeat=9)
+            r1 = best_time(lambda: s1.spectrum([next(values)]), repeat=9)
+        print(f"{threads} thread(s): 3QMAS 256 x 512, whole simulation  {t2 * 1e3:7.1f} ms (target 50 ms); "
+              f"1D MAS {t1 * 1e3:6.1f} ms; ratio 2D/1D {t2 / t1:5.1f}")
+        print(f"{threads} thread(s): 3QMAS 256 x 512, new C_Q (fit step) {r2 * 1e3:7.1f} ms;                "
+              f"1D MAS {r1 * 1e3:6.1f} ms; ratio 2D/1D {r2 / r1:5.1f}")
+
+
+def fit_two_sites() -> None:
+    """A two-site 2D fit (6 free parameters) on synthetic data: target 5 s (issue 15)."""
+    import time
+
+    import numpy as np
+
+    from powderspin.fitting.two_dimensional import fit_two_dimensional
+    from powderspin.io.spectra2d import MeasuredSpectrum2D
+
+    def model(v):
+        def free(x, lo, hi):
+            return {"start": x, "min": lo, "max": hi}
+        sites = [{"label": "A", "cq_mhz": free(v[0], 1, 6), "shift_ppm": free(v[1], 40, 80), "eta_q": free(v[2], 0, 1)},
+                 {"label": "B", "cq_mhz": free(v[3], 1, 6), "shift_ppm": free(v[4], 40, 80), "eta_q": free(v[5], 0, 1)}]
+        meas = {"field_tesla": 9.4, "spinning_hz": "inf", "experiment": "mqmas", "points": 256, "f1_points": 64,
+                "orientations": 24, "gauss_hz": 600.0, "f1_gauss_hz": 300.0, "center_ppm": 50.0, "width_ppm": 60.0,
+                "f1_center_ppm": 58.0, "f1_width_ppm": 30.0}
+        return make_model("27Al", meas, sites)
+
+    truth = simulate(model([3.5, 60.0, 0.5, 2.0, 52.0, 0.2]))
+    y = truth.intensity + np.random.default_rng(1).normal(0, 0.01 * truth.intensity.max(), truth.shape)
+    data = MeasuredSpectrum2D(truth.f1_ppm, truth.f2_ppm, y, truth.metadata["nu_ref_hz"], "synthetic")
+    start = model([3.0, 58.0, 0.35, 2.5, 54.0, 0.35])
+    with kernel_threads(1):
+        fit_two_dimensional(start, {0: data}, max_evaluations=3)  # warm
+        t0 = time.perf_counter()
+        r = fit_two_dimensional(start, {0: data})
+        dt = time.perf_counter() - t0
+    print(f"two-site 3QMAS fit, 64 x 256 points, 6 free: {dt:.2f} s (target 5 s), {r.n_evaluations} evaluations, "
+          f"{1e3 * dt / max(1, r.n_evaluations):.1f} ms each")
+
+
+if __name__ == "__main__":
+    main()
+    fit_two_sites()
