@@ -43,6 +43,7 @@ _EXPORTS = {
     "write_spectrum": "io.results", "write_plan_json": "io.results", "save_plan_plot": "plotting.plan",
     "save_report": "plotting.report", "Simulator": "simulator", "ProgressEvent": "progress",
     "ShiftTensor": "physics.tensors",
+    "fit_series": "series.runner", "SeriesResult": "series.runner", "SeriesError": "series.inputs",
 }
 
 __all__ = sorted(_EXPORTS) + ["__version__"]

@@ -8,6 +8,8 @@
     powderspin plan MODEL.toml [--fields T ...] [--rotors NAME ...] [--rotor-table FILE] [--max-rate HZ]
                     [--rates HZ ...] [--threshold 0.01] [--snr 100] [--json OUT.json] [--plot OUT.png]
                     [--force] [-q]
+    powderspin series MODEL.toml FILES... -o DIR [--manifest CSV] [--variable COLUMN] [--chain]
+                      [--workers N | --scheduler ADDRESS] [--force] [--region A:B]... [--noise-region A:B] [-q]
     powderspin nuclide 27Al --field 14.1 | --list
     powderspin cache info | path | clear [--cache DIR]
     powderspin demo [--out DIR]
@@ -25,7 +27,7 @@ import argparse
 import os
 import sys
 
-from . import cache, demo, fit, nuclide, plan, simulate
+from . import cache, demo, fit, nuclide, plan, series, simulate
 from .common import CliError, interrupted
 
 __all__ = ["main", "build_parser"]
@@ -56,7 +58,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--version", action="version", version=f"powderspin {__version__}")
     sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
 
-    for command in (simulate, cache, fit, plan, nuclide, demo):
+    for command in (simulate, cache, fit, series, plan, nuclide, demo):
         command.add_parser(sub)
     return p
 
