@@ -474,7 +474,8 @@ def fit_series(model, files=(), output_dir=None, *, manifest=None, variable: str
                 on_dashboard(dashboard)
             from distributed import as_completed
 
-            model_f = c.scatter(model, broadcast=True)
+            # a key of its own (hash=False): an earlier run with the same model may be releasing its copy
+            model_f = c.scatter(model, broadcast=True, hash=False)
 
             def job(i):
                 return SeriesJob(i, items[i].path, str((out / f"{items[i].stem}.toml").resolve()), hashes[i], lib)
