@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sys
 
-from .common import CliError, add_cache_options, compile_note, parse_range, terminal_progress
+from .common import CliError, add_cache_options, parse_range, terminal_progress
 
 __all__ = ["add_parser", "run"]
 
@@ -55,7 +55,6 @@ def run(args) -> int:
     regions = [parse_range(r, "--region") for r in args.region] if args.region else None
     noise = parse_range(args.noise_region, "--noise-region")
     model = load_model(args.model)
-    compile_note(args)
     bars = terminal_progress(args, delay=1.0)
 
     def dashboard(link):
