@@ -58,6 +58,9 @@ TABLE_NAME = "table.csv"
 TRENDS_NAME = "trends.png"
 #: seconds between rewrites of table.csv while the series runs
 TABLE_INTERVAL_S = 5.0
+#: Dask settings of the LocalCluster's workers: no statistical profiler (it samples every thread's stack every
+#: 10 ms, and each sample takes the GIL from the running fit); the dashboard's profile pages are empty then
+WORKER_CONFIG = {"distributed.worker.profile.enabled": False}
 
 
 @dataclass(frozen=True)
@@ -208,12 +211,15 @@ def series_client(client=None, *, workers: int | None = None, scheduler: str | N
         finally:
             c.close()
         return
+    import dask
     from distributed import LocalCluster
 
     n = workers if workers is not None else (os.cpu_count() or 1)
-    # ":0": any free port, so that several series (or users) on one machine do not collide
-    cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, silence_logs=logging.ERROR,
-                           dashboard_address=":0", env=worker_environment())
+    # ":0": any free port, so that several series (or users) on one machine do not collide.  WORKER_CONFIG: fewer
+    # wake-ups of each worker's event-loop thread, which otherwise takes the GIL from the fit 100 times a second.
+    with dask.config.set(WORKER_CONFIG):
+        cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, silence_logs=logging.ERROR,
+                               dashboard_address=":0", env=worker_environment())
     try:
         c = Client(cluster)
         try:
