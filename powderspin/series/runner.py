@@ -59,8 +59,10 @@ TRENDS_NAME = "trends.png"
 #: seconds between rewrites of table.csv while the series runs
 TABLE_INTERVAL_S = 5.0
 #: Dask settings of the LocalCluster's workers: no statistical profiler (it samples every thread's stack every
-#: 10 ms, and each sample takes the GIL from the running fit); the dashboard's profile pages are empty then
-WORKER_CONFIG = {"distributed.worker.profile.enabled": False}
+#: 10 ms, and each sample takes the GIL from the running fit; the dashboard's profile pages are empty then), and
+#: Ctrl-C left to the client (powderspin.series.worker_setup)
+WORKER_CONFIG = {"distributed.worker.profile.enabled": False,
+                 "distributed.worker.preload": ["powderspin.series.worker_setup"]}
 
 
 @dataclass(frozen=True)

@@ -96,15 +96,17 @@ def _wait_for(cond, timeout=180.0):
 
 @pytest.mark.slow
 def test_ctrl_c_then_resume_fits_only_the_rest(tmp_path):
-    """SIGINT after some results are written: exit 130, one line; the rerun fits only the missing spectra and its
-    table equals an uninterrupted run's (the times aside)."""
+    """SIGINT to the whole process group (as Ctrl-C on a terminal: the command and its worker processes) after some
+    results are written: exit 130, one line; the rerun fits only the missing spectra and its table equals an
+    uninterrupted run's (the times aside)."""
     (tmp_path / "model.toml").write_text(MODEL)
     write_line_series(tmp_path, [0.5 * k for k in range(16)], fwhm_hz=160.0)
-    args = [sys.executable, "-m", "powderspin", "series", "model.toml", "p*.csv", "-o", "out", "--workers", "1", "-q"]
-    proc = subprocess.Popen(args, cwd=tmp_path, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    args = [sys.executable, "-m", "powderspin", "series", "model.toml", "p*.csv", "-o", "out", "--workers", "2", "-q"]
+    proc = subprocess.Popen(args, cwd=tmp_path, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                            start_new_session=True)
     assert _wait_for(lambda: len(list((tmp_path / "out").glob("*.toml"))) >= 3 or proc.poll() is not None)
     assert proc.poll() is None, "the series finished before it could be interrupted"
-    proc.send_signal(signal.SIGINT)
+    os.killpg(proc.pid, signal.SIGINT)
     out, err = proc.communicate(timeout=120)
     assert proc.returncode == 130, err
     assert len(err.strip().splitlines()) == 1 and "interrupted" in err, err
