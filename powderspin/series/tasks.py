@@ -123,14 +123,12 @@ def one_line(e: BaseException) -> str:
 
 
 @functools.cache
-def _memory_store():
-    from ..disorder.store import KernelStore
-
-    return KernelStore(None)
-
-
 def store_for(library: str | None):
-    """The kernel store of this process: the library folder's shared store, or one kept in memory.
+    """The kernel store of this worker process for a library folder (None: kernels in memory only).
+
+    One store per folder and process, kept for the process's life, so that the
+    fits of a series in one worker reuse the kernels in memory; workers share
+    them through the folder.
 
     Parameters
     ----------
@@ -139,10 +137,15 @@ def store_for(library: str | None):
     Returns
     -------
     powderspin.disorder.store.KernelStore
-    """
-    from ..disorder.store import default_kernel_store
 
-    return _memory_store() if library is None else default_kernel_store(library)
+    Examples
+    --------
+    >>> store_for(None) is store_for(None), store_for(None).library is None
+    (True, True)
+    """
+    from ..disorder.store import KernelStore, default_kernel_store
+
+    return KernelStore(None) if library is None else default_kernel_store(library)
 
 
 def _weight_free(model: Model) -> set[int]:
