@@ -47,7 +47,7 @@ from pathlib import Path
 from ..model.modelfile import model_to_dict
 from ..progress import emit
 from .inputs import SeriesError, collect_items, file_digest, input_hash, numeric_variable
-from .tasks import FitOptions, SeriesJob, TaskOutcome, fit_one
+from .tasks import FitOptions, SeriesJob, TaskOutcome, fit_one, one_line
 
 __all__ = ["fit_series", "SeriesResult", "SeriesRow", "series_client", "table_csv_text", "MARKER", "TABLE_NAME",
            "TRENDS_NAME", "worker_environment"]
@@ -488,9 +488,12 @@ def fit_series(model, files=(), output_dir=None, *, manifest=None, variable: str
             def job(i):
                 return SeriesJob(i, items[i].path, str((out / f"{items[i].stem}.toml").resolve()), hashes[i], lib)
 
+            index_of = {}
+
             def submit(i, start):
-                return c.submit(fit_one, job(i), model_f, options, start, key=f"powderspin-series-{hashes[i][:16]}-{i}",
-                                pure=False)
+                key = f"powderspin-series-{hashes[i][:16]}-{i}"
+                index_of[key] = i
+                return c.submit(fit_one, job(i), model_f, options, start, key=key, pure=False)
 
             futures = []
             pending = list(todo)
@@ -521,7 +524,12 @@ def fit_series(model, files=(), output_dir=None, *, manifest=None, variable: str
                     ac.add(f)
                 pending = []
             for f in ac:
-                outcome: TaskOutcome = f.result()
+                try:
+                    outcome: TaskOutcome = f.result()
+                except (KeyboardInterrupt, SystemExit):
+                    raise
+                except Exception as e:  # Dask gave up on the task (its workers kept dying, a lost dependency)
+                    outcome = TaskOutcome(index_of[f.key], False, f"Dask could not run this fit: {one_line(e)}")
                 i = outcome.index
                 it = items[i]
                 if outcome.toml_text is not None:
