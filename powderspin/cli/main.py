@@ -4,7 +4,7 @@
                         [--cache DIR | --no-cache]
     powderspin fit MODEL.toml [DATA ...] -o RESULT.toml [--report FIT.png] [--global] [--posterior]
                    [--region A:B]... [--noise-region A:B] [--axis ppm|hz|khz] [--force] [-q]
-                   [--cache DIR | --no-cache]
+                   [--cache DIR | --no-cache] [--workers N | --scheduler ADDRESS] (with --global)
     powderspin plan MODEL.toml [--fields T ...] [--rotors NAME ...] [--rotor-table FILE] [--max-rate HZ]
                     [--rates HZ ...] [--threshold 0.01] [--snr 100] [--json OUT.json] [--plot OUT.png]
                     [--force] [-q]

@@ -50,7 +50,7 @@ from .inputs import SeriesError, collect_items, file_digest, input_hash, numeric
 from .tasks import FitOptions, SeriesJob, TaskOutcome, fit_one, one_line
 
 __all__ = ["fit_series", "SeriesResult", "SeriesRow", "series_client", "table_csv_text", "MARKER", "TABLE_NAME",
-           "TRENDS_NAME", "worker_environment"]
+           "TRENDS_NAME", "worker_environment", "dask_map"]
 
 #: the file that marks a folder as a series' output (it may then be refilled)
 MARKER = ".powderspin-series"
@@ -230,6 +230,32 @@ def series_client(client=None, *, workers: int | None = None, scheduler: str | N
             c.close()
     finally:
         cluster.close()
+
+
+def dask_map(client):
+    """A ``map(function, items)`` that runs on a Dask client, in the items' order (``fit(..., map_starts=...)``).
+
+    Parameters
+    ----------
+    client : distributed.Client
+
+    Returns
+    -------
+    callable
+        ``run(function, items) -> list``: one task per item; the results in
+        the order of the items.
+
+    Examples
+    --------
+    >>> from distributed import Client
+    >>> with Client(processes=False, n_workers=1, threads_per_worker=1, dashboard_address=":0") as c:
+    ...     dask_map(c)(abs, [-1, 2, -3])
+    [1, 2, 3]
+    """
+    def run(function, items):
+        return client.gather(client.map(function, list(items), pure=False))
+
+    return run
 
 
 def _format_number(v) -> str:
