@@ -56,6 +56,7 @@ _EXPORTS = {
     "write_spectrum_2d": "io.spectra2d", "plot_spectrum_2d": "plotting.spectrum2d",
     "save_plot_2d": "plotting.spectrum2d",
     "fit_two_dimensional": "fitting.two_dimensional", "plan_f1_resolution": "planning.two_dimensional",
+    "fit_series": "series.runner", "SeriesResult": "series.runner", "SeriesError": "series.inputs",
 }
 
 __all__ = sorted(_EXPORTS) + ["__version__"]

@@ -19,7 +19,7 @@ Stages used by powderspin (``stage``):
 - ``"fit"``: least-squares evaluations (``total`` None; ``value`` the lowest chi-square so far);
 - ``"posterior"``: posterior sampling (unit steps);
 - ``"plan"``: a plan's candidate experiments;
-- ``"series"``: the spectra of a series.
+- ``"series"``: the spectra of a series (``label`` "F failed, R running", shown beside one bar).
 """
 
 from __future__ import annotations
@@ -165,15 +165,18 @@ class TerminalProgress:
             return
         from tqdm import tqdm
 
-        key = (event.stage, event.label)
+        series = event.stage == "series"  # one bar over the spectra; its label (failed, running) changes
+        key = (event.stage, "" if series else event.label)
         if key != self.key or self.bar is None:
             self.close()
             self.key = key
-            self.bar = tqdm(total=event.total, desc=event.description, unit=f" {event.unit}", delay=self.delay,
-                            leave=False, file=self.stream)
+            self.bar = tqdm(total=event.total, desc=event.stage if series else event.description,
+                            unit=f" {event.unit}", delay=self.delay, leave=False, file=self.stream)
+        if series:
+            self.bar.set_postfix_str(event.label, refresh=False)
         if event.total is not None and self.bar.total != event.total:
             self.bar.total = event.total
-        if not math.isnan(event.value):
+        if not series and not math.isnan(event.value):
             self.bar.set_postfix_str(f"chi-square {event.value:.6g}" if event.stage == "fit" else f"{event.value:.6g}",
                                      refresh=False)
         if event.done > self.bar.n:  # update(), not refresh(): refresh() would show the bar before its delay

@@ -35,6 +35,10 @@ def add_parser(sub) -> None:
                    help="least squares from many starts within the bounds (Sobol set); keep the best")
     f.add_argument("--starts", type=int, help="number of starts with --global (default max(8, 4 x free parameters))")
     f.add_argument("--seed", type=int, default=0, help="seed of the --global starts and the posterior sampler")
+    f.add_argument("--workers", type=int, metavar="N",
+                   help="with --global: run the starts on a local Dask cluster of N single-threaded processes")
+    f.add_argument("--scheduler", metavar="ADDRESS",
+                   help="with --global: run the starts on a running Dask scheduler (e.g. tcp://head-node:8786)")
     f.add_argument("--posterior", action="store_true",
                    help="also sample the posterior (emcee) and write a corner plot beside the report")
     f.add_argument("--walkers", type=int, help="posterior walkers (default max(16, 4 x free parameters))")
@@ -82,13 +86,23 @@ def run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool, al
 
     regions = [parse_range(r, "--region") for r in args.region] if args.region else None
     noise = parse_range(args.noise_region, "--noise-region")
+    import contextlib
+
     progress = terminal_progress(argparse.Namespace(quiet=quiet), delay=1.0)
+    parallel = getattr(args, "workers", None) is not None or getattr(args, "scheduler", None) is not None
     try:
-        result = fit(model, data, regions=regions, noise_region=noise, axis=args.axis,
-                     global_search=args.global_search, starts=args.starts, seed=args.seed,
-                     posterior=args.posterior, walkers=args.walkers, steps=args.steps, burn=args.burn,
-                     progress=progress, kernel_store=kernel_store(args),
-                     accept_mismatch=getattr(args, "accept_mismatch", False))
+        with contextlib.ExitStack() as stack:
+            map_starts = None
+            if parallel:
+                from ..series.runner import dask_map, series_client
+
+                client = stack.enter_context(series_client(workers=args.workers, scheduler=args.scheduler))
+                map_starts = dask_map(client)
+            result = fit(model, data, regions=regions, noise_region=noise, axis=args.axis,
+                         global_search=args.global_search, starts=args.starts, seed=args.seed,
+                         posterior=args.posterior, walkers=args.walkers, steps=args.steps, burn=args.burn,
+                         progress=progress, kernel_store=kernel_store(args), map_starts=map_starts,
+                         accept_mismatch=getattr(args, "accept_mismatch", False))
     finally:
         progress.close()
     written = []
@@ -143,6 +157,12 @@ def run(args) -> int:
         raise FitError(f"{args.model}: the model has no free parameters: mark at least one as "
                        "{ start = ..., min = ..., max = ... }, e.g. cq_mhz = { start = 3.0, min = 1.0, max = 8.0 }")
     _check_sampler_flags(args, len(model.free))
+    if (args.workers is not None or args.scheduler is not None) and not args.global_search:
+        raise CliError("--workers and --scheduler run the starts of a global search in parallel; add --global")
+    if args.workers is not None and args.scheduler is not None:
+        raise CliError("--workers and --scheduler: give one (the scheduler's cluster has its own workers)")
+    if args.workers is not None and args.workers < 1:
+        raise CliError(f"--workers {args.workers}: give at least 1 worker process")
     data = data_items(model, list(args.data) if args.data else None)
     for p in data:
         if not Path(p).exists():

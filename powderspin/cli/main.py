@@ -4,12 +4,14 @@
                         [--cache DIR | --no-cache]
     powderspin fit MODEL.toml [DATA or RAW FOLDER ...] -o RESULT.toml [--report FIT.png] [--global] [--posterior]
                    [--region A:B]... [--noise-region A:B] [--axis ppm|hz|khz] [--force] [-q]
-                   [--cache DIR | --no-cache]
+                   [--cache DIR | --no-cache] [--workers N | --scheduler ADDRESS] (with --global)
     powderspin plan MODEL.toml [--fields T ...] [--rotors NAME ...] [--rotor-table FILE] [--max-rate HZ]
                     [--rates HZ ...] [--threshold 0.01] [--snr 100] [--json OUT.json] [--plot OUT.png]
                     [--force] [-q]
     powderspin process DATA [DATA ...] -o SPECTRUM.csv [--plot FIG] [--model MODEL.toml] [--combine skyline|sum]
                        [--exponential-hz L] [--phase auto|entropy|manual|none] [--baseline ...] ... [--force] [-q]
+    powderspin series MODEL.toml FILES... -o DIR [--manifest CSV] [--variable COLUMN] [--chain]
+                      [--workers N | --scheduler ADDRESS] [--force] [--region A:B]... [--noise-region A:B] [-q]
     powderspin nuclide 27Al --field 14.1 | --list
     powderspin cache info | path | clear [--cache DIR]
     powderspin demo [--out DIR]
@@ -29,7 +31,7 @@ import argparse
 import os
 import sys
 
-from . import cache, demo, explore, fit, nuclide, plan, process, simulate
+from . import cache, demo, explore, fit, nuclide, plan, process, series, simulate
 from .common import CliError, Terminated, interrupted, signal_handlers, warning_lines
 
 __all__ = ["main", "build_parser", "console"]
@@ -60,7 +62,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--version", action="version", version=f"powderspin {__version__}")
     sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
 
-    for command in (simulate, cache, fit, plan, nuclide, process, demo, explore):
+    for command in (simulate, cache, fit, series, plan, nuclide, process, demo, explore):
         command.add_parser(sub)
     return p
 

@@ -6,7 +6,6 @@ import math
 import sys
 from pathlib import Path
 
-from ..planning.two_dimensional import f1_resolution_text, plan_f1_resolution
 from .common import CliError, compile_note, numbers, outputs_together, terminal_progress
 
 __all__ = ["add_parser", "run"]
@@ -56,6 +55,8 @@ def _run(args) -> int:
         stream = sys.stderr if args.json == STDOUT else sys.stdout
         print(result.table_text(), end="", file=stream)
         if args.mqmas:
+            from ..planning.two_dimensional import f1_resolution_text, plan_f1_resolution
+
             print(f1_resolution_text(plan_f1_resolution(model, fields, threshold=args.threshold)), end="",
                   file=stream)
         if args.json == STDOUT:

@@ -67,6 +67,7 @@ References
 
 from __future__ import annotations
 
+import functools
 import math
 import time
 
@@ -165,6 +166,46 @@ def _least_squares(problem: FitProblem, x0, max_evaluations: int | None):
                          method="trf", x_scale="jac", max_nfev=max_evaluations)
 
 
+def _run_from(problem: FitProblem, max_evaluations, x0):
+    """One least-squares run of a global search on a copy of the problem (a task of ``map_starts``).
+
+    Returns the optimiser's result and the evaluations it made.
+    """
+    problem.n_evaluations = 0
+    sol = _least_squares(problem, x0, max_evaluations)
+    return sol, problem.n_evaluations
+
+
+def _detached(problem: FitProblem) -> FitProblem:
+    """A copy of the problem to ship to another process: no progress subscriber, empty memos and kernel memory.
+
+    The copy's kernel store reads the same lineshape library folder; its
+    memory and the simulation memos start empty (they only save work), so
+    that a task does not carry what is held here.
+    """
+    import pickle
+
+    from ..disorder.store import KernelStore
+
+    saved = (problem.progress, problem.kernel_store, problem.cache,
+             [(s.progress, s.kernel_store, s.cache) for s in problem.sims])
+    store = None if problem.kernel_store is None else KernelStore(problem.kernel_store.library)
+    empty = SimulationCache(lines=problem.cache.lines.size, rendered=problem.cache.rendered.size)
+    try:
+        problem.progress, problem.kernel_store, problem.cache = None, store, None
+        for s in problem.sims:
+            s.progress, s.kernel_store, s.cache = None, store, None
+        copy = pickle.loads(pickle.dumps(problem))
+    finally:
+        problem.progress, problem.kernel_store, problem.cache, sims = saved
+        for s, (pg, ks, ca) in zip(problem.sims, sims):
+            s.progress, s.kernel_store, s.cache = pg, ks, ca
+    copy.cache = empty
+    for s in copy.sims:
+        s.cache = empty
+    return copy
+
+
 def _sobol_starts(lo, hi, n: int, seed: int) -> np.ndarray:
     from scipy.stats import qmc
 
@@ -192,7 +233,7 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
         global_search: bool = False, starts: int | None = None, seed: int = 0, posterior: bool = False,
         walkers: int | None = None, steps: int = DEFAULT_STEPS, burn: int | None = None, progress=None,
         max_evaluations: int | None = None, threads: int | None = 1, kernel_store=None,
-        accept_mismatch: bool = False) -> FitResult:
+        accept_mismatch: bool = False, map_starts=None) -> FitResult:
     """Fit a model with free parameters to one or more measured spectra.
 
     Parameters
@@ -256,6 +297,15 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
         the store of the lineshape library folder).  Each evaluation of such
         a site is a weighted sum of kernels built once for the whole range of
         its free parameters (:mod:`powderspin.disorder`).
+    map_starts : callable, optional
+        How the least-squares runs of a global search are run:
+        ``map_starts(function, starts)`` returns ``[function(x0) for x0 in
+        starts]`` computed anywhere, e.g. on a Dask client
+        (``powderspin fit --global --workers N``).  Each run gets its own copy
+        of the problem (picklable; without progress reports), so the fitted
+        values are the serial run's (``n_evaluations`` may differ by the few
+        evaluations the serial runs find in each other's memo).  Default: one
+        after the other, here.
 
     Returns
     -------
@@ -312,7 +362,8 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
     """
     with kernel_threads(threads):
         return _fit(model, data, regions, noise_region, baseline_order, axis, global_search, starts, seed,
-                    posterior, walkers, steps, burn, progress, max_evaluations, kernel_store, accept_mismatch)
+                    posterior, walkers, steps, burn, progress, max_evaluations, kernel_store, accept_mismatch,
+                    map_starts)
 
 
 #: a noise region whose scatter exceeds the point-to-point noise this many times holds more than noise
@@ -396,7 +447,8 @@ def check_sampler_memory(n_free: int, walkers, steps, starts, names=None) -> Non
 
 
 def _fit(model, data, regions, noise_region, baseline_order, axis, global_search, starts, seed, posterior,
-         walkers, steps, burn, progress, max_evaluations, kernel_store=None, accept_mismatch=False) -> FitResult:
+         walkers, steps, burn, progress, max_evaluations, kernel_store=None, accept_mismatch=False,
+         map_starts=None) -> FitResult:
     t_start = time.perf_counter()
     args = _check_arguments(global_search, starts, seed, posterior, walkers, steps, burn, max_evaluations, axis)
     starts, seed, walkers, steps, burn, max_evaluations = (args[k] for k in ("starts", "seed", "walkers", "steps",
@@ -521,12 +573,18 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
             warns.append("global search over the whole allowed range of " + ", ".join(unbounded)
                          + ": give min and max to search where the value can physically be")
         pts = [x0] + list(_sobol_starts(problem.lo, problem.hi, n_starts - 1, seed)) if n_starts > 1 else [x0]
-        costs, sol = [], None
-        for p in pts:  # only the best run is kept: memory does not grow with the number of starts
-            run = _least_squares(problem, p, max_evaluations)
-            costs.append(2.0 * run.cost)
-            if sol is None or run.cost < sol.cost:
-                sol = run
+        if map_starts is None or len(pts) < 2:
+            costs, sol = [], None
+            for p in pts:  # only the best run is kept: memory does not grow with the number of starts
+                run = _least_squares(problem, p, max_evaluations)
+                costs.append(2.0 * run.cost)
+                if sol is None or run.cost < sol.cost:
+                    sol = run
+        else:
+            done = map_starts(functools.partial(_run_from, _detached(problem), max_evaluations), pts)
+            costs = [2.0 * run.cost for run, _ in done]
+            sol = done[int(np.argmin(costs))][0]
+            problem.n_evaluations += sum(n for _, n in done)
         costs = np.array(costs)
         at_best = int(np.sum(costs <= costs.min() + CONVERGED_CHI2))
     else:
