@@ -247,6 +247,110 @@ def _exact_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad
     return off, inten
 
 
+@njit(parallel=True, cache=True)
+def _cone_polynomial(axes, cos_r, sin_r, nphase, exponents, coef):
+    """Homogeneous polynomials in B0's direction b, evaluated at every orientation and rotor phase.
+
+    ``exponents`` (C, 3) holds the powers (a, b, c) of the monomials b_x^a b_y^b b_z^c, all of
+    one even degree L; ``coef`` (R, C) one row of coefficients per polynomial.  b is sampled as
+    in ``_exact_offsets`` (``_field_direction``; static when cos_r = 1, nphase = 1).  Returns
+    (n_orient, R, nphase).  On the unit sphere these monomials span the spherical harmonics of
+    every even rank <= L, so they represent any smooth even function of b that far.
+    """
+    n_or = axes.shape[0]
+    nr, nc = coef.shape
+    deg = 0
+    for c in range(nc):
+        deg = max(deg, exponents[c, 0] + exponents[c, 1] + exponents[c, 2])
+    out = np.empty((n_or, nr, nphase))
+    dphi = 2.0 * math.pi / nphase
+    for i in prange(n_or):
+        n0, n1, n2 = axes[i, 0], axes[i, 1], axes[i, 2]
+        u0, u1, u2, w0, w1, w2 = _perp3(n0, n1, n2)
+        px = np.empty(deg + 1)
+        py = np.empty(deg + 1)
+        pz = np.empty(deg + 1)
+        acc = np.empty(nr)
+        for p in range(nphase):
+            cc = sin_r * math.cos(p * dphi)
+            sn = sin_r * math.sin(p * dphi)
+            b0 = cos_r * n0 + cc * u0 + sn * w0
+            b1 = cos_r * n1 + cc * u1 + sn * w1
+            b2 = cos_r * n2 + cc * u2 + sn * w2
+            px[0] = 1.0
+            py[0] = 1.0
+            pz[0] = 1.0
+            for k in range(1, deg + 1):
+                px[k] = px[k - 1] * b0
+                py[k] = py[k - 1] * b1
+                pz[k] = pz[k - 1] * b2
+            for r in range(nr):
+                acc[r] = 0.0
+            for c in range(nc):
+                mono = px[exponents[c, 0]] * py[exponents[c, 1]] * pz[exponents[c, 2]]
+                for r in range(nr):
+                    acc[r] += coef[r, c] * mono
+            for r in range(nr):
+                out[i, r, p] = acc[r]
+    return out
+
+
+@njit(cache=True)
+def _least_squares(a, rhs):
+    """Least-squares solution X of A X ~ B by Householder QR (A (m, n), m >= n, full rank).
+
+    Written out because a LAPACK call from numpy starts BLAS threads, which on a busy
+    machine costs a hundred times the arithmetic of these small systems.  Householder
+    reflections (G. H. Golub, C. F. Van Loan, *Matrix Computations* (1996), sec. 5.3,
+    from memory) reduce A to triangular R and apply the same reflections to B; X then
+    follows by back substitution.
+    """
+    m, n = a.shape
+    r = a.copy()
+    b = rhs.copy()
+    nr = b.shape[1]
+    v = np.empty(m)
+    for j in range(n):
+        nrm = 0.0
+        for i in range(j, m):
+            nrm += r[i, j] * r[i, j]
+        nrm = math.sqrt(nrm)
+        if nrm == 0.0:
+            continue
+        alpha = -nrm if r[j, j] >= 0.0 else nrm
+        vv = 0.0
+        for i in range(j, m):
+            v[i] = r[i, j]
+        v[j] -= alpha
+        for i in range(j, m):
+            vv += v[i] * v[i]
+        if vv == 0.0:
+            continue
+        f = 2.0 / vv
+        for c in range(j, n):
+            d = 0.0
+            for i in range(j, m):
+                d += v[i] * r[i, c]
+            d *= f
+            for i in range(j, m):
+                r[i, c] -= d * v[i]
+        for c in range(nr):
+            d = 0.0
+            for i in range(j, m):
+                d += v[i] * b[i, c]
+            d *= f
+            for i in range(j, m):
+                b[i, c] -= d * v[i]
+    x = np.zeros((n, nr))
+    for c in range(nr):
+        for j in range(n - 1, -1, -1):
+            d = b[j, c]
+            for k in range(j + 1, n):
+                d -= r[j, k] * x[k, c]
+            x[j, c] = d / r[j, j]
+    return x
+
+
 # ---------------------------------------------------------------------------
 # consumer: rotor average and sideband amplitudes
 
@@ -879,6 +983,79 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, de
                     for j in range(p):
                         amp[blk + l, t, j] = (re[j, l] * re[j, l] + im[j, l] * im[j, l]) * inv
     return mean, amp
+
+
+@njit(parallel=True, cache=True, fastmath=True)
+def _harmonic_sidebands(gr, gi, nphase):
+    """Sideband intensities |F_n|^2 from the Fourier components of each line's phase.
+
+    Row r of ``gr + i gi`` (R, K) holds g_k, k = 1..K, of the accumulated phase
+    xi(phi) = sum_k 2 Re(g_k e^{i k phi}) of one line (g_k = c_k / (i k nu_r) for a
+    trajectory with Fourier components c_k).  xi is summed at the P = ``nphase``
+    equally spaced phases (any K: a harmonic above P/2 is evaluated, not aliased),
+    exponentiated and Fourier transformed, ``_LANES`` rows side by side as in
+    ``_perturbative_sidebands``.  Returns amp (R, P), band n at index n mod P.
+    """
+    nrow, kk = gr.shape
+    p = nphase
+    rev, _ = _fft_tables(p)
+    twr, twi = _stage_twiddles(p)
+    # e^{i phi_j} at the output phases, in bit-reversed order
+    zr = np.empty(p)
+    zi = np.empty(p)
+    for j in range(p):
+        ang = 2.0 * math.pi * rev[j] / p
+        zr[j] = math.cos(ang)
+        zi[j] = math.sin(ang)
+    amp = np.empty((nrow, p))
+    inv = 1.0 / (p * p)
+    nblk = (nrow + _LANES - 1) // _LANES
+    nchunk = max(1, min(64, nblk))
+    step = (nblk + nchunk - 1) // nchunk
+    for c in prange(nchunk):
+        re = np.empty((p, _LANES))
+        im = np.empty((p, _LANES))
+        hr = np.empty((kk, _LANES))
+        hi = np.empty((kk, _LANES))
+        er = np.empty(kk)
+        ei = np.empty(kk)
+        for blk in range(c * step, min(nblk, (c + 1) * step)):
+            r0 = blk * _LANES
+            nb = min(_LANES, nrow - r0)
+            for k in range(kk):
+                for l in range(_LANES):
+                    if l < nb:
+                        hr[k, l] = 2.0 * gr[r0 + l, k]
+                        hi[k, l] = 2.0 * gi[r0 + l, k]
+                    else:
+                        hr[k, l] = 0.0
+                        hi[k, l] = 0.0
+            nl = re.shape[1]
+            for j in range(p):
+                # e^{i k phi_j}, k = 1..K, by repeated multiplication
+                cr = zr[j]
+                ci = zi[j]
+                er[0] = cr
+                ei[0] = ci
+                for k in range(1, kk):
+                    er[k] = er[k - 1] * cr - ei[k - 1] * ci
+                    ei[k] = er[k - 1] * ci + ei[k - 1] * cr
+                for l in range(nl):
+                    re[j, l] = 0.0
+                for k in range(kk):
+                    a = er[k]
+                    b = ei[k]
+                    for l in range(nl):
+                        re[j, l] += hr[k, l] * a - hi[k, l] * b
+                for l in range(nl):
+                    cx, sx = _sincos(re[j, l])
+                    re[j, l] = cx
+                    im[j, l] = sx
+            _fft_lanes_bitreversed(re, im, twr, twi)
+            for l in range(nb):
+                for j in range(p):
+                    amp[r0 + l, j] = (re[j, l] * re[j, l] + im[j, l] * im[j, l]) * inv
+    return amp
 
 
 @njit(parallel=True, cache=True)
