@@ -648,10 +648,23 @@ def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cu
     vertex frequencies with area tri_w * mean vertex intensity, shared among
     the axis points x0 + (k + 0.5) dx by their hat functions
     (``_add_tent_points``).  Returns (nb,) summed intensities.
+
+    Only the bands a triangle's vertices carry are visited: a line computed at
+    fewer phases than P (``_perturbative_sidebands`` with ``adaptive``) has
+    exact zeros beyond its own bands, found by scanning inwards from band P/2.
     """
     m = tris.shape[0]
     nt = mean.shape[1]
     p = amp.shape[2]
+    nv = amp.shape[0]
+    # extent of each line's bands: the largest |n| whose intensity is not zero
+    ext = np.empty((nv, nt), dtype=np.int64)
+    for i in prange(nv):
+        for t in range(nt):
+            e = p // 2
+            while e > 0 and amp[i, t, e] == 0.0 and amp[i, t, p - e] == 0.0:
+                e -= 1
+            ext[i, t] = e
     bufs = np.zeros((nchunk, nb))
     step = (m + nchunk - 1) // nchunk
     inv = 1.0 / dx
@@ -678,7 +691,11 @@ def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cu
                 u1 = (f1 - x0) * inv - 0.5
                 u2 = (f2 - x0) * inv - 0.5
                 u3 = (f3 - x0) * inv - 0.5
-                for s in range(p):
+                e = max(ext[a, t], max(ext[b, t], ext[d, t]))
+                for q2 in range(min(p, 2 * e + 1)):
+                    # bands 0, 1, -1, 2, -2, ... out to the vertices' extent
+                    n2 = (q2 + 1) // 2
+                    s = n2 if q2 % 2 == 1 or q2 == 0 else p - n2
                     w = (
                         amp[a, t, s] * weights_t[a, t]
                         + amp[b, t, s] * weights_t[b, t]
@@ -851,10 +868,78 @@ def _fft_lanes_bitreversed(re, im, twr, twi):
         h *= 2
 
 
+#: a line computed at fewer phases than the site's (``adaptive``) keeps at most this fraction
+#: of its intensity in the outer quarter of its own bands, else its phases are doubled
+_LINE_ALIAS = 1e-12
+
+
+@njit(cache=True)
+def _level_tables(p):
+    """e^{i phi_j} at the bit-reversed phases of every power of 2 from min(16, p) to p, concatenated.
+
+    The table of P' phases starts at index P' - min(16, p).
+    """
+    p0 = min(16, p)
+    zr = np.empty(2 * p)
+    zi = np.empty(2 * p)
+    pb = p0
+    while pb <= p:
+        rev, _ = _fft_tables(pb)
+        for j in range(pb):
+            ang = 2.0 * math.pi * rev[j] / pb
+            zr[pb - p0 + j] = math.cos(ang)
+            zi[pb - p0 + j] = math.sin(ang)
+        pb *= 2
+    return zr, zi
+
+
+@njit(cache=True, inline="always")
+def _line_phases(gr, gi, kk, nb, p):
+    """First guess of the phases a block of lines needs: the site's rule on the block's own spread.
+
+    ``gr + i gi`` (K, lanes) hold 2 g_k (g_k = c_k / (i k nu_r)), so the spread of the
+    offsets in units of the rate is at most sum_k k |2 g_k|; the bands follow Carson's
+    rule as in ``spinning.choose_rotor_phases``.
+    """
+    need = 0.0
+    for l in range(nb):
+        sp = 0.0
+        for k in range(kk):
+            sp += (k + 1) * math.sqrt(gr[k, l] * gr[k, l] + gi[k, l] * gi[k, l])
+        need = max(need, sp)
+    bands = 2.0 * (need + 4.0)
+    pb = min(16, p)
+    while pb < 2.0 * bands and pb < p:
+        pb *= 2
+    return pb
+
+
+@njit(cache=True, inline="always")
+def _store_bands(amp_row, re, im, l, pb, p):
+    """|F_n|^2 of lane l from a P' = pb point FFT into a row of P = p bands (band n at n mod P).
+
+    Returns the fraction of the line's intensity in its outer quarter (|n| > 3 P' / 8).
+    """
+    inv = 1.0 / (pb * pb)
+    for j in range(p):
+        amp_row[j] = 0.0
+    outer = 0.0
+    total = 0.0
+    half = pb // 2
+    for j in range(pb):
+        a = (re[j, l] * re[j, l] + im[j, l] * im[j, l]) * inv
+        n = j if j < half else j - pb
+        amp_row[n if n >= 0 else n + p] = a
+        total += a
+        if 8 * abs(n) > 3 * pb:
+            outer += a
+    return outer / total if total > 0.0 else 0.0
+
+
 @njit(parallel=True, cache=True, fastmath=True)
 def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, m_upper,
                             spin, second_order,
-                            rate_hz):
+                            rate_hz, adaptive=False):
     """Rotor averages and sideband intensities straight from the perturbative terms.
 
     Same physics as ``_perturbative_offsets`` followed by
@@ -864,6 +949,10 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, de
     rotor phase, so 16 samples give their Fourier coefficients k = 0..4
     exactly; each transition's phase xi(t) is then summed from 4 harmonics at
     the P output phases, exponentiated and Fourier transformed.
+    With ``adaptive`` each block of ``_LANES`` lines of one transition is
+    computed at the fewest phases P' <= P its own manifold needs (first guess
+    from its spread, doubled while more than ``_LINE_ALIAS`` of a line lies in
+    its outer quarter of bands); the bands beyond P'/2 are zero.
     Returns mean (N, T) and amp (N, T, P).
     """
     n_or = axes.shape[0]
@@ -895,16 +984,20 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, de
         for j in range(ns):
             dft_c[k, j] = cs16[(j * k) % ns] / ns
             dft_s[k, j] = sn16[(j * k) % ns] / ns
-    rev, _ = _fft_tables(p)
-    # harmonic tables at the P output phases, stored in bit-reversed order so the
-    # exponentials land where the in-place FFT wants them
-    hre = np.empty((4, p))
-    him = np.empty((4, p))
-    for k in range(4):
-        for j in range(p):
-            ang = 2.0 * math.pi * (k + 1) * rev[j] / p
-            hre[k, j] = math.cos(ang)
-            him[k, j] = math.sin(ang)
+    # harmonic tables at the output phases of every P' = 16 ... P, in bit-reversed order so the
+    # exponentials land where the in-place FFT wants them (table of P' from index P' - 16)
+    zr, zi = _level_tables(p)
+    hre = np.empty((4, 2 * p))
+    him = np.empty((4, 2 * p))
+    for j in range(2 * p):
+        cr = zr[j]
+        ci = zi[j]
+        ar = cr
+        ai = ci
+        for k in range(4):
+            hre[k, j] = ar
+            him[k, j] = ai
+            ar, ai = ar * cr - ai * ci, ar * ci + ai * cr
     twr, twi = _stage_twiddles(p)
     mean = np.empty((n_or, nt))
     amp = np.empty((n_or, nt, p))
@@ -969,24 +1062,35 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, de
                         gr[k - 1, l] = 2.0 * ci / (k * rate_hz)
                         gi[k - 1, l] = -2.0 * cr / (k * rate_hz)
                 nl = re.shape[1]
-                for j in range(p):
-                    h0r, h1r, h2r, h3r = hre[0, j], hre[1, j], hre[2, j], hre[3, j]
-                    h0i, h1i, h2i, h3i = him[0, j], him[1, j], him[2, j], him[3, j]
-                    for l in range(nl):
-                        xi = (gr[0, l] * h0r - gi[0, l] * h0i + gr[1, l] * h1r - gi[1, l] * h1i
-                              + gr[2, l] * h2r - gi[2, l] * h2i + gr[3, l] * h3r - gi[3, l] * h3i)
-                        cx, sx = _sincos(xi)
-                        re[j, l] = cx
-                        im[j, l] = sx
-                _fft_lanes_bitreversed(re, im, twr, twi)
-                for l in range(nb):
-                    for j in range(p):
-                        amp[blk + l, t, j] = (re[j, l] * re[j, l] + im[j, l] * im[j, l]) * inv
+                pb = _line_phases(gr, gi, 4, nb, p) if adaptive else p
+                while True:
+                    o = pb - 16
+                    for j in range(pb):
+                        h0r, h1r, h2r, h3r = hre[0, o + j], hre[1, o + j], hre[2, o + j], hre[3, o + j]
+                        h0i, h1i, h2i, h3i = him[0, o + j], him[1, o + j], him[2, o + j], him[3, o + j]
+                        for l in range(nl):
+                            xi = (gr[0, l] * h0r - gi[0, l] * h0i + gr[1, l] * h1r - gi[1, l] * h1i
+                                  + gr[2, l] * h2r - gi[2, l] * h2i + gr[3, l] * h3r - gi[3, l] * h3i)
+                            cx, sx = _sincos(xi)
+                            re[j, l] = cx
+                            im[j, l] = sx
+                    _fft_lanes_bitreversed(re[:pb], im[:pb], twr, twi)
+                    if pb == p:
+                        for l in range(nb):
+                            for j in range(p):
+                                amp[blk + l, t, j] = (re[j, l] * re[j, l] + im[j, l] * im[j, l]) * inv
+                        break
+                    worst = 0.0
+                    for l in range(nb):
+                        worst = max(worst, _store_bands(amp[blk + l, t], re, im, l, pb, p))
+                    if worst <= _LINE_ALIAS:
+                        break
+                    pb *= 2
     return mean, amp
 
 
 @njit(parallel=True, cache=True, fastmath=True)
-def _harmonic_sidebands(gr, gi, nphase):
+def _harmonic_sidebands(gr, gi, nphase, adaptive=False):
     """Sideband intensities |F_n|^2 from the Fourier components of each line's phase.
 
     Row r of ``gr + i gi`` (R, K) holds g_k, k = 1..K, of the accumulated phase
@@ -994,19 +1098,14 @@ def _harmonic_sidebands(gr, gi, nphase):
     trajectory with Fourier components c_k).  xi is summed at the P = ``nphase``
     equally spaced phases (any K: a harmonic above P/2 is evaluated, not aliased),
     exponentiated and Fourier transformed, ``_LANES`` rows side by side as in
-    ``_perturbative_sidebands``.  Returns amp (R, P), band n at index n mod P.
+    ``_perturbative_sidebands`` (and, with ``adaptive``, each block at the fewest
+    phases its lines need, as there).  Returns amp (R, P), band n at index n mod P.
     """
     nrow, kk = gr.shape
     p = nphase
-    rev, _ = _fft_tables(p)
+    p0 = min(16, p)
     twr, twi = _stage_twiddles(p)
-    # e^{i phi_j} at the output phases, in bit-reversed order
-    zr = np.empty(p)
-    zi = np.empty(p)
-    for j in range(p):
-        ang = 2.0 * math.pi * rev[j] / p
-        zr[j] = math.cos(ang)
-        zi[j] = math.sin(ang)
+    zr, zi = _level_tables(p)
     amp = np.empty((nrow, p))
     inv = 1.0 / (p * p)
     nblk = (nrow + _LANES - 1) // _LANES
@@ -1031,30 +1130,41 @@ def _harmonic_sidebands(gr, gi, nphase):
                         hr[k, l] = 0.0
                         hi[k, l] = 0.0
             nl = re.shape[1]
-            for j in range(p):
-                # e^{i k phi_j}, k = 1..K, by repeated multiplication
-                cr = zr[j]
-                ci = zi[j]
-                er[0] = cr
-                ei[0] = ci
-                for k in range(1, kk):
-                    er[k] = er[k - 1] * cr - ei[k - 1] * ci
-                    ei[k] = er[k - 1] * ci + ei[k - 1] * cr
-                for l in range(nl):
-                    re[j, l] = 0.0
-                for k in range(kk):
-                    a = er[k]
-                    b = ei[k]
+            pb = _line_phases(hr, hi, kk, nb, p) if adaptive else p
+            while True:
+                o = pb - p0
+                for j in range(pb):
+                    # e^{i k phi_j}, k = 1..K, by repeated multiplication
+                    cr = zr[o + j]
+                    ci = zi[o + j]
+                    er[0] = cr
+                    ei[0] = ci
+                    for k in range(1, kk):
+                        er[k] = er[k - 1] * cr - ei[k - 1] * ci
+                        ei[k] = er[k - 1] * ci + ei[k - 1] * cr
                     for l in range(nl):
-                        re[j, l] += hr[k, l] * a - hi[k, l] * b
-                for l in range(nl):
-                    cx, sx = _sincos(re[j, l])
-                    re[j, l] = cx
-                    im[j, l] = sx
-            _fft_lanes_bitreversed(re, im, twr, twi)
-            for l in range(nb):
-                for j in range(p):
-                    amp[r0 + l, j] = (re[j, l] * re[j, l] + im[j, l] * im[j, l]) * inv
+                        re[j, l] = 0.0
+                    for k in range(kk):
+                        a = er[k]
+                        b = ei[k]
+                        for l in range(nl):
+                            re[j, l] += hr[k, l] * a - hi[k, l] * b
+                    for l in range(nl):
+                        cx, sx = _sincos(re[j, l])
+                        re[j, l] = cx
+                        im[j, l] = sx
+                _fft_lanes_bitreversed(re[:pb], im[:pb], twr, twi)
+                if pb == p:
+                    for l in range(nb):
+                        for j in range(p):
+                            amp[r0 + l, j] = (re[j, l] * re[j, l] + im[j, l] * im[j, l]) * inv
+                    break
+                worst = 0.0
+                for l in range(nb):
+                    worst = max(worst, _store_bands(amp[r0 + l], re, im, l, pb, p))
+                if worst <= _LINE_ALIAS:
+                    break
+                pb *= 2
     return amp
 
 

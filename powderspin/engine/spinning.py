@@ -171,7 +171,7 @@ def choose_rotor_phases(spread_hz: float, rate_hz: float) -> int:
 
 
 def perturbative_sidebands(frame, directions, m_upper, *, rotor_angle_rad: float, phases: int, rate_hz: float,
-                           second_order: bool = True) -> tuple[np.ndarray, np.ndarray]:
+                           second_order: bool = True, adaptive: bool = True) -> tuple[np.ndarray, np.ndarray]:
     """Rotor averages and sideband intensities for perturbative frequencies (fast path).
 
     Equivalent to ``rotor_lines(perturbative_offsets(...), rate_hz)`` (checked
@@ -193,6 +193,13 @@ def perturbative_sidebands(frame, directions, m_upper, *, rotor_angle_rad: float
         Spinning rate nu_r (Hz), > 0 and finite.
     second_order : bool, optional
         Include the second-order quadrupolar term.
+    adaptive : bool, optional
+        Compute each block of 8 crystallites of one transition at the fewest
+        phases P' <= P its own manifold needs (first guess from its spread by
+        Carson's rule, doubled while more than 1e-12 of a line's intensity lies
+        in the outer quarter of its bands); its bands beyond P'/2 are zero.  A
+        slow-spinning manifold is as wide as its widest crystallites, and most
+        are narrower.  False: every line at P phases.
 
     Returns
     -------
@@ -228,7 +235,8 @@ def perturbative_sidebands(frame, directions, m_upper, *, rotor_angle_rad: float
     upper_level_indices(frame.spin, m_upper)
     return _k._perturbative_sidebands(
         *kernel_geometry(frame, d, rotor_angle_rad, p),
-        np.ascontiguousarray(m_upper, dtype=float), float(frame.spin), bool(second_order), float(rate_hz))
+        np.ascontiguousarray(m_upper, dtype=float), float(frame.spin), bool(second_order), float(rate_hz),
+        bool(adaptive))
 
 
 def rotor_fourier_components(frame, directions, m_upper, *, rotor_angle_rad: float) -> np.ndarray:
@@ -287,7 +295,8 @@ def rotor_fourier_components(frame, directions, m_upper, *, rotor_angle_rad: flo
     return c[..., k % 16]
 
 
-def trajectory_sidebands(traj: np.ndarray, rate_hz: float, phases: int) -> tuple[np.ndarray, np.ndarray]:
+def trajectory_sidebands(traj: np.ndarray, rate_hz: float, phases: int, *, adaptive: bool = True
+                         ) -> tuple[np.ndarray, np.ndarray]:
     """Rotor averages and sideband intensities at ``phases`` phases from a band-limited trajectory.
 
     ``traj`` samples each line's offset at Q equally spaced rotor phases; when
@@ -305,6 +314,9 @@ def trajectory_sidebands(traj: np.ndarray, rate_hz: float, phases: int) -> tuple
         Spinning rate nu_r (Hz), > 0 and finite.
     phases : int
         P, a power of 2: the number of bands computed.
+    adaptive : bool, optional
+        Each block of lines at the fewest phases it needs, as in
+        :func:`perturbative_sidebands`.
 
     Returns
     -------
@@ -343,5 +355,5 @@ def trajectory_sidebands(traj: np.ndarray, rate_hz: float, phases: int) -> tuple
         amp = np.zeros((n * nt, p))
         amp[:, 0] = 1.0
     else:
-        amp = _k._harmonic_sidebands(np.ascontiguousarray(g.real), np.ascontiguousarray(g.imag), p)
+        amp = _k._harmonic_sidebands(np.ascontiguousarray(g.real), np.ascontiguousarray(g.imag), p, bool(adaptive))
     return mean, amp.reshape(n, nt, p)

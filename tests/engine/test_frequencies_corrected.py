@@ -125,9 +125,10 @@ def test_trajectory_sidebands_equal_rotor_lines_where_both_are_exact():
     rate = 2000.0
     for p in (32, 128, 1024):
         m_fix, a_fix = rotor_lines(traj(p), rate)
-        m_new, a_new = trajectory_sidebands(traj(32), rate, p)
-        np.testing.assert_allclose(m_new, m_fix, rtol=0, atol=1e-9)
-        np.testing.assert_allclose(a_new, a_fix, rtol=0, atol=1e-9)
+        for adaptive in (False, True):
+            m_new, a_new = trajectory_sidebands(traj(32), rate, p, adaptive=adaptive)
+            np.testing.assert_allclose(m_new, m_fix, rtol=0, atol=1e-9)
+            np.testing.assert_allclose(a_new, a_fix, rtol=0, atol=1e-9)
 
 
 def test_harmonic_sidebands_kernel_matches_phase_integral():
@@ -169,3 +170,27 @@ def test_least_squares_kernel_matches_numpy():
     b = rng.normal(size=(60, 3))
     ref, *_ = np.linalg.lstsq(a, b, rcond=None)
     np.testing.assert_allclose(_k._least_squares(a, b), ref, rtol=0, atol=1e-11)
+
+
+@pytest.mark.parametrize("rate", [2000.0, 5000.0])
+def test_adaptive_sidebands_match_fixed_route(rate):
+    # The adaptive route (each block of crystallites at the fewest phases its own manifold needs)
+    # against the fixed one (every line at the site's P phases), 27Al C_Q 10 MHz, all transitions:
+    # where both resolve the manifold (P chosen so that the fixed route does) they agree to 1e-9.
+    from powderspin.engine.spinning import perturbative_sidebands
+
+    frame = site_frame(make_site(cq_mhz=10.0, eta_q=0.3), get_nuclide("27Al"), 9.4)
+    ms = [2.5, 1.5, 0.5, -0.5, -1.5]
+    axes = _dirs(8, 40)
+    p = 16384 if rate < 3000 else 8192
+    kw = dict(rotor_angle_rad=MAGIC, phases=p, rate_hz=rate)
+    m_fix, a_fix = perturbative_sidebands(frame, axes, ms, adaptive=False, **kw)
+    m_ad, a_ad = perturbative_sidebands(frame, axes, ms, adaptive=True, **kw)
+    np.testing.assert_allclose(m_ad, m_fix, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(a_ad, a_fix, rtol=0, atol=1e-9)
+    # and the same for the exact route's consumer
+    corr = fit_exact_correction(frame, ms)
+    off, _ = corrected_exact_offsets(frame, axes, ms, corr, rotor_angle_rad=MAGIC, phases=64)
+    _, e_fix = trajectory_sidebands(off, rate, p, adaptive=False)
+    _, e_ad = trajectory_sidebands(off, rate, p, adaptive=True)
+    np.testing.assert_allclose(e_ad, e_fix, rtol=0, atol=1e-9)
