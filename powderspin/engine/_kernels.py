@@ -168,7 +168,7 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delt
 # exact producer
 
 
-@njit(parallel=True, cache=True)
+@njit(cache=True)
 def _exact_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, ops, iz_diag,
                   iplus, upper_index,
                   lower_index):
@@ -181,6 +181,12 @@ def _exact_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad
     intensities |<m_hi|I+|m_lo>|^2 (zero unless single-quantum).
 
     ``ops`` holds IxIx, IyIy, IzIz, {Ix,Iy}, {Ix,Iz}, {Iy,Iz} (complex).
+
+    Serial: the fast exact route calls it on a few hundred directions per site
+    (``frequencies.fit_exact_correction``) and the method decision on 96, so a
+    parallel kernel bought nothing but compile time (parallel loops compile
+    several times slower); the levels are ordered by a short insertion sort
+    for the same reason (numpy's argsort compiles a quicksort).
     """
     n_or = axes.shape[0]
     nt = upper_index.shape[0]
@@ -188,7 +194,8 @@ def _exact_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad
     off = np.empty((n_or, nt, nphase))
     inten = np.empty((n_or, nt, nphase))
     dphi = 2.0 * math.pi / nphase
-    for i in prange(n_or):
+    order = np.empty(dim, dtype=np.int64)
+    for i in range(n_or):
         n = axes[i]
         u, v = _perp_pair(n)
         b = np.empty(3)
@@ -233,7 +240,13 @@ def _exact_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad
                 for r in range(dim):
                     acc += (vec[r, j].real ** 2 + vec[r, j].imag ** 2) * iz_diag[r]
                 mz[j] = acc
-            order = np.argsort(-mz)
+            # eigen-indices by descending <Iz> (insertion sort; dim <= 10 here)
+            for j in range(dim):
+                k = j
+                while k > 0 and mz[order[k - 1]] < mz[j]:
+                    order[k] = order[k - 1]
+                    k -= 1
+                order[k] = j
             for t in range(nt):
                 jh = order[upper_index[t]]
                 jl = order[lower_index[t]]
