@@ -105,8 +105,20 @@ def first_run(python: str) -> tuple[float, float]:
 
 
 def main():
-    other = sys.argv[1] if len(sys.argv) > 1 else None
+    import argparse
+
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("other", nargs="?", help="python of another checkout, timed side by side")
+    ap.add_argument("--only", help="comma-separated words; run the cases whose names contain one (and their "
+                    "cheap counterparts)")
+    ap.add_argument("--no-first-run", action="store_true", help="skip the first-run (empty cache) row")
+    args = ap.parse_args()
+    other = args.other
     names = list(CASES)
+    if args.only:
+        words = args.only.split(",")
+        pick = [n for n in names if any(w in n for w in words)]
+        names = [n for n in names if n in pick or any(CASES[q][3] == n for q in pick)]
     procs = {"this": _start(sys.executable, names)}
     if other:
         procs["other"] = _start(other, names)
@@ -126,7 +138,7 @@ def main():
         head += f" {'other / s':>10} {'other/this':>10}"
     print(head)
     for name in names:
-        cheap = CASES[name][3]
+        cheap = CASES[name][3] if CASES[name][3] in names else None
         t = best["this"][name]
         row = f"{name:<44} {t:9.3f}"
         row += f" {best['this'][cheap]:9.3f} {t / best['this'][cheap]:7.1f}" if cheap else f" {'':>9} {'':>7}"
@@ -134,6 +146,8 @@ def main():
             o = best["other"][name]
             row += f" {o:10.3f} {o / t:10.1f}"
         print(row + f"   [{meta[('this', name)]}]", flush=True)
+    if args.no_first_run:
+        return
     a, b = first_run(sys.executable)
     row = f"{'first run: demo, empty numba cache':<44} {a:9.1f} {b:9.1f} {a / b:7.1f}"
     if other:

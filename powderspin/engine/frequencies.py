@@ -6,7 +6,10 @@ from the reference frequency nu_ref) of each selected transition m -> m-1:
 * :func:`perturbative_offsets`: first-order shift (full secular part of the
   tensor), first-order quadrupolar and second-order quadrupolar terms;
 * :func:`exact_offsets`: diagonalisation of the full Zeeman + quadrupolar +
-  secular shift Hamiltonian (adiabatic levels labelled by <Iz>).
+  secular shift Hamiltonian (adiabatic levels labelled by <Iz>);
+* :func:`corrected_exact_offsets`: the same exact offsets as second order plus
+  a smooth correction fitted once per site (:func:`fit_exact_correction`), the
+  fast exact route.
 
 The Hamiltonian (frequency units) is ``H = nu0 (1 + 1e-6 d_zz) Iz + K sum_ab
 V_ab I_a I_b`` with ``K = C_Q / (2I(2I-1))`` and the EFG in units of V_zz.
@@ -41,6 +44,7 @@ __all__ = [
     "ExactCorrection",
     "fit_exact_correction",
     "corrected_exact_offsets",
+    "correction_tolerance_hz",
 ]
 
 
