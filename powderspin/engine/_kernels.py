@@ -912,7 +912,7 @@ def _line_phases(gr, gi, kk, nb, p):
 
     ``gr + i gi`` (K, lanes) hold 2 g_k (g_k = c_k / (i k nu_r)), so the spread of the
     offsets in units of the rate is at most sum_k k |2 g_k|; the bands follow Carson's
-    rule as in ``spinning.choose_rotor_phases``.
+    rule as in ``spinning.choose_rotor_phases``, with a margin of 4.
     """
     need = 0.0
     for l in range(nb):
@@ -920,9 +920,11 @@ def _line_phases(gr, gi, kk, nb, p):
         for k in range(kk):
             sp += (k + 1) * math.sqrt(gr[k, l] * gr[k, l] + gi[k, l] * gi[k, l])
         need = max(need, sp)
+    # four times the site's first-guess rule: the 1e-12 per-line check then rarely sends a block
+    # round again (a failed try costs as much as the try that follows)
     bands = 2.0 * (need + 4.0)
     pb = min(16, p)
-    while pb < 2.0 * bands and pb < p:
+    while pb < 8.0 * bands and pb < p:
         pb *= 2
     return pb
 
