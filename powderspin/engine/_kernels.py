@@ -168,7 +168,7 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delt
 # exact producer
 
 
-@njit(parallel=True, cache=True)
+@njit(cache=True)
 def _exact_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, ops, iz_diag,
                   iplus, upper_index,
                   lower_index):
@@ -181,6 +181,12 @@ def _exact_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad
     intensities |<m_hi|I+|m_lo>|^2 (zero unless single-quantum).
 
     ``ops`` holds IxIx, IyIy, IzIz, {Ix,Iy}, {Ix,Iz}, {Iy,Iz} (complex).
+
+    Serial: the fast exact route calls it on a few hundred directions per site
+    (``frequencies.fit_exact_correction``) and the method decision on 96, so a
+    parallel kernel bought nothing but compile time (parallel loops compile
+    several times slower); the levels are ordered by a short insertion sort
+    for the same reason (numpy's argsort compiles a quicksort).
     """
     n_or = axes.shape[0]
     nt = upper_index.shape[0]
@@ -188,7 +194,8 @@ def _exact_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad
     off = np.empty((n_or, nt, nphase))
     inten = np.empty((n_or, nt, nphase))
     dphi = 2.0 * math.pi / nphase
-    for i in prange(n_or):
+    order = np.empty(dim, dtype=np.int64)
+    for i in range(n_or):
         n = axes[i]
         u, v = _perp_pair(n)
         b = np.empty(3)
@@ -233,7 +240,13 @@ def _exact_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad
                 for r in range(dim):
                     acc += (vec[r, j].real ** 2 + vec[r, j].imag ** 2) * iz_diag[r]
                 mz[j] = acc
-            order = np.argsort(-mz)
+            # eigen-indices by descending <Iz> (insertion sort; dim <= 10 here)
+            for j in range(dim):
+                k = j
+                while k > 0 and mz[order[k - 1]] < mz[j]:
+                    order[k] = order[k - 1]
+                    k -= 1
+                order[k] = j
             for t in range(nt):
                 jh = order[upper_index[t]]
                 jl = order[lower_index[t]]
@@ -245,6 +258,110 @@ def _exact_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad
                         amp += np.conj(vec[r, jh]) * iplus[r, s] * vec[s, jl]
                 inten[i, t, p] = amp.real ** 2 + amp.imag ** 2
     return off, inten
+
+
+@njit(parallel=True, cache=True)
+def _cone_polynomial(axes, cos_r, sin_r, nphase, exponents, coef):
+    """Homogeneous polynomials in B0's direction b, evaluated at every orientation and rotor phase.
+
+    ``exponents`` (C, 3) holds the powers (a, b, c) of the monomials b_x^a b_y^b b_z^c, all of
+    one even degree L; ``coef`` (R, C) one row of coefficients per polynomial.  b is sampled as
+    in ``_exact_offsets`` (``_field_direction``; static when cos_r = 1, nphase = 1).  Returns
+    (n_orient, R, nphase).  On the unit sphere these monomials span the spherical harmonics of
+    every even rank <= L, so they represent any smooth even function of b that far.
+    """
+    n_or = axes.shape[0]
+    nr, nc = coef.shape
+    deg = 0
+    for c in range(nc):
+        deg = max(deg, exponents[c, 0] + exponents[c, 1] + exponents[c, 2])
+    out = np.empty((n_or, nr, nphase))
+    dphi = 2.0 * math.pi / nphase
+    for i in prange(n_or):
+        n0, n1, n2 = axes[i, 0], axes[i, 1], axes[i, 2]
+        u0, u1, u2, w0, w1, w2 = _perp3(n0, n1, n2)
+        px = np.empty(deg + 1)
+        py = np.empty(deg + 1)
+        pz = np.empty(deg + 1)
+        acc = np.empty(nr)
+        for p in range(nphase):
+            cc = sin_r * math.cos(p * dphi)
+            sn = sin_r * math.sin(p * dphi)
+            b0 = cos_r * n0 + cc * u0 + sn * w0
+            b1 = cos_r * n1 + cc * u1 + sn * w1
+            b2 = cos_r * n2 + cc * u2 + sn * w2
+            px[0] = 1.0
+            py[0] = 1.0
+            pz[0] = 1.0
+            for k in range(1, deg + 1):
+                px[k] = px[k - 1] * b0
+                py[k] = py[k - 1] * b1
+                pz[k] = pz[k - 1] * b2
+            for r in range(nr):
+                acc[r] = 0.0
+            for c in range(nc):
+                mono = px[exponents[c, 0]] * py[exponents[c, 1]] * pz[exponents[c, 2]]
+                for r in range(nr):
+                    acc[r] += coef[r, c] * mono
+            for r in range(nr):
+                out[i, r, p] = acc[r]
+    return out
+
+
+@njit(cache=True)
+def _least_squares(a, rhs):
+    """Least-squares solution X of A X ~ B by Householder QR (A (m, n), m >= n, full rank).
+
+    Written out because a LAPACK call from numpy starts BLAS threads, which on a busy
+    machine costs a hundred times the arithmetic of these small systems.  Householder
+    reflections (G. H. Golub, C. F. Van Loan, *Matrix Computations* (1996), sec. 5.3,
+    from memory) reduce A to triangular R and apply the same reflections to B; X then
+    follows by back substitution.
+    """
+    m, n = a.shape
+    r = a.copy()
+    b = rhs.copy()
+    nr = b.shape[1]
+    v = np.empty(m)
+    for j in range(n):
+        nrm = 0.0
+        for i in range(j, m):
+            nrm += r[i, j] * r[i, j]
+        nrm = math.sqrt(nrm)
+        if nrm == 0.0:
+            continue
+        alpha = -nrm if r[j, j] >= 0.0 else nrm
+        vv = 0.0
+        for i in range(j, m):
+            v[i] = r[i, j]
+        v[j] -= alpha
+        for i in range(j, m):
+            vv += v[i] * v[i]
+        if vv == 0.0:
+            continue
+        f = 2.0 / vv
+        for c in range(j, n):
+            d = 0.0
+            for i in range(j, m):
+                d += v[i] * r[i, c]
+            d *= f
+            for i in range(j, m):
+                r[i, c] -= d * v[i]
+        for c in range(nr):
+            d = 0.0
+            for i in range(j, m):
+                d += v[i] * b[i, c]
+            d *= f
+            for i in range(j, m):
+                b[i, c] -= d * v[i]
+    x = np.zeros((n, nr))
+    for c in range(nr):
+        for j in range(n - 1, -1, -1):
+            d = b[j, c]
+            for k in range(j + 1, n):
+                d -= r[j, k] * x[k, c]
+            x[j, c] = d / r[j, j]
+    return x
 
 
 # ---------------------------------------------------------------------------
@@ -544,10 +661,23 @@ def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cu
     vertex frequencies with area tri_w * mean vertex intensity, shared among
     the axis points x0 + (k + 0.5) dx by their hat functions
     (``_add_tent_points``).  Returns (nb,) summed intensities.
+
+    Only the bands a triangle's vertices carry are visited: a line computed at
+    fewer phases than P (``_perturbative_sidebands`` with ``adaptive``) has
+    exact zeros beyond its own bands, found by scanning inwards from band P/2.
     """
     m = tris.shape[0]
     nt = mean.shape[1]
     p = amp.shape[2]
+    nv = amp.shape[0]
+    # extent of each line's bands: the largest |n| whose intensity is not zero
+    ext = np.empty((nv, nt), dtype=np.int64)
+    for i in prange(nv):
+        for t in range(nt):
+            e = p // 2
+            while e > 0 and amp[i, t, e] == 0.0 and amp[i, t, p - e] == 0.0:
+                e -= 1
+            ext[i, t] = e
     bufs = np.zeros((nchunk, nb))
     step = (m + nchunk - 1) // nchunk
     inv = 1.0 / dx
@@ -574,7 +704,11 @@ def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cu
                 u1 = (f1 - x0) * inv - 0.5
                 u2 = (f2 - x0) * inv - 0.5
                 u3 = (f3 - x0) * inv - 0.5
-                for s in range(p):
+                e = max(ext[a, t], max(ext[b, t], ext[d, t]))
+                for q2 in range(min(p, 2 * e + 1)):
+                    # bands 0, 1, -1, 2, -2, ... out to the vertices' extent
+                    n2 = (q2 + 1) // 2
+                    s = n2 if q2 % 2 == 1 or q2 == 0 else p - n2
                     w = (
                         amp[a, t, s] * weights_t[a, t]
                         + amp[b, t, s] * weights_t[b, t]
@@ -747,10 +881,80 @@ def _fft_lanes_bitreversed(re, im, twr, twi):
         h *= 2
 
 
+#: a line computed at fewer phases than the site's (``adaptive``) keeps at most this fraction
+#: of its intensity in the outer quarter of its own bands, else its phases are doubled
+_LINE_ALIAS = 1e-12
+
+
+@njit(cache=True)
+def _level_tables(p):
+    """e^{i phi_j} at the bit-reversed phases of every power of 2 from min(16, p) to p, concatenated.
+
+    The table of P' phases starts at index P' - min(16, p).
+    """
+    p0 = min(16, p)
+    zr = np.empty(2 * p)
+    zi = np.empty(2 * p)
+    pb = p0
+    while pb <= p:
+        rev, _ = _fft_tables(pb)
+        for j in range(pb):
+            ang = 2.0 * math.pi * rev[j] / pb
+            zr[pb - p0 + j] = math.cos(ang)
+            zi[pb - p0 + j] = math.sin(ang)
+        pb *= 2
+    return zr, zi
+
+
+@njit(cache=True, inline="always")
+def _line_phases(gr, gi, kk, nb, p):
+    """First guess of the phases a block of lines needs: the site's rule on the block's own spread.
+
+    ``gr + i gi`` (K, lanes) hold 2 g_k (g_k = c_k / (i k nu_r)), so the spread of the
+    offsets in units of the rate is at most sum_k k |2 g_k|; the bands follow Carson's
+    rule as in ``spinning.choose_rotor_phases``, with a margin of 4.
+    """
+    need = 0.0
+    for l in range(nb):
+        sp = 0.0
+        for k in range(kk):
+            sp += (k + 1) * math.sqrt(gr[k, l] * gr[k, l] + gi[k, l] * gi[k, l])
+        need = max(need, sp)
+    # four times the site's first-guess rule: the 1e-12 per-line check then rarely sends a block
+    # round again (a failed try costs as much as the try that follows)
+    bands = 2.0 * (need + 4.0)
+    pb = min(16, p)
+    while pb < 8.0 * bands and pb < p:
+        pb *= 2
+    return pb
+
+
+@njit(cache=True, inline="always")
+def _store_bands(amp_row, re, im, l, pb, p):
+    """|F_n|^2 of lane l from a P' = pb point FFT into a row of P = p bands (band n at n mod P).
+
+    Returns the fraction of the line's intensity in its outer quarter (|n| > 3 P' / 8).
+    """
+    inv = 1.0 / (pb * pb)
+    for j in range(p):
+        amp_row[j] = 0.0
+    outer = 0.0
+    total = 0.0
+    half = pb // 2
+    for j in range(pb):
+        a = (re[j, l] * re[j, l] + im[j, l] * im[j, l]) * inv
+        n = j if j < half else j - pb
+        amp_row[n if n >= 0 else n + p] = a
+        total += a
+        if 8 * abs(n) > 3 * pb:
+            outer += a
+    return outer / total if total > 0.0 else 0.0
+
+
 @njit(parallel=True, cache=True, fastmath=True)
 def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, m_upper,
                             spin, second_order,
-                            rate_hz):
+                            rate_hz, adaptive=False):
     """Rotor averages and sideband intensities straight from the perturbative terms.
 
     Same physics as ``_perturbative_offsets`` followed by
@@ -760,6 +964,10 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, de
     rotor phase, so 16 samples give their Fourier coefficients k = 0..4
     exactly; each transition's phase xi(t) is then summed from 4 harmonics at
     the P output phases, exponentiated and Fourier transformed.
+    With ``adaptive`` each block of ``_LANES`` lines of one transition is
+    computed at the fewest phases P' <= P its own manifold needs (first guess
+    from its spread, doubled while more than ``_LINE_ALIAS`` of a line lies in
+    its outer quarter of bands); the bands beyond P'/2 are zero.
     Returns mean (N, T) and amp (N, T, P).
     """
     n_or = axes.shape[0]
@@ -791,16 +999,20 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, de
         for j in range(ns):
             dft_c[k, j] = cs16[(j * k) % ns] / ns
             dft_s[k, j] = sn16[(j * k) % ns] / ns
-    rev, _ = _fft_tables(p)
-    # harmonic tables at the P output phases, stored in bit-reversed order so the
-    # exponentials land where the in-place FFT wants them
-    hre = np.empty((4, p))
-    him = np.empty((4, p))
-    for k in range(4):
-        for j in range(p):
-            ang = 2.0 * math.pi * (k + 1) * rev[j] / p
-            hre[k, j] = math.cos(ang)
-            him[k, j] = math.sin(ang)
+    # harmonic tables at the output phases of every P' = 16 ... P, in bit-reversed order so the
+    # exponentials land where the in-place FFT wants them (table of P' from index P' - 16)
+    zr, zi = _level_tables(p)
+    hre = np.empty((4, 2 * p))
+    him = np.empty((4, 2 * p))
+    for j in range(2 * p):
+        cr = zr[j]
+        ci = zi[j]
+        ar = cr
+        ai = ci
+        for k in range(4):
+            hre[k, j] = ar
+            him[k, j] = ai
+            ar, ai = ar * cr - ai * ci, ar * ci + ai * cr
     twr, twi = _stage_twiddles(p)
     mean = np.empty((n_or, nt))
     amp = np.empty((n_or, nt, p))
@@ -865,20 +1077,110 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, de
                         gr[k - 1, l] = 2.0 * ci / (k * rate_hz)
                         gi[k - 1, l] = -2.0 * cr / (k * rate_hz)
                 nl = re.shape[1]
-                for j in range(p):
-                    h0r, h1r, h2r, h3r = hre[0, j], hre[1, j], hre[2, j], hre[3, j]
-                    h0i, h1i, h2i, h3i = him[0, j], him[1, j], him[2, j], him[3, j]
+                pb = _line_phases(gr, gi, 4, nb, p) if adaptive else p
+                while True:
+                    o = pb - 16
+                    for j in range(pb):
+                        h0r, h1r, h2r, h3r = hre[0, o + j], hre[1, o + j], hre[2, o + j], hre[3, o + j]
+                        h0i, h1i, h2i, h3i = him[0, o + j], him[1, o + j], him[2, o + j], him[3, o + j]
+                        for l in range(nl):
+                            xi = (gr[0, l] * h0r - gi[0, l] * h0i + gr[1, l] * h1r - gi[1, l] * h1i
+                                  + gr[2, l] * h2r - gi[2, l] * h2i + gr[3, l] * h3r - gi[3, l] * h3i)
+                            cx, sx = _sincos(xi)
+                            re[j, l] = cx
+                            im[j, l] = sx
+                    _fft_lanes_bitreversed(re[:pb], im[:pb], twr, twi)
+                    if pb == p:
+                        for l in range(nb):
+                            for j in range(p):
+                                amp[blk + l, t, j] = (re[j, l] * re[j, l] + im[j, l] * im[j, l]) * inv
+                        break
+                    worst = 0.0
+                    for l in range(nb):
+                        worst = max(worst, _store_bands(amp[blk + l, t], re, im, l, pb, p))
+                    if worst <= _LINE_ALIAS:
+                        break
+                    pb *= 2
+    return mean, amp
+
+
+@njit(parallel=True, cache=True, fastmath=True)
+def _harmonic_sidebands(gr, gi, nphase, adaptive=False):
+    """Sideband intensities |F_n|^2 from the Fourier components of each line's phase.
+
+    Row r of ``gr + i gi`` (R, K) holds g_k, k = 1..K, of the accumulated phase
+    xi(phi) = sum_k 2 Re(g_k e^{i k phi}) of one line (g_k = c_k / (i k nu_r) for a
+    trajectory with Fourier components c_k).  xi is summed at the P = ``nphase``
+    equally spaced phases (any K: a harmonic above P/2 is evaluated, not aliased),
+    exponentiated and Fourier transformed, ``_LANES`` rows side by side as in
+    ``_perturbative_sidebands`` (and, with ``adaptive``, each block at the fewest
+    phases its lines need, as there).  Returns amp (R, P), band n at index n mod P.
+    """
+    nrow, kk = gr.shape
+    p = nphase
+    p0 = min(16, p)
+    twr, twi = _stage_twiddles(p)
+    zr, zi = _level_tables(p)
+    amp = np.empty((nrow, p))
+    inv = 1.0 / (p * p)
+    nblk = (nrow + _LANES - 1) // _LANES
+    nchunk = max(1, min(64, nblk))
+    step = (nblk + nchunk - 1) // nchunk
+    for c in prange(nchunk):
+        re = np.empty((p, _LANES))
+        im = np.empty((p, _LANES))
+        hr = np.empty((kk, _LANES))
+        hi = np.empty((kk, _LANES))
+        er = np.empty(kk)
+        ei = np.empty(kk)
+        for blk in range(c * step, min(nblk, (c + 1) * step)):
+            r0 = blk * _LANES
+            nb = min(_LANES, nrow - r0)
+            for k in range(kk):
+                for l in range(_LANES):
+                    if l < nb:
+                        hr[k, l] = 2.0 * gr[r0 + l, k]
+                        hi[k, l] = 2.0 * gi[r0 + l, k]
+                    else:
+                        hr[k, l] = 0.0
+                        hi[k, l] = 0.0
+            nl = re.shape[1]
+            pb = _line_phases(hr, hi, kk, nb, p) if adaptive else p
+            while True:
+                o = pb - p0
+                for j in range(pb):
+                    # e^{i k phi_j}, k = 1..K, by repeated multiplication
+                    cr = zr[o + j]
+                    ci = zi[o + j]
+                    er[0] = cr
+                    ei[0] = ci
+                    for k in range(1, kk):
+                        er[k] = er[k - 1] * cr - ei[k - 1] * ci
+                        ei[k] = er[k - 1] * ci + ei[k - 1] * cr
                     for l in range(nl):
-                        xi = (gr[0, l] * h0r - gi[0, l] * h0i + gr[1, l] * h1r - gi[1, l] * h1i
-                              + gr[2, l] * h2r - gi[2, l] * h2i + gr[3, l] * h3r - gi[3, l] * h3i)
-                        cx, sx = _sincos(xi)
+                        re[j, l] = 0.0
+                    for k in range(kk):
+                        a = er[k]
+                        b = ei[k]
+                        for l in range(nl):
+                            re[j, l] += hr[k, l] * a - hi[k, l] * b
+                    for l in range(nl):
+                        cx, sx = _sincos(re[j, l])
                         re[j, l] = cx
                         im[j, l] = sx
-                _fft_lanes_bitreversed(re, im, twr, twi)
+                _fft_lanes_bitreversed(re[:pb], im[:pb], twr, twi)
+                if pb == p:
+                    for l in range(nb):
+                        for j in range(p):
+                            amp[r0 + l, j] = (re[j, l] * re[j, l] + im[j, l] * im[j, l]) * inv
+                    break
+                worst = 0.0
                 for l in range(nb):
-                    for j in range(p):
-                        amp[blk + l, t, j] = (re[j, l] * re[j, l] + im[j, l] * im[j, l]) * inv
-    return mean, amp
+                    worst = max(worst, _store_bands(amp[r0 + l], re, im, l, pb, p))
+                if worst <= _LINE_ALIAS:
+                    break
+                pb *= 2
+    return amp
 
 
 @njit(parallel=True, cache=True)

@@ -6,7 +6,10 @@ from the reference frequency nu_ref) of each selected transition m -> m-1:
 * :func:`perturbative_offsets`: first-order shift (full secular part of the
   tensor), first-order quadrupolar and second-order quadrupolar terms;
 * :func:`exact_offsets`: diagonalisation of the full Zeeman + quadrupolar +
-  secular shift Hamiltonian (adiabatic levels labelled by <Iz>).
+  secular shift Hamiltonian (adiabatic levels labelled by <Iz>);
+* :func:`corrected_exact_offsets`: the same exact offsets as second order plus
+  a smooth correction fitted once per site (:func:`fit_exact_correction`), the
+  fast exact route.
 
 The Hamiltonian (frequency units) is ``H = nu0 (1 + 1e-6 d_zz) Iz + K sum_ab
 V_ab I_a I_b`` with ``K = C_Q / (2I(2I-1))`` and the EFG in units of V_zz.
@@ -38,6 +41,10 @@ __all__ = [
     "transition_intensity",
     "perturbation_error_hz",
     "probe_directions",
+    "ExactCorrection",
+    "fit_exact_correction",
+    "corrected_exact_offsets",
+    "correction_tolerance_hz",
 ]
 
 
@@ -157,7 +164,31 @@ def site_frame(site: Site, nucleus: Nuclide, field_tesla: float) -> SiteFrame:
     return SiteFrame(spin, nu0, k, efg_principal(site.eta_q), delta, "octant" if coaxial else "hemisphere")
 
 
-def _axes(directions) -> np.ndarray:
+def checked_directions(directions) -> np.ndarray:
+    """Unit vectors (N, 3) from ``directions``; the engine's one check of direction input.
+
+    Part of the engine's internal interface (used by :mod:`powderspin.engine.spinning`).
+
+    Parameters
+    ----------
+    directions : array_like, shape (N, 3) or (3,)
+        Non-zero finite vectors (any length).
+
+    Returns
+    -------
+    numpy.ndarray, shape (N, 3)
+        The directions normalised, C-contiguous.
+
+    Raises
+    ------
+    ValueError
+        Naming the first bad direction or the wrong shape.
+
+    Examples
+    --------
+    >>> checked_directions([0.0, 0.0, 2.0]).tolist()
+    [[0.0, 0.0, 1.0]]
+    """
     d = np.asarray(directions, dtype=float)
     if d.size == 0:
         return np.empty((0, 3))
@@ -172,8 +203,33 @@ def _axes(directions) -> np.ndarray:
     return d / nrm[:, None]
 
 
-def _upper_levels(spin: float, m_upper) -> np.ndarray:
-    """Index (m = I first) of the upper level of each transition m -> m-1; validates m_upper."""
+def upper_level_indices(spin: float, m_upper) -> np.ndarray:
+    """Index (m = I first) of the upper level of each transition m -> m-1; validates ``m_upper``.
+
+    Part of the engine's internal interface (used by :mod:`powderspin.engine.spinning`).
+
+    Parameters
+    ----------
+    spin : float
+        Nuclear spin I.
+    m_upper : sequence of float
+        Upper level m of each transition m -> m-1.
+
+    Returns
+    -------
+    numpy.ndarray of int
+        I - m for each transition.
+
+    Raises
+    ------
+    ValueError
+        When a level does not exist for this spin (the message lists the allowed values).
+
+    Examples
+    --------
+    >>> upper_level_indices(2.5, [2.5, 0.5]).tolist()
+    [0, 2]
+    """
     m_upper_a = np.asarray(m_upper, dtype=float).reshape(-1)
     idx = spin - m_upper_a
     ok = np.isfinite(idx) & (np.abs(idx - np.round(idx)) < 1e-9) & (idx > -0.5) & (idx < 2 * spin - 0.5)
@@ -229,14 +285,42 @@ def perturbative_offsets(
     >>> perturbative_offsets(f, [[0, 0, 1]], [1.5]).round(1).tolist()  # nu_Q at theta = 0
     [[[450000.0]]]
     """
-    ax = _axes(directions)
-    _upper_levels(frame.spin, m_upper)
+    ax = checked_directions(directions)
+    upper_level_indices(frame.spin, m_upper)
     m_upper_a = np.asarray(m_upper, dtype=float).reshape(-1)
-    return _perturbative_pairs(frame, ax, m_upper_a, m_upper_a - 1.0, rotor_angle_rad, phases, second_order)
+    return perturbative_pair_offsets(frame, ax, m_upper_a, m_upper_a - 1.0, rotor_angle_rad, phases, second_order)
 
 
-def _kernel_geometry(frame, ax, rotor_angle_rad, phases):
-    """The leading kernel arguments shared by both producers."""
+def kernel_geometry(frame: SiteFrame, ax: np.ndarray, rotor_angle_rad: float, phases: int) -> tuple:
+    """The leading arguments shared by the producer kernels of :mod:`powderspin.engine._kernels`.
+
+    Part of the engine's internal interface (used by :mod:`powderspin.engine.spinning`).
+
+    Parameters
+    ----------
+    frame : SiteFrame
+    ax : numpy.ndarray, shape (N, 3)
+        Unit directions (:func:`checked_directions`).
+    rotor_angle_rad : float
+        Rotor angle (radians); 0 with ``phases = 1`` is static.
+    phases : int
+        Rotor phases per period.
+
+    Returns
+    -------
+    tuple
+        (directions, cos and sin of the rotor angle, phases, EFG principal values,
+        shift tensor (ppm), C_Q / (2I(2I-1)) (Hz), nu0 (Hz)).
+
+    Examples
+    --------
+    >>> from powderspin.model.values import Site
+    >>> from powderspin.physics.nuclides import get_nuclide
+    >>> g = kernel_geometry(site_frame(Site(cq_mhz=3.0), get_nuclide("27Al"), 14.1), checked_directions([0, 0, 1]),
+    ...                     0.0, 1)
+    >>> len(g), g[3]
+    (8, 1)
+    """
     return (
         ax,
         math.cos(rotor_angle_rad),
@@ -249,9 +333,14 @@ def _kernel_geometry(frame, ax, rotor_angle_rad, phases):
     )
 
 
-def _perturbative_pairs(frame, ax, m_upper, m_lower, rotor_angle_rad, phases, second_order):
+def perturbative_pair_offsets(frame, ax, m_upper, m_lower, rotor_angle_rad, phases, second_order):
+    """Perturbative offsets (Hz) of the level pairs m_upper <-> m_lower (checked unit vectors ``ax``).
+
+    Part of the engine's internal interface (used by :mod:`powderspin.engine.two_dimensional` for the
+    multiple-quantum and satellite transitions; :func:`perturbative_offsets` is the public front).
+    """
     return _k._perturbative_offsets(
-        *_kernel_geometry(frame, ax, rotor_angle_rad, phases),
+        *kernel_geometry(frame, ax, rotor_angle_rad, phases),
         np.ascontiguousarray(m_upper, dtype=float),
         np.ascontiguousarray(m_lower, dtype=float),
         float(frame.spin),
@@ -302,16 +391,21 @@ def exact_offsets(
     >>> round(float(inten[0, 0, 0]), 6)
     9.0
     """
-    ax = _axes(directions)
+    ax = checked_directions(directions)
     spin = frame.spin
-    upper = _upper_levels(spin, m_upper)
-    return _exact_pairs(frame, ax, upper, upper + 1, rotor_angle_rad, phases)
+    upper = upper_level_indices(spin, m_upper)
+    return exact_pair_offsets(frame, ax, upper, upper + 1, rotor_angle_rad, phases)
 
 
-def _exact_pairs(frame, ax, upper, lower, rotor_angle_rad, phases):
+def exact_pair_offsets(frame, ax, upper, lower, rotor_angle_rad, phases):
+    """Exact offsets (Hz) and intensities of the level pairs with indices ``upper``, ``lower`` (m = I first).
+
+    Part of the engine's internal interface (used by :mod:`powderspin.engine.two_dimensional`;
+    :func:`exact_offsets` is the public front).
+    """
     ops, iz, ip = _operator_products(frame.spin)
     return _k._exact_offsets(
-        *_kernel_geometry(frame, ax, rotor_angle_rad, phases),
+        *kernel_geometry(frame, ax, rotor_angle_rad, phases),
         ops,
         iz,
         ip,
@@ -362,17 +456,17 @@ def multiple_quantum_offsets(
     >>> abs(float(multiple_quantum_offsets(f, [[0, 0, 1]], 1.5)[0, 0, 0])) < 1e-6  # theta = 0: no shift
     True
     """
-    ax = _axes(directions)
+    ax = checked_directions(directions)
     spin = frame.spin
     mm = float(m)
     if not (0 < mm <= spin and abs(2 * mm - round(2 * mm)) < 1e-12) or abs(mm - round(mm)) < 1e-12:
         raise ValueError(f"m = {m!r} must be a positive half-integer <= I = {spin} for a symmetric m <-> -m transition")
     if method == "perturbation":
-        return _perturbative_pairs(frame, ax, np.array([mm]), np.array([-mm]), rotor_angle_rad, phases, True)
+        return perturbative_pair_offsets(frame, ax, np.array([mm]), np.array([-mm]), rotor_angle_rad, phases, True)
     if method == "exact":
         up = np.array([int(round(spin - mm))])
         lo = np.array([int(round(spin + mm))])
-        return _exact_pairs(frame, ax, up, lo, rotor_angle_rad, phases)[0]
+        return exact_pair_offsets(frame, ax, up, lo, rotor_angle_rad, phases)[0]
     raise ValueError(f"method = {method!r} is not one of 'perturbation', 'exact'")
 
 
@@ -480,3 +574,215 @@ def perturbation_error_hz(frame: SiteFrame, m_upper, *, rotor_angle_rad: float =
     a = perturbative_offsets(frame, d, m_upper, rotor_angle_rad=rotor_angle_rad, phases=phases)
     b, _ = exact_offsets(frame, d, m_upper, rotor_angle_rad=rotor_angle_rad, phases=phases)
     return float(np.max(np.abs(a - b)))
+
+
+# ---------------------------------------------------------------------------
+# the fast exact route: second order plus a fitted smooth correction
+
+#: degrees tried for the correction polynomial, in order (each needs about 2.5x its
+#: number of monomials, (L + 1)(L + 2) / 2, diagonalisations to fit)
+CORRECTION_DEGREES = (8, 12, 16, 20)
+
+
+@dataclass(frozen=True)
+class ExactCorrection:
+    """Exact-minus-second-order offsets and intensities as polynomials in B0's direction.
+
+    At high field the exact offset of a transition is a function of B0's
+    direction b in the crystallite frame alone (the Hamiltonian depends on
+    nothing else), and so is its second-order approximation.  Their
+    difference, the third- and higher-order terms, is small and smooth: the
+    order-n term is a polynomial of degree 2n in b and shrinks by about
+    nu_Q/nu0 per order.  A homogeneous polynomial of even degree L in b
+    (monomials b_x^a b_y^b b_z^c, a + b + c = L) represents every even
+    function of b up to spherical-harmonic rank L on the unit sphere, so it
+    holds the correction to the size of the neglected orders.  Fitted once per
+    site from a few hundred diagonalisations, it gives the exact offsets at any
+    orientation and rotor phase for the price of the perturbative ones.
+
+    Attributes
+    ----------
+    degree : int
+        Polynomial degree L (even).
+    exponents : ndarray (C, 3) of int
+        Powers of the monomials.
+    coefficients : ndarray (2 T, C)
+        Rows 0..T-1: offset corrections (Hz) of the T transitions; rows T..2T-1:
+        intensity corrections (|<m|I+|m-1>|^2 minus its high-field value).
+    error_hz : float
+        Largest offset error of the fit on check directions not used to fit it (Hz).
+    intensity_error : float
+        Largest intensity error there (absolute).
+
+    References
+    ----------
+    A. Abragam, *The Principles of Nuclear Magnetism* (1961), chapter on electric
+    quadrupole effects (the perturbation series in nu_Q/nu0) (from memory);
+    E. W. Hobson, *The Theory of Spherical and Ellipsoidal Harmonics* (1931) (homogeneous
+    polynomials on the sphere and spherical harmonics) (from memory).
+
+    Examples
+    --------
+    >>> from powderspin.model.values import Site
+    >>> from powderspin.physics.nuclides import get_nuclide
+    >>> c = fit_exact_correction(site_frame(Site(cq_mhz=10.0), get_nuclide("27Al"), 9.4), [1.5, 0.5])
+    >>> c.degree, c.error_hz < 1e-3
+    (16, True)
+    """
+
+    degree: int
+    exponents: np.ndarray
+    coefficients: np.ndarray
+    error_hz: float
+    intensity_error: float
+
+
+def _monomial_exponents(degree: int, octant: bool = False) -> np.ndarray:
+    """Powers (a, b, c), a + b + c = degree; only even ones when the function is even in each axis."""
+    e = [(a, b, degree - a - b) for a in range(degree + 1) for b in range(degree + 1 - a)]
+    if octant:
+        e = [x for x in e if x[0] % 2 == 0 and x[1] % 2 == 0]
+    return np.array(e, dtype=np.int64)
+
+
+def _monomials(d: np.ndarray, exponents: np.ndarray) -> np.ndarray:
+    return np.prod(d[:, None, :] ** exponents[None, :, :], axis=2)
+
+
+def correction_tolerance_hz(frame: SiteFrame) -> float:
+    """Largest offset error (Hz) :func:`fit_exact_correction` accepts.
+
+    1e-5 Hz, or the rounding level of the exact diagonalisation itself (about
+    3e-14 of the largest level energy, nu0 I, measured) where that is larger.
+
+    Parameters
+    ----------
+    frame : SiteFrame
+
+    Returns
+    -------
+    float
+
+    Examples
+    --------
+    >>> from powderspin.model.values import Site
+    >>> from powderspin.physics.nuclides import get_nuclide
+    >>> correction_tolerance_hz(site_frame(Site(cq_mhz=10.0), get_nuclide("27Al"), 9.4))
+    1e-05
+    """
+    return max(1e-5, 3e-14 * frame.nu0_hz * frame.spin)
+
+
+def fit_exact_correction(frame: SiteFrame, m_upper, *, degrees=CORRECTION_DEGREES,
+                         tolerance_hz: float | None = None) -> ExactCorrection | None:
+    """Fit the exact-minus-second-order correction of a site (see :class:`ExactCorrection`).
+
+    For each degree in turn the correction is fitted by least squares to exact
+    diagonalisations at 2.5 times as many quasi-uniform directions as it has
+    monomials, and checked at as many other directions; the first degree whose
+    largest offset error is within ``tolerance_hz`` (and intensity error within
+    1e-9 of the largest intensity) is returned.
+
+    Parameters
+    ----------
+    frame : SiteFrame
+    m_upper : sequence of float
+        Upper level m of each transition m -> m-1.
+    degrees : sequence of int, optional
+        Even degrees to try.
+    tolerance_hz : float, optional
+        Default :func:`correction_tolerance_hz`.
+
+    Returns
+    -------
+    ExactCorrection or None
+        None when no degree meets the tolerance (strong coupling: the exact
+        route then diagonalises at every orientation and phase).
+
+    References
+    ----------
+    A. Abragam, *The Principles of Nuclear Magnetism* (1961), chapter on electric
+    quadrupole effects (from memory).
+
+    Examples
+    --------
+    >>> from powderspin.model.values import Site
+    >>> from powderspin.physics.nuclides import get_nuclide
+    >>> f = site_frame(Site(cq_mhz=25.0, eta_q=0.3), get_nuclide("93Nb"), 9.4)
+    >>> c = fit_exact_correction(f, [0.5])
+    >>> d = probe_directions(5)
+    >>> off, _ = corrected_exact_offsets(f, d, [0.5], c)
+    >>> bool(np.abs(off - exact_offsets(f, d, [0.5])[0]).max() < 1e-3)   # Hz
+    True
+    """
+    upper_level_indices(frame.spin, m_upper)
+    m_upper_a = np.asarray(m_upper, dtype=float).reshape(-1)
+    tol = correction_tolerance_hz(frame) if tolerance_hz is None else float(tolerance_hz)
+    ideal = np.array([transition_intensity(frame.spin, m) for m in m_upper_a])
+    for degree in degrees:
+        # a site whose tensors are all diagonal in the crystallite frame has frequencies even in
+        # each coordinate of b (the octant symmetry), and so has the correction
+        exps = _monomial_exponents(int(degree), frame.symmetry == "octant")
+        nfit = int(2.5 * len(exps))
+        d_fit = probe_directions(nfit)
+        d_chk = probe_directions(nfit + 1)[:: 2]  # a different spiral
+        targets = []
+        for d in (d_fit, d_chk):
+            ex, inten = exact_offsets(frame, d, m_upper_a)
+            pt = perturbative_offsets(frame, d, m_upper_a)
+            targets.append(np.concatenate([(ex - pt)[..., 0], inten[..., 0] - ideal], axis=1))
+        coef = _k._least_squares(_monomials(d_fit, exps), np.ascontiguousarray(targets[0]))
+        resid = np.abs(_monomials(d_chk, exps) @ coef - targets[1])
+        nt = len(m_upper_a)
+        err_hz = float(resid[:, :nt].max())
+        err_i = float(resid[:, nt:].max())
+        if err_hz <= tol and err_i <= 1e-9 * float(ideal.max()):
+            return ExactCorrection(int(degree), exps, np.ascontiguousarray(coef.T), err_hz, err_i)
+    return None
+
+
+def corrected_exact_offsets(frame: SiteFrame, directions, m_upper, correction: ExactCorrection, *,
+                            rotor_angle_rad: float = 0.0, phases: int = 1) -> tuple[np.ndarray, np.ndarray]:
+    """Exact offsets and intensities as second order plus the fitted correction (fast exact route).
+
+    Parameters
+    ----------
+    frame, directions, m_upper, rotor_angle_rad, phases
+        As in :func:`exact_offsets`; ``m_upper`` must be the transitions the
+        correction was fitted for.
+    correction : ExactCorrection
+        From :func:`fit_exact_correction`.
+
+    Returns
+    -------
+    offsets, intensities : ndarray, shape (N, len(m_upper), phases)
+        As :func:`exact_offsets` gives them, to within ``correction.error_hz``
+        and ``correction.intensity_error``.
+
+    References
+    ----------
+    A. Abragam, *The Principles of Nuclear Magnetism* (1961), chapter on electric
+    quadrupole effects (from memory).
+
+    Examples
+    --------
+    >>> from powderspin.model.values import Site
+    >>> from powderspin.physics.nuclides import get_nuclide
+    >>> f = site_frame(Site(cq_mhz=10.0), get_nuclide("27Al"), 9.4)
+    >>> c = fit_exact_correction(f, [0.5])
+    >>> off, inten = corrected_exact_offsets(f, [[0.0, 0.0, 1.0]], [0.5], c)
+    >>> round(float(inten[0, 0, 0]), 6)
+    9.0
+    """
+    ax = checked_directions(directions)
+    upper_level_indices(frame.spin, m_upper)
+    m_upper_a = np.asarray(m_upper, dtype=float).reshape(-1)
+    nt = len(m_upper_a)
+    if correction.coefficients.shape[0] != 2 * nt:
+        raise ValueError(f"the correction was fitted for {correction.coefficients.shape[0] // 2} transitions, "
+                         f"not the {nt} of m_upper = {m_upper_a.tolist()}")
+    pert = perturbative_offsets(frame, ax, m_upper_a, rotor_angle_rad=rotor_angle_rad, phases=phases)
+    corr = _k._cone_polynomial(ax, math.cos(rotor_angle_rad), math.sin(rotor_angle_rad), int(phases),
+                               correction.exponents, correction.coefficients)
+    ideal = np.array([transition_intensity(frame.spin, m) for m in m_upper_a])
+    return pert + corr[:, :nt], corr[:, nt:] + ideal[None, :, None]

@@ -52,7 +52,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import _kernels as _k
-from .frequencies import SiteFrame, _axes, _upper_levels, exact_offsets, perturbative_offsets
+from .frequencies import SiteFrame, checked_directions, exact_offsets, perturbative_offsets, upper_level_indices
 
 __all__ = [
     "PulseSequence",
@@ -205,7 +205,7 @@ def rotating_frame_levels(frame: SiteFrame, directions, *, method: str = "pertur
     >>> (d[0, :-1] - d[0, 1:]).round(1).tolist()     # offsets of 5/2:3/2 ... -3/2:-5/2: 2 nu_Q ... -2 nu_Q
     [900000.0, 450000.0, 0.0, -450000.0, -900000.0]
     """
-    ax = _axes(directions)
+    ax = checked_directions(directions)
     spin = frame.spin
     m_all = [spin - i for i in range(int(round(2 * spin)))]
     if method == "exact":
@@ -392,7 +392,7 @@ def transition_amplitudes(levels_hz, sequence: PulseSequence, m_upper) -> np.nda
     """
     lv, spin = _levels(levels_hz)
     _, mz, ix_off = _spin_tables(spin)
-    upper = np.ascontiguousarray(_upper_levels(spin, m_upper), dtype=np.int64)
+    upper = np.ascontiguousarray(upper_level_indices(spin, m_upper), dtype=np.int64)
     ph = [math.radians(x) for x in sequence.phases_deg]
     t = sequence.lengths_s
     echo = sequence.kind == "echo"
@@ -475,7 +475,7 @@ def site_excitation(frame: SiteFrame, directions, m_upper, sequence: PulseSequen
     >>> round(float(e[0, 0]), 4)     # a hard 90 degree pulse
     1.0
     """
-    ax = _axes(directions)
+    ax = checked_directions(directions)
     p = int(rotor_phases) if spinning else 1
     lv = rotating_frame_levels(frame, ax, method=method, rotor_angle_rad=rotor_angle_rad if spinning else 0.0,
                                phases=p, carrier_offset_hz=sequence.carrier_offset_hz)

@@ -37,7 +37,9 @@ from ..progress import emit
 from . import _kernels as _k
 from .frequencies import (
     SiteFrame,
+    corrected_exact_offsets,
     exact_offsets,
+    fit_exact_correction,
     perturbation_error_hz,
     perturbative_offsets,
     site_frame,
@@ -46,7 +48,13 @@ from .frequencies import (
 from .lineshape import Axis, bin_lines, broaden
 from .pulses import PulseSequence, site_excitation
 from .spectrum import SidebandRow
-from .spinning import MAX_ROTOR_PHASES, choose_rotor_phases, perturbative_sidebands, rotor_lines
+from .spinning import (
+    MAX_ROTOR_PHASES,
+    choose_rotor_phases,
+    perturbative_sidebands,
+    rotor_lines,
+    trajectory_sidebands,
+)
 
 __all__ = [
     "SiteJob",
@@ -796,6 +804,14 @@ class _Producer:
         self.rate = job.spinning_hz
         self.ideal = _ideal_weights(self.frame.spin, self.m_upper)
         self.norm = sum(transition_intensity(self.frame.spin, m) for m in self.m_upper)
+        # the fast exact route: second order plus a fitted correction (None: diagonalise everywhere)
+        self.correction = fit_exact_correction(self.frame, self.m_upper) if self.exact else None
+        # phases that hold the corrected trajectory exactly (a trigonometric polynomial of the
+        # correction's degree, at least the second order's 4)
+        q = 16
+        while self.correction is not None and q <= 2 * self.correction.degree:
+            q *= 2
+        self.exact_phases = q
         self.pulse = job.pulse
 
     def excitation(self, dirs: np.ndarray) -> np.ndarray:
@@ -811,8 +827,15 @@ class _Producer:
         return out
 
     def chunk_size(self, phases: int) -> int:
-        per = len(self.m_upper) * max(phases, 1) * (self.frame_dim() ** 2 if self.exact else 1)
+        direct = self.exact and self.correction is None
+        per = len(self.m_upper) * max(phases, 1) * (self.frame_dim() ** 2 if direct else 1)
         return max(16, _CHUNK_POINTS // per)
+
+    def _exact(self, dirs: np.ndarray, rotor_angle_rad: float = 0.0, phases: int = 1):
+        if self.correction is None:
+            return exact_offsets(self.frame, dirs, self.m_upper, rotor_angle_rad=rotor_angle_rad, phases=phases)
+        return corrected_exact_offsets(self.frame, dirs, self.m_upper, self.correction,
+                                       rotor_angle_rad=rotor_angle_rad, phases=phases)
 
     def frame_dim(self) -> int:
         return int(round(2 * self.frame.spin + 1))
@@ -822,7 +845,7 @@ class _Producer:
         f, m_upper, rate = self.frame, self.m_upper, self.rate
         if rate == 0.0:
             if self.exact:
-                off, inten = exact_offsets(f, dirs, m_upper)
+                off, inten = self._exact(dirs)
                 w = inten[:, :, 0] / self.norm
             else:
                 off = perturbative_offsets(f, dirs, m_upper)
@@ -830,16 +853,21 @@ class _Producer:
             return off[:, :, 0].copy(), np.ones(off.shape[:2] + (1,)), w
         if math.isinf(rate):
             if self.exact:
-                off, inten = exact_offsets(f, dirs, m_upper, rotor_angle_rad=self.theta, phases=phases)
+                q = phases if self.correction is None else max(phases, self.exact_phases)
+                off, inten = self._exact(dirs, self.theta, q)
                 w = inten.mean(axis=2) / self.norm
             else:
                 off = perturbative_offsets(f, dirs, m_upper, rotor_angle_rad=self.theta, phases=phases)
                 w = np.broadcast_to(self.ideal, off.shape[:2]).copy()
             return off.mean(axis=2), np.ones(off.shape[:2] + (1,)), w
         if self.exact:
-            off, inten = exact_offsets(f, dirs, m_upper, rotor_angle_rad=self.theta, phases=phases)
+            if self.correction is None:
+                off, inten = exact_offsets(f, dirs, m_upper, rotor_angle_rad=self.theta, phases=phases)
+                mean, amp = rotor_lines(off, rate)
+            else:  # the trajectory at a few dozen phases holds it exactly; the bands follow at any P
+                off, inten = self._exact(dirs, self.theta, self.exact_phases)
+                mean, amp = trajectory_sidebands(off, rate, phases)
             w = inten.mean(axis=2) / self.norm
-            mean, amp = rotor_lines(off, rate)
             return mean, amp, w
         mean, amp = perturbative_sidebands(f, dirs, m_upper, rotor_angle_rad=self.theta, phases=phases, rate_hz=rate)
         return mean, amp, np.broadcast_to(self.ideal, mean.shape).copy()

@@ -51,7 +51,7 @@ import numpy as np
 from ..model.values import ModelError
 from ..physics.multiple_quantum import TwoDimensionalScale
 from . import _kernels as _k
-from .frequencies import _axes, _exact_pairs, _perturbative_pairs
+from .frequencies import checked_directions, exact_pair_offsets, perturbative_pair_offsets
 from .lineshape import Axis, broaden
 from .site_lines import (
     BIN_CUTOFF,
@@ -112,17 +112,17 @@ def t1_offsets(frame, directions, pairs, *, method: str, rotor_angle_rad: float,
     >>> off.shape
     (2, 1)
     """
-    ax = _axes(directions)
+    ax = checked_directions(directions)
     theta = rotor_angle_rad if spinning else 0.0
     spin = frame.spin
     if method == "exact":
         phases = INFINITE_RATE_PHASES_EXACT if spinning else 1
         up = np.array([int(round(spin - a)) for a, _ in pairs], dtype=np.int64)
         lo = np.array([int(round(spin - b)) for _, b in pairs], dtype=np.int64)
-        off, _ = _exact_pairs(frame, ax, up, lo, theta, phases)
+        off, _ = exact_pair_offsets(frame, ax, up, lo, theta, phases)
     else:
         phases = INFINITE_RATE_PHASES if spinning else 1
-        off = _perturbative_pairs(frame, ax, np.array([a for a, _ in pairs], dtype=float),
+        off = perturbative_pair_offsets(frame, ax, np.array([a for a, _ in pairs], dtype=float),
                                   np.array([b for _, b in pairs], dtype=float), theta, phases, True)
     return off.mean(axis=2)
 
@@ -317,7 +317,7 @@ def free_t1_bands(ct_lines: SiteLines, f1: F1Lines, *, tolerance: float = 1e-10)
     pairs = list(scale.t1_pairs) + [(0.5, -0.5)]
     up = np.array([a for a, _ in pairs])
     lo = np.array([b for _, b in pairs])
-    probe = _perturbative_pairs(frame, oset.vectors[:: max(1, oset.size // 256)], up, lo, theta, 16, True)
+    probe = perturbative_pair_offsets(frame, oset.vectors[:: max(1, oset.size // 256)], up, lo, theta, 16, True)
     spread = float(np.max(np.abs(probe - probe.mean(axis=2, keepdims=True)))) if probe.size else 0.0
     p = max(int(ct_lines.phases), choose_rotor_phases(spread, rate))
     need = oset.size * len(pairs) * p * 16 * 4  # trajectories, band coefficients and their transforms
@@ -328,9 +328,9 @@ def free_t1_bands(ct_lines: SiteLines, f1: F1Lines, *, tolerance: float = 1e-10)
     if job.method == "exact":
         ui = np.array([int(round(frame.spin - a)) for a in up], dtype=np.int64)
         li = np.array([int(round(frame.spin - b)) for b in lo], dtype=np.int64)
-        traj, _ = _exact_pairs(frame, oset.vectors, ui, li, theta, p)
+        traj, _ = exact_pair_offsets(frame, oset.vectors, ui, li, theta, p)
     else:
-        traj = _perturbative_pairs(frame, oset.vectors, up, lo, theta, p, True)
+        traj = perturbative_pair_offsets(frame, oset.vectors, up, lo, theta, p, True)
     amps = band_amplitudes(traj, rate)  # (n_v, n_t1 + 1, P)
     a, b = amps[:, :-1, :], amps[:, -1:, :]
     band = np.fft.fftfreq(p, 1.0 / p).astype(int)

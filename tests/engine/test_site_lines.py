@@ -23,7 +23,8 @@ AL = get_nuclide("27Al")
 def count_producers(monkeypatch):
     """Count calls of every frequency producer used by the stage."""
     calls = {"n": 0, "log": []}
-    for name in ("perturbative_offsets", "exact_offsets", "perturbative_sidebands", "rotor_lines"):
+    for name in ("perturbative_offsets", "exact_offsets", "corrected_exact_offsets", "perturbative_sidebands",
+                 "rotor_lines", "trajectory_sidebands"):
         original = getattr(stage, name)
 
         def counted(*a, _f=original, _name=name, **k):
@@ -117,9 +118,10 @@ def test_auto_method_is_decided_once(count_producers, monkeypatch):
     spec = simulate(m)
     assert decided == ["exact"]
     assert spec.metadata["method"] == {"big": "exact"}
-    # one exact pass over the orientation set; perturbation theory only on the 96 probe directions
-    # that size the provisional axis
-    assert count_producers["log"] == [("perturbative_offsets", 96), ("exact_offsets", 231)]
+    # one exact pass over the orientation set (the fast exact route: second order plus the correction
+    # fitted once per site from its own few hundred diagonalisations); perturbation theory only on the
+    # 96 probe directions that size the provisional axis
+    assert count_producers["log"] == [("perturbative_offsets", 96), ("corrected_exact_offsets", 231)]
     assert spec.metadata["orientations"]["big"] == "tri-octant-20 (231 directions)"
 
 
