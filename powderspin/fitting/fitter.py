@@ -69,6 +69,7 @@ from __future__ import annotations
 
 import math
 import time
+from dataclasses import replace
 
 import numpy as np
 
@@ -93,6 +94,9 @@ from .posterior import DEFAULT_STEPS, MIN_AUTOCORRELATION_TIMES, sample_posterio
 from .problem import FitProblem
 from .reported import fitted_model, parameter_warnings, reported_values, stderr_tables
 from .result import FitResult
+from .search import MINIMA_MARGIN
+from .search import global_search as global_search_
+from .symmetry import fold_vector, skew_switch_notes
 
 __all__ = ["fit", "FitError", "DEFAULT_STEPS", "CONVERGED_CHI2"]
 
@@ -378,20 +382,18 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     x0 = np.array([p.start for p in free], dtype=float)
     # -- least squares (local or multi-start)
     n_starts, at_best = 1, 1
+    search = None
     if global_search:
-        n_starts = int(starts) if starts is not None else max(8, 4 * len(free))
-        if n_starts < 1:
-            raise FitError(f"starts = {n_starts} must be at least 1")
         unbounded = [p.name for p in free if (p.max - p.min) >= 0.5 * _schema_span(p)]
         if unbounded:
             warns.append("global search over the whole allowed range of " + ", ".join(unbounded)
                          + ": give min and max to search where the value can physically be")
-        pts = [x0] + list(_sobol_starts(problem.lo, problem.hi, n_starts - 1, seed)) if n_starts > 1 else [x0]
-        runs = [_least_squares(problem, p, max_evaluations) for p in pts]
-        costs = np.array([2.0 * r.cost for r in runs])
-        best = int(np.argmin(costs))
-        at_best = int(np.sum(costs <= costs[best] + CONVERGED_CHI2))
-        sol = runs[best]
+        search = global_search_(problem, x0, refinements=None if starts is None else int(starts) - 1, seed=seed,
+                                local=lambda v, n: _least_squares(problem, v, max_evaluations if n is None else n),
+                                fold=lambda v: fold_vector(free, v, problem.lo, problem.hi, problem.model)[0],
+                                kernel_store=kernel_store)
+        sol = search.best
+        n_starts, at_best = search.starts, search.starts_at_best
     else:
         sol = _least_squares(problem, x0, max_evaluations)
     x = sol.x
@@ -441,6 +443,9 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
             success, message = _verdict(sol, max_evaluations)
     if not success:
         warns.insert(0, message)
+    # -- one answer per minimum: equivalent values folded to the documented representative
+    x, fold_notes = fold_vector(free, x, problem.lo, problem.hi, problem.model)
+    notes.extend(fold_notes)
     # -- statistics
     e = problem.evaluate(x)
     chi2 = float(e.residual @ e.residual)
@@ -457,6 +462,25 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     dist_derived = distribution_summary(problem.model_at, free, x, cov[:p, :p])
     red = chi2 / dof
     warns += parameter_warnings(free, x, values, stderr, corr, names, getattr(sol, "active_mask", None))
+    notes.extend(skew_switch_notes(problem.model, free, values, stderr))
+    minima = ()
+    if search is not None:
+        minima = []
+        for mn in search.minima:  # chi-square at the final noise levels
+            v = np.array([mn.values[n] for n in names])
+            ev = problem.evaluate(v)
+            minima.append(replace(mn, chi_square=float(ev.residual @ ev.residual)))
+        minima = tuple(sorted(minima, key=lambda mn: mn.chi_square))
+        notes.append(f"global search: {search.method}")
+        if at_best == 1 and n_starts > 1:
+            warns.append(f"the best fit was reached by one start only (of {n_starts}): a lower minimum may exist "
+                         "that no start reached; run again with more starts (--starts) or another seed")
+        others = [mn for mn in minima[1:]]
+        if others:
+            lines = "; ".join(f"chi-square +{mn.chi_square - minima[0].chi_square:.3g}: "
+                              + ", ".join(f"{n} = {v:.6g}" for n, v in mn.values.items()) for mn in others)
+            warns.append(f"{len(others)} other distinct minimum/minima lie within chi-square {MINIMA_MARGIN:g} of the "
+                         f"best and fit the data almost as well: {lines}")
     if noise_source == "noise region" and red > 2.0:
         warns.append(f"the reduced chi-square is {red:.3g}: the model does not describe the data within the noise "
                      "(missing sites, wrong broadening or baseline); the standard errors are then too small")
@@ -488,7 +512,7 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
         scale_stderr=tuple(derived["scale_err"]), baselines=tuple(m.baseline for m in fitted.measurements),
         baseline_stderr=tuple(derived["baseline_err"]), site_stderr=site_err, measurement_stderr=meas_err,
         warnings=tuple(warns), notes=tuple(notes), time_s=time.perf_counter() - t_start, starts=n_starts,
-        starts_at_best=at_best, posterior=post, derived=dist_derived)
+        starts_at_best=at_best, posterior=post, derived=dist_derived, minima=minima)
 
 
 def _any_auto_method(model: Model) -> bool:

@@ -77,6 +77,8 @@ def reported_values(problem: FitProblem, x, e: Evaluation, cov) -> dict:
         gj = np.empty((v0.size, z0.size))
         for k in range(z0.size):
             h = 1e-7 * max(abs(z0[k]), 1e-3 if k < p else abs(z0[k]) + 1e-300)
+            if k < p and z0[k] + h > problem.hi[k]:  # backward at an upper bound (eta_q = 1 may not be exceeded)
+                h = -h
             z = z0.copy()
             z[k] += h
             gj[:, k] = (g(z) - v0) / h

@@ -202,6 +202,11 @@ class FitResult:
         Least-squares starts and how many reached the best chi-square.
     posterior : PosteriorSummary or None
         The posterior samples, when asked for.
+    minima : tuple of powderspin.fitting.search.Minimum
+        After a global search: every distinct minimum within
+        :data:`powderspin.fitting.search.MINIMA_MARGIN` of the lowest chi-square
+        (lowest first, values folded), with the number of starts that ended
+        in it.
     derived : Mapping of str to (float, float)
         Quantities derived from the fitted values, with standard errors by
         the delta method: for each site with an EFG distribution its mean
@@ -244,6 +249,7 @@ class FitResult:
     starts_at_best: int = 1
     posterior: PosteriorSummary | None = None
     derived: Mapping = field(default_factory=dict)
+    minima: tuple = ()
 
     def __post_init__(self):
         for k in ("values", "stderr", "derived"):
@@ -376,6 +382,9 @@ class FitResult:
         if self.starts > 1:
             res["starts"] = int(self.starts)
             res["starts_at_best"] = int(self.starts_at_best)
+        if self.minima:
+            res["minima"] = [{"chi_square": float(mn.chi_square), "starts": int(mn.starts),
+                              "values": {n: float(v) for n, v in mn.values.items()}} for mn in self.minima]
         if self.posterior is not None:
             res["posterior"] = self.posterior.to_dict()
         fit["result"] = res
