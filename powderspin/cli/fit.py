@@ -20,14 +20,23 @@ def add_parser(sub) -> None:
                    help="result file to write (.toml, a model file); the CSV goes beside it")
     f.add_argument("--report", help="also write the report figure (.png, .pdf or .svg)")
     f.add_argument("--global", dest="global_search", action="store_true",
-                   help="least squares from many starts within the bounds (Sobol set); keep the best")
-    f.add_argument("--starts", type=int, help="number of starts with --global (default max(8, 4 x free parameters))")
-    f.add_argument("--seed", type=int, default=0, help="seed of the --global starts and the posterior sampler")
+                   help="global search: least squares from your start and from candidates of a lineshape-library "
+                        "scan (static or infinite-rate central transitions) or of differential evolution; lists "
+                        "every distinct minimum that fits almost as well")
+    f.add_argument("--starts", type=int,
+                   help="least-squares starts with --global, yours included (default 1 + max(8, 3 x free parameters))")
+    f.add_argument("--seed", type=int, default=0, help="seed of the --global search and the posterior sampler")
+    f.add_argument("--profile", choices=("auto", "all", "none"), default="auto",
+                   help="profile-likelihood intervals: where chi-square is not quadratic within one standard error "
+                        "(auto, the default), for every parameter (all) or none")
     f.add_argument("--posterior", action="store_true",
                    help="also sample the posterior (emcee) and write a corner plot beside the report")
     f.add_argument("--walkers", type=int, help="posterior walkers (default max(16, 4 x free parameters))")
     f.add_argument("--steps", type=int, default=2000, help="posterior steps per walker (default 2000)")
     f.add_argument("--burn", type=int, help="posterior steps discarded (default a quarter of --steps)")
+    f.add_argument("--max-steps", type=int,
+                   help="extend the posterior chain up to this many steps until it spans 50 autocorrelation times "
+                        "(default 5 x --steps)")
     f.add_argument("--region", action="append", metavar="A:B",
                    help="fit region in ppm (repeatable); overrides [fit] regions")
     f.add_argument("--noise-region", metavar="A:B", help="signal-free region in ppm for the noise level")
@@ -70,7 +79,7 @@ def run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool):
         result = fit(model, data, regions=regions, noise_region=noise, axis=args.axis,
                      global_search=args.global_search, starts=args.starts, seed=args.seed,
                      posterior=args.posterior, walkers=args.walkers, steps=args.steps, burn=args.burn,
-                     progress=progress, kernel_store=kernel_store(args))
+                     max_steps=args.max_steps, profile=args.profile, progress=progress, kernel_store=kernel_store(args))
     finally:
         progress.close()
     written = []

@@ -78,6 +78,7 @@ from ..engine.threads import kernel_threads
 from ..model.values import FitSettings, FreeParameter, Model, ParameterAddress
 from ..simulator import SimulationCache, Simulator, as_model
 from ..uncertainty import correlation, covariance_from_jacobian, standard_errors
+from .curvature import curvature_check, profile_interval
 from .data import (
     MIN_NOISE_POINTS,
     FitError,
@@ -191,8 +192,10 @@ def _verdict(sol, max_evaluations) -> tuple[bool, str]:
 
 def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=None, axis: str | None = None,
         global_search: bool = False, starts: int | None = None, seed: int = 0, posterior: bool = False,
-        walkers: int | None = None, steps: int = DEFAULT_STEPS, burn: int | None = None, progress=None,
-        max_evaluations: int | None = None, threads: int | None = 1, kernel_store=None) -> FitResult:
+        walkers: int | None = None, steps: int = DEFAULT_STEPS, burn: int | None = None,
+        max_steps: int | None = None, progress=None,
+        max_evaluations: int | None = None, threads: int | None = 1, kernel_store=None,
+        profile: str = "auto") -> FitResult:
     """Fit a model with free parameters to one or more measured spectra.
 
     Parameters
@@ -230,6 +233,10 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
         Posterior sampling: walkers (default ``max(16, 4 p)``, even), steps
         per walker (default :data:`DEFAULT_STEPS`) and discarded steps
         (default a quarter of ``steps``).
+    max_steps : int, optional
+        The posterior chain is extended beyond ``steps`` until it spans 50
+        integrated autocorrelation times, up to ``max_steps`` steps per
+        walker (default 5 x ``steps``); a chain still too short is reported.
     progress : callable, optional
         Subscriber of the progress protocol (:mod:`powderspin.progress`):
         stage ``"fit"`` (evaluations, with the lowest chi-square as the
@@ -248,6 +255,11 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
         the store of the lineshape library folder).  Each evaluation of such
         a site is a weighted sum of kernels built once for the whole range of
         its free parameters (:mod:`powderspin.disorder`).
+    profile : {"auto", "all", "none"}, optional
+        Profile-likelihood intervals (:mod:`powderspin.fitting.curvature`):
+        ``"auto"`` for the parameters along which chi-square is not quadratic
+        within one standard error, ``"all"`` for every free parameter except
+        weights, ``"none"`` for none (the curvature check still runs).
 
     Returns
     -------
@@ -296,13 +308,16 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
     >>> ps.fit(start, [data], max_evaluations=3).success
     False
     """
+    if profile not in ("auto", "all", "none"):
+        raise FitError(f"profile = {profile!r} must be one of 'auto', 'all', 'none'")
     with kernel_threads(threads):
         return _fit(model, data, regions, noise_region, baseline_order, axis, global_search, starts, seed,
-                    posterior, walkers, steps, burn, progress, max_evaluations, kernel_store)
+                    posterior, walkers, steps, burn, progress, max_evaluations, kernel_store, profile, max_steps)
 
 
 def _fit(model, data, regions, noise_region, baseline_order, axis, global_search, starts, seed, posterior,
-         walkers, steps, burn, progress, max_evaluations, kernel_store=None) -> FitResult:
+         walkers, steps, burn, progress, max_evaluations, kernel_store=None, profile="auto",
+         max_steps=None) -> FitResult:
     t_start = time.perf_counter()
     model = as_model(model, "fit")
     n_meas = len(model.measurements)
@@ -463,6 +478,40 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     red = chi2 / dof
     warns += parameter_warnings(free, x, values, stderr, corr, names, getattr(sol, "active_mask", None))
     notes.extend(skew_switch_notes(problem.model, free, values, stderr))
+    # -- does the quadratic picture hold within one standard error?  Profile intervals where it does not
+    jp = problem.jacobian(x)
+    curv = curvature_check(problem, x, jp, cov[:p, :p], names)
+    profiles = {}
+    failed = [row for row in curv if not row.quadratic]
+    if profile != "none":
+        todo = set()
+        for row in curv:
+            if profile == "all" or not row.quadratic:
+                todo |= {n for n, w in row.loadings.items() if abs(w) >= 0.3}
+        sd_free = np.sqrt(np.clip(np.diag(cov[:p, :p]), 0.0, None))
+        for i, fp in enumerate(free):
+            if fp.name not in todo or fp.address.key == "weight" or not (np.isfinite(sd_free[i]) and sd_free[i] > 0):
+                continue
+            lo_, hi_, f_lo, f_hi, lowest = profile_interval(problem, x, i, float(sd_free[i]), _profile_local)
+            profiles[fp.name] = (lo_, hi_, f_lo, f_hi)
+            if lowest < chi2 - 0.05:
+                warns.append(f"scanning {fp.name} found a chi-square {chi2 - lowest:.3g} lower than the fit's: the fit "
+                             "did not reach the minimum (try --global)")
+    if failed:
+        worst = []
+        for row in failed:
+            acts = [v for v in (row.minus, row.plus) if math.isfinite(v)]
+            what = row.label if row.label in row.loadings else (row.label + " (" + ", ".join(
+                f"{n} {w:+.2f}" for n, w in sorted(row.loadings.items(), key=lambda t: -abs(t[1]))[:3]) + ")")
+            worst.append(f"{what}: chi-square rose by {' and '.join(f'{v:.3g}' for v in acts)} at -+1 standard "
+                         f"error, {row.predicted:.3g} predicted")
+        text = ("the chi-square surface is not quadratic within one standard error, so the standard errors "
+                "misstate the uncertainty along " + "; ".join(worst))
+        if profiles:
+            text += ("; read the profile-likelihood intervals (chi-square + 1, the other parameters re-optimised) "
+                     "instead: " + ", ".join(f"{n} in [{a:.6g}, {b:.6g}]" + ("" if fa and fb else " (open)")
+                                             for n, (a, b, fa, fb) in profiles.items()))
+        warns.append(text)
     minima = ()
     if search is not None:
         minima = []
@@ -498,11 +547,15 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     site_err, meas_err = stderr_tables(fitted, free, q_err, derived)
     post = None
     if posterior:
-        post = sample_posterior(problem, x, free, cov[:p, :p], walkers, steps, burn, seed, progress)
+        post = sample_posterior(problem, x, free, cov[:p, :p], walkers, steps, burn, seed, progress, max_steps)
         if not post.converged:
-            warns.append(f"the posterior chain is short: {post.steps - post.burn} kept steps per walker, fewer than "
-                         f"{MIN_AUTOCORRELATION_TIMES} autocorrelation times (longest "
-                         f"{max(post.autocorrelation_steps):.3g} steps); run more steps before trusting the intervals")
+            warns.append(f"the posterior chain is too short even after extending it to {post.steps} steps: "
+                         f"{post.steps - post.burn} kept steps per walker are fewer than {MIN_AUTOCORRELATION_TIMES} "
+                         f"integrated autocorrelation times (longest {max(post.autocorrelation_steps):.3g} steps); "
+                         "the posterior intervals are not reliable: raise max_steps (--max-steps)")
+        elif post.steps > int(steps):
+            notes.append(f"the posterior chain was extended from {int(steps)} to {post.steps} steps to span "
+                         f"{MIN_AUTOCORRELATION_TIMES} autocorrelation times")
     return FitResult(
         model=fitted, names=names, values=values, stderr=stderr, covariance=q_cov[:p, :p], correlation=corr,
         success=success, message=message, n_evaluations=problem.n_evaluations, reduced_chi_square=red,
@@ -512,7 +565,15 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
         scale_stderr=tuple(derived["scale_err"]), baselines=tuple(m.baseline for m in fitted.measurements),
         baseline_stderr=tuple(derived["baseline_err"]), site_stderr=site_err, measurement_stderr=meas_err,
         warnings=tuple(warns), notes=tuple(notes), time_s=time.perf_counter() - t_start, starts=n_starts,
-        starts_at_best=at_best, posterior=post, derived=dist_derived, minima=minima)
+        starts_at_best=at_best, posterior=post, derived=dist_derived, minima=minima, curvature=tuple(curv),
+        profile_intervals={n: (a, b) for n, (a, b, _, _) in profiles.items()})
+
+
+def _profile_local(fun, jac, z0, lo, hi):
+    from scipy.optimize import least_squares
+
+    return least_squares(fun, np.clip(z0, lo, hi), jac=jac, bounds=(lo, hi), method="trf", x_scale="jac",
+                         max_nfev=50 * (z0.size + 1))
 
 
 def _any_auto_method(model: Model) -> bool:
