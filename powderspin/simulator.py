@@ -38,10 +38,10 @@ from typing import Mapping, Sequence
 import numpy as np
 
 from . import __version__
-from .disorder.grid import shift_fwhm_hz
+from .disorder.grid import parameter_range, shift_fwhm_hz
 from .disorder.site import DistributedSite
 from .disorder.store import default_kernel_store
-from .engine.lineshape import Axis, baseline_values, make_axis
+from .engine.lineshape import Axis, baseline_values, hat_corrected_gauss, make_axis, sampling_oversampling, voigt_fwhm
 from .engine.site_lines import (
     ORIENTATION_TARGET,
     SiteLines,
@@ -386,6 +386,16 @@ class Simulator:
             axis = axis_from(spans)
         self.axis = axis
         self._notes = list(notes)
+        # a point is the continuous spectrum at its frequency: render finer where the narrowest line is too few
+        # points wide (decided once, from the smallest broadening each site can have, so a fit's objective is smooth)
+        self._oversampling = []
+        for k, site in enumerate(model.sites):
+            lor = parameter_range(model, "site", k, "lorentz_hz")[0] + \
+                parameter_range(model, "measurement", measurement, "lorentz_hz")[0]
+            gau = math.hypot(parameter_range(model, "site", k, "gauss_hz")[0],
+                             parameter_range(model, "measurement", measurement, "gauss_hz")[0],
+                             parameter_range(model, "site", k, "shift_fwhm_ppm")[0] * nu_ref * 1e-6)
+            self._oversampling.append(sampling_oversampling(axis.dx_hz, voigt_fwhm(max(lor, 0.0), gau)))
 
     # -- what was decided
 
@@ -560,6 +570,15 @@ class Simulator:
         offset_hz = meas.shift_offset_ppm * f
         gauss = math.hypot(site.gauss_hz, meas.gauss_hz, shift_fwhm_hz(site, self.nu_ref_hz))
         lorentz = site.lorentz_hz + meas.lorentz_hz
+        q = self._oversampling[k]
+        axis = self.axis if q == 1 else Axis(self.axis.center_hz, self.axis.width_hz, self.axis.points * q,
+                                             self.nu_ref_hz)
+        r, lines, sh = self._render_site_on(model, k, axis, meas, nuc, site, f, offset_hz, gauss, lorentz)
+        if q > 1:
+            r = replace(r, intensity=np.ascontiguousarray(r.intensity[(q - 1) // 2::q]))
+        return r, lines, sh
+
+    def _render_site_on(self, model, k, axis, meas, nuc, site, f, offset_hz, gauss, lorentz):
         if k in self._distributed:
             d = self._distributed_site(model, k)
 
@@ -567,14 +586,15 @@ class Simulator:
                 emit(self.progress, "kernels", done, total, label=_label, unit="line shapes")
 
             sh = site.shift.iso_ppm * f + offset_hz
-            r = d.render(self.axis, shift_hz=sh, store=self.kernel_store, weight=site.weight, lorentz_hz=lorentz,
+            r = d.render(axis, shift_hz=sh, store=self.kernel_store, weight=site.weight, lorentz_hz=lorentz,
                          gauss_hz=gauss, progress=None if self.progress is None else kernel_progress, site=site)
             return r, None, sh
         job = site_job(site, self._job_meas[k], nuc, self._methods[k], self._sets[k])
         lines = self._lines(job, k, site.label)
         sh = (site.shift.iso_ppm - job.iso_ppm) * f + offset_hz
-        r = render_lines(lines, self.axis, shift_hz=sh, weight=site.weight, lorentz_hz=lorentz, gauss_hz=gauss,
-                         binning=meas.binning, memo=self.cache.rendered)
+        r = render_lines(lines, axis, shift_hz=sh, weight=site.weight, lorentz_hz=lorentz,
+                         gauss_hz=hat_corrected_gauss(gauss, axis.dx_hz), binning=meas.binning,
+                         memo=self.cache.rendered)
         return r, lines, sh
 
     def _render(self, model: Model):
@@ -680,6 +700,8 @@ class Simulator:
                                          f"{ORIENTATION_TARGET:g})" for label, err in self._orientation_error.items()},
             "rotor_phases": {lab: lines.phases for lab, (_, lines, _) in zip(labels, parts) if lines is not None},
             "binning": meas.binning,
+            "sampling": {lab: ("point values" if q == 1 else f"point values (rendered {q} times finer)")
+                         for lab, q in zip(labels, self._oversampling)},
             "lorentz_hz": meas.lorentz_hz,
             "gauss_hz": meas.gauss_hz,
             "shift_offset_ppm": meas.shift_offset_ppm,
