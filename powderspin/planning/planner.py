@@ -151,6 +151,7 @@ from __future__ import annotations
 
 import math
 import time
+from collections.abc import Mapping
 from dataclasses import dataclass, replace
 from types import MappingProxyType
 
@@ -516,7 +517,7 @@ def _evaluate_rate(model: Model, setup: _FieldSetup, rate: float, table: RotorTa
 def plan(model, fields=None, *, rotors=None, rotor_table=None, max_rate_hz=None, rates_hz=None,
          n_rates: int = DEFAULT_RATE_COUNT, min_rate_hz: float = DEFAULT_MIN_RATE_HZ,
          threshold: float = DEFAULT_THRESHOLD, snr: float = DEFAULT_SNR, precision: bool = True,
-         orientations=None, progress=None, threads: int | None = 1) -> Plan:
+         orientations=None, progress=None, threads: int | None = 1, values=None) -> Plan:
     """Plan an experiment: simulate the sample at each candidate field and spinning rate.
 
     For each field, the candidate rates are tried from the slowest; at each
@@ -565,6 +566,11 @@ def plan(model, fields=None, *, rotors=None, rotor_table=None, max_rate_hz=None,
         numba's setting).  A plan makes thousands of small kernel calls, for
         which starting parallel work costs more than it saves
         (``benchmarks/bench_plan.py`` measures both).
+    values : FitResult or Mapping of str to float, optional
+        Parameter values at which to compute the precision (a fit result's
+        fitted values, or ``{"A.cq_mhz": 4.1, ...}``); default the model's own
+        values (the start values of free parameters).  The plan says which
+        (``Plan.parameter_source``).
 
     Returns
     -------
@@ -610,13 +616,22 @@ def plan(model, fields=None, *, rotors=None, rotor_table=None, max_rate_hz=None,
     """
     with kernel_threads(threads):
         return _plan(model, fields, rotors, rotor_table, max_rate_hz, rates_hz, n_rates, min_rate_hz, threshold, snr,
-                     precision, orientations, progress)
+                     precision, orientations, progress, values)
 
 
 def _plan(model, fields, rotors, rotor_table, max_rate_hz, rates_hz, n_rates, min_rate_hz, threshold, snr, precision,
-          orientations, progress) -> Plan:
+          orientations, progress, values=None) -> Plan:
     t_start = time.perf_counter()
     model = _as_model(model)
+    at_text = "the model's values (start values of free parameters)"
+    if values is not None:
+        from_result = not isinstance(values, Mapping)
+        given = dict(values.values if from_result else values)
+        try:
+            model = model.with_parameters({model.address_of(n): float(v) for n, v in given.items()})
+        except (ValueError, TypeError) as e:
+            raise PlanError(f"values: {e}") from None
+        at_text = "the fit result's values" if from_result else "the given values"
     source = model.source or ""
     if not model.sites:
         raise PlanError("model: at least one [[site]] is needed")
@@ -642,6 +657,8 @@ def _plan(model, fields, rotors, rotor_table, max_rate_hz, rates_hz, n_rates, mi
     dx = _point_spacing_hz(model, meas)
     model = replace(model, measurements=(meas,) + tuple(model.measurements[1:]))
     params, param_text = (precision_parameters(model) if precision else ([], "precision not computed"))
+    if precision and params:
+        param_text += "; computed at " + at_text + ": " + ", ".join(f"{q.name} = {q.value:.6g}" for q in params)
     clock = _Clock()
     total = len(fields_t) * (1 + len(rates))
     done = 0

@@ -672,6 +672,7 @@ def _table_text(p: Plan) -> str:
         out.append(f"err@SNR: largest relative standard error of {len(p.parameters)} parameter(s) at SNR {p.snr:g}; "
                    "w/ rotor: the same with the SNR the largest rotor reaching the rate gives (sample volume as "
                    "the proxy for signal)")
+        out.append(f"precision: {p.parameter_source}")
     out.append(f"best field by centreband resolution: {p.best_field_tesla:g} T ({p.best_field_reason})")
     if prec:
         clean = [t for t in p.ranking if p.field(t[0]).rate(t[1]).passes(p.threshold)]
