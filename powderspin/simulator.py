@@ -220,6 +220,13 @@ class Simulator:
         stages ``"lines"`` and ``"kernels"``, labelled by site.
     cache : SimulationCache, optional
         Memos shared with other Simulators of the same sample.
+    point_values : bool, optional
+        True (default): a point is the continuous spectrum at its frequency
+        (sites rendered finer where their lines are narrow, the Gaussian
+        narrowed by the binning hats' variance;
+        :func:`powderspin.engine.lineshape.sampling_oversampling`).  False:
+        a point is the hat-weighted bin average (what the planner's measures,
+        which render parts of sites directly, are defined on).
 
     Attributes
     ----------
@@ -271,7 +278,7 @@ class Simulator:
 
     def __init__(self, model, measurement: int = 0, *, axis: Axis | None = None, orientations=None, methods=None,
                  parameters=None, kernel_store=None, allow_strong_coupling: bool = False, progress=None,
-                 cache: SimulationCache | None = None):
+                 cache: SimulationCache | None = None, point_values: bool = True):
         model = as_model(model)
         if isinstance(measurement, bool) or not isinstance(measurement, (int, np.integer)) or \
                 not 0 <= measurement < len(model.measurements):
@@ -395,7 +402,9 @@ class Simulator:
             gau = math.hypot(parameter_range(model, "site", k, "gauss_hz")[0],
                              parameter_range(model, "measurement", measurement, "gauss_hz")[0],
                              parameter_range(model, "site", k, "shift_fwhm_ppm")[0] * nu_ref * 1e-6)
-            self._oversampling.append(sampling_oversampling(axis.dx_hz, voigt_fwhm(max(lor, 0.0), gau)))
+            self._oversampling.append(sampling_oversampling(axis.dx_hz, voigt_fwhm(max(lor, 0.0), gau))
+                                      if point_values else 1)
+        self.point_values = bool(point_values)
 
     # -- what was decided
 
@@ -570,13 +579,18 @@ class Simulator:
         offset_hz = meas.shift_offset_ppm * f
         gauss = math.hypot(site.gauss_hz, meas.gauss_hz, shift_fwhm_hz(site, self.nu_ref_hz))
         lorentz = site.lorentz_hz + meas.lorentz_hz
-        q = self._oversampling[k]
-        axis = self.axis if q == 1 else Axis(self.axis.center_hz, self.axis.width_hz, self.axis.points * q,
-                                             self.nu_ref_hz)
+        axis, q = self._site_axis(k)
         r, lines, sh = self._render_site_on(model, k, axis, meas, nuc, site, f, offset_hz, gauss, lorentz)
         if q > 1:
             r = replace(r, intensity=np.ascontiguousarray(r.intensity[(q - 1) // 2::q]))
         return r, lines, sh
+
+    def _site_axis(self, k: int):
+        """The axis site k is rendered on (finer by its oversampling factor q) and q."""
+        q = self._oversampling[k]
+        if q == 1:
+            return self.axis, 1
+        return Axis(self.axis.center_hz, self.axis.width_hz, self.axis.points * q, self.nu_ref_hz), q
 
     def _render_site_on(self, model, k, axis, meas, nuc, site, f, offset_hz, gauss, lorentz):
         if k in self._distributed:
@@ -593,7 +607,8 @@ class Simulator:
         lines = self._lines(job, k, site.label)
         sh = (site.shift.iso_ppm - job.iso_ppm) * f + offset_hz
         r = render_lines(lines, axis, shift_hz=sh, weight=site.weight, lorentz_hz=lorentz,
-                         gauss_hz=hat_corrected_gauss(gauss, axis.dx_hz), binning=meas.binning,
+                         gauss_hz=hat_corrected_gauss(gauss, axis.dx_hz) if self.point_values else gauss,
+                         binning=meas.binning,
                          memo=self.cache.rendered)
         return r, lines, sh
 
@@ -836,9 +851,11 @@ class Simulator:
             masked[..., 0] = lines.intensity[..., 0]
             sub = replace(lines, intensity=masked)
             gauss = math.hypot(site.gauss_hz, meas.gauss_hz, shift_fwhm_hz(site, self.nu_ref_hz))
-            out.append(render_lines(sub, self.axis, shift_hz=sh, weight=site.weight,
-                                    lorentz_hz=site.lorentz_hz + meas.lorentz_hz, gauss_hz=gauss,
-                                    binning=meas.binning).intensity)
+            axis, q = self._site_axis(k)
+            y = render_lines(sub, axis, shift_hz=sh, weight=site.weight, lorentz_hz=site.lorentz_hz + meas.lorentz_hz,
+                             gauss_hz=hat_corrected_gauss(gauss, axis.dx_hz) if self.point_values else gauss,
+                             binning=meas.binning).intensity
+            out.append(y[(q - 1) // 2::q] if q > 1 else y)
         return np.array(out)
 
     def band_intensities(self, values=None) -> list:

@@ -437,15 +437,15 @@ def _setup_field(model: Model, meas: Measurement, field_t: float, dx: float, slo
     cache = SimulationCache(lines=16 * len(model.sites), rendered=64 * len(model.sites))
     t0 = time.perf_counter()
     # producers and orientation sets, decided with the model's broadening (as every spectrum of the plan is)
-    sim_static = Simulator(_at(model, static), axis=axis, cache=cache)
-    sim_inf = Simulator(_at(model, inf), axis=axis, cache=cache)
+    sim_static = Simulator(_at(model, static), axis=axis, cache=cache, point_values=False)
+    sim_inf = Simulator(_at(model, inf), axis=axis, cache=cache, point_values=False)
     notes.extend(f"{field_t:g} T: {t}" for t in sim_inf.notes)
     # widths and the quadrupolar-induced shift, on the bare patterns
     bare = _unbroadened(model)
     bare_static = Simulator(_unbroadened(_at(bare, static)), axis=axis, methods=sim_static.methods,
-                            orientations=sim_static.orientation_sets, cache=cache)
+                            orientations=sim_static.orientation_sets, cache=cache, point_values=False)
     bare_inf = Simulator(_unbroadened(_at(bare, inf)), axis=axis, methods=sim_inf.methods,
-                         orientations=sim_inf.orientation_sets, cache=cache)
+                         orientations=sim_inf.orientation_sets, cache=cache, point_values=False)
     ys = bare_static.site_intensities()
     yi = bare_inf.site_intensities()
     cogs = bare_static.centres_of_gravity_hz()
@@ -478,13 +478,13 @@ def _evaluate_rate(model: Model, setup: _FieldSetup, rate: float, table: RotorTa
     t0 = time.perf_counter()
     options = dict(axis=axis, methods=setup.methods_mas, orientations=setup.sets_mas, cache=setup.cache)
     try:  # each site's rotor phases, then the largest for every site (so the Jacobian's spectra cannot jump)
-        phases = max(Simulator(_at(model, meas), **options).rotor_phases)
+        phases = max(Simulator(_at(model, meas), point_values=False, **options).rotor_phases)
     except ModelError as e:
         clock.add("candidates", t0)
         return RateResult(rate, False, reason=str(e), rotors=rotors, relative_signal=rel_signal), None
     fixed = replace(meas, rotor_phases=int(phases))
     base_model = _at(model, fixed)
-    sim = Simulator(base_model, parameters=[q.address for q in params or ()], **options)
+    sim = Simulator(base_model, parameters=[q.address for q in params or ()], point_values=False, **options)
     spec = sim.spectrum()
     y0 = np.asarray(spec.intensity, dtype=float)
     # each site's centreband alone; its sidebands are the rest of its simulated spectrum (binning and broadening
