@@ -27,11 +27,18 @@ How a fit works
   ``(data - model) / sigma`` over the fit regions, with a forward-difference
   Jacobian through the Simulators' memos.  Whether it converged is part of
   the result (``success``, ``message``); a fit that stopped early says so.
-- **Global search** (``global_search=True``): least squares from a seeded
-  scrambled Sobol set of starts within the bounds (scipy.stats.qmc; I. M.
-  Sobol', USSR Comput. Math. Math. Phys. 7 (1967) 86), plus the model's own
-  start; the best is kept and the number of starts that reached it (chi-square
-  within 1 of the lowest) is reported.
+- **Global search** (``global_search=True``, :mod:`powderspin.fitting.search`):
+  the user's start plus candidates from a lineshape-library scan (one
+  non-negative least-squares problem over every site's kernels) where it
+  applies, else from differential evolution with a stated budget; every
+  start refined by least squares; every distinct minimum within a stated
+  chi-square margin of the best is reported (``FitResult.minima``).
+- **Equivalent values** (:mod:`powderspin.fitting.symmetry`): Euler angles
+  are folded into one documented fundamental domain and, with only the
+  central transition, C_Q to its absolute value; the notes say so.
+- **Curvature** (:mod:`powderspin.fitting.curvature`): predicted and actual
+  chi-square rises at one standard error are compared; where they differ,
+  profile-likelihood intervals are reported with a warning.
 - **Noise.** With a signal-free noise region, sigma is the standard deviation
   of the data there (a straight line removed).  Without one, sigma is the
   root-mean-square residual of the fit (per measurement; the fit starts from
@@ -99,10 +106,7 @@ from .search import MINIMA_MARGIN
 from .search import global_search as global_search_
 from .symmetry import fold_vector, skew_switch_notes
 
-__all__ = ["fit", "FitError", "DEFAULT_STEPS", "CONVERGED_CHI2"]
-
-#: a start has reached the best fit when its chi-square is within this of the lowest
-CONVERGED_CHI2 = 1.0
+__all__ = ["fit", "FitError", "DEFAULT_STEPS"]
 
 
 def _free_parameters(model: Model) -> tuple[list[FreeParameter], list[str]]:
@@ -167,14 +171,6 @@ def _least_squares(problem: FitProblem, x0, max_evaluations: int | None):
                          method="trf", x_scale="jac", max_nfev=max_evaluations)
 
 
-def _sobol_starts(lo, hi, n: int, seed: int) -> np.ndarray:
-    from scipy.stats import qmc
-
-    m = int(math.ceil(math.log2(max(2, n))))
-    pts = qmc.Sobol(d=lo.size, scramble=True, seed=seed).random_base2(m)[:n]
-    return qmc.scale(pts, lo, hi)
-
-
 def _schema_span(p: FreeParameter) -> float:
     s = p.address.spec()
     return s.high - s.low
@@ -220,13 +216,15 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
     axis : {"ppm", "hz", "khz"}, optional
         Unit of a data file's axis column when the file does not name it.
     global_search : bool, optional
-        Least squares from a seeded Sobol set of starts within the bounds
-        (and the model's own start); keep the best.
+        Global search (:func:`powderspin.fitting.search.global_search`): the
+        model's start plus candidates from a lineshape-library scan or
+        differential evolution, each refined; keep the best and list every
+        distinct minimum within chi-square 9 of it.
     starts : int, optional
-        Number of starts of a global search (default ``max(8, 4 p)``,
-        p free parameters).
+        Least-squares starts of a global search, the model's included
+        (default ``1 + max(8, 3 p)``, p free parameters).
     seed : int, optional
-        Seed of the Sobol starts and of the posterior sampler.
+        Seed of the global search and of the posterior sampler.
     posterior : bool, optional
         Also sample the posterior with emcee from the least-squares solution.
     walkers, steps, burn : int, optional

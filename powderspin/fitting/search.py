@@ -22,7 +22,10 @@ looks for the lowest minimum in three steps.
    (R. Storn, K. Price, J. Global Optim. 11 (1997) 341) runs with a stated
    budget (:data:`DE_POPULATION_PER_PARAMETER` members per free parameter,
    :data:`DE_GENERATIONS` generations, Sobol initial population, the user's
-   start as a member) and its best distinct members are the candidates.
+   start as a member); half the candidates are its best distinct members,
+   the other half a scrambled Sobol set over the same box (diversity: the
+   evolved population gathers in the widest valleys).  Free Euler angles are
+   searched in their fundamental domain (:mod:`powderspin.fitting.symmetry`).
 2. **Refinement.**  Local least squares, to convergence, from the user's
    start (always) and from every candidate; the number of candidates grows
    with the number of free parameters (``max(8, 3 p)`` by default).  (Short
@@ -71,6 +74,8 @@ SAME_MINIMUM_FRACTION = 0.01
 DE_POPULATION_PER_PARAMETER = 10
 #: differential evolution: generations (the budget is members x (generations + 1) evaluations)
 DE_GENERATIONS = 5
+#: share of the candidates taken from a scrambled Sobol set instead of the evolved population (diversity)
+SOBOL_SHARE = 0.5
 #: library scan: C_Q nodes (uniform in C_Q^2, the pattern's width), eta nodes, at most this many shift nodes
 SCAN_CQ_NODES = 24
 SCAN_ETA_NODES = 6
@@ -384,16 +389,23 @@ def _de_candidates(problem: FitProblem, x0, n_wanted: int, seed: int, budget: in
     order = np.argsort(res.population_energies)
     span = np.where(hi > lo, hi - lo, 1.0)
     picked: list = []
+    n_de = n_wanted - int(n_wanted * SOBOL_SHARE)
     for k in order:
         xk = res.population[k]
         if all(np.max(np.abs(xk - q) / span) > 0.05 for q in picked):
             picked.append(xk)
-        if len(picked) >= n_wanted:
+        if len(picked) >= n_de:
             break
+    if n_wanted > len(picked):  # diversity: the rest uniformly spread (scrambled Sobol) over the search box
+        from scipy.stats import qmc
+
+        n_s = n_wanted - len(picked)
+        pts = qmc.Sobol(d=p, scramble=True, seed=seed + 1).random_base2(max(1, math.ceil(math.log2(n_s))))[:n_s]
+        picked += list(qmc.scale(pts, lo, np.where(hi > lo, hi, lo + 1e-12)))
     cut = " (Euler angles searched in their fundamental domain)" if np.any(hi < problem.hi) else ""
     method = (f"differential evolution: {res.nfev} evaluations (population {pop * p} = {pop} per free parameter, "
               f"{gens} generations, Sobol initial population with the start as a member){cut}; its "
-              f"{len(picked)} best distinct members")
+              f"{n_de} best distinct members and {len(picked) - n_de} Sobol points")
     return picked, method
 
 
