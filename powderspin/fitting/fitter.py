@@ -100,7 +100,7 @@ from .data import (
 )
 from .posterior import DEFAULT_STEPS, MIN_AUTOCORRELATION_TIMES, sample_posterior
 from .problem import FitProblem
-from .reported import fitted_model, parameter_warnings, reported_values, stderr_tables
+from .reported import NATURAL_RANGE, fitted_model, parameter_warnings, reported_values, stderr_tables
 from .result import FitResult
 from .search import MINIMA_MARGIN
 from .search import global_search as global_search_
@@ -397,7 +397,8 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     n_starts, at_best = 1, 1
     search = None
     if global_search:
-        unbounded = [p.name for p in free if (p.max - p.min) >= 0.5 * _schema_span(p)]
+        unbounded = [p.name for p in free if (p.max - p.min) >= 0.5 * _schema_span(p)
+                     and p.address.key not in NATURAL_RANGE and p.address.key != "euler_deg"]
         if unbounded:
             warns.append("global search over the whole allowed range of " + ", ".join(unbounded)
                          + ": give min and max to search where the value can physically be")

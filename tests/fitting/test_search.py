@@ -88,3 +88,19 @@ def test_hard_static_case_global_never_loses(case, seed):
     assert r.starts == 1 + default_refinements(9)
     if r.starts_at_best == 1:
         assert any("one start only" in w for w in r.warnings)
+
+
+def test_no_bound_or_range_warning_at_the_physical_ends_of_eta_and_skew():
+    """eta_q = 0 is a value (the EFG's convention bounds it to [0, 1]: design notes, section 2), not a search limit."""
+    from powderspin.fitting.reported import parameter_warnings
+
+    m = ps.make_model("27Al", {"field_tesla": 9.4}, [{"label": "A", "cq_mhz": {"start": 3.0, "min": 1.0, "max": 8.0},
+                                                       "eta_q": {"start": 0.5, "min": 0.0, "max": 1.0}}])
+    free = list(m.free)
+    x = np.array([3.0, 0.0])
+    names = [p.name for p in free]
+    w = parameter_warnings(free, x, dict(zip(names, x)), dict(zip(names, [0.01, 0.02])), np.eye(2), names, None)
+    assert not any("bound" in t for t in w), w
+    x = np.array([1.0, 0.3])  # C_Q at the lower end the user chose: a real limit of the search
+    w = parameter_warnings(free, x, dict(zip(names, x)), dict(zip(names, [0.01, 0.02])), np.eye(2), names, None)
+    assert any("A.cq_mhz stopped at its lower bound" in t for t in w), w
