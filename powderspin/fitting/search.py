@@ -458,6 +458,14 @@ def global_search(problem: FitProblem, x0, *, refinements: int | None, seed: int
             cands, method = [], None
     if not cands and n_ref > 0:
         cands, method = _de_candidates(problem, x0, n_ref, seed, budget)
+    elif 0 < len(cands) < n_ref:  # the scan found fewer distinct cells than starts wanted: Sobol points fill up
+        from scipy.stats import qmc
+
+        lo, hi = _search_box(problem)
+        n_s = n_ref - len(cands)
+        pts = qmc.Sobol(d=p, scramble=True, seed=seed).random_base2(max(1, math.ceil(math.log2(n_s))))[:n_s]
+        cands = list(cands) + list(qmc.scale(pts, lo, np.where(hi > lo, hi, lo + 1e-12)))
+        method += f", and {n_s} Sobol points"
     runs = [local(x0, None)] + [local(c, None) for c in cands[:n_ref]]
     finished = [True] * len(runs)
     fold = fold or (lambda v: v)
