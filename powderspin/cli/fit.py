@@ -79,7 +79,8 @@ def run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool):
         result = fit(model, data, regions=regions, noise_region=noise, axis=args.axis,
                      global_search=args.global_search, starts=args.starts, seed=args.seed,
                      posterior=args.posterior, walkers=args.walkers, steps=args.steps, burn=args.burn,
-                     max_steps=args.max_steps, profile=args.profile, progress=progress, kernel_store=kernel_store(args))
+                     max_steps=getattr(args, "max_steps", None), profile=getattr(args, "profile", "auto"),
+                     progress=progress, kernel_store=kernel_store(args))
     finally:
         progress.close()
     written = []
