@@ -39,6 +39,7 @@ _EXPORTS = {
     "fit": "fitting.fitter", "FitResult": "fitting.result", "FitError": "fitting.data",
     "write_result": "io.results",
     "read_spectrum": "io.spectra", "MeasuredSpectrum": "io.spectra", "DataError": "io.spectra",
+    "write_jcamp": "io.spectra",
     "plan": "planning.planner", "Plan": "planning.results", "PlanError": "planning.rotors",
     "write_spectrum": "io.results", "write_plan_json": "io.results", "save_plan_plot": "plotting.plan",
     "save_report": "plotting.report", "Simulator": "simulator", "ProgressEvent": "progress",

@@ -38,11 +38,11 @@ from typing import Mapping, Sequence
 import numpy as np
 
 from . import __version__
-from .disorder.grid import shift_fwhm_hz
+from .disorder.grid import parameter_range, shift_fwhm_hz
 from .disorder.site import DistributedSite
 from .disorder.store import default_kernel_store
 from .engine.echo_train import echo_train_comb
-from .engine.lineshape import Axis, baseline_values, make_axis
+from .engine.lineshape import Axis, baseline_values, hat_corrected_gauss, make_axis, sampling_oversampling, voigt_fwhm
 from .engine.pulses import regime_note
 from .engine.site_lines import (
     ORIENTATION_TARGET,
@@ -230,6 +230,13 @@ class Simulator:
         The F1 axis of a 2D measurement (e.g. a measured spectrum's); the
         measurement's ``f1_points``, ``f1_center_ppm`` and ``f1_width_ppm`` are
         then not used.
+    point_values : bool, optional
+        True (default): a point is the continuous spectrum at its frequency
+        (sites rendered finer where their lines are narrow, the Gaussian
+        narrowed by the binning hats' variance;
+        :func:`powderspin.engine.lineshape.sampling_oversampling`).  False:
+        a point is the hat-weighted bin average (what the planner's measures,
+        which render parts of sites directly, are defined on).
 
     Attributes
     ----------
@@ -281,7 +288,8 @@ class Simulator:
 
     def __init__(self, model, measurement: int = 0, *, axis: Axis | None = None, orientations=None, methods=None,
                  parameters=None, kernel_store=None, allow_strong_coupling: bool = False, progress=None,
-                 cache: SimulationCache | None = None, f1_axis: Axis | None = None):
+                 cache: SimulationCache | None = None, f1_axis: Axis | None = None,
+                 point_values: bool = True):
         model = as_model(model)
         if isinstance(measurement, bool) or not isinstance(measurement, (int, np.integer)) or \
                 not 0 <= measurement < len(model.measurements):
@@ -421,6 +429,18 @@ class Simulator:
                                          meas.echo_train_output)
             self._comb.flags.writeable = False
         self._notes = list(notes)
+        # a point is the continuous spectrum at its frequency: render finer where the narrowest line is too few
+        # points wide (decided once, from the smallest broadening each site can have, so a fit's objective is smooth)
+        self._oversampling = []
+        for k, site in enumerate(model.sites):
+            lor = parameter_range(model, "site", k, "lorentz_hz")[0] + \
+                parameter_range(model, "measurement", measurement, "lorentz_hz")[0]
+            gau = math.hypot(parameter_range(model, "site", k, "gauss_hz")[0],
+                             parameter_range(model, "measurement", measurement, "gauss_hz")[0],
+                             parameter_range(model, "site", k, "shift_fwhm_ppm")[0] * nu_ref * 1e-6)
+            self._oversampling.append(sampling_oversampling(axis.dx_hz, voigt_fwhm(max(lor, 0.0), gau))
+                                      if point_values else 1)
+        self.point_values = bool(point_values)
 
     def _init_two_dimensional(self, model: Model, index: int, *, axis, orientations, methods, parameters, cache,
                               f1_axis, kernel_store):
@@ -826,6 +846,20 @@ class Simulator:
         offset_hz = meas.shift_offset_ppm * f
         gauss = math.hypot(site.gauss_hz, meas.gauss_hz, shift_fwhm_hz(site, self.nu_ref_hz))
         lorentz = site.lorentz_hz + meas.lorentz_hz
+        axis, q = self._site_axis(k)
+        r, lines, sh = self._render_site_on(model, k, axis, meas, model.nucleus, site, f, offset_hz, gauss, lorentz)
+        if q > 1:
+            r = replace(r, intensity=np.ascontiguousarray(r.intensity[(q - 1) // 2::q]))
+        return self._echo_train(r), lines, sh
+
+    def _site_axis(self, k: int):
+        """The axis site k is rendered on (finer by its oversampling factor q) and q."""
+        q = self._oversampling[k]
+        if q == 1:
+            return self.axis, 1
+        return Axis(self.axis.center_hz, self.axis.width_hz, self.axis.points * q, self.nu_ref_hz), q
+
+    def _render_site_on(self, model, k, axis, meas, nuc, site, f, offset_hz, gauss, lorentz):
         if k in self._distributed:
             d = self._distributed_site(model, k)
 
@@ -833,13 +867,14 @@ class Simulator:
                 emit(self.progress, "kernels", done, total, label=_label, unit="line shapes")
 
             sh = site.shift.iso_ppm * f + offset_hz
-            r = d.render(self.axis, shift_hz=sh, store=self.kernel_store, weight=site.weight, lorentz_hz=lorentz,
+            r = d.render(axis, shift_hz=sh, store=self.kernel_store, weight=site.weight, lorentz_hz=lorentz,
                          gauss_hz=gauss, progress=None if self.progress is None else kernel_progress, site=site)
-            return self._echo_train(r), None, sh
+            return r, None, sh
         lines, sh = self._site_lines(model, k)
-        r = render_lines(lines, self.axis, shift_hz=sh, weight=site.weight, lorentz_hz=lorentz, gauss_hz=gauss,
+        r = render_lines(lines, axis, shift_hz=sh, weight=site.weight, lorentz_hz=lorentz,
+                         gauss_hz=hat_corrected_gauss(gauss, axis.dx_hz) if self.point_values else gauss,
                          binning=meas.binning, memo=self.cache.rendered)
-        return self._echo_train(r), lines, sh
+        return r, lines, sh
 
     def _echo_train(self, r):
         """The rendered site as an echo train's spectrum (spikelets or their envelope), when one is measured."""
@@ -964,6 +999,8 @@ class Simulator:
                                          f"{ORIENTATION_TARGET:g})" for label, err in self._orientation_error.items()},
             "rotor_phases": {lab: lines.phases for lab, (_, lines, _) in zip(labels, parts) if lines is not None},
             "binning": meas.binning,
+            "sampling": {lab: ("point values" if q == 1 else f"point values (rendered {q} times finer)")
+                         for lab, q in zip(labels, self._oversampling)},
             "lorentz_hz": meas.lorentz_hz,
             "gauss_hz": meas.gauss_hz,
             "shift_offset_ppm": meas.shift_offset_ppm,
@@ -1118,9 +1155,11 @@ class Simulator:
             masked[..., 0] = lines.intensity[..., 0]
             sub = replace(lines, intensity=masked)
             gauss = math.hypot(site.gauss_hz, meas.gauss_hz, shift_fwhm_hz(site, self.nu_ref_hz))
-            out.append(render_lines(sub, self.axis, shift_hz=sh, weight=site.weight,
-                                    lorentz_hz=site.lorentz_hz + meas.lorentz_hz, gauss_hz=gauss,
-                                    binning=meas.binning).intensity)
+            axis, q = self._site_axis(k)
+            y = render_lines(sub, axis, shift_hz=sh, weight=site.weight, lorentz_hz=site.lorentz_hz + meas.lorentz_hz,
+                             gauss_hz=hat_corrected_gauss(gauss, axis.dx_hz) if self.point_values else gauss,
+                             binning=meas.binning).intensity
+            out.append(y[(q - 1) // 2::q] if q > 1 else y)
         return np.array(out)
 
     def band_intensities(self, values=None) -> list:

@@ -41,17 +41,32 @@ def note(args, text: str) -> None:
 
 
 def compile_note(args) -> None:
-    """Say once that the kernels will compile, when (and only when) their cache is missing."""
-    try:
-        from ..engine import _kernels as k
+    """Say once, when (and only when) one of powderspin's kernels actually starts compiling.
 
-        missing = [d for d in (k._perturbative_offsets, k._perturbative_sidebands, k._bin_tent)
-                   if not Path(d._cache._cache_file._index_path).exists()]
-    except Exception:  # the check is a courtesy; never let it stop a run
+    A listener on numba's ``numba:compile`` event, which numba raises only
+    for a real compilation, never when it loads a kernel from its on-disk
+    cache; so runs whose kernels are all cached print nothing.
+    """
+    try:
+        from numba.core import event
+    except Exception:  # the note is a courtesy; never let it stop a run
         return
-    if missing:
-        print("note: compiling the numerical kernels for the first time (up to a minute); later runs reuse them",
-              file=sys.stderr)
+
+    class _FirstCompile(event.Listener):
+        said = False
+
+        def on_start(self, ev):
+            disp = (ev.data or {}).get("dispatcher") if isinstance(ev.data, dict) else None
+            module = getattr(getattr(disp, "py_func", None), "__module__", "") or ""
+            if not self.said and module.startswith("powderspin"):
+                self.said = True
+                print("note: compiling the numerical kernels for the first time (up to a minute); later runs "
+                      "reuse them", file=sys.stderr, flush=True)
+
+        def on_end(self, ev):
+            pass
+
+    event.register("numba:compile", _FirstCompile())
 
 
 def parse_range(text: str | None, what: str):

@@ -32,9 +32,15 @@ def add_parser(sub) -> None:
     f.add_argument("--unit", choices=("ppm", "khz"), default="ppm",
                    help="x axis of the report: shift in ppm (default) or offset in kHz")
     f.add_argument("--global", dest="global_search", action="store_true",
-                   help="least squares from many starts within the bounds (Sobol set); keep the best")
-    f.add_argument("--starts", type=int, help="number of starts with --global (default max(8, 4 x free parameters))")
-    f.add_argument("--seed", type=int, default=0, help="seed of the --global starts and the posterior sampler")
+                   help="global search: least squares from your start and from candidates of a lineshape-library "
+                        "scan (static or infinite-rate central transitions) or of differential evolution; lists "
+                        "every distinct minimum that fits almost as well")
+    f.add_argument("--starts", type=int,
+                   help="least-squares starts with --global, yours included (default 1 + max(8, 3 x free parameters))")
+    f.add_argument("--seed", type=int, default=0, help="seed of the --global search and the posterior sampler")
+    f.add_argument("--profile", choices=("auto", "all", "none"), default="auto",
+                   help="profile-likelihood intervals: where chi-square is not quadratic within one standard error "
+                        "(auto, the default), for every parameter (all) or none")
     f.add_argument("--workers", type=int, metavar="N",
                    help="with --global: run the starts on a local Dask cluster of N single-threaded processes")
     f.add_argument("--scheduler", metavar="ADDRESS",
@@ -44,6 +50,9 @@ def add_parser(sub) -> None:
     f.add_argument("--walkers", type=int, help="posterior walkers (default max(16, 4 x free parameters))")
     f.add_argument("--steps", type=int, default=2000, help="posterior steps per walker (default 2000)")
     f.add_argument("--burn", type=int, help="posterior steps discarded (default a quarter of --steps)")
+    f.add_argument("--max-steps", type=int,
+                   help="extend the posterior chain up to this many steps until it spans 50 autocorrelation times "
+                        "(default 5 x --steps)")
     f.add_argument("--region", action="append", metavar="A:B",
                    help="fit region in ppm (repeatable); overrides [fit] regions")
     f.add_argument("--noise-region", metavar="A:B", help="signal-free region in ppm for the noise level")
@@ -102,6 +111,7 @@ def run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool, al
                          global_search=args.global_search, starts=args.starts, seed=args.seed,
                          posterior=args.posterior, walkers=args.walkers, steps=args.steps, burn=args.burn,
                          progress=progress, kernel_store=kernel_store(args), map_starts=map_starts,
+                         max_steps=getattr(args, "max_steps", None), profile=getattr(args, "profile", "auto"),
                          accept_mismatch=getattr(args, "accept_mismatch", False))
     finally:
         progress.close()

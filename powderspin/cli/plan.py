@@ -39,12 +39,19 @@ def _run(args) -> int:
     from ..plotting.plan import save_plan_plot
 
     table = load_rotor_table(args.rotor_table) if args.rotor_table else None
+    at = None
+    if args.values:
+        fitted = load_model(args.values)
+        try:
+            at = {q.name: fitted.parameter_value(fitted.address_of(q.name)) for q in model.free}
+        except ValueError as e:
+            raise CliError(f"--values {args.values!r}: {e}; give the result file of a fit of this model") from None
     compile_note(args)
     progress = terminal_progress(args, delay=2.0)
     try:
         result = plan(model, fields, rotors=args.rotors, rotor_table=table, max_rate_hz=args.max_rate,
                       rates_hz=rates, n_rates=args.rate_count, threshold=args.threshold, snr=args.snr,
-                      precision=not args.no_precision, progress=progress)
+                      precision=not args.no_precision, progress=progress, values=at)
     finally:
         progress.close()
     with outputs_together():  # the JSON and the plot appear together at the end, or neither does
@@ -92,6 +99,9 @@ def add_parser(sub) -> None:
     p.add_argument("--no-precision", action="store_true", help="skip the standard errors and the ranking")
     p.add_argument("--mqmas", action="store_true",
                    help="also tell, per field, whether the sites are resolved in F1 of 3QMAS and 5QMAS")
+    p.add_argument("--values", metavar="RESULT.toml",
+                   help="compute the precision at a fit's values (a result file of 'powderspin fit') instead of the "
+                        "model's start values")
     p.add_argument("--json", metavar="OUT.json", help="write every number behind the plan as JSON ('-': stdout)")
     p.add_argument("--plot", metavar="OUT.png", help="write a figure (.png, .pdf or .svg)")
     p.add_argument("--force", action="store_true", help="overwrite existing output files")

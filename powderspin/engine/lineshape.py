@@ -407,3 +407,104 @@ def baseline_values(coefficients, axis: Axis) -> np.ndarray:
     for b in reversed(tuple(coefficients)):  # Horner
         out = out * u + float(b)
     return out
+
+
+#: a simulated point is the continuous (broadened) spectrum at its frequency: a site is rendered on an internally
+#: finer axis when its narrowest line (the smallest broadening FWHM it can have) spans fewer than this many points
+POINTS_PER_FWHM = 20
+#: at most this factor finer (odd, so that every output point is a point of the fine axis)
+MAX_OVERSAMPLING = 31
+
+
+def voigt_fwhm(lorentz_hz: float, gauss_hz: float) -> float:
+    """FWHM (Hz) of a Voigt profile, to 0.02 %: ``0.5346 L + sqrt(0.2166 L^2 + G^2)``.
+
+    Parameters
+    ----------
+    lorentz_hz, gauss_hz : float
+        Lorentzian and Gaussian FWHM (Hz).
+
+    Returns
+    -------
+    float
+
+    References
+    ----------
+    J. J. Olivero, R. L. Longbothum, J. Quant. Spectrosc. Radiat. Transfer 17
+    (1977) 233.
+
+    Examples
+    --------
+    >>> voigt_fwhm(0.0, 100.0), round(voigt_fwhm(100.0, 0.0), 2)
+    (100.0, 100.0)
+    """
+    return 0.5346 * lorentz_hz + math.sqrt(0.2166 * lorentz_hz ** 2 + gauss_hz ** 2)
+
+
+def hat_corrected_gauss(gauss_hz: float, dx_hz: float) -> float:
+    """The Gaussian FWHM to apply after hat binning so that points are values of the continuous spectrum.
+
+    Sharing lines between neighbouring points by linear hats convolves the
+    spectrum with a triangle of half-width ``dx`` (variance ``dx^2 / 6``).  A
+    Gaussian of variance ``s^2 - dx^2 / 6`` after it gives the variance ``s^2``
+    asked for, so the second-order error of the sampling vanishes (what is
+    left is of order ``(dx / FWHM)^4``).  Where the Gaussian is narrower than
+    that, it is left as it is (the oversampling rule then keeps the error
+    small).
+
+    Parameters
+    ----------
+    gauss_hz : float
+        Gaussian FWHM asked for (Hz).
+    dx_hz : float
+        Step of the axis the lines are binned on (Hz).
+
+    Returns
+    -------
+    float
+
+    Examples
+    --------
+    >>> round(hat_corrected_gauss(300.0, 15.0), 3), hat_corrected_gauss(0.0, 15.0)
+    (299.653, 0.0)
+    """
+    var = gauss_hz ** 2 - 8.0 * math.log(2.0) * dx_hz ** 2 / 6.0
+    return math.sqrt(var) if gauss_hz > 0 and var > 0.25 * gauss_hz ** 2 else gauss_hz
+
+
+def sampling_oversampling(dx_hz: float, fwhm_hz: float) -> int:
+    """How much finer (odd factor q) to render so that a point is the continuous spectrum at its frequency.
+
+    The binning shares each line between the two nearest points by linear
+    hats, which smooths the spectrum with a triangle of half-width one step h
+    (variance h^2/6).  For a Gaussian line of FWHM w this widens it by a
+    relative ``(4 ln 2 / 6) (h / w)^2 = 0.46 (h / w)^2`` and lowers its peak
+    by as much.  With ``h <= w / POINTS_PER_FWHM`` (20 points per FWHM) that
+    is below 0.12 % before, and of order 1e-6 after, the Gaussian is narrowed
+    by the hats' variance (:func:`hat_corrected_gauss`); the fine axis has
+    ``q`` times the points, centred so that every ``q``-th fine point is an
+    output point, and the output takes those.
+
+    Parameters
+    ----------
+    dx_hz : float
+        Output step (Hz).
+    fwhm_hz : float
+        The narrowest line's FWHM (Hz); 0 (no broadening) gives 1: an
+        unbroadened spectrum has no values at points, only bin averages.
+
+    Returns
+    -------
+    int
+        1, 3, 5, ... up to :data:`MAX_OVERSAMPLING`.
+
+    Examples
+    --------
+    >>> sampling_oversampling(103.0, 300.0), sampling_oversampling(10.0, 300.0), sampling_oversampling(10.0, 0.0)
+    (7, 1, 1)
+    """
+    if not (fwhm_hz > 0) or dx_hz * POINTS_PER_FWHM <= fwhm_hz:
+        return 1
+    q = int(math.ceil(dx_hz * POINTS_PER_FWHM / fwhm_hz))
+    q += 1 - q % 2
+    return min(q, MAX_OVERSAMPLING)

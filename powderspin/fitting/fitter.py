@@ -27,11 +27,18 @@ How a fit works
   ``(data - model) / sigma`` over the fit regions, with a forward-difference
   Jacobian through the Simulators' memos.  Whether it converged is part of
   the result (``success``, ``message``); a fit that stopped early says so.
-- **Global search** (``global_search=True``): least squares from a seeded
-  scrambled Sobol set of starts within the bounds (scipy.stats.qmc; I. M.
-  Sobol', USSR Comput. Math. Math. Phys. 7 (1967) 86), plus the model's own
-  start; the best is kept and the number of starts that reached it (chi-square
-  within 1 of the lowest) is reported.
+- **Global search** (``global_search=True``, :mod:`powderspin.fitting.search`):
+  the user's start plus candidates from a lineshape-library scan (one
+  non-negative least-squares problem over every site's kernels) where it
+  applies, else from differential evolution with a stated budget; every
+  start refined by least squares; every distinct minimum within a stated
+  chi-square margin of the best is reported (``FitResult.minima``).
+- **Equivalent values** (:mod:`powderspin.fitting.symmetry`): Euler angles
+  are folded into one documented fundamental domain and, with only the
+  central transition, C_Q to its absolute value; the notes say so.
+- **Curvature** (:mod:`powderspin.fitting.curvature`): predicted and actual
+  chi-square rises at one standard error are compared; where they differ,
+  profile-likelihood intervals are reported with a warning.
 - **Noise.** With a signal-free noise region, sigma is the standard deviation
   of the data there (a straight line removed).  Without one, sigma is the
   root-mean-square residual of the fit (per measurement; the fit starts from
@@ -70,6 +77,7 @@ from __future__ import annotations
 import functools
 import math
 import time
+from dataclasses import replace
 
 import numpy as np
 
@@ -81,6 +89,7 @@ from ..engine.threads import kernel_threads
 from ..model.values import FitSettings, FreeParameter, Model, ModelError, ParameterAddress
 from ..simulator import SimulationCache, Simulator, as_model
 from ..uncertainty import correlation, covariance_from_jacobian, standard_errors
+from .curvature import curvature_check, profile_interval
 from .data import (
     MIN_NOISE_POINTS,
     FitError,
@@ -95,8 +104,11 @@ from .data import (
 )
 from .posterior import DEFAULT_STEPS, MIN_AUTOCORRELATION_TIMES, sample_posterior
 from .problem import FitProblem
-from .reported import fitted_model, parameter_warnings, reported_values, stderr_tables
+from .reported import NATURAL_RANGE, fitted_model, parameter_warnings, reported_values, stderr_tables
 from .result import FitResult
+from .search import MINIMA_MARGIN
+from .search import global_search as global_search_
+from .symmetry import fold_vector, skew_switch_notes
 
 __all__ = ["fit", "FitError", "DEFAULT_STEPS", "CONVERGED_CHI2", "check_sampler_memory", "sampler_memory_bytes"]
 
@@ -231,9 +243,10 @@ def _verdict(sol, max_evaluations) -> tuple[bool, str]:
 
 def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=None, axis: str | None = None,
         global_search: bool = False, starts: int | None = None, seed: int = 0, posterior: bool = False,
-        walkers: int | None = None, steps: int = DEFAULT_STEPS, burn: int | None = None, progress=None,
+        walkers: int | None = None, steps: int = DEFAULT_STEPS, burn: int | None = None,
+        max_steps: int | None = None, progress=None,
         max_evaluations: int | None = None, threads: int | None = 1, kernel_store=None,
-        accept_mismatch: bool = False, map_starts=None) -> FitResult:
+        accept_mismatch: bool = False, map_starts=None, profile: str = "auto") -> FitResult:
     """Fit a model with free parameters to one or more measured spectra.
 
     Parameters
@@ -261,19 +274,25 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
         where only one unit puts the data's signal among the model's lines
         (a note says which); otherwise the file is refused.
     global_search : bool, optional
-        Least squares from a seeded Sobol set of starts within the bounds
-        (and the model's own start); keep the best.
+        Global search (:func:`powderspin.fitting.search.global_search`): the
+        model's start plus candidates from a lineshape-library scan or
+        differential evolution, each refined; keep the best and list every
+        distinct minimum within chi-square 9 of it.
     starts : int, optional
-        Number of starts of a global search (default ``max(8, 4 p)``,
-        p free parameters).
+        Least-squares starts of a global search, the model's included
+        (default ``1 + max(8, 3 p)``, p free parameters).
     seed : int, optional
-        Seed of the Sobol starts and of the posterior sampler.
+        Seed of the global search and of the posterior sampler.
     posterior : bool, optional
         Also sample the posterior with emcee from the least-squares solution.
     walkers, steps, burn : int, optional
         Posterior sampling: walkers (default ``max(16, 4 p)``, even), steps
         per walker (default :data:`DEFAULT_STEPS`) and discarded steps
         (default a quarter of ``steps``).
+    max_steps : int, optional
+        The posterior chain is extended beyond ``steps`` until it spans 50
+        integrated autocorrelation times, up to ``max_steps`` steps per
+        walker (default 5 x ``steps``); a chain still too short is reported.
     progress : callable, optional
         Subscriber of the progress protocol (:mod:`powderspin.progress`):
         stage ``"fit"`` (evaluations, with the lowest chi-square as the
@@ -306,6 +325,11 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
         values are the serial run's (``n_evaluations`` may differ by the few
         evaluations the serial runs find in each other's memo).  Default: one
         after the other, here.
+    profile : {"auto", "all", "none"}, optional
+        Profile-likelihood intervals (:mod:`powderspin.fitting.curvature`):
+        ``"auto"`` for the parameters along which chi-square is not quadratic
+        within one standard error, ``"all"`` for every free parameter except
+        weights, ``"none"`` for none (the curvature check still runs).
 
     Returns
     -------
@@ -360,10 +384,12 @@ def fit(model, data=None, *, regions=None, noise_region=None, baseline_order=Non
     >>> ps.fit(start, [data], max_evaluations=3).success
     False
     """
+    if profile not in ("auto", "all", "none"):
+        raise FitError(f"profile = {profile!r} must be one of 'auto', 'all', 'none'")
     with kernel_threads(threads):
         return _fit(model, data, regions, noise_region, baseline_order, axis, global_search, starts, seed,
                     posterior, walkers, steps, burn, progress, max_evaluations, kernel_store, accept_mismatch,
-                    map_starts)
+                    map_starts, profile, max_steps)
 
 
 #: a noise region whose scatter exceeds the point-to-point noise this many times holds more than noise
@@ -448,7 +474,7 @@ def check_sampler_memory(n_free: int, walkers, steps, starts, names=None) -> Non
 
 def _fit(model, data, regions, noise_region, baseline_order, axis, global_search, starts, seed, posterior,
          walkers, steps, burn, progress, max_evaluations, kernel_store=None, accept_mismatch=False,
-         map_starts=None) -> FitResult:
+         map_starts=None, profile="auto", max_steps=None) -> FitResult:
     t_start = time.perf_counter()
     args = _check_arguments(global_search, starts, seed, posterior, walkers, steps, burn, max_evaluations, axis)
     starts, seed, walkers, steps, burn, max_evaluations = (args[k] for k in ("starts", "seed", "walkers", "steps",
@@ -564,29 +590,26 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     x0 = np.array([p.start for p in free], dtype=float)
     # -- least squares (local or multi-start)
     n_starts, at_best = 1, 1
+    search = None
     if global_search:
-        n_starts = int(starts) if starts is not None else max(8, 4 * len(free))
-        if n_starts < 1:
-            raise FitError(f"starts = {n_starts} must be at least 1")
-        unbounded = [p.name for p in free if (p.max - p.min) >= 0.5 * _schema_span(p)]
+        unbounded = [p.name for p in free if (p.max - p.min) >= 0.5 * _schema_span(p)
+                     and p.address.key not in NATURAL_RANGE and p.address.key != "euler_deg"]
         if unbounded:
             warns.append("global search over the whole allowed range of " + ", ".join(unbounded)
                          + ": give min and max to search where the value can physically be")
-        pts = [x0] + list(_sobol_starts(problem.lo, problem.hi, n_starts - 1, seed)) if n_starts > 1 else [x0]
-        if map_starts is None or len(pts) < 2:
-            costs, sol = [], None
-            for p in pts:  # only the best run is kept: memory does not grow with the number of starts
-                run = _least_squares(problem, p, max_evaluations)
-                costs.append(2.0 * run.cost)
-                if sol is None or run.cost < sol.cost:
-                    sol = run
-        else:
-            done = map_starts(functools.partial(_run_from, _detached(problem), max_evaluations), pts)
-            costs = [2.0 * run.cost for run, _ in done]
-            sol = done[int(np.argmin(costs))][0]
-            problem.n_evaluations += sum(n for _, n in done)
-        costs = np.array(costs)
-        at_best = int(np.sum(costs <= costs.min() + CONVERGED_CHI2))
+        map_runs = None
+        if map_starts is not None:
+            def map_runs(pts):
+                done = map_starts(functools.partial(_run_from, _detached(problem), max_evaluations), pts)
+                problem.n_evaluations += sum(n for _, n in done)
+                return [run for run, _ in done]
+
+        search = global_search_(problem, x0, refinements=None if starts is None else int(starts) - 1, seed=seed,
+                                local=lambda v, n: _least_squares(problem, v, max_evaluations if n is None else n),
+                                fold=lambda v: fold_vector(free, v, problem.lo, problem.hi, problem.model)[0],
+                                kernel_store=kernel_store, map_runs=map_runs)
+        sol = search.best
+        n_starts, at_best = search.starts, search.starts_at_best
     else:
         sol = _least_squares(problem, x0, max_evaluations)
     x = sol.x
@@ -636,6 +659,9 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
             success, message = _verdict(sol, max_evaluations)
     if not success:
         warns.insert(0, message)
+    # -- one answer per minimum: equivalent values folded to the documented representative
+    x, fold_notes = fold_vector(free, x, problem.lo, problem.hi, problem.model)
+    notes.extend(fold_notes)
     # -- statistics
     e = problem.evaluate(x)
     chi2 = float(e.residual @ e.residual)
@@ -652,6 +678,59 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     dist_derived = distribution_summary(problem.model_at, free, x, cov[:p, :p])
     red = chi2 / dof
     warns += parameter_warnings(free, x, values, stderr, corr, names, getattr(sol, "active_mask", None))
+    notes.extend(skew_switch_notes(problem.model, free, values, stderr))
+    # -- does the quadratic picture hold within one standard error?  Profile intervals where it does not
+    jp = problem.jacobian(x)
+    curv = curvature_check(problem, x, jp, cov[:p, :p], names)
+    profiles = {}
+    failed = [row for row in curv if not row.quadratic]
+    if profile != "none":
+        todo = set()
+        for row in curv:
+            if profile == "all" or not row.quadratic:
+                todo |= {n for n, w in row.loadings.items() if abs(w) >= 0.3}
+        sd_free = np.sqrt(np.clip(np.diag(cov[:p, :p]), 0.0, None))
+        for i, fp in enumerate(free):
+            if fp.name not in todo or fp.address.key == "weight" or not (np.isfinite(sd_free[i]) and sd_free[i] > 0):
+                continue
+            lo_, hi_, f_lo, f_hi, lowest = profile_interval(problem, x, i, float(sd_free[i]), _profile_local)
+            profiles[fp.name] = (lo_, hi_, f_lo, f_hi)
+            if lowest < chi2 - 0.05:
+                warns.append(f"scanning {fp.name} found a chi-square {chi2 - lowest:.3g} lower than the fit's: the fit "
+                             "did not reach the minimum (try --global)")
+    if failed:
+        worst = []
+        for row in failed:
+            acts = [v for v in (row.minus, row.plus) if math.isfinite(v)]
+            what = row.label if row.label in row.loadings else (row.label + " (" + ", ".join(
+                f"{n} {w:+.2f}" for n, w in sorted(row.loadings.items(), key=lambda t: -abs(t[1]))[:3]) + ")")
+            worst.append(f"{what}: chi-square rose by {' and '.join(f'{v:.3g}' for v in acts)} at -+1 standard "
+                         f"error, {row.predicted:.3g} predicted")
+        text = ("the chi-square surface is not quadratic within one standard error, so the standard errors "
+                "misstate the uncertainty along " + "; ".join(worst))
+        if profiles:
+            text += ("; read the profile-likelihood intervals (chi-square + 1, the other parameters re-optimised) "
+                     "instead: " + ", ".join(f"{n} in [{a:.6g}, {b:.6g}]" + ("" if fa and fb else " (open)")
+                                             for n, (a, b, fa, fb) in profiles.items()))
+        warns.append(text)
+    minima = ()
+    if search is not None:
+        minima = []
+        for mn in search.minima:  # chi-square at the final noise levels
+            v = np.array([mn.values[n] for n in names])
+            ev = problem.evaluate(v)
+            minima.append(replace(mn, chi_square=float(ev.residual @ ev.residual)))
+        minima = tuple(sorted(minima, key=lambda mn: mn.chi_square))
+        notes.append(f"global search: {search.method}")
+        if at_best == 1 and n_starts > 1:
+            warns.append(f"the best fit was reached by one start only (of {n_starts}): a lower minimum may exist "
+                         "that no start reached; run again with more starts (--starts) or another seed")
+        others = [mn for mn in minima[1:]]
+        if others:
+            lines = "; ".join(f"chi-square +{mn.chi_square - minima[0].chi_square:.3g}: "
+                              + ", ".join(f"{n} = {v:.6g}" for n, v in mn.values.items()) for mn in others)
+            warns.append(f"{len(others)} other distinct minimum/minima lie within chi-square {MINIMA_MARGIN:g} of the "
+                         f"best and fit the data almost as well: {lines}")
     if noise_source == "noise region" and red > 2.0:
         warns.append(f"the reduced chi-square is {red:.3g}: the model does not describe the data within the noise "
                      "(missing sites, wrong broadening or baseline); the standard errors are then too small")
@@ -676,11 +755,15 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
                 warns.append(f"{where(j)}: {text}")
     post = None
     if posterior:
-        post = sample_posterior(problem, x, free, cov[:p, :p], walkers, steps, burn, seed, progress)
+        post = sample_posterior(problem, x, free, cov[:p, :p], walkers, steps, burn, seed, progress, max_steps)
         if not post.converged:
-            warns.append(f"the posterior chain is short: {post.steps - post.burn} kept steps per walker, fewer than "
-                         f"{MIN_AUTOCORRELATION_TIMES} autocorrelation times (longest "
-                         f"{max(post.autocorrelation_steps):.3g} steps); run more steps before trusting the intervals")
+            warns.append(f"the posterior chain is too short even after extending it to {post.steps} steps: "
+                         f"{post.steps - post.burn} kept steps per walker are fewer than {MIN_AUTOCORRELATION_TIMES} "
+                         f"integrated autocorrelation times (longest {max(post.autocorrelation_steps):.3g} steps); "
+                         "the posterior intervals are not reliable: raise max_steps (--max-steps)")
+        elif post.steps > int(steps):
+            notes.append(f"the posterior chain was extended from {int(steps)} to {post.steps} steps to span "
+                         f"{MIN_AUTOCORRELATION_TIMES} autocorrelation times")
     return FitResult(
         model=fitted, names=names, values=values, stderr=stderr, covariance=q_cov[:p, :p], correlation=corr,
         success=success, message=message, n_evaluations=problem.n_evaluations, reduced_chi_square=red,
@@ -690,7 +773,8 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
         scale_stderr=tuple(derived["scale_err"]), baselines=tuple(m.baseline for m in fitted.measurements),
         baseline_stderr=tuple(derived["baseline_err"]), site_stderr=site_err, measurement_stderr=meas_err,
         warnings=tuple(warns), notes=tuple(notes), time_s=time.perf_counter() - t_start, starts=n_starts,
-        starts_at_best=at_best, posterior=post, derived=dist_derived, excitation=excitation)
+        starts_at_best=at_best, posterior=post, derived=dist_derived, excitation=excitation, minima=minima,
+        curvature=tuple(curv), profile_intervals={n: (a, b) for n, (a, b, _, _) in profiles.items()})
 
 
 def excitation_report(fitted: Model, spectra, site_err) -> dict:
@@ -750,6 +834,13 @@ def excitation_report(fitted: Model, spectra, site_err) -> dict:
                                  "apparent_population_stderr": float(app_err[i])}
                        for i, s in enumerate(fitted.sites)}
     return out
+
+
+def _profile_local(fun, jac, z0, lo, hi):
+    from scipy.optimize import least_squares
+
+    return least_squares(fun, np.clip(z0, lo, hi), jac=jac, bounds=(lo, hi), method="trf", x_scale="jac",
+                         max_nfev=50 * (z0.size + 1))
 
 
 def _any_auto_method(model: Model) -> bool:

@@ -11,15 +11,18 @@ from .data import FitError
 from .problem import FitProblem
 from .result import PosteriorSummary
 
-__all__ = ["sample_posterior", "DEFAULT_STEPS", "MIN_AUTOCORRELATION_TIMES"]
+__all__ = ["sample_posterior", "DEFAULT_STEPS", "MIN_AUTOCORRELATION_TIMES", "EXTENSION_FACTOR"]
 
 #: default length of a posterior chain (steps per walker)
 DEFAULT_STEPS = 2000
 #: a chain is long enough when its kept part spans this many autocorrelation times (emcee's advice)
 MIN_AUTOCORRELATION_TIMES = 50
+#: a chain that is too short after ``steps`` is extended, up to this many times ``steps`` in all (default)
+EXTENSION_FACTOR = 5
 
 
-def sample_posterior(problem: FitProblem, x, free, cov, walkers, steps, burn, seed, progress) -> PosteriorSummary:
+def sample_posterior(problem: FitProblem, x, free, cov, walkers, steps, burn, seed, progress,
+                     max_steps: int | None = None) -> PosteriorSummary:
     """Sample the posterior of the free parameters with emcee, from a small ball about the solution.
 
     Uniform priors inside the bounds; the log-likelihood is
@@ -39,6 +42,12 @@ def sample_posterior(problem: FitProblem, x, free, cov, walkers, steps, burn, se
     walkers, steps, burn : int or None
         Walkers (default ``max(16, 4 p)``, even), steps per walker and
         discarded steps (default a quarter of ``steps``).
+    max_steps : int, optional
+        When the kept chain is shorter than :data:`MIN_AUTOCORRELATION_TIMES`
+        integrated autocorrelation times after ``steps``, sampling goes on
+        (in blocks sized from the estimated time) up to ``max_steps`` in all
+        (default ``EXTENSION_FACTOR * steps``); the summary says whether the
+        chain was long enough in the end.
     seed : int
     progress : callable or None
         Subscriber of the progress protocol (stage ``"posterior"``).
@@ -86,22 +95,42 @@ def sample_posterior(problem: FitProblem, x, free, cov, walkers, steps, burn, se
     p0 = np.clip(p0, lo + 1e-9 * span, hi - 1e-9 * span)
     sampler = emcee.EnsembleSampler(nw, p, log_prob)
     sampler.random_state = np.random.RandomState(seed).get_state()
-    for i, _ in enumerate(sampler.sample(p0, iterations=steps)):
-        if interrupted:
-            raise KeyboardInterrupt
-        emit(progress, "posterior", i + 1, steps, unit="steps")
-    chain = sampler.get_chain(discard=burn, flat=True)
-    with _warnings.catch_warnings():
-        _warnings.simplefilter("ignore")
-        import logging
+    limit = max(steps, int(max_steps) if max_steps is not None else EXTENSION_FACTOR * steps)
 
-        logger = logging.getLogger("emcee.autocorr")
-        level = logger.level
-        logger.setLevel(logging.ERROR)
-        try:
-            tau = sampler.get_autocorr_time(discard=burn, quiet=True)
-        finally:
-            logger.setLevel(level)
+    def run(start, n, total):
+        done = sampler.iteration
+        state = start
+        for i, state in enumerate(sampler.sample(start, iterations=n)):
+            if interrupted:
+                raise KeyboardInterrupt
+            emit(progress, "posterior", done + i + 1, total, unit="steps")
+        return state
+
+    def autocorr():
+        with _warnings.catch_warnings():
+            _warnings.simplefilter("ignore")
+            import logging
+
+            logger = logging.getLogger("emcee.autocorr")
+            level = logger.level
+            logger.setLevel(logging.ERROR)
+            try:
+                return sampler.get_autocorr_time(discard=burn, quiet=True)
+            finally:
+                logger.setLevel(level)
+
+    state = run(p0, steps, steps)
+    tau = autocorr()
+    while sampler.iteration < limit:
+        t_max = float(np.max(np.where(np.isfinite(tau), tau, sampler.iteration)))
+        need = int(np.ceil(1.1 * MIN_AUTOCORRELATION_TIMES * t_max)) + burn
+        if sampler.iteration >= need:
+            break
+        n = int(min(limit - sampler.iteration, max(need - sampler.iteration, steps // 4, 10)))
+        state = run(state, n, min(limit, need))
+        tau = autocorr()
+    steps = sampler.iteration
+    chain = sampler.get_chain(discard=burn, flat=True)
     tau = np.where(np.isfinite(tau), tau, float(steps))
     # report weights normalised, like the least-squares values
     weight_idx = [k for k, fp in enumerate(free) if fp.address.table == "site" and fp.address.key == "weight"]

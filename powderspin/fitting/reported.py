@@ -18,10 +18,13 @@ from ..uncertainty import propagate, standard_errors
 from .problem import Evaluation, FitProblem
 
 __all__ = ["reported_values", "stderr_tables", "parameter_warnings", "fitted_model", "CORRELATION_WARNING",
-           "SCALE_LIKE"]
+           "SCALE_LIKE", "NATURAL_RANGE"]
 
 #: |correlation| above which two parameters are reported as trading off
 CORRELATION_WARNING = 0.95
+#: keys whose allowed range is their whole physical range: a value at its end is a value, and searching all of it
+#: is what a global search should do
+NATURAL_RANGE = frozenset({"eta_q", "skew", "eta_cs"})
 #: keys whose value has a natural zero (a standard error larger than the value itself means the data cannot tell
 #: the value from zero); location-like keys (shifts, angles) are judged against their range only
 SCALE_LIKE = frozenset({"weight", "cq_mhz", "eta_q", "span_ppm", "aniso_ppm", "eta_cs", "lorentz_hz", "gauss_hz",
@@ -77,6 +80,8 @@ def reported_values(problem: FitProblem, x, e: Evaluation, cov) -> dict:
         gj = np.empty((v0.size, z0.size))
         for k in range(z0.size):
             h = 1e-7 * max(abs(z0[k]), 1e-3 if k < p else abs(z0[k]) + 1e-300)
+            if k < p and z0[k] + h > problem.hi[k]:  # backward at an upper bound (eta_q = 1 may not be exceeded)
+                h = -h
             z = z0.copy()
             z[k] += h
             gj[:, k] = (g(z) - v0) / h
@@ -166,10 +171,15 @@ def parameter_warnings(free, x, values, stderr, corr, names, active_mask=None) -
         v, s = values[n], stderr[n]
         span = fp.max - fp.min
         tol = 1e-6 * span if math.isfinite(span) else 1e-9
-        if x[k] - fp.min <= tol or (active_mask is not None and active_mask[k] < 0):
+        spec = fp.address.spec()
+        at_low = x[k] - fp.min <= tol or (active_mask is not None and active_mask[k] < 0)
+        at_high = not at_low and (fp.max - x[k] <= tol or (active_mask is not None and active_mask[k] > 0))
+        if fp.address.key in NATURAL_RANGE and ((at_low and fp.min <= spec.low) or (at_high and fp.max >= spec.high)):
+            pass  # the end of the physical range (eta_q = 0 or 1, skew = +-1): a value, not a limit of the search
+        elif at_low:
             out.append(f"{n} stopped at its lower bound min = {fp.min:g}: the best value may lie beyond it; widen "
                        "the range if that is physical, or read the value as a limit")
-        elif fp.max - x[k] <= tol or (active_mask is not None and active_mask[k] > 0):
+        elif at_high:
             out.append(f"{n} stopped at its upper bound max = {fp.max:g}: the best value may lie beyond it; widen "
                        "the range if that is physical, or read the value as a limit")
         if not math.isfinite(s):

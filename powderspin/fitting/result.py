@@ -275,6 +275,17 @@ class FitResult:
         Least-squares starts and how many reached the best chi-square.
     posterior : PosteriorSummary or None
         The posterior samples, when asked for.
+    minima : tuple of powderspin.fitting.search.Minimum
+        After a global search: every distinct minimum within
+        :data:`powderspin.fitting.search.MINIMA_MARGIN` of the lowest chi-square
+        (lowest first, values folded), with the number of starts that ended
+        in it.
+    curvature : tuple of powderspin.fitting.curvature.CurvatureRow
+        Predicted against actual chi-square changes at one standard error
+        along each parameter and each principal direction.
+    profile_intervals : Mapping of str to (float, float)
+        Profile-likelihood intervals (chi-square + 1, the others
+        re-optimised) where the quadratic picture failed (or all, when asked).
     derived : Mapping of str to (float, float)
         Quantities derived from the fitted values, with standard errors by
         the delta method: for each site with an EFG distribution its mean
@@ -323,9 +334,12 @@ class FitResult:
     posterior: PosteriorSummary | None = None
     derived: Mapping = field(default_factory=dict)
     excitation: Mapping = field(default_factory=dict)
+    minima: tuple = ()
+    curvature: tuple = ()
+    profile_intervals: Mapping = field(default_factory=dict)
 
     def __post_init__(self):
-        for k in ("values", "stderr", "derived", "excitation"):
+        for k in ("values", "stderr", "derived", "excitation", "profile_intervals"):
             object.__setattr__(self, k, MappingProxyType(dict(getattr(self, k))))
         for k in ("correlation", "covariance"):
             c = np.array(getattr(self, k), dtype=float)
@@ -378,6 +392,9 @@ class FitResult:
                 lo, hi = self.posterior.interval(n)
                 med = self.posterior.median[self.posterior.names.index(n)]
                 line += f"   posterior median {med:.6g}, 16-84 %: [{lo:.6g}, {hi:.6g}]"
+            if n in self.profile_intervals:
+                a, b = self.profile_intervals[n]
+                line += f"   profile interval [{a:.6g}, {b:.6g}]"
             lines.append(line)
         head = (f"fit: reduced chi-square {self.reduced_chi_square:.4g} ({self.degrees_of_freedom} degrees of "
                 f"freedom; noise from the {self.noise_source}), {self.n_evaluations} evaluations, "
@@ -471,6 +488,15 @@ class FitResult:
         if self.starts > 1:
             res["starts"] = int(self.starts)
             res["starts_at_best"] = int(self.starts_at_best)
+        if self.profile_intervals:
+            res["profile_intervals"] = {n: [float(a), float(b)] for n, (a, b) in self.profile_intervals.items()}
+        if self.curvature:
+            res["quadratic_check"] = [{"direction": c.label, "predicted": float(c.predicted),
+                                       "minus": float(c.minus), "plus": float(c.plus), "quadratic": bool(c.quadratic)}
+                                      for c in self.curvature]
+        if self.minima:
+            res["minima"] = [{"chi_square": float(mn.chi_square), "starts": int(mn.starts),
+                              "values": {n: float(v) for n, v in mn.values.items()}} for mn in self.minima]
         if self.posterior is not None:
             res["posterior"] = self.posterior.to_dict()
         records = [getattr(s, "metadata", {}).get("processing") for s in self.data]

@@ -151,6 +151,7 @@ from __future__ import annotations
 
 import math
 import time
+from collections.abc import Mapping
 from dataclasses import dataclass, replace
 from types import MappingProxyType
 
@@ -441,15 +442,15 @@ def _setup_field(model: Model, meas: Measurement, field_t: float, dx: float, slo
     cache = SimulationCache(lines=16 * len(model.sites), rendered=64 * len(model.sites))
     t0 = time.perf_counter()
     # producers and orientation sets, decided with the model's broadening (as every spectrum of the plan is)
-    sim_static = Simulator(_at(model, static), axis=axis, cache=cache)
-    sim_inf = Simulator(_at(model, inf), axis=axis, cache=cache)
+    sim_static = Simulator(_at(model, static), axis=axis, cache=cache, point_values=False)
+    sim_inf = Simulator(_at(model, inf), axis=axis, cache=cache, point_values=False)
     notes.extend(f"{field_t:g} T: {t}" for t in sim_inf.notes)
     # widths and the quadrupolar-induced shift, on the bare patterns
     bare = _unbroadened(model)
     bare_static = Simulator(_unbroadened(_at(bare, static)), axis=axis, methods=sim_static.methods,
-                            orientations=sim_static.orientation_sets, cache=cache)
+                            orientations=sim_static.orientation_sets, cache=cache, point_values=False)
     bare_inf = Simulator(_unbroadened(_at(bare, inf)), axis=axis, methods=sim_inf.methods,
-                         orientations=sim_inf.orientation_sets, cache=cache)
+                         orientations=sim_inf.orientation_sets, cache=cache, point_values=False)
     ys = bare_static.site_intensities()
     yi = bare_inf.site_intensities()
     cogs = bare_static.centres_of_gravity_hz()
@@ -482,13 +483,13 @@ def _evaluate_rate(model: Model, setup: _FieldSetup, rate: float, table: RotorTa
     t0 = time.perf_counter()
     options = dict(axis=axis, methods=setup.methods_mas, orientations=setup.sets_mas, cache=setup.cache)
     try:  # each site's rotor phases, then the largest for every site (so the Jacobian's spectra cannot jump)
-        phases = max(Simulator(_at(model, meas), **options).rotor_phases)
+        phases = max(Simulator(_at(model, meas), point_values=False, **options).rotor_phases)
     except ModelError as e:
         clock.add("candidates", t0)
         return RateResult(rate, False, reason=str(e), rotors=rotors, relative_signal=rel_signal), None
     fixed = replace(meas, rotor_phases=int(phases))
     base_model = _at(model, fixed)
-    sim = Simulator(base_model, parameters=[q.address for q in params or ()], **options)
+    sim = Simulator(base_model, parameters=[q.address for q in params or ()], point_values=False, **options)
     spec = sim.spectrum()
     y0 = np.asarray(spec.intensity, dtype=float)
     # each site's centreband alone; its sidebands are the rest of its simulated spectrum (binning and broadening
@@ -521,7 +522,7 @@ def _evaluate_rate(model: Model, setup: _FieldSetup, rate: float, table: RotorTa
 def plan(model, fields=None, *, rotors=None, rotor_table=None, max_rate_hz=None, rates_hz=None,
          n_rates: int = DEFAULT_RATE_COUNT, min_rate_hz: float = DEFAULT_MIN_RATE_HZ,
          threshold: float = DEFAULT_THRESHOLD, snr: float = DEFAULT_SNR, precision: bool = True,
-         orientations=None, progress=None, threads: int | None = 1) -> Plan:
+         orientations=None, progress=None, threads: int | None = 1, values=None) -> Plan:
     """Plan an experiment: simulate the sample at each candidate field and spinning rate.
 
     For each field, the candidate rates are tried from the slowest; at each
@@ -570,6 +571,11 @@ def plan(model, fields=None, *, rotors=None, rotor_table=None, max_rate_hz=None,
         numba's setting).  A plan makes thousands of small kernel calls, for
         which starting parallel work costs more than it saves
         (``benchmarks/bench_plan.py`` measures both).
+    values : FitResult or Mapping of str to float, optional
+        Parameter values at which to compute the precision (a fit result's
+        fitted values, or ``{"A.cq_mhz": 4.1, ...}``); default the model's own
+        values (the start values of free parameters).  The plan says which
+        (``Plan.parameter_source``).
 
     Returns
     -------
@@ -615,13 +621,22 @@ def plan(model, fields=None, *, rotors=None, rotor_table=None, max_rate_hz=None,
     """
     with kernel_threads(threads):
         return _plan(model, fields, rotors, rotor_table, max_rate_hz, rates_hz, n_rates, min_rate_hz, threshold, snr,
-                     precision, orientations, progress)
+                     precision, orientations, progress, values)
 
 
 def _plan(model, fields, rotors, rotor_table, max_rate_hz, rates_hz, n_rates, min_rate_hz, threshold, snr, precision,
-          orientations, progress) -> Plan:
+          orientations, progress, values=None) -> Plan:
     t_start = time.perf_counter()
     model = _as_model(model)
+    at_text = "the model's values (start values of free parameters)"
+    if values is not None:
+        from_result = not isinstance(values, Mapping)
+        given = dict(values.values if from_result else values)
+        try:
+            model = model.with_parameters({model.address_of(n): float(v) for n, v in given.items()})
+        except (ValueError, TypeError) as e:
+            raise PlanError(f"values: {e}") from None
+        at_text = "the fit result's values" if from_result else "the given values"
     source = model.source or ""
     if not model.sites:
         raise PlanError("model: at least one [[site]] is needed")
@@ -649,6 +664,8 @@ def _plan(model, fields, rotors, rotor_table, max_rate_hz, rates_hz, n_rates, mi
     dx = _point_spacing_hz(model, meas)
     model = replace(model, measurements=(meas,) + tuple(model.measurements[1:]))
     params, param_text = (precision_parameters(model) if precision else ([], "precision not computed"))
+    if precision and params:
+        param_text += "; computed at " + at_text + ": " + ", ".join(f"{q.name} = {q.value:.6g}" for q in params)
     clock = _Clock()
     total = len(fields_t) * (1 + len(rates))
     done = 0

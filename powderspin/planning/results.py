@@ -739,6 +739,8 @@ def _table_text(p: Plan) -> str:
         out.append("errors: standard errors a fit would give at the SNR of the largest rotor reaching the rate (the "
                    "SNR column), the largest of each kind: rel err, the error over the value (%) of C_Q, eta, "
                    "span, widths and fractions; shift err in ppm; skew err in skew units; angle err in degrees")
+    if prec:
+        out.append(f"precision: {p.parameter_source}")
     out.append(f"best field by centreband resolution: {p.best_field_tesla:g} T ({p.best_field_reason})")
     if prec:
         clean = [t for t in p.ranking if p.field(t[0]).rate(t[1]).passes(p.threshold)]
