@@ -7,7 +7,8 @@ import math
 import sys
 from pathlib import Path
 
-__all__ = ["terminal_progress", "CliError", "SPINNING_CAUTION", "note", "compile_note", "parse_range", "numbers",
+__all__ = ["terminal_progress", "CliError", "SPINNING_CAUTION", "note", "compile_note", "end_compile_note",
+           "parse_range", "numbers",
            "add_cache_options", "library", "kernel_store", "interrupted", "outputs_together", "signal_handlers",
            "warning_lines"]
 
@@ -66,7 +67,21 @@ def compile_note(args) -> None:
         def on_end(self, ev):
             pass
 
-    event.register("numba:compile", _FirstCompile())
+    listener = _FirstCompile()
+    event.register("numba:compile", listener)
+    # kept with this command's arguments, so that the command's end (end_compile_note) takes it off again: a
+    # process that runs many commands (a notebook, the tests) does not collect listeners
+    vars(args).setdefault("_compile_listeners", []).append(listener)
+
+
+def end_compile_note(args) -> None:
+    """Take off the compile listeners :func:`compile_note` put on for this command."""
+    listeners = vars(args).pop("_compile_listeners", []) if hasattr(args, "__dict__") else []
+    if listeners:
+        from numba.core import event
+
+        for listener in listeners:
+            event.unregister("numba:compile", listener)
 
 
 def parse_range(text: str | None, what: str):

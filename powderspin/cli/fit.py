@@ -229,7 +229,7 @@ def _run_two_dimensional(model, model_path: Path, data, args) -> int:
             spectra[j] = read_spectrum_2d(item, f1_referencing=ref,
                                           nu_ref_hz=model.nucleus.larmor_hz(meas.field_tesla))
         else:
-            spectra[j], _, warns = read_measured(item, model, j, args.axis)
+            spectra[j], _, warns, _ = read_measured(item, model, j, args.axis)
             for w in warns:
                 print(f"warning: {w}", file=sys.stderr)
     compile_note(args)

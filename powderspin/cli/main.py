@@ -32,7 +32,7 @@ import os
 import sys
 
 from . import cache, demo, explore, fit, nuclide, plan, process, series, simulate
-from .common import CliError, Terminated, interrupted, signal_handlers, warning_lines
+from .common import CliError, Terminated, end_compile_note, interrupted, signal_handlers, warning_lines
 
 __all__ = ["main", "build_parser", "console"]
 
@@ -109,8 +109,11 @@ def main(argv=None) -> int:
         args = parser.parse_args(argv)
     except SystemExit as e:  # argparse: usage errors exit 2 after one message, --help/--version exit 0
         return int(e.code or 0)
-    with signal_handlers(), warning_lines():
-        return _run(args)
+    try:
+        with signal_handlers(), warning_lines():
+            return _run(args)
+    finally:
+        end_compile_note(args)
 
 
 def _interrupted_line(e: BaseException) -> str:

@@ -11,19 +11,23 @@ from pathlib import Path
 import numba
 import pytest
 
-from powderspin.cli.common import compile_note
+from powderspin.cli.common import compile_note, end_compile_note
 
 ROOT = Path(__file__).resolve().parents[2]
 
 
 def test_note_printed_when_a_package_kernel_compiles(capsys):
-    compile_note(argparse.Namespace(quiet=False))
+    args = argparse.Namespace(quiet=False)
+    compile_note(args)
 
     def _twice(x):
         return 2.0 * x
 
     _twice.__module__ = "powderspin.engine._note_probe"  # stands for a package kernel; compiled fresh, not cached
-    assert numba.njit(_twice)(1.5) == 3.0
+    try:
+        assert numba.njit(_twice)(1.5) == 3.0
+    finally:
+        end_compile_note(args)  # as the command's end does: no listener outlives its command
     err = capsys.readouterr().err
     assert err.count("compiling the numerical kernels") == 1
 
