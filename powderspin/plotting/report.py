@@ -276,7 +276,7 @@ def report_lines(result) -> list[str]:
         lines += ["", "quantities usually quoted"]
         for label, v, e, u in quoted:
             text = value_with_error(v, e) if math.isfinite(e) and e > 0 else f"{v:.5g}"
-            lines.append(f"{label} = {text} {u}")
+            lines += [label, f"   {text} {u}"]  # the value under its label, as above: the panel stays narrow
     lines.append("")
     lines.append(f"reduced chi-square {result.reduced_chi_square:.4g}")
     lines.append(f"noise from the {result.noise_source}")
