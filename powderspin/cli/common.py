@@ -282,9 +282,16 @@ class Terminated(KeyboardInterrupt):
 
 
 def _in_finaliser(frame) -> bool:
-    """True when the interrupted code is a finaliser (``__del__``), where Python would swallow the exception."""
+    """True when an exception raised in the interrupted code would be printed and swallowed instead of stopping it.
+
+    That is a finaliser (``__del__``), or Python code that C calls back through
+    ctypes: the compiler's object-cache hooks in llvmlite run while numba
+    compiles a kernel, and an exception there is "ignored" (a traceback on
+    stderr, and the command goes on as if Ctrl-C had not been pressed).
+    """
     while frame is not None:
-        if frame.f_code.co_name == "__del__":
+        code = frame.f_code
+        if code.co_name == "__del__" or "llvmlite" in code.co_filename:
             return True
         frame = frame.f_back
     return False

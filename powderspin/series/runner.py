@@ -179,8 +179,49 @@ def worker_environment() -> dict:
     return env
 
 
+class _CancelRaceFilter(logging.Filter):
+    """Drops one known-harmless log record of ``distributed``: Ctrl-C while the main thread waits on the client.
+
+    ``distributed.utils.sync`` schedules a ``cancel`` callback when the wait is
+    interrupted; if the interrupt lands before the awaited future exists, the
+    callback raises a NameError that the event loop logs with a traceback.
+    Nothing is lost (the command is stopping anyway), so the record is noise
+    that would hide the one line the user should read.
+    """
+
+    def filter(self, record: logging.LogRecord) -> bool:
+        exc = record.exc_info[1] if record.exc_info else None
+        if not isinstance(exc, NameError):
+            return True
+        tb = exc.__traceback__
+        while tb is not None and tb.tb_next is not None:
+            tb = tb.tb_next
+        code = tb.tb_frame.f_code if tb is not None else None
+        return not (code is not None and code.co_name == "cancel"
+                    and Path(code.co_filename).parts[-2:] == ("distributed", "utils.py"))
+
+
+@contextlib.contextmanager
+def _quiet_cancel_race():
+    """While a client is open, the event loop's logger leaves out the race described in :class:`_CancelRaceFilter`."""
+    log = logging.getLogger("tornado.application")
+    flt = _CancelRaceFilter()
+    log.addFilter(flt)
+    try:
+        yield
+    finally:
+        log.removeFilter(flt)
+
+
 @contextlib.contextmanager
 def series_client(client=None, *, workers: int | None = None, scheduler: str | None = None):
+    """A ``distributed.Client`` for a series (see :func:`_series_client`), with the cancel race kept out of the log."""
+    with _quiet_cancel_race(), _series_client(client, workers=workers, scheduler=scheduler) as c:
+        yield c
+
+
+@contextlib.contextmanager
+def _series_client(client=None, *, workers: int | None = None, scheduler: str | None = None):
     """A ``distributed.Client`` for a series: the one given, one at a scheduler address, or a new LocalCluster.
 
     Parameters
