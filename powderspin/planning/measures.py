@@ -9,7 +9,7 @@ import math
 
 import numpy as np
 
-from ..engine.lineshape import Axis
+from ..engine.lineshape import Axis, voigt_fwhm  # noqa: F401  (re-exported: the planner's width measure)
 from ..model.schema import PLAN_DEFAULT_MIN_RATE_HZ, PLAN_DEFAULT_RATE_COUNT
 from .rotors import PlanError
 
@@ -100,30 +100,6 @@ def _cross(c, edges, level, first: bool) -> float:
     c0, c1 = c[k - 1], c[k]
     t = 0.0 if c1 == c0 else (level - c0) / (c1 - c0)
     return float(edges[k - 1] + t * (edges[k] - edges[k - 1]))
-
-
-def voigt_fwhm(lorentz_hz: float, gauss_hz: float) -> float:
-    """FWHM (Hz) of a Voigt profile, to about 0.02 %.
-
-    Parameters
-    ----------
-    lorentz_hz, gauss_hz : float
-        FWHM of the Lorentzian and Gaussian parts (Hz).
-
-    Returns
-    -------
-    float
-
-    References
-    ----------
-    J. J. Olivero, R. L. Longbothum, J. Quant. Spectrosc. Radiat. Transfer 17 (1977) 233.
-
-    Examples
-    --------
-    >>> round(voigt_fwhm(100.0, 0.0), 3), voigt_fwhm(0.0, 50.0)
-    (100.0, 50.0)
-    """
-    return 0.5346 * lorentz_hz + math.sqrt(0.2166 * lorentz_hz ** 2 + gauss_hz ** 2)
 
 
 def resolution_overlap(a, b) -> float:
