@@ -52,8 +52,8 @@ from ..model.values import ModelError
 from ..physics.multiple_quantum import TwoDimensionalScale
 from . import _kernels as _k
 from .frequencies import checked_directions, exact_pair_offsets, perturbative_pair_offsets
-from .pulses import MultipleQuantumPulses, site_mq_efficiency
 from .lineshape import Axis, broaden
+from .pulses import MultipleQuantumPulses, site_mq_efficiency
 from .site_lines import (
     BIN_CUTOFF,
     INFINITE_RATE_PHASES,
