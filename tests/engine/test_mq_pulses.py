@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 import pytest
 
@@ -11,7 +9,6 @@ from powderspin.engine import pulses as P
 from powderspin.engine.frequencies import site_frame
 from powderspin.model.values import Site
 from powderspin.physics.nuclides import get_nuclide
-from powderspin.physics.orientations import select_orientations
 from powderspin.physics.tensors import ShiftTensor
 from tests.reference import pulses_expm as ref
 
