@@ -59,9 +59,9 @@ from .engine.site_lines import (
 from .engine.spectrum import Spectrum
 from .engine.spectrum2d import Spectrum2D
 from .engine.threads import kernel_threads
-from .engine.two_dimensional import compute_f1_lines, free_t1_bands, render_two_dimensional
+from .engine.two_dimensional import compute_f1_lines, free_t1_bands, mq_excitation, mq_pulses, render_two_dimensional
 from .model.modelfile import load_model
-from .model.values import Model, ModelError, ParameterAddress, selected_transitions
+from .model.values import IDEAL_MQ_PULSES, Model, ModelError, ParameterAddress, selected_transitions
 from .physics.multiple_quantum import isotropic_shifts_ppm, two_dimensional_scale
 from .physics.orientations import OrientationSet, orientation_set_by_name
 from .progress import emit
@@ -498,17 +498,22 @@ class Simulator:
         site = model.sites[k]
         job = site_job(site, self._job_meas[k], model.nucleus, self._methods[k], self._sets[k])
         lines = self._inner._lines(job, k, site.label)
-        return lines, self._f1_of(lines, model.measurements[self.index])
+        return lines, self._f1_of(lines, model.measurements[self.index], site.shift.iso_ppm, model.nucleus)
 
-    def _f1_of(self, lines, meas):
-        """F1 lines of a site's CT lines (memoised), with the F1 band pairs when t1 is not synchronised."""
+    def _f1_of(self, lines, meas, shift_ppm: float = 0.0, nucleus=None):
+        """F1 lines of a site's CT lines (memoised), with the F1 band pairs when t1 is not synchronised and the
+        per-orientation efficiency of finite MQMAS pulses (``mq_pulses``)."""
         free = meas.t1_mode == "free" and meas.spinning_hz > 0 and math.isfinite(meas.spinning_hz)
-        key = ("f1", lines.job, self._two_d, free)
+        pulses = mq_pulses(meas, nucleus or self.model.nucleus, self._two_d, shift_ppm, lines.job.iso_ppm)
+        key = ("f1", lines.job, self._two_d, free, pulses)
         f1 = self.cache.lines.get(key)
         if f1 is None:
-            f1 = compute_f1_lines(lines, self._two_d)
-            if free:
-                f1 = free_t1_bands(lines, f1)
+            base = self.cache.lines.get(("f1", lines.job, self._two_d, free, None)) if pulses is not None else None
+            if base is None:
+                base = compute_f1_lines(lines, self._two_d)
+                if free:
+                    base = free_t1_bands(lines, base)
+            f1 = mq_excitation(lines, base, pulses) if pulses is not None else base
             self.cache.lines[key] = f1
         return f1
 
@@ -545,7 +550,7 @@ class Simulator:
                 if lines is None:
                     lines = compute_lines(job)
                     self.cache.lines[job] = lines
-                f1 = self._f1_of(lines, meas)
+                f1 = self._f1_of(lines, meas, site.shift.iso_ppm, nuc)
                 parts.append((lines, f1, base - lines.job.iso_ppm * f, w_e))
         return parts
 
@@ -624,7 +629,7 @@ class Simulator:
             "centres_of_gravity_ppm": cogs,
             "centres_of_gravity_note": ("second-order theory at the magic angle and infinite rate "
                                         "(powderspin.physics.multiple_quantum)"),
-            "excitation": "ideal: each site's 2D integral equals its weight",
+            "excitation": _excitation_record_2d(model, meas, scale, parts),
             "spinning_hz": "inf" if meas.is_infinite_rate else meas.spinning_hz,
             "rotor_angle_deg": meas.rotor_angle_deg,
             "t1_mode": meas.t1_mode,
@@ -642,7 +647,8 @@ class Simulator:
             "shift_offset_ppm": meas.shift_offset_ppm,
             "points": [self.f1_axis.points, self.axis.points],
             "sites": {s.label: _site_record(s) for s in model.sites},
-            "intensity_units": "density per ppm^2; each site integrates to its weight",
+            "intensity_units": ("density per ppm^2; each site integrates to its weight"
+                                + (" times its excited fraction" if meas.mq_pulses != "ideal" else "")),
             "notes": notes,
         }
         if meas.experiment == "mqmas":
@@ -1204,9 +1210,28 @@ class Simulator:
         return np.array(out)
 
 
+def _excitation_record_2d(model: Model, meas, scale, parts):
+    """The 2D spectrum's excitation metadata: the words for ideal excitation, or the modelled pulses."""
+    if meas.mq_pulses == "ideal":
+        return "ideal: each site's 2D integral equals its weight"
+    pulses = mq_pulses(meas, model.nucleus, scale)
+    rec = {"model": ("modelled: finite pulses propagated per crystallite under first-order quadrupolar + "
+                     "second-order + shift level energies and the RF (static during each pulse, averaged over the "
+                     "rotor phase at which the pulses arrive); each site's 2D integral is its weight times its "
+                     "excited fraction"),
+           **pulses.describe(),
+           "carrier_ppm": meas.carrier_ppm if meas.carrier_ppm is not None else "on resonance with each site",
+           "efficiency_reference": ("the central-transition signal of a hard 90 degree pulse; each pathway in "
+                                    "the receiver phase of its hard-pulse limit"),
+           "excited_fraction": {s.label: r.excited_fraction for s, (r, _, _) in zip(model.sites, parts)}}
+    if meas.t1_mode == "free" and not meas.is_infinite_rate:
+        rec["note"] = "the conversion pulse is taken at the excitation pulse's rotor phase (exact for synchronised t1)"
+    return rec
+
+
 def _central_transition_twin(model: Model, index: int) -> Model:
     """The model with measurement ``index`` made a 1D central-transition spectrum (the F2 dimension of a 2D one)."""
-    return model.with_measurement(index, experiment="1d")
+    return model.with_measurement(index, experiment="1d", **IDEAL_MQ_PULSES)
 
 
 def estimate_spans_hz(model, measurement: int = 0) -> list[tuple[float, float]]:

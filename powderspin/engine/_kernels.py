@@ -1470,7 +1470,7 @@ def _bin_tent_2d(mean, amp, weights, f1, w1, tris, tri_w, rate_hz, x0, dx, nb, y
                 for s in range(p):
                     w = (amp[a, s] * weights[a] + amp[b, s] * weights[b] + amp[d, s] * weights[d]) * (
                         tri_w[q] / 3.0) * w1[t]
-                    if w <= cutoff:
+                    if abs(w) <= cutoff:  # finite-pulse efficiencies may be negative
                         continue
                     n = s if s < (p + 1) // 2 else s - p
                     sh = n * step_pts if p > 1 else 0.0

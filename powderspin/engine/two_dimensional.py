@@ -53,6 +53,7 @@ from ..physics.multiple_quantum import TwoDimensionalScale
 from . import _kernels as _k
 from .frequencies import checked_directions, exact_pair_offsets, perturbative_pair_offsets
 from .lineshape import Axis, broaden
+from .pulses import MultipleQuantumPulses, site_mq_efficiency
 from .site_lines import (
     BIN_CUTOFF,
     INFINITE_RATE_PHASES,
@@ -65,7 +66,8 @@ from .spinning import choose_rotor_phases
 from .threads import kernel_threads
 
 __all__ = ["F1Lines", "t1_offsets", "compute_f1_lines", "bin_two_dimensional", "render_two_dimensional",
-           "RenderedSite2D", "diagonal_gaussian", "band_amplitudes", "band_pair_weights", "free_t1_bands"]
+           "RenderedSite2D", "diagonal_gaussian", "band_amplitudes", "band_pair_weights", "free_t1_bands",
+           "mq_pulses", "mq_excitation", "excited_fraction"]
 
 #: orientations per chunk when computing F1 lines (Ctrl-C responds between chunks)
 _F1_CHUNK = 4096
@@ -145,6 +147,11 @@ class F1Lines:
         (:func:`band_pair_weights`); None: F1 sidebands folded onto the centre band.
     band_f2_hz, band_f1_hz : ndarray (Q,) or None
         The pairs' offsets from the centre band: n2 nu_r in F2 and n1 nu_r / (p - R) in sheared F1.
+    pulses : MultipleQuantumPulses or None
+        Finite MQMAS pulses (None: ideal excitation).
+    excitation : ndarray (n_v,) or None
+        Per-orientation efficiency of the pathway with those pulses (:func:`mq_excitation`), weighting each
+        orientation when binning; None: ideal (1 everywhere).
     """
 
     scale: TwoDimensionalScale
@@ -153,6 +160,8 @@ class F1Lines:
     band_weights: np.ndarray | None = None
     band_f2_hz: np.ndarray | None = None
     band_f1_hz: np.ndarray | None = None
+    pulses: MultipleQuantumPulses | None = None
+    excitation: np.ndarray | None = None
 
 
 def compute_f1_lines(ct_lines: SiteLines, scale: TwoDimensionalScale) -> F1Lines:
@@ -372,8 +381,8 @@ def bin_two_dimensional(f2_axis: Axis, f1_axis: Axis, ct: SiteLines, f1: F1Lines
     excitation : ndarray (n_v,), optional
         Per-crystallite efficiency of the whole coherence-transfer pathway
         (excitation times conversion), multiplying each orientation's weight;
-        None is ideal excitation (1 everywhere).  This is where a finite-pulse
-        propagator's result enters; none is computed here.
+        None: the F1 lines' own (``f1.excitation``, :func:`mq_excitation`), or ideal
+        excitation (1 everywhere) when they have none.
 
     Returns
     -------
@@ -405,6 +414,8 @@ def bin_two_dimensional(f2_axis: Axis, f1_axis: Axis, ct: SiteLines, f1: F1Lines
 def _bin(f2_axis, f1_axis, ct, f1, cutoff, nchunk, rate, excitation):
     oset = ct.orientations
     weights = np.ascontiguousarray(ct.weights[:, 0])
+    if excitation is None:
+        excitation = f1.excitation
     if excitation is not None:
         eff = np.asarray(excitation, dtype=float)
         if eff.shape != weights.shape or not np.all(np.isfinite(eff)):
@@ -492,10 +503,14 @@ class RenderedSite2D:
         Density per ppm^2; integrates to the site's weight (less what lies off the axes).
     lost_fraction : float
         Fraction of the site's intensity off the axes.
+    excited_fraction : float
+        The site's powder-averaged MQMAS efficiency (1 for ideal excitation): it integrates to its weight
+        times this.
     """
 
     intensity: np.ndarray
     lost_fraction: float
+    excited_fraction: float = 1.0
 
 
 def render_two_dimensional(ct: SiteLines | None, f1: F1Lines | None, f2_axis: Axis, f1_axis: Axis, *,
@@ -551,9 +566,10 @@ def render_two_dimensional(ct: SiteLines | None, f1: F1Lines | None, f2_axis: Ax
     1.0
     """
     if parts is None:
+        full = excited_fraction(ct, f1)
         s2 = replace(f2_axis, center_hz=f2_axis.center_hz - float(shift_hz))
         s1 = replace(f1_axis, center_hz=f1_axis.center_hz - float(shift_hz))
-        key = ("binned2d", ct.job, f1.scale, f1.band_weights is not None, s2, s1)
+        key = ("binned2d", ct.job, f1.scale, f1.band_weights is not None, f1.pulses, s2, s1)
         frac = memo.get(key) if memo is not None else None
         if frac is None:
             frac = bin_two_dimensional(s2, s1, ct, f1)
@@ -562,6 +578,7 @@ def render_two_dimensional(ct: SiteLines | None, f1: F1Lines | None, f2_axis: Ax
                 memo[key] = frac
     else:
         frac = np.zeros((f1_axis.points, f2_axis.points))
+        full = sum(float(w_k) * excited_fraction(ct_k, f1_k) for ct_k, f1_k, _, w_k in parts)
         with kernel_threads(1):  # many small calls: starting parallel work would cost more than it saves
             for ct_k, f1_k, sh_k, w_k in parts:
                 s2 = replace(f2_axis, center_hz=f2_axis.center_hz - float(sh_k))
@@ -589,4 +606,104 @@ def render_two_dimensional(ct: SiteLines | None, f1: F1Lines | None, f2_axis: Ax
     else:
         y[rows] = sub
     kept = float(y.sum() * f1_axis.dx_ppm * f2_axis.dx_ppm / weight) if weight > 0 else inside
-    return RenderedSite2D(y, max(0.0, 1.0 - min(inside, kept)))
+    if full == 0.0:
+        return RenderedSite2D(y, 0.0, 0.0)
+    return RenderedSite2D(y, max(0.0, 1.0 - min(inside / full, kept / full)), full)
+
+
+def excited_fraction(ct: SiteLines, f1: F1Lines) -> float:
+    """The share of a site's ideal 2D integral that its MQMAS efficiency leaves (1 for ideal excitation).
+
+    The average of ``f1.excitation`` with the weights the binning gives each orientation: a third of each
+    triangle's solid angle per vertex, times the vertex's CT weight and its sideband intensities.
+
+    Parameters
+    ----------
+    ct : SiteLines
+    f1 : F1Lines
+
+    Returns
+    -------
+    float
+    """
+    if f1 is None or f1.excitation is None:
+        return 1.0
+    oset = ct.orientations
+    share = np.zeros(oset.size)
+    np.add.at(share, np.asarray(oset.triangles).ravel(), np.repeat(np.asarray(oset.triangle_weights) / 3.0, 3))
+    w = share * ct.weights[:, 0] * (ct.intensity[:, 0, :].sum(axis=1) if ct.intensity is not None else 1.0)
+    total = float(w.sum())
+    return float(np.dot(w, f1.excitation) / total) if total > 0 else 1.0
+
+
+def mq_pulses(meas, nucleus, scale: TwoDimensionalScale, shift_ppm: float = 0.0,
+              job_iso_ppm: float = 0.0) -> MultipleQuantumPulses | None:
+    """A measurement's finite MQMAS pulses for one site (None for ``mq_pulses = "ideal"``).
+
+    Parameters
+    ----------
+    meas : Measurement
+    nucleus : Nuclide
+    scale : TwoDimensionalScale
+        Gives the order p and, from the sign of R, the echo pathway.
+    shift_ppm : float, optional
+        The site's isotropic shift (the carrier, ``carrier_ppm``, is on resonance with it when absent).
+    job_iso_ppm : float, optional
+        Isotropic shift carried by the site's job (0 for the perturbative route).
+
+    Returns
+    -------
+    MultipleQuantumPulses or None
+
+    Examples
+    --------
+    >>> from powderspin.model.values import Measurement
+    >>> from powderspin.physics.multiple_quantum import two_dimensional_scale
+    >>> from powderspin.physics.nuclides import get_nuclide
+    >>> m = Measurement(14.1, spinning_hz="inf", experiment="mqmas", mq_pulses="two-pulse", mq_rf_khz=100.0,
+    ...                 mq_excite_us=3.5, mq_convert_us=1.2)
+    >>> mq_pulses(m, get_nuclide("27Al"), two_dimensional_scale(2.5, "mqmas", 3)).echo_order   # R = 19/12 > 0
+    3
+    """
+    if getattr(meas, "mq_pulses", "ideal") == "ideal" or scale.experiment != "mqmas":
+        return None
+    p = int(scale.order)
+    f = nucleus.larmor_hz(meas.field_tesla) * 1e-6
+    carrier = meas.carrier_ppm if meas.carrier_ppm is not None else shift_ppm
+    offset = (carrier - shift_ppm + job_iso_ppm) * f
+    sel_nu1 = sel_t = None
+    if meas.mq_pulses == "z-filter":
+        sel_nu1 = meas.zfilter_rf_khz * 1e3
+        sel_t = (meas.zfilter_pulse_us * 1e-6 if meas.zfilter_pulse_us is not None
+                 else 1.0 / (4.0 * (nucleus.spin + 0.5) * sel_nu1))
+    return MultipleQuantumPulses(meas.mq_pulses, p, p if scale.ratio > 0 else -p, meas.mq_pathway,
+                                 meas.mq_rf_khz * 1e3, meas.mq_excite_us * 1e-6, meas.mq_convert_us * 1e-6,
+                                 sel_nu1, sel_t, 0.0 if offset == 0 else offset)
+
+
+def mq_excitation(ct_lines: SiteLines, f1: F1Lines, pulses: MultipleQuantumPulses | None) -> F1Lines:
+    """The F1 lines with each orientation's MQMAS efficiency for the given pulses (unchanged for None).
+
+    Parameters
+    ----------
+    ct_lines : SiteLines
+        The site's CT lines (their job gives the site, producer, orientations and rotor angle).
+    f1 : F1Lines
+    pulses : MultipleQuantumPulses or None
+
+    Returns
+    -------
+    F1Lines
+
+    References
+    ----------
+    L. Frydman, J. S. Harwood, J. Am. Chem. Soc. 117 (1995) 5367; J.-P. Amoureux, C. Fernandez, S. Steuernagel,
+    J. Magn. Reson. A 123 (1996) 116 (from memory).
+    """
+    if pulses is None:
+        return replace(f1, pulses=None, excitation=None)
+    job = ct_lines.job
+    eff = site_mq_efficiency(job.frame(), ct_lines.orientations.vectors, pulses, method=job.method,
+                             rotor_angle_rad=math.radians(job.rotor_angle_deg), spinning=job.spinning_hz > 0)
+    eff.flags.writeable = False
+    return replace(f1, pulses=pulses, excitation=eff)

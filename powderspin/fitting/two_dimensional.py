@@ -17,10 +17,11 @@ differently from the F2 centre of gravity, so C_Q and delta_iso of each site
 are fixed together (F1 and F2 centres of
 :mod:`powderspin.physics.multiple_quantum`).
 
-Excitation is ideal (each site's 2D integral is its weight).  Measured MQMAS
+Excitation is ideal (each site's 2D integral is its weight) unless the
+measurement models its MQMAS pulses (``mq_pulses``).  Measured MQMAS
 intensities are not quantitative (the multiple-quantum excitation and
 conversion depend on C_Q and the RF field), so free weights in a fit to 2D
-data give a warning.
+data with ideal excitation give a warning.
 """
 
 from __future__ import annotations
@@ -200,11 +201,11 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
         ys.append(y)
         masks.append(np.ones(y.shape, dtype=bool))
         sigmas.append(sig)
-    if any(m.is_two_dimensional for m in model.measurements) and any(
+    if any(m.is_two_dimensional and m.mq_pulses == "ideal" for m in model.measurements) and any(
             p.address.table == "site" and p.address.key == "weight" for p in params):
         warnings.append("site weights fitted to MQMAS/STMAS data: the simulation assumes ideal excitation, but "
                         "measured multiple-quantum intensities depend on C_Q and the RF field; the populations are "
-                        "not quantitative unless the excitation is modelled (fit them to a 1D spectrum instead)")
+                        "not quantitative unless the excitation is modelled (mq_pulses) (or fit them to a 1D spectrum)")
     problem = FitProblem(model, params, axes, ys, masks, sigmas, None, None)
     x0 = np.clip([p.start for p in params], problem.lo, problem.hi)
     sol = least_squares(problem.residual, x0, jac=problem.jacobian, bounds=(problem.lo, problem.hi),

@@ -227,6 +227,32 @@ KEYS: tuple[KeySpec, ...] = (
     KeySpec("measurement", "t1_mode", "choice", "", "synchronised", choices=("synchronised", "free"),
             doc="t1 increments: \"synchronised\" with the rotor period (F1 sidebands fold onto the centre band) "
                 "or \"free\" (F1 sidebands n nu_r / (p - R) apart)"),
+    # ---- measurement: finite-pulse MQMAS excitation (powderspin.engine.pulses.MultipleQuantumPulses)
+    KeySpec("measurement", "mq_pulses", "choice", "", "ideal", choices=("ideal", "two-pulse", "z-filter"),
+            doc="MQMAS excitation: \"ideal\" (each site's 2D integral is its weight), \"two-pulse\" "
+                "(excitation, t1, conversion) or \"z-filter\" (excitation, t1, conversion, selective CT pulse), "
+                "propagated per crystallite with mq_rf_khz, mq_excite_us and mq_convert_us"),
+    KeySpec("measurement", "mq_rf_khz", "number", "kHz", None, 0.0, 1000.0, low_open=True,
+            doc="RF field nu1 of the MQMAS excitation and conversion pulses",
+            why="solid-state probes reach RF fields of a few hundred kHz (common practice); 1 MHz bounds typos"),
+    KeySpec("measurement", "mq_excite_us", "number", "us", None, 0.0, 1000.0, low_open=True,
+            doc="length of the MQMAS excitation pulse (0 -> +-p)",
+            why="MQ excitation pulses last about 1 to 10 microseconds (common practice); beyond 1 ms relaxation "
+                "during the pulse matters"),
+    KeySpec("measurement", "mq_convert_us", "number", "us", None, 0.0, 1000.0, low_open=True,
+            doc="length of the MQMAS conversion pulse (+-p -> -1, or +-p -> 0 before a z-filter)",
+            why="MQ conversion pulses last about 0.5 to 5 microseconds (common practice); beyond 1 ms relaxation "
+                "during the pulse matters"),
+    KeySpec("measurement", "mq_pathway", "choice", "", "echo", choices=("echo", "antiecho", "both"),
+            doc="MQMAS coherence pathway 0 -> +-p -> -1 acquired: \"echo\" (the t1 order refocused at t2 = |R| t1: "
+                "-p for R < 0, +p for R > 0), \"antiecho\", or \"both\" (their mean, each in its receiver phase)"),
+    KeySpec("measurement", "zfilter_rf_khz", "number", "kHz", None, 0.0, 1000.0, low_open=True,
+            doc="RF field nu1 of the z-filter's central-transition-selective pulse (mq_pulses = \"z-filter\")",
+            why="selective pulses use a few to a few tens of kHz (common practice); 1 MHz bounds typos"),
+    KeySpec("measurement", "zfilter_pulse_us", "number", "us", None, 0.0, 1.0e4, low_open=True,
+            doc="length of the z-filter's selective pulse; absent: the selective 90 degree pulse "
+                "1 / (4 (I + 1/2) nu1)",
+            why="selective pulses last up to a few hundred microseconds (common practice); 10 ms bounds typos"),
     KeySpec("measurement", "stderr", "table", "", None,
             doc="standard errors of this measurement's fitted values (written by a fit; not used)"),
     KeySpec("measurement", "interval", "table", "", None,

@@ -700,6 +700,16 @@ class Measurement:
         Decay time constant of the echo tops (ms); None: no decay.
     echo_train_output : str
         ``"spikelets"`` (the comb) or ``"envelope"`` (the curve through the spikelet tops).
+    mq_pulses : str
+        MQMAS excitation: ``"ideal"`` (default), ``"two-pulse"`` or ``"z-filter"``
+        (:class:`powderspin.engine.pulses.MultipleQuantumPulses`).
+    mq_rf_khz, mq_excite_us, mq_convert_us : float or None
+        RF field (kHz) and lengths (us) of the MQMAS excitation and conversion pulses.
+    mq_pathway : str
+        ``"echo"``, ``"antiecho"`` or ``"both"``.
+    zfilter_rf_khz, zfilter_pulse_us : float or None
+        RF field (kHz) and length (us) of the z-filter's selective pulse (length: the selective 90 degree
+        pulse when None).
 
     References
     ----------
@@ -748,6 +758,13 @@ class Measurement:
     f1_gauss_hz: float = 0.0
     t1_mode: str = "synchronised"
     f1_referencing: str | None = None
+    mq_pulses: str = "ideal"
+    mq_rf_khz: float | None = None
+    mq_excite_us: float | None = None
+    mq_convert_us: float | None = None
+    mq_pathway: str = "echo"
+    zfilter_rf_khz: float | None = None
+    zfilter_pulse_us: float | None = None
 
     def __post_init__(self):
         w = "measurement"
@@ -833,6 +850,7 @@ class Measurement:
                 object.__setattr__(self, key, check_number(w, key, getattr(self, key), w))
         for key in ("f1_lorentz_hz", "f1_gauss_hz"):
             object.__setattr__(self, key, check_number(w, key, getattr(self, key), w))
+        self._check_mq_pulses()
         if self.experiment == "1d":
             return
         if self.spinning_hz == 0.0:
@@ -845,6 +863,41 @@ class Measurement:
         if self.binning != "interpolate":
             raise ModelError(f"measurement: binning = {self.binning!r} is not available for experiment = "
                              f"{self.experiment!r}; the allowed value is \"interpolate\"")
+
+    def _check_mq_pulses(self) -> None:
+        """The finite-pulse MQMAS keys: all or none, and only for experiment = "mqmas"."""
+        w = "measurement"
+        for key in ("mq_pulses", "mq_pathway"):
+            choices = key_spec(w, key).choices
+            if getattr(self, key) not in choices:
+                raise ModelError(f"measurement: {key} = {getattr(self, key)!r} is not one of "
+                                 + ", ".join(repr(c) for c in choices))
+        if self.experiment != "1d" and self.pulse_sequence != "ideal":
+            raise ModelError(f"measurement: pulse_sequence = {self.pulse_sequence!r} is for 1D spectra; the pulses of "
+                             "an MQMAS experiment are mq_pulses, mq_rf_khz, mq_excite_us and mq_convert_us")
+        numbers = ("mq_rf_khz", "mq_excite_us", "mq_convert_us", "zfilter_rf_khz", "zfilter_pulse_us")
+        for key in numbers:
+            if getattr(self, key) is not None:
+                object.__setattr__(self, key, check_number(w, key, getattr(self, key), w))
+        given = [k for k in numbers if getattr(self, k) is not None]
+        if self.mq_pulses == "ideal":
+            if given:
+                raise ModelError(f"measurement: {', '.join(given)} given with mq_pulses = \"ideal\"; set mq_pulses = "
+                                 "\"two-pulse\" or \"z-filter\" to model the MQMAS pulses, or remove them")
+            return
+        if self.experiment != "mqmas":
+            raise ModelError(f"measurement: mq_pulses = {self.mq_pulses!r} is for experiment = \"mqmas\" (this one is "
+                             f"{self.experiment!r}); finite-pulse excitation is not modelled for other experiments")
+        missing = [k for k in ("mq_rf_khz", "mq_excite_us", "mq_convert_us") if getattr(self, k) is None]
+        if self.mq_pulses == "z-filter" and self.zfilter_rf_khz is None:
+            missing.append("zfilter_rf_khz")
+        if missing:
+            raise ModelError(f"measurement: mq_pulses = {self.mq_pulses!r} needs {', '.join(missing)} (RF fields in "
+                             "kHz, pulse lengths in microseconds)")
+        extra = [k for k in ("zfilter_rf_khz", "zfilter_pulse_us") if getattr(self, k) is not None]
+        if self.mq_pulses == "two-pulse" and extra:
+            raise ModelError(f"measurement: {', '.join(extra)} is for mq_pulses = \"z-filter\"; a two-pulse sequence "
+                             "has no selective pulse")
 
     @property
     def is_two_dimensional(self) -> bool:
@@ -898,6 +951,10 @@ class Measurement:
         """
         return math.isinf(self.spinning_hz)
 
+
+#: the finite-pulse MQMAS keys at "ideal": with ``experiment="1d"``, what makes a 2D measurement its 1D twin
+IDEAL_MQ_PULSES = {"mq_pulses": "ideal", "mq_rf_khz": None, "mq_excite_us": None, "mq_convert_us": None,
+                   "zfilter_rf_khz": None, "zfilter_pulse_us": None}
 
 #: most coefficients a baseline may have (order 5, as ``[fit] baseline_order``)
 MAX_BASELINE_COEFFICIENTS = 6

@@ -168,7 +168,7 @@ from ..model.schema import (
     PLAN_DEFAULT_THRESHOLD,
     key_spec,
 )
-from ..model.values import Measurement, Model, ModelError, check_number
+from ..model.values import IDEAL_MQ_PULSES, Measurement, Model, ModelError, check_number
 from ..progress import emit
 from ..simulator import SimulationCache, Simulator, as_model, estimate_spans_hz
 from ..uncertainty import covariance_from_fisher
@@ -221,7 +221,7 @@ def _as_model(model) -> Model:
     # powderspin.planning.two_dimensional plans the F1 resolution
     for j, m in enumerate(model.measurements):
         if m.is_two_dimensional:
-            model = model.with_measurement(j, experiment="1d")
+            model = model.with_measurement(j, experiment="1d", **IDEAL_MQ_PULSES)
     return model
 
 

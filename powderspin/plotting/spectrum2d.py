@@ -156,6 +156,10 @@ def plot_spectrum_2d(spectrum, fig: Figure | None = None, *, levels: int = 14, l
     rate = meta.get("spinning_hz")
     if rate is not None:
         title.append("infinite rate" if rate == "inf" else f"{float(rate) / 1e3:g} kHz MAS")
+    exc = meta.get("excitation")
+    if exc is not None:
+        title.append("excitation: modelled (" + str(exc.get("sequence", "pulses")) + ")" if isinstance(exc, dict)
+                     else "excitation: ideal")
     top.set_title(", ".join(t for t in title if t), fontsize=10)
     return fig
 

@@ -27,7 +27,7 @@ def bin_triangles_2d(mean, amp, weights, f1, w1, tris, tri_w, rate_hz, f2_points
             row = hat_weights(np.mean([f1[v, t] for v in tri]), f1_points)
             for s in range(p):
                 w = tri_w[q] * np.mean([amp[v, s] * weights[v] for v in tri]) * w1[t]
-                if w <= cutoff:
+                if abs(w) <= cutoff:
                     continue
                 col = triangle_weights_clipped([mean[v] + offs[s] for v in tri], f2_points)
                 out += w * np.outer(row, col)

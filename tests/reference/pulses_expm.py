@@ -21,7 +21,7 @@ from scipy.linalg import expm
 from .exact_numpy import spin_matrices, to_lab
 from .perturbative_numpy import lab_efg_spherical, level_energy_first, level_energy_second
 
-__all__ = ["hamiltonian_levels", "propagator", "density_after", "transition_signals"]
+__all__ = ["hamiltonian_levels", "propagator", "density_after", "transition_signals", "mq_pathway_signals"]
 
 
 def hamiltonian_levels(spin, nu0_hz, cq_hz, eta_q, shift_tensor_ppm, b, carrier_hz=0.0, second_order=True):
@@ -80,4 +80,44 @@ def transition_signals(levels, kind, nu1_hz, lengths_s, phases_deg, m_upper):
         u2 = propagator(levels, nu1_hz, lengths_s[1], phases_deg[1])
         rho2 = u2 @ keep @ u2.conj().T
         out.append(c * rho2[lower, upper])  # the -1 coherence |m-1><m| of the same transition
+    return np.array(out)
+
+
+def _keep_order(rho, spin, order):
+    """rho with only the elements of coherence order ``order`` (m_a - m_b) kept (ideal phase cycling)."""
+    ms = [spin - i for i in range(len(rho))]
+    out = np.zeros_like(rho)
+    for a, ma in enumerate(ms):
+        for b, mb in enumerate(ms):
+            if abs((ma - mb) - order) < 1e-9:
+                out[a, b] = rho[a, b]
+    return out
+
+
+def mq_pathway_signals(levels, kind, nu1_hz, excite_s, convert_s, order, selective=None):
+    """CT signal c <-1/2|rho|1/2> of the pathways with t1 order +order and -order (MQMAS).
+
+    The symmetric element |m><-m| (or |-m><m|), m = order / 2, is kept after the excitation pulse (a projector
+    written out), everything of order -1 (two-pulse) or 0 (z-filter) after the conversion pulse, and for the
+    z-filter order -1 after the selective pulse ``selective = (nu1_hz, length_s)``; all pulses along x.
+    """
+    spin = (len(levels) - 1) / 2
+    _, _, _, iplus = spin_matrices(spin)
+    d = len(levels)
+    rho1 = density_after(levels, [(nu1_hz, excite_s, 0.0)])
+    m = order / 2
+    hi, lo = int(round(spin - m)), int(round(spin + m))
+    ct_lo, ct_hi = int(round(spin + 0.5)), int(round(spin - 0.5))
+    u2 = propagator(levels, nu1_hz, convert_s, 0.0)
+    out = []
+    for a, b in ((hi, lo), (lo, hi)):
+        keep = np.zeros((d, d), dtype=complex)
+        keep[a, b] = rho1[a, b]
+        rho2 = u2 @ keep @ u2.conj().T
+        if kind == "two-pulse":
+            rho = _keep_order(rho2, spin, -1)
+        else:
+            u3 = propagator(levels, selective[0], selective[1], 0.0)
+            rho = _keep_order(u3 @ _keep_order(rho2, spin, 0) @ u3.conj().T, spin, -1)
+        out.append(iplus[ct_hi, ct_lo] * rho[ct_lo, ct_hi])
     return np.array(out)
