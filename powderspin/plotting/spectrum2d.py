@@ -23,15 +23,22 @@ from ..files import check_outputs, write_via
 __all__ = ["plot_spectrum_2d", "save_plot_2d", "plot_fit_2d", "save_fit_report_2d"]
 
 
-def _k_f1(spectrum) -> float | None:
+def _fraction(text) -> float | None:
+    try:
+        return float(Fraction(str(text)))
+    except (ValueError, ZeroDivisionError):
+        return None
+
+
+def _f1_factors(spectrum) -> tuple[float, float | None]:
+    """(c, k_F1): the F1 scale's factor on the isotropic scale and the F1 quadrupolar-induced-shift factor."""
     conv = spectrum.metadata.get("f1_convention") or {}
+    c = _fraction(conv.get("f1_scale_factor", "1")) or 1.0
+    k = _fraction(conv["f1_qis_factor"]) if "f1_qis_factor" in conv else None
     text = conv.get("f1_centre_of_gravity", "")
-    if "(" in text and ")" in text:
-        try:
-            return float(Fraction(text[text.index("(") + 1:text.index(")")]))
-        except ValueError:
-            return None
-    return None
+    if k is None and "(" in text and ")" in text and "[" not in text:
+        k = _fraction(text[text.index("(") + 1:text.index(")")])
+    return c, k
 
 
 def _signal_range(ppm: np.ndarray, profile: np.ndarray, fraction: float) -> tuple[float, float]:
@@ -119,8 +126,8 @@ def plot_spectrum_2d(spectrum, fig: Figure | None = None, *, levels: int = 14, l
     if show_axes:
         lo = min(x.min(), y.min())
         hi = max(x.max(), y.max())
-        ax.plot([lo, hi], [lo, hi], color="0.4", lw=0.8, ls="--", label="CS axis")
-        k_f1 = _k_f1(spectrum)
+        c_f1, k_f1 = _f1_factors(spectrum)
+        ax.plot([lo, hi], [c_f1 * lo, c_f1 * hi], color="0.4", lw=0.8, ls="--", label="CS axis")
         sites = spectrum.metadata.get("sites", {})
         if k_f1 is not None:
             first = True
@@ -130,7 +137,7 @@ def plot_spectrum_2d(spectrum, fig: Figure | None = None, *, levels: int = 14, l
                     continue
                 iso = float(iso) + float(spectrum.metadata.get("shift_offset_ppm", 0.0))
                 d = np.array([x.min() - iso, x.max() - iso])
-                ax.plot(iso + d, iso + k_f1 * d, color=colours[k], lw=0.8, ls=":",
+                ax.plot(iso + d, c_f1 * (iso + k_f1 * d), color=colours[k], lw=0.8, ls=":",
                         label="QIS axis" if first else None)
                 first = False
         ax.legend(frameon=False, fontsize=8, loc="lower right")
@@ -145,7 +152,10 @@ def plot_spectrum_2d(spectrum, fig: Figure | None = None, *, levels: int = 14, l
     ax.set_ylim(y1, y0)  # and upwards
     nuc = spectrum.metadata.get("nucleus", "")
     ax.set_xlabel(f"F2 {nuc} shift / ppm".replace("  ", " "))
-    ax.set_ylabel(f"F1 {nuc} isotropic shift / ppm (sheared)".replace("  ", " "))
+    scale_name = (meta_conv := spectrum.metadata.get("f1_convention") or {}).get("f1_scale", "isotropic")
+    ylabel = (f"F1 {nuc} isotropic shift / ppm (sheared)" if scale_name == "isotropic" else
+              f"F1 {nuc} / ppm (sheared, {scale_name} scale x {meta_conv.get('f1_scale_factor', '?')})")
+    ax.set_ylabel(ylabel.replace("  ", " "))
     top.axis("off")
     right.axis("off")
     meta = spectrum.metadata
