@@ -466,8 +466,8 @@ def read_spectrum_2d(path, *, f1_referencing, nu_ref_hz: float | None = None,
         name = conv.get("f1_scale")
         if name not in ("isotropic", "t1_evolution", "total_evolution"):
             raise DataError(source, "f1_referencing = 'file', but the file does not state powderspin's isotropic "
-                                    "F1 scale or another named F1 scale (metadata f1_convention.f1_scale); give one of 'isotropic', 't1_evolution', "
-                                    "'total_evolution' or (scale, offset_ppm)")
+                                    "F1 scale or another named F1 scale (metadata f1_convention.f1_scale); give "
+                                    "one of 'isotropic', 't1_evolution', 'total_evolution' or (scale, offset_ppm)")
         how, said = name, "stated by the file"
         if name != "isotropic" and experiment_scale is not None and "f1_scale_factor" in conv:
             stated = _scale_factor(source, name, None, meta, "file")

@@ -201,7 +201,8 @@ def save_plot_2d(spectrum, path, *, force: bool = False, protect=(), **options):
                      protect=protect, role="plot")
 
 
-def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lowest: float = 0.05) -> Figure:
+def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lowest: float = 0.05,
+                mask=None) -> Figure:
     """A 2D fit at a glance: data and fit contours side by side, the residual, and each site's F2 slice.
 
     Parameters
@@ -215,6 +216,11 @@ def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lo
         Contour levels (geometric, from ``lowest`` to 1 of the data's maximum).
     lowest : float, optional
         Lowest contour as a fraction of the data's maximum.
+    mask : array_like of bool (n1, n2), optional
+        The points the fit used; when it leaves some out, their boundary is
+        drawn (green, dashed) on the three contour panels, the residual's
+        largest value is taken within it, and each F2 slice marks the fitted
+        part of the row.
 
     Returns
     -------
@@ -223,7 +229,7 @@ def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lo
     Raises
     ------
     ValueError
-        Data and fit on different points.
+        Data and fit on different points, or a mask of another shape.
 
     Examples
     --------
@@ -239,6 +245,10 @@ def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lo
     if data.intensity.shape != fitted.intensity.shape or not (
             np.allclose(data.f1_ppm, fitted.f1_ppm) and np.allclose(data.f2_ppm, fitted.f2_ppm)):
         raise ValueError("data and fit must be on the same F1 and F2 points")
+    mk = np.ones(data.intensity.shape, dtype=bool) if mask is None else np.asarray(mask, dtype=bool)
+    if mk.shape != data.intensity.shape:
+        raise ValueError(f"mask has shape {mk.shape}; the data have {data.intensity.shape}")
+    partial = not bool(mk.all())
     if fig is None:
         fig = Figure(figsize=(10.0, 8.0), layout="constrained")
     x, y = data.f2_ppm, data.f1_ppm
@@ -250,8 +260,8 @@ def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lo
         ax.set_title(title, fontsize=10)
     res = data.intensity - fitted.intensity
     # residual contours from three standard deviations of the residual itself (so noise alone draws little)
-    big = float(np.max(np.abs(res)))
-    start = 3.0 * float(np.std(res))
+    big = float(np.max(np.abs(res[mk])))
+    start = 3.0 * float(np.std(res[mk]))
     ax = axes[1, 0]
     if big > start > 0:
         rl = np.geomspace(start, big, int(levels))
@@ -259,9 +269,11 @@ def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lo
             ax.contour(x, y, res, levels=rl, colors="C3", linewidths=0.6)
         if np.any(-res > start):
             ax.contour(x, y, -res, levels=rl, colors="C0", linewidths=0.6)
-    ax.set_title(f"residual, from 3 s.d. (red +, blue -); largest {100 * big / top:.2g} % of the data's maximum",
-                 fontsize=9)
+    ax.set_title(f"residual, from 3 s.d. (red +, blue -); largest {100 * big / top:.2g} % of the data's maximum"
+                 + (" (fitted part)" if partial else ""), fontsize=9)
     for a in (axes[0, 0], axes[0, 1], axes[1, 0]):
+        if partial and mk.any():
+            a.contour(x, y, mk.astype(float), levels=[0.5], colors="C2", linewidths=0.9, linestyles="--")
         a.set_xlim(x.max(), x.min())
         a.set_ylim(y.max(), y.min())
         a.set_xlabel("F2 / ppm")
@@ -277,6 +289,9 @@ def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lo
         d_row, f_row = data.intensity[j], fitted.intensity[j]
         ax.plot(x, d_row + offset, color="k", lw=0.8, label="data" if k == 0 else None)
         ax.plot(x, f_row + offset, color=f"C{k % 10}", lw=1.0, label=f"{label} (F1 {y[j]:.1f} ppm)")
+        if partial and mk[j].any():
+            ax.plot(x[mk[j]], np.full(int(mk[j].sum()), offset), "|", color="C2", ms=4,
+                    label="fitted points" if k == 0 else None)
         offset += 1.1 * max(float(np.max(np.abs(d_row))), float(np.max(np.abs(f_row))))
     ax.set_xlim(x.max(), x.min())
     ax.set_yticks([])
@@ -286,7 +301,7 @@ def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lo
     return fig
 
 
-def save_fit_report_2d(data, fitted, path, *, force: bool = False, protect=()):
+def save_fit_report_2d(data, fitted, path, *, force: bool = False, protect=(), mask=None):
     """Save :func:`plot_fit_2d` (PNG, PDF or SVG by suffix); never overwrites without force.
 
     Parameters
@@ -296,6 +311,8 @@ def save_fit_report_2d(data, fitted, path, *, force: bool = False, protect=()):
     path : str or pathlib.Path
     force : bool, optional
     protect : iterable of path, optional
+    mask : array_like of bool (n1, n2), optional
+        The points the fit used (:func:`plot_fit_2d`).
 
     Returns
     -------
@@ -307,6 +324,6 @@ def save_fit_report_2d(data, fitted, path, *, force: bool = False, protect=()):
 
     p = Path(path)
     check_outputs([(p, "report", PLOT_SUFFIXES)], force=force, protect=protect)
-    fig = plot_fit_2d(data, fitted)
+    fig = plot_fit_2d(data, fitted, mask=mask)
     return write_via(p, lambda tmp: fig.savefig(tmp, dpi=110, format=p.suffix[1:].lower()), force=force,
                      protect=protect, role="report")
