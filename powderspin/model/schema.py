@@ -425,7 +425,7 @@ def keys_of(table: str) -> dict[str, KeySpec]:
     Examples
     --------
     >>> list(keys_of("fit"))
-    ['regions', 'noise_region', 'baseline_order', 'result']
+    ['regions', 'f1_regions', 'slice_f1_ppm', 'noise_region', 'baseline_order', 'result']
     """
     return dict(_BY_TABLE.get(table, {}))
 

@@ -281,6 +281,7 @@ def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lo
     ax = axes[1, 1]
     cogs = fitted.metadata.get("centres_of_gravity_ppm", {})
     offset = 0.0
+    marked = False
     for k, label in enumerate(fitted.site_labels):
         c = (cogs.get(label) or {}).get("f1")
         if c is None or not (y.min() <= c <= y.max()):
@@ -291,7 +292,8 @@ def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lo
         ax.plot(x, f_row + offset, color=f"C{k % 10}", lw=1.0, label=f"{label} (F1 {y[j]:.1f} ppm)")
         if partial and mk[j].any():
             ax.plot(x[mk[j]], np.full(int(mk[j].sum()), offset), "|", color="C2", ms=4,
-                    label="fitted points" if k == 0 else None)
+                    label=None if marked else "fitted points")
+            marked = True
         offset += 1.1 * max(float(np.max(np.abs(d_row))), float(np.max(np.abs(f_row))))
     ax.set_xlim(x.max(), x.min())
     ax.set_yticks([])
