@@ -56,13 +56,21 @@ def add_parser(sub) -> None:
     f.add_argument("--region", action="append", metavar="A:B",
                    help="fit region in ppm (repeatable); overrides [fit] regions")
     f.add_argument("--noise-region", metavar="A:B", help="signal-free region in ppm for the noise level")
+    f.add_argument("--f1-region", action="append", metavar="A:B",
+                   help="2D data: F1 region in ppm whose F2 slices are fitted (repeatable); overrides [fit] "
+                        "f1_regions; --region then limits F2")
+    f.add_argument("--slice", action="append", type=float, metavar="F1_PPM",
+                   help="2D data: fit the F2 slice at this F1 position in ppm, the nearest data row (repeatable); "
+                        "overrides [fit] slice_f1_ppm")
     f.add_argument("--axis", choices=("ppm", "hz", "khz"),
                    help="unit of the data files' axis column when the files do not name it")
     f.add_argument("--accept-mismatch", action="store_true",
                    help="fit data whose own header states another nucleus or field than the model (refused otherwise)")
-    f.add_argument("--f1-referencing", choices=("isotropic", "file"),
-                   help="F1 scale of 2D (MQMAS/STMAS) data files: already powderspin's sheared isotropic scale, or "
-                        "as stated in the file (overrides the measurements' f1_referencing)")
+    f.add_argument("--f1-referencing", choices=("isotropic", "t1_evolution", "total_evolution", "file"),
+                   help="F1 scale of 2D (MQMAS/STMAS) data files: powderspin's sheared isotropic scale, the sheared "
+                        "t1 frequency (t1_evolution, p - R times it), per unit of the whole evolution time "
+                        "(total_evolution, (p - R) / (1 + |R|) times it), or as stated in the file (overrides the "
+                        "measurements' f1_referencing)")
     f.add_argument("--force", action="store_true", help="overwrite existing output files")
     f.add_argument("-q", "--quiet", action="store_true", help="no progress bars")
     add_cache_options(f)
@@ -184,6 +192,9 @@ def run(args) -> int:
                                 f"measurement {j + 1}")
     if any(m.is_two_dimensional for m in model.measurements):
         return _run_two_dimensional(model, model_path, data, args)
+    if args.f1_region or args.slice:
+        raise CliError("--f1-region and --slice choose F2 slices of 2D (MQMAS/STMAS) data; the model has no 2D "
+                       "measurement")
     outputs = fit_outputs(args, n_meas)
     protect = [model_path] + [Path(p) for p in data]
     check_outputs(outputs, force=args.force, protect=protect, make_folders=False)
@@ -201,16 +212,20 @@ def _run_two_dimensional(model, model_path: Path, data, args) -> int:
     from ..fitting.data import read_measured
     from ..fitting.two_dimensional import fit_two_dimensional
     from ..io.spectra2d import read_spectrum_2d
-    from ..model.modelfile import write_model
+    from ..physics.multiple_quantum import two_dimensional_scale
 
     refused = [name for name, on in (("--posterior", args.posterior),
-                                     ("--global", args.global_search), ("--region", args.region),
+                                     ("--global", args.global_search),
                                      ("--noise-region", args.noise_region)) if on]
     if refused:
         raise CliError(f"{', '.join(refused)}: not available yet when the model has a 2D (MQMAS/STMAS) measurement")
+    regions = [parse_range(r, "--region") for r in args.region] if args.region else None
+    f1_regions = [parse_range(r, "--f1-region") for r in args.f1_region] if args.f1_region else None
     out = Path(args.output)
     if out.suffix.lower() != ".toml":
         raise CliError(f"-o {args.output!r}: the result is a model file; give a name ending in .toml")
+    from ..io.results import csv_paths
+
     protect = [model_path] + [Path(p) for p in data]
     two_d = [j for j, m in enumerate(model.measurements) if m.is_two_dimensional]
     reports = {}
@@ -220,35 +235,38 @@ def _run_two_dimensional(model, model_path: Path, data, args) -> int:
         rp = Path(args.report)
         for j in two_d:
             reports[j] = rp if len(two_d) == 1 else rp.with_name(f"{rp.stem}-m{j + 1}{rp.suffix}")
-    check_outputs([(out, "result file")] + [(r, "report", PLOT_SUFFIXES) for r in reports.values()],
-                  force=args.force, protect=protect)
+    csvs = csv_paths(out, len(model.measurements))
+    check_outputs([(out, "result file")] + [(c, "fit CSV") for c in csvs]
+                  + [(r, "report", PLOT_SUFFIXES) for r in reports.values()], force=args.force, protect=protect)
     spectra = {}
     for j, (meas, item) in enumerate(zip(model.measurements, data)):
         if meas.is_two_dimensional:
             ref = args.f1_referencing or meas.f1_referencing
             spectra[j] = read_spectrum_2d(item, f1_referencing=ref,
-                                          nu_ref_hz=model.nucleus.larmor_hz(meas.field_tesla))
+                                          nu_ref_hz=model.nucleus.larmor_hz(meas.field_tesla),
+                                          experiment_scale=two_dimensional_scale(model.nucleus.spin, meas.experiment,
+                                                                                 meas.mq_order))
         else:
             spectra[j], _, warns, _ = read_measured(item, model, j, args.axis)
             for w in warns:
                 print(f"warning: {w}", file=sys.stderr)
     compile_note(args)
-    result = fit_two_dimensional(model, spectra)
+    result = fit_two_dimensional(model, spectra, regions=regions, f1_regions=f1_regions, slice_f1_ppm=args.slice)
     header = ("# fitted by powderspin fit (2D): the values are the fitted ones, each measurement's scale the solved "
               "intensity factor\n" + "".join(f"# {k} = {v:.8g} +- {result.stderr[k]:.3g}\n"
                                                 for k, v in result.values.items()))
-    write_model(result.fitted_model(), out, force=args.force, protect=protect, header=header)
-    print(result.summary(), end="")
-    print(f"wrote {out}", file=sys.stderr)
-    if reports:
-        from ..engine.lineshape import Axis
-        from ..plotting.spectrum2d import save_fit_report_2d
-        from ..simulator import Simulator
+    written = []
+    with outputs_together():  # the result, its CSV files and the reports appear together, or none does
+        from ..io.results import write_result_2d
 
-        for j, rp in reports.items():
-            d = spectra[j]
-            sim = Simulator(result.fitted_model(), j, axis=Axis.from_points(d.f2_hz, d.nu_ref_hz, rtol=1e-3),
-                            f1_axis=Axis.from_points(d.f1_hz, d.nu_ref_hz, rtol=1e-3))
-            save_fit_report_2d(d, sim.spectrum(), rp, force=args.force, protect=protect + [out])
-            print(f"wrote {rp}", file=sys.stderr)
+        written += write_result_2d(result, out, header=header, force=args.force, protect=protect)
+        if reports:
+            from ..plotting.spectrum2d import save_fit_report_2d
+
+            for j, rp in reports.items():
+                written.append(save_fit_report_2d(spectra[j], result.spectra[j], rp, force=args.force,
+                                                  protect=protect + [out], mask=result.masks[j]))
+    print(result.summary(), end="")
+    for p in written:
+        print(f"wrote {p}", file=sys.stderr)
     return 0

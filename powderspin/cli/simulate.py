@@ -38,6 +38,10 @@ def add_parser(sub) -> None:
     s.add_argument("--zoom", type=float, help="also plot the sum magnified N times (shows satellites)")
     s.add_argument("--allow-strong-coupling", action="store_true",
                    help="compute sites whose nu_Q exceeds half the Larmor frequency (refused by default)")
+    s.add_argument("--f1-scale", choices=("isotropic", "t1_evolution", "total_evolution"),
+                   help="F1 scale of a 2D spectrum's output: isotropic (default; a site with C_Q = 0 on the "
+                        "diagonal), t1_evolution (the sheared t1 frequency, p - R times it) or total_evolution "
+                        "(per unit of t1 + |R| t1, (p - R) / (1 + |R|) times it); named in the metadata")
     s.add_argument("--force", action="store_true", help="overwrite existing output files")
     s.add_argument("-q", "--quiet", action="store_true", help="no progress bars or cautions")
     add_cache_options(s)
@@ -86,6 +90,9 @@ def run(args) -> int:
         if sidebands_file:
             outputs.append((name_for(sidebands_file, j), "sideband table"))
     check_outputs(outputs, force=args.force, protect=[model_path], make_folders=False)
+    if args.f1_scale is not None and not any(model.measurements[j].is_two_dimensional for j in which):
+        raise CliError(f"--f1-scale {args.f1_scale}: is for a 2D (MQMAS/STMAS) measurement; this model simulates "
+                       "none")
     for j in which:  # after the checks above, so that an input named as output is said first
         if model.measurements[j].is_two_dimensional:
             from ..io.spectra2d import spectrum_2d_format
@@ -107,8 +114,11 @@ def run(args) -> int:
     spectra = []
     try:
         for j in which:
-            spectra.append((j, simulate(model, measurement=j, progress=progress,
-                                        allow_strong_coupling=args.allow_strong_coupling, kernel_store=store)))
+            spec = simulate(model, measurement=j, progress=progress,
+                            allow_strong_coupling=args.allow_strong_coupling, kernel_store=store)
+            if model.measurements[j].is_two_dimensional and args.f1_scale not in (None, "isotropic"):
+                spec = spec.on_f1_scale(args.f1_scale)
+            spectra.append((j, spec))
     finally:
         progress.close()
     wrote = []

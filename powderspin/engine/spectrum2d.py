@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from fractions import Fraction
 from types import MappingProxyType
 from typing import Mapping
 
@@ -172,6 +173,80 @@ class Spectrum2D:
         j = min(int(np.searchsorted(f, x, side="right")) - 1, f.size - 2)
         r = (x - f[j]) / (f[j + 1] - f[j])
         return (1.0 - r) * y[j] + r * y[j + 1]
+
+    @property
+    def f1_scale(self) -> str:
+        """The F1 scale of this spectrum (``"isotropic"`` unless :meth:`on_f1_scale` changed it).
+
+        Returns
+        -------
+        str
+            A name of :data:`powderspin.physics.multiple_quantum.F1_SCALES`.
+        """
+        conv = self.metadata.get("f1_convention") or {}
+        return str(conv.get("f1_scale", "isotropic"))
+
+    def on_f1_scale(self, name: str) -> "Spectrum2D":
+        """The same spectrum drawn on another F1 scale, named in its metadata.
+
+        F1 (Hz and ppm, same 0 ppm) is multiplied by the scale's factor c
+        relative to the present scale (c = p - R for ``"t1_evolution"``,
+        (p - R) / (1 + |R|) for ``"total_evolution"``, 1 for ``"isotropic"``;
+        :meth:`powderspin.physics.multiple_quantum.TwoDimensionalScale.f1_scale_factor`),
+        the intensities are divided by |c| so that each site still integrates to
+        its weight (density per ppm^2 of the new axes), and the metadata's
+        ``f1_convention`` and F1 centres of gravity follow.
+
+        Parameters
+        ----------
+        name : {"isotropic", "t1_evolution", "total_evolution"}
+
+        Returns
+        -------
+        Spectrum2D
+
+        Raises
+        ------
+        ValueError
+            An unknown name, or metadata that do not say the spin and experiment
+            (a spectrum not made by the simulator).
+
+        References
+        ----------
+        S. E. Ashbrook, S. Wimperis, Prog. Nucl. Magn. Reson. Spectrosc. 45 (2004) 53 (F1 scaling conventions).
+
+        Examples
+        --------
+        >>> meta = {"spin": "3/2", "experiment": "mqmas", "mq_order": 3, "f1_convention": {"f1_scale": "isotropic"}}
+        >>> s = Spectrum2D([0.0, 100.0], [0.0, 1.0], [0.0], [0.0], [[1.0], [0.0]], ("a",), [[[1.0], [0.0]]], meta)
+        >>> t = s.on_f1_scale("t1_evolution")
+        >>> t.f1_scale, t.metadata["f1_convention"]["f1_scale_factor"], round(float(t.f1_ppm[1]), 6)
+        ('t1_evolution', '34/9', 3.777778)
+        """
+        from ..physics.multiple_quantum import F1_SCALES, two_dimensional_scale
+
+        if name not in F1_SCALES:
+            raise ValueError(f"f1_scale = {name!r} is not one of " + ", ".join(repr(k) for k in F1_SCALES))
+        meta = dict(self.metadata)
+        try:
+            spin = float(Fraction(str(meta["spin"])))
+            scale = two_dimensional_scale(spin, str(meta["experiment"]), int(meta.get("mq_order", 3)))
+        except (KeyError, ValueError) as e:
+            raise ValueError(f"f1_scale: the spectrum's metadata must give its spin and experiment ({e})") from None
+        c = scale.f1_scale_factor(name) / scale.f1_scale_factor(self.f1_scale)
+        f1_hz, f1_ppm = c * self.f1_hz, c * self.f1_ppm
+        y, ys = self.intensity / abs(c), self.site_intensities / abs(c)
+        if c < 0:
+            f1_hz, f1_ppm, y, ys = f1_hz[::-1], f1_ppm[::-1], y[::-1], ys[:, ::-1]
+        meta["f1_convention"] = scale.describe(name)
+        cogs = meta.get("centres_of_gravity_ppm")
+        if isinstance(cogs, Mapping):
+            meta["centres_of_gravity_ppm"] = {k: ({**v, "f1": c * v["f1"]} if isinstance(v, Mapping) and "f1" in v
+                                                  else v) for k, v in cogs.items()}
+        if name != "isotropic":
+            meta["intensity_units"] = (f"density per ppm^2 on the F2 and {name} F1 axes; each site integrates to its "
+                                       "weight")
+        return Spectrum2D(f1_hz, f1_ppm, self.f2_hz, self.f2_ppm, y, self.site_labels, ys, meta)
 
     def to_dict(self) -> dict:
         """The spectrum as plain values (lists and the metadata).

@@ -17,6 +17,12 @@ differently from the F2 centre of gravity, so C_Q and delta_iso of each site
 are fixed together (F1 and F2 centres of
 :mod:`powderspin.physics.multiple_quantum`).
 
+Parts of the data: ``regions`` (ppm ranges, as for a 1D fit) limit F2 of a
+2D spectrum (and the axis of a 1D one); ``f1_regions`` (F1 ppm ranges) and
+``slice_f1_ppm`` (single F1 positions, the nearest data row each) choose the
+F2 slices that are fitted.  Both default to the model's ``[fit]`` table; with
+neither, every F1 row is fitted.
+
 Excitation is ideal (each site's 2D integral is its weight) unless the
 measurement models its MQMAS pulses (``mq_pulses``).  Measured MQMAS
 intensities are not quantitative (the multiple-quantum excitation and
@@ -36,13 +42,13 @@ import numpy as np
 from ..engine.lineshape import Axis
 from ..io.spectra import MeasuredSpectrum
 from ..io.spectra2d import MeasuredSpectrum2D
-from ..model.values import Model
+from ..model.values import FitSettings, Model
 from ..simulator import as_model
 from ..uncertainty import covariance_from_jacobian, standard_errors
-from .data import FitError, point_noise
+from .data import FitError, point_noise, region_mask
 from .problem import FitProblem
 
-__all__ = ["TwoDimensionalFit", "fit_two_dimensional"]
+__all__ = ["TwoDimensionalFit", "fit_two_dimensional", "selection_mask_2d"]
 
 #: a data axis may differ from uniform by this fraction of its step
 _AXIS_RTOL = 1e-6
@@ -66,6 +72,15 @@ class TwoDimensionalFit:
     warnings : tuple of str
     scales : tuple of float
         Each measurement's solved intensity scale.
+    masks : tuple of ndarray of bool
+        Each measurement's fitted points ((n1, n2) for 2D data).
+    data : tuple
+        The measured spectra, by measurement.
+    spectra : tuple
+        The fitted model simulated on each measurement's data axes, its scale
+        applied (Spectrum2D or Spectrum).
+    selection : Mapping
+        The regions, F1 regions and slices used (ppm).
     """
 
     model: Model
@@ -78,8 +93,13 @@ class TwoDimensionalFit:
     n_evaluations: int
     warnings: tuple = ()
     scales: tuple = field(default=())
+    masks: tuple = field(default=())
+    data: tuple = field(default=())
+    spectra: tuple = field(default=())
+    selection: Mapping = field(default_factory=dict)
 
     def __post_init__(self):
+        object.__setattr__(self, "selection", MappingProxyType(dict(self.selection)))
         object.__setattr__(self, "values", MappingProxyType(dict(self.values)))
         object.__setattr__(self, "stderr", MappingProxyType(dict(self.stderr)))
 
@@ -126,8 +146,57 @@ def _axis_2d(item: MeasuredSpectrum2D, nu_ref: float, j: int) -> tuple[Axis, Axi
         raise FitError(f"measurement {j + 1}: the 2D data's axes: {e}") from None
 
 
+def selection_mask_2d(f1_ppm, f2_ppm, regions=(), f1_regions=(), slice_f1_ppm=()) -> np.ndarray:
+    """The points of a 2D spectrum a fit uses: chosen F2 slices (F1 regions, single rows) within F2 regions.
+
+    Parameters
+    ----------
+    f1_ppm : array_like (n1,)
+        F1 axis (ascending).
+    f2_ppm : array_like (n2,)
+        F2 axis.
+    regions : sequence of (ppm_hi, ppm_lo), optional
+        F2 ranges; all of F2 when empty.
+    f1_regions : sequence of (ppm_hi, ppm_lo), optional
+        F1 ranges whose rows (F2 slices) are fitted.
+    slice_f1_ppm : sequence of float, optional
+        F1 positions; the row nearest each is fitted.  With neither
+        ``f1_regions`` nor ``slice_f1_ppm`` every row is.
+
+    Returns
+    -------
+    numpy.ndarray of bool, shape (n1, n2)
+
+    Raises
+    ------
+    powderspin.fitting.data.FitError
+        A slice position outside the F1 axis (more than half a point beyond it).
+
+    Examples
+    --------
+    >>> m = selection_mask_2d(np.arange(5.0), np.arange(4.0), regions=[(2.5, 0.5)], slice_f1_ppm=[3.2])
+    >>> m.astype(int).tolist()
+    [[0, 0, 0, 0], [0, 0, 0, 0], [0, 0, 0, 0], [0, 1, 1, 0], [0, 0, 0, 0]]
+    """
+    f1 = np.asarray(f1_ppm, dtype=float)
+    f2 = np.asarray(f2_ppm, dtype=float)
+    cols = region_mask(f2, list(regions))
+    if not f1_regions and not slice_f1_ppm:
+        rows = np.ones(f1.size, dtype=bool)
+    else:
+        rows = region_mask(f1, list(f1_regions)) if f1_regions else np.zeros(f1.size, dtype=bool)
+        half = 0.5 * abs(float(f1[1] - f1[0])) if f1.size > 1 else 0.0
+        lo, hi = float(f1.min()), float(f1.max())
+        for v in slice_f1_ppm:
+            if not lo - half <= v <= hi + half:
+                raise FitError(f"slice_f1_ppm = {v:g} lies outside the data's F1 axis [{lo:.6g}, {hi:.6g}] ppm")
+            rows[int(np.argmin(np.abs(f1 - v)))] = True
+    return rows[:, None] & cols[None, :]
+
+
 def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
-                        max_evaluations: int | None = None) -> TwoDimensionalFit:
+                        max_evaluations: int | None = None, regions=None, f1_regions=None,
+                        slice_f1_ppm=None) -> TwoDimensionalFit:
     """Fit a model to 2D spectra, or to 2D and 1D spectra of the same sample together.
 
     Parameters
@@ -144,6 +213,13 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
         point-to-point estimate along F2.
     max_evaluations : int, optional
         Limit on the optimiser's evaluations.
+    regions : sequence of (ppm_hi, ppm_lo), optional
+        F2 ranges of 2D data (the axis of 1D data) to fit; default the model's
+        ``[fit] regions``, else everything.
+    f1_regions : sequence of (ppm_hi, ppm_lo), optional
+        F1 ranges of 2D data whose F2 slices are fitted; default ``[fit] f1_regions``.
+    slice_f1_ppm : sequence of float, optional
+        F1 positions of single F2 slices to fit; default ``[fit] slice_f1_ppm``.
 
     Returns
     -------
@@ -153,7 +229,12 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
     ------
     powderspin.fitting.data.FitError
         No free parameters, data for a measurement of the other kind, axes that
-        do not match the model's nucleus and field, a flat spectrum.
+        do not match the model's nucleus and field, a flat spectrum, a
+        selection that holds no data point or fewer points than parameters.
+
+    See Also
+    --------
+    selection_mask_2d, powderspin.io.results.write_result_2d
 
     References
     ----------
@@ -166,6 +247,15 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
 
     model = as_model(model, "fit")
     params, notes = _free_parameters(model)
+    fs = model.fit
+    try:
+        regs = fs.regions if regions is None else FitSettings(regions=tuple(regions)).regions
+        f1_regs = fs.f1_regions if f1_regions is None else FitSettings(f1_regions=tuple(f1_regions)).f1_regions
+        cuts = fs.slice_f1_ppm if slice_f1_ppm is None else FitSettings(slice_f1_ppm=tuple(slice_f1_ppm)).slice_f1_ppm
+    except (TypeError, ValueError) as e:
+        raise FitError(str(e)) from None
+    if (f1_regs or cuts) and not any(m.is_two_dimensional for m in model.measurements):
+        raise FitError("f1_regions / slice_f1_ppm choose F2 slices of 2D data; the model has no 2D measurement")
     if not data:
         raise FitError("data: give the measured spectrum of at least one measurement")
     idx = sorted(int(j) for j in data)
@@ -188,6 +278,10 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
             axes.append(_axis_2d(item, nu_ref, j))
             y = np.asarray(item.intensity, dtype=float)
             sig = point_noise(y.ravel()) if noise is None or j not in noise else float(noise[j])
+            try:
+                mask = selection_mask_2d(item.f1_ppm, item.f2_ppm, regs, f1_regs, cuts)
+            except FitError as e:
+                raise FitError(f"measurement {j + 1}: {e}") from None
         else:
             if not isinstance(item, MeasuredSpectrum):
                 raise FitError(f"measurement {j + 1} is a 1D spectrum: its data must be a MeasuredSpectrum "
@@ -195,17 +289,26 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
             axes.append(Axis.from_points(item.hz, nu_ref, rtol=1e-3))
             y = np.asarray(item.intensity, dtype=float)
             sig = point_noise(y) if noise is None or j not in noise else float(noise[j])
+            mask = region_mask(np.asarray(item.ppm, dtype=float), list(regs))
         if not (math.isfinite(sig) and sig > 0):
             raise FitError(f"measurement {j + 1}: the noise level is {sig!r}; give noise = {{{j}: value}} "
                            "(data units) for a noiseless spectrum")
+        if not mask.any():
+            raise FitError(f"measurement {j + 1}: no data point lies in the fit regions (regions {list(regs)}"
+                           + (f", f1_regions {list(f1_regs)}, slice_f1_ppm {list(cuts)}" if y.ndim == 2 else "")
+                           + "); check them against the data's axes")
         ys.append(y)
-        masks.append(np.ones(y.shape, dtype=bool))
+        masks.append(mask)
         sigmas.append(sig)
     if any(m.is_two_dimensional and m.mq_pulses == "ideal" for m in model.measurements) and any(
             p.address.table == "site" and p.address.key == "weight" for p in params):
         warnings.append("site weights fitted to MQMAS/STMAS data: the simulation assumes ideal excitation, but "
                         "measured multiple-quantum intensities depend on C_Q and the RF field; the populations are "
                         "not quantitative unless the excitation is modelled (mq_pulses) (or fit them to a 1D spectrum)")
+    n_points = sum(int(m.sum()) for m in masks)
+    if n_points <= len(params) + len(masks):
+        raise FitError(f"the fit regions hold {n_points} data point(s) for {len(params)} free and {len(masks)} "
+                       "linear parameters; widen the regions or choose more slices")
     problem = FitProblem(model, params, axes, ys, masks, sigmas, None, None)
     x0 = np.clip([p.start for p in params], problem.lo, problem.hi)
     sol = least_squares(problem.residual, x0, jac=problem.jacobian, bounds=(problem.lo, problem.hi),
@@ -219,6 +322,23 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
     err = standard_errors(cov)[:sol.x.size]
     names = [p.name for p in params]
     fitted = problem.model_at(sol.x)
-    return TwoDimensionalFit(fitted, dict(zip(names, map(float, sol.x))), dict(zip(names, map(float, err))), chi2, red,
-                             bool(sol.success), str(sol.message), int(problem.n_evaluations), tuple(warnings),
-                             tuple(float(c[0]) for c in e.coefs))
+    scales = tuple(float(c[0]) for c in e.coefs)
+    result = TwoDimensionalFit(fitted, dict(zip(names, map(float, sol.x))), dict(zip(names, map(float, err))), chi2,
+                               red, bool(sol.success), str(sol.message), int(problem.n_evaluations), tuple(warnings),
+                               scales, tuple(masks), tuple(data[j] for j in idx), (),
+                               {"regions": [list(r) for r in regs], "f1_regions": [list(r) for r in f1_regs],
+                                "slice_f1_ppm": list(cuts)})
+    return replace(result, spectra=_fitted_spectra(result.fitted_model(), axes))
+
+
+def _fitted_spectra(model: Model, axes) -> tuple:
+    """The fitted model (scales written in) simulated on each measurement's data axes."""
+    from ..simulator import Simulator
+
+    out = []
+    for j, ax in enumerate(axes):
+        if isinstance(ax, tuple):
+            out.append(Simulator(model, j, axis=ax[0], f1_axis=ax[1]).spectrum())
+        else:
+            out.append(Simulator(model, j, axis=ax).spectrum())
+    return tuple(out)

@@ -11,7 +11,9 @@ errors in ``[site.stderr]`` / ``[measurement.stderr]`` and the fit's statistics
 in ``[fit.result]`` (:meth:`powderspin.fitting.result.FitResult.to_dict`);
 simulating it gives the fitted curves.  Beside it, one CSV per measurement
 holds the data, the fit, each site's component, the baseline and the
-residual on the data axis.  Every file is checked before anything is written
+residual on the data axis.  A fit with a 2D (MQMAS/STMAS) measurement
+(:func:`write_result_2d`) writes the same pair; its 2D CSV is long-form, one
+row per point: ``f1_ppm,f2_ppm,data,fit,<sites>,residual,in_fit``.  Every file is checked before anything is written
 and written atomically (:mod:`powderspin.files`).
 """
 
@@ -31,7 +33,8 @@ from .spectra import MeasuredSpectrum, write_jcamp
 from .spectra2d import write_spectrum_2d
 
 __all__ = ["spectrum_csv_text", "sideband_csv_text", "write_spectrum", "SPECTRUM_SUFFIXES", "plan_json_text",
-           "write_plan_json", "spectrum_format", "result_to_toml", "fit_csv_text", "csv_paths", "write_result"]
+           "write_plan_json", "spectrum_format", "result_to_toml", "fit_csv_text", "csv_paths", "write_result",
+           "fit_2d_csv_text", "write_result_2d"]
 
 #: what :func:`write_spectrum` writes, by suffix
 SPECTRUM_SUFFIXES = {".csv": "CSV text", ".txt": "CSV text", ".jdx": "JCAMP-DX", ".dx": "JCAMP-DX",
@@ -423,6 +426,122 @@ def write_result(result, path, *, force: bool = False, protect=()) -> list[Path]
     check_outputs([(p, "result file")] + [(c, "fit CSV") for c in csvs], force=force, protect=protect)
     texts = [(p, result_to_toml(result, p), "result file")]
     texts += [(c, fit_csv_text(result, j), "fit CSV") for j, c in enumerate(csvs)]
+    written: list[Path] = []
+    try:
+        for q, text, role in texts:
+            write_text_atomic(q, text, force=force, protect=protect, role=role)
+            written.append(q)
+    except BaseException:
+        for q in written:
+            try:
+                q.unlink()
+            except OSError:
+                pass
+        raise
+    return written
+
+
+def fit_2d_csv_text(result, measurement: int = 0) -> str:
+    """Data, fit, site components and residual of one measurement of a 2D fit, as long-form CSV text.
+
+    Parameters
+    ----------
+    result : powderspin.fitting.two_dimensional.TwoDimensionalFit
+    measurement : int, optional
+
+    Returns
+    -------
+    str
+        ``#`` comment lines (the data file, the F1 scale, the scale, the fitted
+        values with standard errors, the regions), then for a 2D measurement the
+        header ``f1_ppm,f2_ppm,data,fit,<site labels>,residual,in_fit`` and one
+        row per point (F1 ascending, F2 ascending within it); for a 1D
+        measurement of a joint fit ``ppm,hz,data,fit,<site labels>,residual,in_fit``.
+        ``in_fit`` is 1 for the points the fit used.
+
+    See Also
+    --------
+    write_result_2d
+    """
+    spec = result.spectra[measurement]
+    item = result.data[measurement]
+    y = np.asarray(item.intensity, dtype=float)
+    mk = np.asarray(result.masks[measurement], dtype=bool)
+    meas = result.model.measurements[measurement]
+    two_d = isinstance(spec, Spectrum2D)
+    sel = dict(result.selection)
+    lines = [f"# powderspin fit (2D): measurement {measurement + 1} of {len(result.spectra)}",
+             f"# data: {item.source}",
+             f"# nucleus: {result.model.nucleus.name}",
+             f"# field_tesla: {meas.field_tesla}",
+             f"# nu_ref_hz: {item.nu_ref_hz}",
+             f"# experiment: {meas.experiment}",
+             f"# scale: {result.scales[measurement]!r}",
+             f"# success: {result.success} ({result.message})",
+             f"# regions: {json.dumps(sel.get('regions', []))}"]
+    if two_d:
+        lines += [f"# f1_referencing: {item.metadata.get('f1_referencing', '')}",
+                  "# f1 axis: powderspin's sheared isotropic scale (a site with C_Q = 0 on the diagonal)",
+                  f"# f1_regions: {json.dumps(sel.get('f1_regions', []))}",
+                  f"# slice_f1_ppm: {json.dumps(sel.get('slice_f1_ppm', []))}",
+                  "# columns: data, fit (= sum of the sites), each site (scaled), residual (data - fit), in_fit"]
+    else:
+        lines.append("# columns: data, fit (= sum of the sites), each site (scaled), residual (data - fit), in_fit")
+    for n, v in result.values.items():
+        lines.append(f"# fitted {n}: {v!r} +- {result.stderr[n]!r}")
+    head = io.StringIO()
+    first = ["f1_ppm", "f2_ppm"] if two_d else ["ppm", "hz"]
+    csv.writer(head, lineterminator="").writerow(first + ["data", "fit", *spec.site_labels, "residual", "in_fit"])
+    lines.append(head.getvalue())
+    if two_d:
+        f1, f2 = np.meshgrid(spec.f1_ppm, spec.f2_ppm, indexing="ij")
+        cols = [f1.ravel(), f2.ravel(), y.ravel(), spec.intensity.ravel(),
+                *(s.ravel() for s in spec.site_intensities), (y - spec.intensity).ravel()]
+    else:
+        cols = [spec.ppm, spec.hz, y, spec.intensity, *spec.site_intensities, y - spec.intensity]
+    flags = mk.ravel().astype(int)
+    table = np.column_stack(cols)
+    for row, flag in zip(table, flags):
+        lines.append(",".join(f"{v:.12g}" for v in row) + f",{flag}")
+    return "\n".join(lines) + "\n"
+
+
+def write_result_2d(result, path, *, header: str = "", force: bool = False, protect=()) -> list[Path]:
+    """Write a 2D fit's result file (the fitted model) and one long-form CSV per measurement, atomically.
+
+    Parameters
+    ----------
+    result : powderspin.fitting.two_dimensional.TwoDimensionalFit
+    path : str or pathlib.Path
+        The result file (``.toml``); the CSV file(s) go beside it (:func:`csv_paths`).
+    header : str, optional
+        Comment lines at the top of the result file.
+    force : bool, optional
+        Replace existing files.
+    protect : iterable of path, optional
+        Inputs never to overwrite.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The files written; if one write fails, those already written by this
+        call are removed.
+
+    See Also
+    --------
+    fit_2d_csv_text, write_result
+    """
+    from ..model.modelfile import model_to_toml
+
+    p = output_path(path, "result file")
+    csvs = csv_paths(p, len(result.spectra))
+    protect = list(protect)
+    if result.model.source:
+        protect.append(result.model.source)
+    protect += [d.source for d in result.data if getattr(d, "source", None)]
+    check_outputs([(p, "result file")] + [(c, "fit CSV") for c in csvs], force=force, protect=protect)
+    texts = [(p, model_to_toml(result.fitted_model(), header=header), "result file")]
+    texts += [(c, fit_2d_csv_text(result, j), "fit CSV") for j, c in enumerate(csvs)]
     written: list[Path] = []
     try:
         for q, text, role in texts:

@@ -1140,7 +1140,8 @@ def _read_jcamp(source, p: Path, opts: dict, data: bytes) -> _Raw:
 # --------------------------------------------------------------------------
 def _read_bruker_dir(source, d: Path, opts: dict) -> _Raw:
     if (d / "2rr").exists() or (d / "3rrr").exists():
-        raise DataError(source, "holds multi-dimensional processed data (2rr/3rrr); only 1D spectra (1r) are read")
+        raise DataError(source, "holds multi-dimensional processed data (2rr/3rrr); a 1D spectrum (1r) is read here "
+                                "(a 2rr is read for a 2D measurement: experiment = \"mqmas\" or \"stmas\")")
     if not (d / "1r").is_file():
         pdata = d / "pdata"
         if pdata.is_dir():

@@ -14,10 +14,15 @@
 Every file is checked before anything is written and written atomically
 (:mod:`powderspin.files`).
 
-Reading (:func:`read_spectrum_2d`) takes the same two forms.  The F1
-referencing of a measured file is never guessed: ``f1_referencing`` says
-whether the file's F1 axis already is powderspin's sheared isotropic scale, or
-gives the linear map to it.
+Reading (:func:`read_spectrum_2d`) takes the same two forms and processed
+spectrometer data through nmrglue (Bruker ``pdata/N`` with ``2rr``, ``procs``
+and ``proc2s``; NMRPipe 2D; :mod:`powderspin.io.processed2d`).  The F1
+referencing of a measured file is never guessed: ``f1_referencing`` names the
+F1 scale of the file's F1 axis (powderspin's sheared isotropic scale, or one of
+the other scales of :data:`powderspin.physics.multiple_quantum.F1_SCALES`), says
+that the file's metadata state it, or gives the linear map to the isotropic
+scale.  Intensities are never changed by the referencing (measured data are in
+arbitrary units; a fit solves the scale).
 """
 
 from __future__ import annotations
@@ -27,6 +32,7 @@ import io
 import json
 import math
 from dataclasses import dataclass, field
+from fractions import Fraction
 from pathlib import Path
 from types import MappingProxyType
 from typing import Mapping
@@ -176,8 +182,9 @@ def write_spectrum_2d(spectrum, path, *, force: bool = False, protect=()) -> Pat
 # reading measured 2D spectra
 # --------------------------------------------------------------------------
 
-#: the words ``f1_referencing`` accepts besides a (scale, offset_ppm) pair
-F1_REFERENCING_WORDS = ("isotropic", "file")
+#: the words ``f1_referencing`` accepts besides a (scale, offset_ppm) pair: the F1 scales and "file"
+F1_REFERENCING_WORDS = ("isotropic", "t1_evolution", "total_evolution", "file")
+_WORDS_TEXT = "'isotropic', 't1_evolution', 'total_evolution', 'file'"
 #: fewest points along F2 and F1 of a measured 2D spectrum
 MIN_F2_POINTS = 16
 MIN_F1_POINTS = 8
@@ -247,17 +254,19 @@ def _check_referencing(source, f1_referencing) -> tuple:
     if f1_referencing is None:
         raise DataError(source, "f1_referencing must be given (it is never guessed): \"isotropic\" when the file's "
                                 "F1 axis is already powderspin's sheared isotropic scale (a site with C_Q = 0 on the "
-                                "diagonal), \"file\" to take it from the file's own metadata, or (scale, offset_ppm) "
-                                "mapping the file's F1 ppm to that scale")
+                                "diagonal), \"t1_evolution\" (F1 = nu_t1 - R nu_CT, factor p - R) or "
+                                "\"total_evolution\" (factor (p - R) / (1 + |R|)), \"file\" to take it from the "
+                                "file's own metadata, or (scale, offset_ppm) mapping the file's F1 ppm to the "
+                                "isotropic scale")
     if isinstance(f1_referencing, str):
         if f1_referencing not in F1_REFERENCING_WORDS:
-            raise DataError(source, f"f1_referencing = {f1_referencing!r} is not one of 'isotropic', 'file' or a "
+            raise DataError(source, f"f1_referencing = {f1_referencing!r} is not one of {_WORDS_TEXT} or a "
                                     "(scale, offset_ppm) pair")
         return (f1_referencing,)
     try:
         scale, offset = (float(x) for x in f1_referencing)
     except (TypeError, ValueError):
-        raise DataError(source, f"f1_referencing = {f1_referencing!r} is not one of 'isotropic', 'file' or a "
+        raise DataError(source, f"f1_referencing = {f1_referencing!r} is not one of {_WORDS_TEXT} or a "
                                 "(scale, offset_ppm) pair of numbers") from None
     if not (math.isfinite(scale) and math.isfinite(offset)) or scale == 0:
         raise DataError(source, f"f1_referencing = ({scale!r}, {offset!r}): the scale must be a finite non-zero "
@@ -351,34 +360,64 @@ def _read_text_2d(source, p: Path):
     return a[:, 0], header, a[:, 1:], meta, (float(nu) if nu is not None else None)
 
 
-def read_spectrum_2d(path, *, f1_referencing, nu_ref_hz: float | None = None) -> MeasuredSpectrum2D:
-    """Read a measured 2D spectrum (.npz arrays or a text matrix), with an explicit F1 referencing.
+def _scale_factor(source, name: str, experiment_scale, meta: dict, how: str) -> float:
+    """The factor c of the F1 scale ``name`` (F1_name = c F1_isotropic), from the experiment or the file."""
+    if experiment_scale is not None:
+        return experiment_scale.f1_scale_factor(name)
+    conv = meta.get("f1_convention") if isinstance(meta.get("f1_convention"), dict) else {}
+    if how == "file" and "f1_scale_factor" in conv:
+        try:
+            return float(Fraction(str(conv["f1_scale_factor"])))
+        except (ValueError, ZeroDivisionError):
+            pass
+    raise DataError(source, f"f1_referencing = {name!r} needs the experiment (spin, experiment, mq_order) to give "
+                            "its factor; pass experiment_scale (powderspin.physics.multiple_quantum."
+                            "two_dimensional_scale)")
+
+
+def read_spectrum_2d(path, *, f1_referencing, nu_ref_hz: float | None = None,
+                     experiment_scale=None) -> MeasuredSpectrum2D:
+    """Read a measured 2D spectrum (.npz, text matrix, Bruker 2rr, NMRPipe 2D), with an explicit F1 referencing.
 
     Parameters
     ----------
     path : str or os.PathLike
         ``.npz`` with arrays ``f1_ppm``, ``f2_ppm``, ``intensity`` (F1 x F2) and
-        optionally ``metadata`` (JSON text); or a text matrix as written by
+        optionally ``metadata`` (JSON text); a text matrix as written by
         :func:`write_spectrum_2d` (first row F2 ppm, first column F1 ppm;
-        ``# key: value`` lines; only the first block is read).
-    f1_referencing : {"isotropic", "file"} or (float, float)
-        Required.  ``"isotropic"``: the file's F1 ppm is powderspin's sheared
-        isotropic scale; ``"file"``: the file's metadata must say so
-        (``f1_convention.f1_scale = "isotropic"``); ``(scale, offset_ppm)``:
+        ``# key: value`` lines; only the first block is read); a Bruker
+        ``pdata/N`` directory (``2rr``, ``procs``, ``proc2s``) or the
+        experiment directory holding ``pdata/1``; or an NMRPipe 2D spectrum
+        (:mod:`powderspin.io.processed2d`).
+    f1_referencing : {"isotropic", "t1_evolution", "total_evolution", "file"} or (float, float)
+        Required: the F1 scale of the file's F1 ppm.  ``"isotropic"``:
+        powderspin's sheared isotropic scale (a site with C_Q = 0 on the
+        diagonal); ``"t1_evolution"`` / ``"total_evolution"``: the scales of
+        :data:`powderspin.physics.multiple_quantum.F1_SCALES`, F1 = c x the
+        isotropic scale (c = p - R, or (p - R) / (1 + |R|)), divided by c here;
+        ``"file"``: the file's metadata must name the scale
+        (``f1_convention.f1_scale``); ``(scale, offset_ppm)``:
         F1 = scale * F1_file + offset_ppm.
     nu_ref_hz : float, optional
-        Reference frequency (Hz), when the file does not give it.
+        Reference frequency (Hz), when the file does not give it (or to check
+        the file's against it).
+    experiment_scale : TwoDimensionalScale, optional
+        The experiment (from the model), which gives the factor of a named
+        non-isotropic scale; without it only a file that states its factor can be
+        read with such a scale.
 
     Returns
     -------
     MeasuredSpectrum2D
+        Axes ascending, F1 on the isotropic scale; the intensities as in the
+        file (the referencing never changes them).
 
     Raises
     ------
     powderspin.io.spectra.DataError
         One line naming the file and the problem (a missing or unknown
-        referencing, missing arrays, axes not uniform or too short, a shape
-        mismatch, no reference frequency).
+        referencing, missing arrays or parameter files, axes not uniform or too
+        short, a shape mismatch, no reference frequency).
 
     Examples
     --------
@@ -393,13 +432,19 @@ def read_spectrum_2d(path, *, f1_referencing, nu_ref_hz: float | None = None) ->
     >>> m.f1_ppm[:3].tolist(), m.nu_ref_hz
     ([2.0, 3.0, 4.0], 100000000.0)
     """
+    from .processed2d import is_pipe_file, read_bruker_2d, read_pipe_2d
+
     source = str(path)
     p = Path(path)
     ref = _check_referencing(source, f1_referencing)
-    if not p.is_file():
+    if p.is_dir():
+        f1, f2, y, meta, nu_file = read_bruker_2d(source, p)
+    elif not p.is_file():
         raise DataError(source, "no such file")
-    if p.suffix.lower() == ".npz":
+    elif p.suffix.lower() == ".npz":
         f1, f2, y, meta, nu_file = _read_npz_2d(source, p)
+    elif is_pipe_file(p):
+        f1, f2, y, meta, nu_file = read_pipe_2d(source, p, nu_ref_hz)
     else:
         f1, f2, y, meta, nu_file = _read_text_2d(source, p)
     if y.ndim != 2 or y.shape != (f1.size, f2.size):
@@ -415,15 +460,31 @@ def read_spectrum_2d(path, *, f1_referencing, nu_ref_hz: float | None = None) ->
     nu = nu_ref_hz if nu_ref_hz is not None else nu_file
     if nu is None or not (math.isfinite(nu) and nu > 0):
         raise DataError(source, "no reference frequency: the file gives none; pass nu_ref_hz (Hz)")
-    if ref[0] == "file":
+    how = ref[0]
+    if how == "file":
         conv = meta.get("f1_convention") if isinstance(meta.get("f1_convention"), dict) else {}
-        if conv.get("f1_scale") != "isotropic":
+        name = conv.get("f1_scale")
+        if name not in ("isotropic", "t1_evolution", "total_evolution"):
             raise DataError(source, "f1_referencing = 'file', but the file does not state powderspin's isotropic "
-                                    "F1 scale (metadata f1_convention.f1_scale); give 'isotropic' or "
-                                    "(scale, offset_ppm)")
-        applied = "isotropic (stated by the file)"
-    elif ref[0] == "isotropic":
-        applied = "isotropic (given when reading)"
+                                    "F1 scale or another named F1 scale (metadata f1_convention.f1_scale); give "
+                                    "one of 'isotropic', 't1_evolution', 'total_evolution' or (scale, offset_ppm)")
+        how, said = name, "stated by the file"
+        if name != "isotropic" and experiment_scale is not None and "f1_scale_factor" in conv:
+            stated = _scale_factor(source, name, None, meta, "file")
+            if abs(stated - experiment_scale.f1_scale_factor(name)) > 1e-9 * abs(stated):
+                raise DataError(source, f"the file's F1 scale {name!r} has the factor {conv['f1_scale_factor']}, but "
+                                        f"the model's experiment gives {experiment_scale.f1_scale_factor(name):.6g} "
+                                        "(another nucleus, experiment or mq_order)")
+    else:
+        said = "given when reading"
+    if how == "isotropic":
+        applied = f"isotropic ({said})"
+    elif how in ("t1_evolution", "total_evolution"):
+        c = _scale_factor(source, how, experiment_scale, meta, "file" if said.startswith("stated") else "given")
+        f1 = f1 / c
+        if c < 0:
+            f1, y = f1[::-1], y[::-1]
+        applied = f"{how} ({said}): F1 = F1_file / {c:.10g} on the isotropic scale"
     else:
         _, scale, offset = ref
         f1 = scale * f1 + offset

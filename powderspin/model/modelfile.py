@@ -347,8 +347,17 @@ def _parse_fit(t: Any) -> FitSettings:
     noise = t.get("noise_region")
     if noise is not None and (not isinstance(noise, list) or len(noise) != 2 or not all(_is_number(x) for x in noise)):
         raise ModelError(f"fit: noise_region = {noise!r} must be two numbers [ppm_hi, ppm_lo]")
+    f1_regions = t.get("f1_regions", [])
+    if not isinstance(f1_regions, list) or not all(isinstance(r, list) for r in f1_regions):
+        raise ModelError("fit: f1_regions must be a list of [ppm_hi, ppm_lo] pairs, e.g. [[70.0, 60.0]]")
+    for r in f1_regions:
+        if len(r) != 2 or not all(_is_number(x) for x in r):
+            raise ModelError(f"fit: f1_regions entry {r!r} must be two numbers [ppm_hi, ppm_lo]")
+    cuts = t.get("slice_f1_ppm", [])
+    if not isinstance(cuts, list) or not all(_is_number(x) for x in cuts):
+        raise ModelError(f"fit: slice_f1_ppm = {cuts!r} must be a list of F1 shifts (ppm), e.g. [64.5, 53.0]")
     return FitSettings(tuple(tuple(r) for r in regions), tuple(noise) if noise is not None else None,
-                       t.get("baseline_order"))
+                       t.get("baseline_order"), tuple(tuple(r) for r in f1_regions), tuple(cuts))
 
 
 def parse_processing(t: Any) -> tuple:
@@ -851,6 +860,10 @@ def model_to_dict(model: Model) -> dict:
         fit["noise_region"] = list(f.noise_region)
     if f.baseline_order is not None:
         fit["baseline_order"] = f.baseline_order
+    if f.f1_regions:
+        fit["f1_regions"] = [list(r) for r in f.f1_regions]
+    if f.slice_f1_ppm:
+        fit["slice_f1_ppm"] = list(f.slice_f1_ppm)
     if fit:
         data["fit"] = fit
     if model.processing:

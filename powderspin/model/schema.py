@@ -221,9 +221,13 @@ KEYS: tuple[KeySpec, ...] = (
     KeySpec("measurement", "f1_gauss_hz", "number", "Hz", 0.0, 0.0, 1.0e7,
             doc="Gaussian broadening (FWHM) along F1 of a 2D spectrum, in Hz of the sheared F1 scale",
             why="a width beyond 10 MHz is wider than any solid-state spectrum"),
-    KeySpec("measurement", "f1_referencing", "choice", "", None, choices=("isotropic", "file"),
-            doc="F1 scale of this measurement's 2D data file: \"isotropic\" (already powderspin's sheared "
-                "isotropic scale) or \"file\" (stated in the file's metadata); required to fit 2D data"),
+    KeySpec("measurement", "f1_referencing", "choice", "", None,
+            choices=("isotropic", "t1_evolution", "total_evolution", "file"),
+            doc="F1 scale of this measurement's 2D data file: \"isotropic\" (powderspin's sheared isotropic "
+                "scale, a site with C_Q = 0 on the diagonal), \"t1_evolution\" (the sheared t1 frequency "
+                "nu_t1 - R nu_CT: p - R times the isotropic scale), \"total_evolution\" (per unit of t1 + |R| t1: "
+                "(p - R) / (1 + |R|) times it) or \"file\" (stated in the file's metadata); required to fit 2D "
+                "data"),
     KeySpec("measurement", "t1_mode", "choice", "", "synchronised", choices=("synchronised", "free"),
             doc="t1 increments: \"synchronised\" with the rotor period (F1 sidebands fold onto the centre band) "
                 "or \"free\" (F1 sidebands n nu_r / (p - R) apart)"),
@@ -315,6 +319,12 @@ KEYS: tuple[KeySpec, ...] = (
     # ---- fit
     KeySpec("fit", "regions", "regions", "ppm", None,
             doc="fit regions [[ppm_hi, ppm_lo], ...]; the whole data axis when absent"),
+    KeySpec("fit", "f1_regions", "regions", "ppm", None,
+            doc="2D data: F1 regions [[ppm_hi, ppm_lo], ...] whose F2 slices are fitted (regions then limits F2); "
+                "every F1 row when neither this nor slice_f1_ppm is given"),
+    KeySpec("fit", "slice_f1_ppm", "numbers", "ppm", None, -1.0e6, 1.0e6,
+            doc="2D data: F1 positions of single F2 slices to fit (the data row nearest each), added to f1_regions",
+            why="offsets beyond +-1e6 ppm exceed the Larmor frequency itself"),
     KeySpec("fit", "noise_region", "region", "ppm", None,
             doc="signal-free region [ppm_hi, ppm_lo] for the noise level; from the residual when absent"),
     KeySpec("fit", "baseline_order", "integer", "", None, 0, 5,
@@ -441,7 +451,7 @@ def keys_of(table: str) -> dict[str, KeySpec]:
     Examples
     --------
     >>> list(keys_of("fit"))
-    ['regions', 'noise_region', 'baseline_order', 'result']
+    ['regions', 'f1_regions', 'slice_f1_ppm', 'noise_region', 'baseline_order', 'result']
     """
     return dict(_BY_TABLE.get(table, {}))
 

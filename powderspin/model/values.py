@@ -1061,6 +1061,10 @@ class FitSettings:
         A signal-free region (ppm_hi, ppm_lo) for the noise level.
     baseline_order : int or None
         Order of the polynomial baseline solved with the scale; None for none.
+    f1_regions : tuple of (float, float)
+        2D data: F1 regions (ppm_hi, ppm_lo) whose F2 slices are fitted.
+    slice_f1_ppm : tuple of float
+        2D data: F1 positions (ppm) of single F2 slices to fit.
 
     Examples
     --------
@@ -1071,12 +1075,25 @@ class FitSettings:
     regions: tuple = ()
     noise_region: tuple | None = None
     baseline_order: int | None = None
+    f1_regions: tuple = ()
+    slice_f1_ppm: tuple = ()
 
     def __post_init__(self):
         regs = []
         for i, r in enumerate(self.regions):
             regs.append(_check_region(f"fit: regions[{i}]", r))
         object.__setattr__(self, "regions", tuple(regs))
+        object.__setattr__(self, "f1_regions", tuple(_check_region(f"fit: f1_regions[{i}]", r)
+                                                     for i, r in enumerate(self.f1_regions)))
+        spec = key_spec("fit", "slice_f1_ppm")
+        cuts = []
+        for i, v in enumerate(self.slice_f1_ppm):
+            if isinstance(v, bool) or not isinstance(v, (int, float, np.integer, np.floating)) or not math.isfinite(v) \
+                    or not (spec.low <= v <= spec.high):
+                raise ModelError(f"fit: slice_f1_ppm[{i}] = {show(v)} must be a shift in [{spec.low:g}, {spec.high:g}] "
+                                 f"ppm ({spec.why})")
+            cuts.append(float(v))
+        object.__setattr__(self, "slice_f1_ppm", tuple(cuts))
         if self.noise_region is not None:
             object.__setattr__(self, "noise_region", _check_region("fit: noise_region", self.noise_region))
         if self.baseline_order is not None:

@@ -54,6 +54,25 @@ with delta_QIS = 1e6 c2 (1 + eta^2/3) Q_0(CT) / nu0 the CT's quadrupolar-induced
 shift (the powder centre of gravity of the 1D MAS CT line; A. Samoson, Chem.
 Phys. Lett. 119 (1985) 29).  For I = 3/2, 3QMAS: R = -7/9 and k_F1 = -10/17.
 
+Other F1 scales
+---------------
+The same sheared spectrum is drawn on other F1 scales in the literature; each
+is a fixed multiple c of the isotropic one (F1_other = c F1_isotropic, the
+same 0 ppm), derived here from R and p:
+
+- ``"isotropic"`` (c = 1): the convention above.
+- ``"t1_evolution"`` (c = p - R): the sheared t1 frequency nu_t1 - R nu_CT
+  itself, not divided by p - R, i.e. F1 in units of the multiple-quantum
+  (satellite) evolution per t1 increment; a pure shift lies at
+  (p - R) delta_iso.
+- ``"total_evolution"`` (c = (p - R) / (1 + |R|)): the sheared frequency per
+  unit of the whole evolution time, t1 plus the |R| t1 over which the echo
+  refocuses (F1 scaled by 1 + |k|, k = R in the literature's notation).
+
+:attr:`TwoDimensionalScale.f1_scale_factor` gives c; every output names the
+scale it uses.  Sign conventions of the coherence order differ between
+authors; here p > 0, and c > 0 for every transition of I <= 9/2.
+
 References
 ----------
 L. Frydman, J. S. Harwood, J. Am. Chem. Soc. 117 (1995) 5367 (MQMAS);
@@ -78,10 +97,20 @@ __all__ = [
     "rank_coefficients",
     "two_dimensional_scale",
     "isotropic_shifts_ppm",
+    "F1_SCALES",
 ]
 
 #: two-dimensional experiments (``"1d"`` is the ordinary spectrum)
 EXPERIMENTS = ("1d", "mqmas", "stmas")
+
+#: F1 scales of a sheared 2D spectrum: name -> plain description (factors: TwoDimensionalScale.f1_scale_factor)
+F1_SCALES = {
+    "isotropic": "F1 = (nu_t1 - R nu_CT) / (p - R): a site with C_Q = 0 lies on the diagonal (factor 1)",
+    "t1_evolution": ("F1 = nu_t1 - R nu_CT, the sheared t1 frequency in units of the multiple-quantum (satellite) "
+                     "evolution: factor p - R on the isotropic scale"),
+    "total_evolution": ("F1 = (nu_t1 - R nu_CT) / (1 + |R|), per unit of the whole evolution time t1 + |R| t1: "
+                        "factor (p - R) / (1 + |R|) on the isotropic scale"),
+}
 
 
 def _invariant_legendre() -> tuple[np.ndarray, np.ndarray]:
@@ -227,8 +256,50 @@ class TwoDimensionalScale:
         """
         return str(Fraction(self.f1_qis_factor).limit_denominator(10000))
 
-    def describe(self) -> dict:
+    def f1_scale_factor(self, name: str = "isotropic") -> float:
+        """The factor c of an F1 scale: F1 on that scale = c F1 on the isotropic scale (same 0 ppm).
+
+        Parameters
+        ----------
+        name : {"isotropic", "t1_evolution", "total_evolution"}
+            See :data:`F1_SCALES`.
+
+        Returns
+        -------
+        float
+            1, p - R or (p - R) / (1 + |R|).
+
+        Raises
+        ------
+        ValueError
+            An unknown name (the message lists the allowed ones).
+
+        References
+        ----------
+        S. E. Ashbrook, S. Wimperis, Prog. Nucl. Magn. Reson. Spectrosc. 45 (2004) 53 (F1 scaling conventions).
+
+        Examples
+        --------
+        >>> s = two_dimensional_scale(1.5, "mqmas", 3)
+        >>> [str(Fraction(s.f1_scale_factor(n)).limit_denominator(1000)) for n in F1_SCALES]
+        ['1', '34/9', '17/8']
+        """
+        p, r = self.order, self.ratio
+        if name == "isotropic":
+            return 1.0
+        if name == "t1_evolution":
+            return float(p - r)
+        if name == "total_evolution":
+            return float((p - r) / (1.0 + abs(r)))
+        raise ValueError(f"f1 scale {name!r} is not one of " + ", ".join(repr(k) for k in F1_SCALES))
+
+    def describe(self, f1_scale: str = "isotropic") -> dict:
         """The convention as metadata: formulas in words and the numbers that enter them.
+
+        Parameters
+        ----------
+        f1_scale : str, optional
+            The F1 scale (:data:`F1_SCALES`) the metadata describes.
 
         Returns
         -------
@@ -238,18 +309,29 @@ class TwoDimensionalScale:
         --------
         >>> two_dimensional_scale(1.5, "mqmas", 3).describe()["refocusing_ratio"]
         '-7/9'
+        >>> two_dimensional_scale(1.5, "mqmas", 3).describe("t1_evolution")["f1_scale_factor"]
+        '34/9'
         """
+        c = self.f1_scale_factor(f1_scale)
+        cf = str(Fraction(c).limit_denominator(10000))
         pairs = ", ".join(f"{_frac(a)} <-> {_frac(b)}" for a, b in self.t1_pairs)
         return {
             "experiment": self.experiment,
             "t1_transitions": pairs,
             "coherence_order": self.order,
             "refocusing_ratio": self.ratio_fraction,
-            "f1_scale": "isotropic",
-            "f1_definition": (f"nu_F1 = (nu_t1 - R nu_CT) / (p - R) with R = {self.ratio_fraction}, "
-                              f"p = {self.order}: a site with C_Q = 0 lies on the diagonal"),
+            "f1_scale": f1_scale,
+            "f1_scale_factor": cf,
+            "f1_qis_factor": self.f1_qis_fraction,
+            "f1_scale_description": F1_SCALES[f1_scale],
+            "f1_definition": ((f"nu_F1 = (nu_t1 - R nu_CT) / (p - R) with R = {self.ratio_fraction}, "
+                               f"p = {self.order}: a site with C_Q = 0 lies on the diagonal") if f1_scale == "isotropic"
+                              else (f"nu_F1 = ({cf}) (nu_t1 - R nu_CT) / (p - R) with R = {self.ratio_fraction}, "
+                                    f"p = {self.order}: a site with C_Q = 0 lies at F1 = ({cf}) delta_iso")),
             "f2_centre_of_gravity": "delta_F2 = delta_iso + delta_QIS",
-            "f1_centre_of_gravity": f"delta_F1 = delta_iso + ({self.f1_qis_fraction}) delta_QIS",
+            "f1_centre_of_gravity": (f"delta_F1 = delta_iso + ({self.f1_qis_fraction}) delta_QIS"
+                                     if f1_scale == "isotropic" else
+                                     f"delta_F1 = ({cf}) [delta_iso + ({self.f1_qis_fraction}) delta_QIS]"),
             "delta_QIS": ("-(3/40) (P_Q/nu0)^2 [I(I+1) - 3/4] / [I^2 (2I-1)^2] 1e6 ppm, "
                           "P_Q = C_Q sqrt(1 + eta^2/3)"),
         }

@@ -23,15 +23,22 @@ from ..files import check_outputs, write_via
 __all__ = ["plot_spectrum_2d", "save_plot_2d", "plot_fit_2d", "save_fit_report_2d"]
 
 
-def _k_f1(spectrum) -> float | None:
+def _fraction(text) -> float | None:
+    try:
+        return float(Fraction(str(text)))
+    except (ValueError, ZeroDivisionError):
+        return None
+
+
+def _f1_factors(spectrum) -> tuple[float, float | None]:
+    """(c, k_F1): the F1 scale's factor on the isotropic scale and the F1 quadrupolar-induced-shift factor."""
     conv = spectrum.metadata.get("f1_convention") or {}
+    c = _fraction(conv.get("f1_scale_factor", "1")) or 1.0
+    k = _fraction(conv["f1_qis_factor"]) if "f1_qis_factor" in conv else None
     text = conv.get("f1_centre_of_gravity", "")
-    if "(" in text and ")" in text:
-        try:
-            return float(Fraction(text[text.index("(") + 1:text.index(")")]))
-        except ValueError:
-            return None
-    return None
+    if k is None and "(" in text and ")" in text and "[" not in text:
+        k = _fraction(text[text.index("(") + 1:text.index(")")])
+    return c, k
 
 
 def _signal_range(ppm: np.ndarray, profile: np.ndarray, fraction: float) -> tuple[float, float]:
@@ -119,8 +126,8 @@ def plot_spectrum_2d(spectrum, fig: Figure | None = None, *, levels: int = 14, l
     if show_axes:
         lo = min(x.min(), y.min())
         hi = max(x.max(), y.max())
-        ax.plot([lo, hi], [lo, hi], color="0.4", lw=0.8, ls="--", label="CS axis")
-        k_f1 = _k_f1(spectrum)
+        c_f1, k_f1 = _f1_factors(spectrum)
+        ax.plot([lo, hi], [c_f1 * lo, c_f1 * hi], color="0.4", lw=0.8, ls="--", label="CS axis")
         sites = spectrum.metadata.get("sites", {})
         if k_f1 is not None:
             first = True
@@ -130,7 +137,7 @@ def plot_spectrum_2d(spectrum, fig: Figure | None = None, *, levels: int = 14, l
                     continue
                 iso = float(iso) + float(spectrum.metadata.get("shift_offset_ppm", 0.0))
                 d = np.array([x.min() - iso, x.max() - iso])
-                ax.plot(iso + d, iso + k_f1 * d, color=colours[k], lw=0.8, ls=":",
+                ax.plot(iso + d, c_f1 * (iso + k_f1 * d), color=colours[k], lw=0.8, ls=":",
                         label="QIS axis" if first else None)
                 first = False
         ax.legend(frameon=False, fontsize=8, loc="lower right")
@@ -145,7 +152,10 @@ def plot_spectrum_2d(spectrum, fig: Figure | None = None, *, levels: int = 14, l
     ax.set_ylim(y1, y0)  # and upwards
     nuc = spectrum.metadata.get("nucleus", "")
     ax.set_xlabel(f"F2 {nuc} shift / ppm".replace("  ", " "))
-    ax.set_ylabel(f"F1 {nuc} isotropic shift / ppm (sheared)".replace("  ", " "))
+    scale_name = (meta_conv := spectrum.metadata.get("f1_convention") or {}).get("f1_scale", "isotropic")
+    ylabel = (f"F1 {nuc} isotropic shift / ppm (sheared)" if scale_name == "isotropic" else
+              f"F1 {nuc} / ppm (sheared, {scale_name} scale x {meta_conv.get('f1_scale_factor', '?')})")
+    ax.set_ylabel(ylabel.replace("  ", " "))
     top.axis("off")
     right.axis("off")
     meta = spectrum.metadata
@@ -195,7 +205,8 @@ def save_plot_2d(spectrum, path, *, force: bool = False, protect=(), **options):
                      protect=protect, role="plot")
 
 
-def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lowest: float = 0.05) -> Figure:
+def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lowest: float = 0.05,
+                mask=None) -> Figure:
     """A 2D fit at a glance: data and fit contours side by side, the residual, and each site's F2 slice.
 
     Parameters
@@ -209,6 +220,11 @@ def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lo
         Contour levels (geometric, from ``lowest`` to 1 of the data's maximum).
     lowest : float, optional
         Lowest contour as a fraction of the data's maximum.
+    mask : array_like of bool (n1, n2), optional
+        The points the fit used; when it leaves some out, their boundary is
+        drawn (green, dashed) on the three contour panels, the residual's
+        largest value is taken within it, and each F2 slice marks the fitted
+        part of the row.
 
     Returns
     -------
@@ -217,7 +233,7 @@ def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lo
     Raises
     ------
     ValueError
-        Data and fit on different points.
+        Data and fit on different points, or a mask of another shape.
 
     Examples
     --------
@@ -233,6 +249,10 @@ def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lo
     if data.intensity.shape != fitted.intensity.shape or not (
             np.allclose(data.f1_ppm, fitted.f1_ppm) and np.allclose(data.f2_ppm, fitted.f2_ppm)):
         raise ValueError("data and fit must be on the same F1 and F2 points")
+    mk = np.ones(data.intensity.shape, dtype=bool) if mask is None else np.asarray(mask, dtype=bool)
+    if mk.shape != data.intensity.shape:
+        raise ValueError(f"mask has shape {mk.shape}; the data have {data.intensity.shape}")
+    partial = not bool(mk.all())
     if fig is None:
         fig = Figure(figsize=(10.0, 8.0), layout="constrained")
     x, y = data.f2_ppm, data.f1_ppm
@@ -244,8 +264,8 @@ def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lo
         ax.set_title(title, fontsize=10)
     res = data.intensity - fitted.intensity
     # residual contours from three standard deviations of the residual itself (so noise alone draws little)
-    big = float(np.max(np.abs(res)))
-    start = 3.0 * float(np.std(res))
+    big = float(np.max(np.abs(res[mk])))
+    start = 3.0 * float(np.std(res[mk]))
     ax = axes[1, 0]
     if big > start > 0:
         rl = np.geomspace(start, big, int(levels))
@@ -253,9 +273,11 @@ def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lo
             ax.contour(x, y, res, levels=rl, colors="C3", linewidths=0.6)
         if np.any(-res > start):
             ax.contour(x, y, -res, levels=rl, colors="C0", linewidths=0.6)
-    ax.set_title(f"residual, from 3 s.d. (red +, blue -); largest {100 * big / top:.2g} % of the data's maximum",
-                 fontsize=9)
+    ax.set_title(f"residual, from 3 s.d. (red +, blue -); largest {100 * big / top:.2g} % of the data's maximum"
+                 + (" (fitted part)" if partial else ""), fontsize=9)
     for a in (axes[0, 0], axes[0, 1], axes[1, 0]):
+        if partial and mk.any():
+            a.contour(x, y, mk.astype(float), levels=[0.5], colors="C2", linewidths=0.9, linestyles="--")
         a.set_xlim(x.max(), x.min())
         a.set_ylim(y.max(), y.min())
         a.set_xlabel("F2 / ppm")
@@ -263,6 +285,7 @@ def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lo
     ax = axes[1, 1]
     cogs = fitted.metadata.get("centres_of_gravity_ppm", {})
     offset = 0.0
+    marked = False
     for k, label in enumerate(fitted.site_labels):
         c = (cogs.get(label) or {}).get("f1")
         if c is None or not (y.min() <= c <= y.max()):
@@ -271,6 +294,10 @@ def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lo
         d_row, f_row = data.intensity[j], fitted.intensity[j]
         ax.plot(x, d_row + offset, color="k", lw=0.8, label="data" if k == 0 else None)
         ax.plot(x, f_row + offset, color=f"C{k % 10}", lw=1.0, label=f"{label} (F1 {y[j]:.1f} ppm)")
+        if partial and mk[j].any():
+            ax.plot(x[mk[j]], np.full(int(mk[j].sum()), offset), "|", color="C2", ms=4,
+                    label=None if marked else "fitted points")
+            marked = True
         offset += 1.1 * max(float(np.max(np.abs(d_row))), float(np.max(np.abs(f_row))))
     ax.set_xlim(x.max(), x.min())
     ax.set_yticks([])
@@ -280,7 +307,7 @@ def plot_fit_2d(data, fitted, fig: Figure | None = None, *, levels: int = 10, lo
     return fig
 
 
-def save_fit_report_2d(data, fitted, path, *, force: bool = False, protect=()):
+def save_fit_report_2d(data, fitted, path, *, force: bool = False, protect=(), mask=None):
     """Save :func:`plot_fit_2d` (PNG, PDF or SVG by suffix); never overwrites without force.
 
     Parameters
@@ -290,6 +317,8 @@ def save_fit_report_2d(data, fitted, path, *, force: bool = False, protect=()):
     path : str or pathlib.Path
     force : bool, optional
     protect : iterable of path, optional
+    mask : array_like of bool (n1, n2), optional
+        The points the fit used (:func:`plot_fit_2d`).
 
     Returns
     -------
@@ -301,6 +330,6 @@ def save_fit_report_2d(data, fitted, path, *, force: bool = False, protect=()):
 
     p = Path(path)
     check_outputs([(p, "report", PLOT_SUFFIXES)], force=force, protect=protect)
-    fig = plot_fit_2d(data, fitted)
+    fig = plot_fit_2d(data, fitted, mask=mask)
     return write_via(p, lambda tmp: fig.savefig(tmp, dpi=110, format=p.suffix[1:].lower()), force=force,
                      protect=protect, role="report")

@@ -7,6 +7,7 @@ from fractions import Fraction
 import pytest
 
 from powderspin.physics.multiple_quantum import (
+    F1_SCALES,
     allowed_mq_orders,
     isotropic_shifts_ppm,
     rank_coefficients,
@@ -100,3 +101,40 @@ def test_bad_mq_order_names_the_key_and_range(spin, order):
 def test_spins_without_a_central_transition_are_refused(spin):
     with pytest.raises(ValueError, match="half-integer spin of at least 3/2"):
         two_dimensional_scale(spin, "mqmas", 3)
+
+
+@pytest.mark.parametrize("spin", [1.5, 2.5, 3.5, 4.5])
+@pytest.mark.parametrize("experiment", ["mqmas", "stmas"])
+def test_f1_scale_factors_follow_their_stated_formulas(spin, experiment):
+    """Each F1 scale is a multiple of the isotropic one, derived from the code's R and p: t1_evolution = p - R
+    (the sheared t1 frequency nu_t1 - R nu_CT of a pure shift d is p d - R d), total_evolution = (p - R) / (1 + |R|)
+    (that frequency per unit of t1 + |R| t1)."""
+    orders = allowed_mq_orders(spin) if experiment == "mqmas" else (3,)
+    for p in orders:
+        s = two_dimensional_scale(spin, experiment, p)
+        assert s.f1_scale_factor("isotropic") == 1.0
+        assert s.f1_scale_factor("t1_evolution") == pytest.approx(s.order - s.ratio, rel=1e-14)
+        assert s.f1_scale_factor("total_evolution") == pytest.approx((s.order - s.ratio) / (1 + abs(s.ratio)),
+                                                                    rel=1e-14)
+        for name in F1_SCALES:
+            d = s.describe(name)
+            assert d["f1_scale"] == name and d["f1_scale_description"] == F1_SCALES[name]
+            assert float(Fraction(d["f1_scale_factor"])) == pytest.approx(s.f1_scale_factor(name), rel=1e-9)
+
+
+@pytest.mark.parametrize("spin,order,t1_factor,total_factor", [
+    # a pure shift after shearing with R = -7/9 (I = 3/2) lies at (3 + 7/9) = 34/9 delta_iso; scaled by 1 + |R|,
+    # at 17/8 delta_iso; for I = 5/2 (R = 19/12) at 17/12 and 17/31 delta_iso (S. E. Ashbrook, S. Wimperis,
+    # Prog. Nucl. Magn. Reson. Spectrosc. 45 (2004) 53, from memory of its discussion of F1 scaling)
+    (1.5, 3, Fraction(34, 9), Fraction(17, 8)),
+    (2.5, 3, Fraction(17, 12), Fraction(17, 31)),
+])
+def test_f1_scale_factors_match_the_published_values(spin, order, t1_factor, total_factor):
+    s = two_dimensional_scale(spin, "mqmas", order)
+    assert s.f1_scale_factor("t1_evolution") == pytest.approx(float(t1_factor), abs=1e-12)
+    assert s.f1_scale_factor("total_evolution") == pytest.approx(float(total_factor), abs=1e-12)
+
+
+def test_unknown_f1_scale_lists_the_allowed_ones():
+    with pytest.raises(ValueError, match="'isotropic', 't1_evolution', 'total_evolution'"):
+        two_dimensional_scale(1.5, "mqmas", 3).f1_scale_factor("ratio")
