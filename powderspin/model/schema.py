@@ -343,6 +343,10 @@ KEYS: tuple[KeySpec, ...] = (
             doc="first-order phase correction: its change from the low- to the high-frequency edge of the "
                 "spectral width, zero at the carrier (with phase = \"manual\")",
             why="more than 1e5 deg across the window is a wrong group delay"),
+    KeySpec("processing", "fit_phase", "choice", "", "refine", choices=("refine", "keep"),
+            doc="after automatic phasing (phase = \"auto\" or \"entropy\") of a FID or half echo, a fit refines "
+                "the zero- and first-order phase against the model as two nuisance parameters, whose uncertainty "
+                "enters the standard errors (\"refine\"), or takes the processed phase as exact (\"keep\")"),
     KeySpec("processing", "baseline", "choice", "", "none", choices=("none", "polynomial", "spline"),
             doc="baseline through automatically found signal-free regions (which are reported)"),
     KeySpec("processing", "baseline_degree", "integer", "", 1, 0, 8,

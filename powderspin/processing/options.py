@@ -64,6 +64,7 @@ class ProcessingOptions:
     phase: str = "auto"
     phase0_deg: float = 0.0
     phase1_deg: float = 0.0
+    fit_phase: str = "refine"
     baseline: str = "none"
     baseline_degree: int = 1
     referencing: str = "spectrometer"
