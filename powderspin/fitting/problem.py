@@ -238,7 +238,7 @@ class FitProblem:
         return e
 
     def _phase_columns(self, j: int, spectrum) -> list:
-        """The dispersion columns (D, x D) of a spectrum on measurement j's fit points (none where the phase is fixed)."""
+        """The dispersion columns (D, x D) on measurement j's fit points (none where the phase is fixed)."""
         x = self.phase_x[j]
         if x is None:
             return []

@@ -109,7 +109,8 @@ class ProcessingOptions:
         if self.echo_train != "none" and self.echo_period_us is None:
             raise ProcessingError("processing: echo_train = "
                                   f"{self.echo_train!r} needs echo_period_us (the time from one echo top to the "
-                                  "next, microseconds)")
+                                  "next, microseconds; in a model file it may be written once, as [measurement] "
+                                  "echo_train_period_us)")
 
     @classmethod
     def from_table(cls, table: Mapping | None) -> "ProcessingOptions":
