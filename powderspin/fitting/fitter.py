@@ -838,7 +838,9 @@ def _record_phase_refinement(problem, e, specs, phase_free, phase_err, notes, wh
     for j, corr in enumerate(found):
         if corr is None:
             continue
-        err0, err1 = (math.degrees(v) for v in phase_err[k:k + 2])
+        # the columns' coefficients are c phi0 and c phi1 (c the scale): errors of the angles, to first order
+        c0 = abs(float(e.coefs[j][0])) or 1.0
+        err0, err1 = (math.degrees(v / c0) for v in phase_err[k:k + 2])
         k += 2
         rec = json.loads(out[j].metadata["processing"])
         rec["phase"]["refined_by_fit"] = {"phase0_deg": corr[0], "phase0_stderr_deg": err0, "phase1_deg": corr[1],
