@@ -846,8 +846,16 @@ def _record_phase_refinement(problem, e, specs, phase_free, phase_err, notes, wh
         rec["phase"]["refined_by_fit"] = {"phase0_deg": corr[0], "phase0_stderr_deg": err0, "phase1_deg": corr[1],
                                           "phase1_stderr_deg": err1}
         meta = dict(out[j].metadata)
+        changes = {}
+        if out[j].imag is not None:  # the result's data carry the refined phase, so data - fit is the residual
+            n = out[j].intensity.size
+            x = (np.arange(n) - n // 2) / n
+            z = (np.asarray(out[j].intensity) + 1j * np.asarray(out[j].imag)) \
+                * np.exp(1j * np.deg2rad(corr[0] + corr[1] * x))
+            changes = {"intensity": z.real.copy(), "imag": z.imag.copy()}
+            rec["phase"]["refined_by_fit"]["applied_to_the_result_data"] = True
         meta["processing"] = json.dumps(rec, separators=(",", ":"))
-        out[j] = replace(out[j], metadata=meta)
+        out[j] = replace(out[j], metadata=meta, **changes)
         notes.append(f"{where(j)}: the automatic phase was refined with the fit (zero order {corr[0]:+.3g} +- "
                      f"{err0:.2g} deg, first order {corr[1]:+.3g} +- {err1:.2g} deg; their uncertainty is in the "
                      "standard errors); fit_phase = \"keep\" in [processing] takes the processed phase as exact")
