@@ -187,7 +187,9 @@ def read_measured(item, model: Model, j: int, axis_unit: str | None, accept_mism
         opts = ProcessingOptions.from_table(dict(model.processing))
         raw = read_raw(path, expect="any" if opts.row is not None else "fid")
         check_against_model(raw, nuc, meas.field_tesla, where=f"measurement {j + 1}")
-        return process(raw, opts), path, [], []
+        spec = process(raw, opts)
+        _check_echo_train(spec, meas, j, path)
+        return spec, path, [], []
     notes = []
     try:
         spec = _read(path, axis_unit, nuc, meas.field_tesla)
@@ -199,6 +201,23 @@ def read_measured(item, model: Model, j: int, axis_unit: str | None, accept_mism
     _refuse_other_sample(spec, path, model, j, accept_mismatch)
     warns = [f"measurement {j + 1}: {t}" for t in found]
     return spec, path, warns, notes
+
+
+def _check_echo_train(spec, meas, j: int, path) -> None:
+    """Spikelet data and the measurement's comb must be the same echo train (schema: the linked echo-train keys)."""
+    import json
+
+    rec = json.loads(spec.metadata.get("processing") or "{}").get("echo_train", {})
+    if rec.get("mode") != "spikelets":
+        return
+    if meas.echo_train_period_us is None:
+        raise FitError(f"measurement {j + 1}: {path!r} was processed into spikelets but the measurement simulates no "
+                       "echo train; write echo_period_us in [processing] (the measurement takes it from there)")
+    echoes = rec.get("echoes")
+    if echoes is not None and int(echoes) != meas.echo_train_echoes:
+        raise FitError(f"measurement {j + 1}: the processed echo train of {path!r} holds {int(echoes)} echoes but the "
+                       f"measurement's comb has echo_train_echoes = {meas.echo_train_echoes}; write echo_count = "
+                       f"{int(echoes)} in [processing] (the measurement takes it from there)")
 
 
 def _read(path, axis_unit, nucleus, field_tesla):

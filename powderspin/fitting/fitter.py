@@ -572,7 +572,8 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     for j, s in enumerate(sigmas):
         if not s > 0:
             sigmas[j] = max(1e-12 * float(np.max(np.abs(ys[j]))), 1e-300)
-    n_lin = n_meas * (1 + (0 if order is None else order + 1))
+    phase_free = [phase_refined(sp, ax) for sp, ax in zip(specs, axes)]
+    n_lin = n_meas * (1 + (0 if order is None else order + 1)) + 2 * sum(phase_free)
     n_points = int(sum(m.sum() for m in masks))
     dof = n_points - len(free) - n_lin
     if dof < 1:
@@ -586,7 +587,8 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     n_jobs = len(model.sites) * n_meas
     cache = SimulationCache(lines=4 * (len(free) + 3) * n_jobs, rendered=4 * (len(free) + 3) * n_jobs)
     base, fixed_phases, methods = _pinned_choices(base, axes, kernel_store, cache)
-    problem = FitProblem(base, free, axes, ys, masks, sigmas, methods, order, progress, kernel_store, cache)
+    problem = FitProblem(base, free, axes, ys, masks, sigmas, methods, order, progress, kernel_store, cache,
+                         phase_free=phase_free)
     x0 = np.array([p.start for p in free], dtype=float)
     # -- least squares (local or multi-start)
     n_starts, at_best = 1, 1
@@ -621,7 +623,7 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
             new = []
             for j, c2 in enumerate(problem.chi2_by_measurement(e)):
                 nj = int(masks[j].sum())
-                share = nj - (1 + len(problem.basis[j])) - len(free) * nj / n_points
+                share = nj - (1 + len(problem.basis[j]) + 2 * phase_free[j]) - len(free) * nj / n_points
                 new.append(problem.sigmas[j] * math.sqrt(c2 / max(share, 1.0)))
             ratio = [a / b for a, b in zip(new, problem.sigmas)]
             problem.sigmas = new
@@ -665,9 +667,14 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     # -- statistics
     e = problem.evaluate(x)
     chi2 = float(e.residual @ e.residual)
-    jfull, _ = problem.full_jacobian(x)
+    jfull, n_lin_each = problem.full_jacobian(x)
     cov = covariance_from_jacobian(jfull)
     p = len(free)
+    if any(phase_free):  # the phase columns come last: the others' covariance (phase uncertainty included)
+        keep = p + sum(n_lin_each)
+        phase_err = np.sqrt(np.clip(np.diag(cov)[keep:], 0.0, None))
+        cov = cov[:keep, :keep]
+        specs = _record_phase_refinement(problem, e, specs, phase_free, phase_err, notes, where)
     derived = reported_values(problem, x, e, cov)
     names = tuple(fp.name for fp in free)
     q_cov = derived["cov"]
@@ -775,6 +782,84 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
         warnings=tuple(warns), notes=tuple(notes), time_s=time.perf_counter() - t_start, starts=n_starts,
         starts_at_best=at_best, posterior=post, derived=dist_derived, excitation=excitation, minima=minima,
         curvature=tuple(curv), profile_intervals={n: (a, b) for n, (a, b, _, _) in profiles.items()})
+
+
+def phase_refined(spectrum, axis) -> bool:
+    """True when a fit refines the residual phase of these data (:mod:`powderspin.fitting.problem` notes).
+
+    Data processed by :func:`powderspin.processing.process` with automatic
+    phasing (``phase = "auto"`` or ``"entropy"``) of a FID or a half echo
+    (causal signals: a whole echo's phase error only scales its absorption),
+    not an echo train, with ``fit_phase = "refine"`` (the default), on the
+    whole window of the transform.
+
+    Parameters
+    ----------
+    spectrum : MeasuredSpectrum
+    axis : Axis
+        The data axis of the fit.
+
+    Returns
+    -------
+    bool
+
+    Examples
+    --------
+    >>> from powderspin.io.spectra import MeasuredSpectrum
+    >>> import numpy as np
+    >>> s = MeasuredSpectrum(hz=np.arange(8.0), ppm=np.arange(8.0) * 1e-2, intensity=np.ones(8), imag=None,
+    ...                      nu_ref_hz=1e8, source="memory")
+    >>> phase_refined(s, None)          # a spectrum that was not processed here
+    False
+    """
+    import json
+
+    text = (getattr(spectrum, "metadata", None) or {}).get("processing")
+    if not text or isinstance(axis, tuple):
+        return False
+    rec = json.loads(text)
+    if "combination" in rec or rec.get("options", {}).get("fit_phase", "refine") != "refine":
+        return False
+    if rec.get("phase", {}).get("mode") not in ("auto", "entropy"):
+        return False
+    if rec.get("echo", {}).get("mode") == "whole" or "echo_train" in rec:
+        return False
+    points = rec.get("transform", {}).get("points")
+    return points is not None and axis is not None and int(points) == axis.points
+
+
+def _record_phase_refinement(problem, e, specs, phase_free, phase_err, notes, where) -> list:
+    """Add the phase the fit refined to each spectrum's processing record and say it in the notes."""
+    import json
+
+    out = list(specs)
+    found = problem.phase_correction_deg(e)
+    k = 0
+    for j, corr in enumerate(found):
+        if corr is None:
+            continue
+        # the columns' coefficients are c phi0 and c phi1 (c the scale): errors of the angles, to first order
+        c0 = abs(float(e.coefs[j][0])) or 1.0
+        err0, err1 = (math.degrees(v / c0) for v in phase_err[k:k + 2])
+        k += 2
+        rec = json.loads(out[j].metadata["processing"])
+        rec["phase"]["refined_by_fit"] = {"phase0_deg": corr[0], "phase0_stderr_deg": err0, "phase1_deg": corr[1],
+                                          "phase1_stderr_deg": err1}
+        meta = dict(out[j].metadata)
+        changes = {}
+        if out[j].imag is not None:  # the result's data carry the refined phase, so data - fit is the residual
+            n = out[j].intensity.size
+            x = (np.arange(n) - n // 2) / n
+            z = (np.asarray(out[j].intensity) + 1j * np.asarray(out[j].imag)) \
+                * np.exp(1j * np.deg2rad(corr[0] + corr[1] * x))
+            changes = {"intensity": z.real.copy(), "imag": z.imag.copy()}
+            rec["phase"]["refined_by_fit"]["applied_to_the_result_data"] = True
+        meta["processing"] = json.dumps(rec, separators=(",", ":"))
+        out[j] = replace(out[j], metadata=meta, **changes)
+        notes.append(f"{where(j)}: the automatic phase was refined with the fit (zero order {corr[0]:+.3g} +- "
+                     f"{err0:.2g} deg, first order {corr[1]:+.3g} +- {err1:.2g} deg; their uncertainty is in the "
+                     "standard errors); fit_phase = \"keep\" in [processing] takes the processed phase as exact")
+    return out
 
 
 def excitation_report(fitted: Model, spectra, site_err) -> dict:

@@ -59,7 +59,7 @@ from .values import (
 )
 
 __all__ = ["load_model", "parse_model", "make_model", "make_site", "model_from_tables", "parse_site_table",
-           "model_to_dict", "parse_processing",
+           "model_to_dict", "parse_processing", "reconcile_linked_keys",
            "model_to_toml", "write_model", "MAX_MODEL_BYTES"]
 
 #: largest model file read (bytes); a model file is a few kB of text
@@ -560,10 +560,113 @@ def parse_model(data: Any, source: str = "") -> Model:
     if not isinstance(sites_t, list):
         raise ModelError("model: 'site' must be [[site]] tables")
     meas_list, sites_t = _exact_values(data.get("fit"), meas_list, sites_t)
-    model = model_from_tables(nuc, meas_list, sites_t, data.get("fit", {}), source)
+    processing = None
     if "processing" in data:
-        model = replace(model, processing=parse_processing(data["processing"]))
+        processing = dict(parse_processing(data["processing"]))
+        meas_list, processing = reconcile_linked_keys(meas_list, processing)
+    model = model_from_tables(nuc, meas_list, sites_t, data.get("fit", {}), source)
+    if processing is not None:
+        model = replace(model, processing=tuple(sorted(processing.items())))
     return model
+
+
+def _linked_pairs():
+    """(processing key, measurement key) of every pair the schema marks as one quantity."""
+    return [(k.name, k.linked_to.split(".", 1)[1]) for k in KEYS
+            if k.table == "processing" and k.linked_to.startswith("measurement.")]
+
+
+def reconcile_linked_keys(measurements: list, processing: dict) -> tuple[list, dict]:
+    """One value for each pair of keys the schema links (``KeySpec.linked_to``): refused when written twice apart.
+
+    The ``[processing]`` echo-train keys say how the data were made into a
+    spectrum; the ``[measurement]`` echo-train keys simulate that spectrum.
+    ``echo_period_us`` is ``echo_train_period_us`` (the echo period tau, the
+    spikelets 1/tau apart); ``echo_count`` is ``echo_train_echoes`` (the
+    echoes transformed into spikelets).  The rules:
+
+    - written in both places: they must agree (else one :class:`ModelError`
+      naming both and saying what to write);
+    - with ``echo_train = "spikelets"`` a measurement without its key takes
+      the processing's value (it then simulates the spikelets the processing
+      makes); a processing without ``echo_period_us`` (or, for spikelets,
+      ``echo_count``) takes the measurements' value when they agree;
+    - ``echo_train = "coadd"`` makes one pattern without spikelets: a
+      measurement simulating the spikelet comb is refused (``echo_train_output
+      = "envelope"`` gives the pattern).
+
+    Parameters
+    ----------
+    measurements : list of dict
+        The raw ``[measurement]`` tables (not changed; changed copies are returned).
+    processing : dict
+        The checked ``[processing]`` table.
+
+    Returns
+    -------
+    measurements, processing : list of dict, dict
+
+    Raises
+    ------
+    ModelError
+
+    Examples
+    --------
+    >>> m, p = reconcile_linked_keys([{"field_tesla": 9.4}], {"echo_train": "spikelets", "echo_period_us": 200.0})
+    >>> m[0]["echo_train_period_us"]
+    200.0
+    >>> reconcile_linked_keys([{"field_tesla": 9.4, "echo_train_period_us": 250.0}],
+    ...                       {"echo_train": "spikelets", "echo_period_us": 200.0})
+    Traceback (most recent call last):
+    ...
+    powderspin.model.values.ModelError: measurement: echo_train_period_us = 250 but [processing] echo_period_us = 200: \
+one value (the echo period), written twice; write it once, in [processing] echo_period_us (the measurement takes it \
+from there)
+    """
+    meas = [dict(m) if isinstance(m, dict) else m for m in measurements]
+    proc = dict(processing)
+    mode = proc.get("echo_train", "none")
+    n = len(meas)
+
+    def where(j):
+        return "measurement" if n == 1 else f"measurement {j + 1}"
+
+    for p_key, m_key in _linked_pairs():
+        what = key_spec("processing", p_key)
+        label = "the echo period" if p_key == "echo_period_us" else "the number of echoes"
+        pv = proc.get(p_key)
+        given = [(j, m[m_key]) for j, m in enumerate(meas) if isinstance(m, dict) and m_key in m]
+        for j, mv in given:
+            if pv is not None and _is_number(mv) and not math.isclose(float(mv), float(pv), rel_tol=1e-9):
+                raise ModelError(f"{where(j)}: {m_key} = {mv:g} but [processing] {p_key} = {pv:g}: one value "
+                                 f"({label}), written twice; write it once, in [processing] {p_key} (the "
+                                 "measurement takes it from there)")
+        if mode == "none":
+            continue
+        count_key = p_key == "echo_count"
+        if pv is None and given and (mode == "spikelets" or not count_key):
+            values = {float(mv) for _, mv in given if _is_number(mv)}
+            if len(values) > 1:
+                shown = ", ".join(f"{v:g}" for v in sorted(values))
+                raise ModelError(f"the measurements give different {m_key} ({shown}) but one [processing] table "
+                                 f"(echo_train = \"{mode}\") processes all their data; fit them from separate model "
+                                 "files")
+            if values:
+                v = values.pop()
+                proc[p_key] = int(v) if what.kind == "integer" else v
+        elif pv is not None and mode == "spikelets":
+            for m in meas:
+                if isinstance(m, dict) and m_key not in m:
+                    m[m_key] = pv
+    if mode == "coadd":
+        for j, m in enumerate(meas):
+            if isinstance(m, dict) and "echo_train_period_us" in m and m.get("echo_train_output",
+                                                                              "spikelets") == "spikelets":
+                raise ModelError(f"{where(j)}: [processing] echo_train = \"coadd\" co-adds the echoes into one "
+                                 "pattern without spikelets, but echo_train_period_us simulates the spikelet comb; "
+                                 "write echo_train_output = \"envelope\" in the measurement (or process with "
+                                 "echo_train = \"spikelets\")")
+    return meas, proc
 
 
 def load_model(path) -> Model:

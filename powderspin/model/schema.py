@@ -77,6 +77,13 @@ class KeySpec:
         What the key means (one line, for the README table).
     why : str
         Why the range is what it is (appears in the error message).
+    linked_to : str
+        ``"table.key"`` of another key that holds the same quantity (a
+        ``[processing]`` key and the ``[measurement]`` key that simulates what
+        that processing makes).  Written in both places, the two must agree;
+        written in one, the other takes it where it applies
+        (:func:`powderspin.model.modelfile.reconcile_linked_keys`).  ``""`` for
+        most keys.
 
     Examples
     --------
@@ -97,6 +104,7 @@ class KeySpec:
     free: bool = False
     doc: str = ""
     why: str = ""
+    linked_to: str = ""
 
     def range_text(self) -> str:
         """The allowed range as text, e.g. ``[0, 1]`` or ``(0, 40]``.
@@ -190,11 +198,14 @@ KEYS: tuple[KeySpec, ...] = (
                 "pulses, the axis centre for an echo train",
             why="offsets beyond +-1e6 ppm exceed the Larmor frequency itself"),
     KeySpec("measurement", "echo_train_period_us", "number", "us", None, 0.0, 1.0e6, low_open=True,
-            doc="echo-to-echo period tau of a (Q)CPMG echo train: the spectrum becomes spikelets 1/tau apart",
-            why="echo periods span tens of microseconds to milliseconds (common practice); 1 s bounds typos"),
+            doc="echo-to-echo period tau of a (Q)CPMG echo train: the spectrum becomes spikelets 1/tau apart "
+                "(the same value as [processing] echo_period_us, taken from there when the data are processed)",
+            why="echo periods span tens of microseconds to milliseconds (common practice); 1 s bounds typos",
+            linked_to="processing.echo_period_us"),
     KeySpec("measurement", "echo_train_echoes", "integer", "", 32, 1, 100000,
-            doc="number of echoes acquired in the echo train",
-            why="at least one echo; 1e5 echoes exceeds any acquisition"),
+            doc="number of echoes in the echo train that makes the spikelets (the same value as [processing] "
+                "echo_count, taken from there when the data are processed into spikelets)",
+            why="at least one echo; 1e5 echoes exceeds any acquisition", linked_to="processing.echo_count"),
     KeySpec("measurement", "echo_train_t2_ms", "number", "ms", None, 0.0, 1.0e5, low_open=True,
             doc="decay time constant T2 of the echo train's echo tops; absent: no decay",
             why="T2 beyond 100 s is longer than any solid's"),
@@ -354,11 +365,13 @@ KEYS: tuple[KeySpec, ...] = (
             doc="echo train (CPMG/QCPMG): co-add the echoes into one whole echo, or transform the whole "
                 "train into a spikelet spectrum"),
     KeySpec("processing", "echo_period_us", "number", "us", None, 0.0, 1.0e6, low_open=True,
-            doc="time from one echo top to the next in an echo train (microseconds)",
-            why="echo periods are microseconds to a second"),
+            doc="time from one echo top to the next in an echo train (microseconds); the same value as "
+                "[measurement] echo_train_period_us (write it once: each takes it from the other)",
+            why="echo periods are microseconds to a second", linked_to="measurement.echo_train_period_us"),
     KeySpec("processing", "echo_count", "integer", "", None, 1, 1.0e5,
-            doc="number of echoes to co-add; every whole echo in the data when absent",
-            why="at least one echo"),
+            doc="number of echoes to co-add or to transform into spikelets; every echo in the data when absent; "
+                "the same value as [measurement] echo_train_echoes (spikelets: each takes it from the other)",
+            why="at least one echo", linked_to="measurement.echo_train_echoes"),
     KeySpec("processing", "dc_offset", "choice", "", "tail", choices=("tail", "none"),
             doc="subtract the mean of the last tenth of the FID (a receiver offset) before anything else"),
     KeySpec("processing", "exponential_hz", "number", "Hz", 0.0, 0.0, 1.0e6,
@@ -379,6 +392,10 @@ KEYS: tuple[KeySpec, ...] = (
             doc="first-order phase correction: its change from the low- to the high-frequency edge of the "
                 "spectral width, zero at the carrier (with phase = \"manual\")",
             why="more than 1e5 deg across the window is a wrong group delay"),
+    KeySpec("processing", "fit_phase", "choice", "", "refine", choices=("refine", "keep"),
+            doc="after automatic phasing (phase = \"auto\" or \"entropy\") of a FID or half echo, a fit refines "
+                "the zero- and first-order phase against the model as two nuisance parameters, whose uncertainty "
+                "enters the standard errors (\"refine\"), or takes the processed phase as exact (\"keep\")"),
     KeySpec("processing", "baseline", "choice", "", "none", choices=("none", "polynomial", "spline"),
             doc="baseline through automatically found signal-free regions (which are reported)"),
     KeySpec("processing", "baseline_degree", "integer", "", 1, 0, 8,

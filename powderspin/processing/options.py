@@ -64,6 +64,7 @@ class ProcessingOptions:
     phase: str = "auto"
     phase0_deg: float = 0.0
     phase1_deg: float = 0.0
+    fit_phase: str = "refine"
     baseline: str = "none"
     baseline_degree: int = 1
     referencing: str = "spectrometer"
@@ -108,7 +109,8 @@ class ProcessingOptions:
         if self.echo_train != "none" and self.echo_period_us is None:
             raise ProcessingError("processing: echo_train = "
                                   f"{self.echo_train!r} needs echo_period_us (the time from one echo top to the "
-                                  "next, microseconds)")
+                                  "next, microseconds; in a model file it may be written once, as [measurement] "
+                                  "echo_train_period_us)")
 
     @classmethod
     def from_table(cls, table: Mapping | None) -> "ProcessingOptions":

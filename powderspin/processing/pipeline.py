@@ -241,8 +241,11 @@ def process(data, options: ProcessingOptions | None = None, *, reference=None, *
             if opts.echo_count is not None:
                 end = int(round(first + (opts.echo_count - 0.5) * period))
                 s = s[: max(end, int(first) + 2)]
+                echoes = opts.echo_count
+            else:  # every echo whose top lies in the data
+                echoes = int(math.floor((s.size - 1 - first) / period)) + 1
             rec["echo_train"] = {"mode": "spikelets", "first_top_points": float(first), "period_points": period,
-                                 "spikelet_spacing_hz": 1.0 / (opts.echo_period_us * 1e-6)}
+                                 "spikelet_spacing_hz": 1.0 / (opts.echo_period_us * 1e-6), "echoes": echoes}
             echo, top = "half", float(first)
         n = s.size
 

@@ -117,27 +117,45 @@ def test_process_bad_input(folders, tmp_path, name, make, expect):
 
 @pytest.mark.slow
 def test_fit_on_the_folder_as_well_as_on_the_clean_spectrum(tmp_path):
-    """Eight noise draws: the folders (group delay, phase errors, DC offset, noise) fitted through the [processing]
+    """Twenty noise draws: the folders (group delay, phase errors, DC offset, noise) fitted through the [processing]
     table recover C_Q, eta and delta_iso as well as the clean spectra with the same noise (processed without any
-    error to correct): RMS deviation from the truth below three stated standard errors for both, and the
-    folders' RMS deviation at most twice the clean spectra's plus half a standard error.  (The two do not
-    agree draw by draw: phasing rotates the noise into the real part differently; and the zero-order phase
-    found from the noisy first points of the FID, about 0.4 deg RMS here, adds to the shift's error, which is
-    only a few hundredths of a ppm.)"""
+    error to correct).
+
+    The noise enters before the phase errors and the filter (``noise_first``), as receiver noise does, so that
+    each folder, once corrected, holds the same noise as its clean spectrum: the comparison is paired and measures
+    what the unknown phase costs, not the luck of two noise draws.  Automatic phasing reads the zero order from
+    the first points of the FID (about 0.4 deg RMS here), and the shift moves by 0.08 ppm per degree of zero-order
+    phase error: with the processed phase taken as exact the folders' shift was off by 0.020 ppm RMS against 0.013
+    ppm from the clean spectra (40 draws).  The fit therefore refines the residual phase against the model
+    (dispersion columns, powderspin/fitting/problem.py); over 60 draws the folders' RMS deviations are then
+    1.07 (shift), 1.00 (C_Q) and 1.00 (eta) times the clean spectra's, and the stated standard error of the
+    shift grows from 0.0119 to 0.0138 ppm (the phase's share of the uncertainty, as the Fisher information of
+    the joint problem predicts).
+
+    Checks: RMS deviation from the truth below three stated standard errors for both; the folders' RMS deviation
+    at most twice the clean spectra's plus half a standard error; and "as well as": at most 1.3 times the clean
+    spectra's for each parameter (our criterion: the shift's ratio over 20 of those 60 draws, chosen at random,
+    has median 1.07, 95th percentile 1.24 and 99th 1.32; C_Q and eta stay within 1.14)."""
     g, nu = simulate_on_fft_grid("27Al", 9.4, [TRUTH], M, DWELL, OFFSET, **MEAS)
     kw = dict(dwell_s=DWELL, sfo1_mhz=(nu + OFFSET) / 1e6, bf1_mhz=nu / 1e6, nucleus="27Al", group_delay=GRPDLY)
     model = ps.parse_model(tomllib.loads(_model_text()), source=str(tmp_path / "m.toml"))
     keys = {"shift_ppm": TRUTH["shift_ppm"], "cq_mhz": TRUTH["cq_mhz"], "eta_q": TRUTH["eta_q"]}
     dev = {k: ([], [], []) for k in keys}
-    for seed in range(8):
-        raw = fid_from_spectrum(g, DWELL, N, group_delay=GRPDLY, phase0_deg=-65.0 + 20 * seed, phase1_deg=40.0,
-                                dc=0.03 + 0.02j, noise=4e-3, seed=seed)
+    phase_dev, phase_err = [], []
+    for seed in range(20):
+        e0 = (-65.0 + 20 * seed + 180.0) % 360.0 - 180.0
+        raw = fid_from_spectrum(g, DWELL, N, group_delay=GRPDLY, phase0_deg=e0, phase1_deg=40.0,
+                                dc=0.03 + 0.02j, noise=4e-3, seed=seed, noise_first=True)
         folder = write_bruker(tmp_path / f"exp{seed}", raw, **kw)
-        clean = fid_from_spectrum(g, DWELL, N, group_delay=GRPDLY, noise=4e-3, seed=seed)
+        clean = fid_from_spectrum(g, DWELL, N, group_delay=GRPDLY, noise=4e-3, seed=seed, noise_first=True)
         on_folder = ps.fit(model, [str(folder)])
         spec = process(RawFID(clean, DWELL, nu + OFFSET, nu, "27Al", 9.4, GRPDLY, "clean"), phase="none",
                        dc_offset="none", zero_fill_points=4096)
         on_clean = ps.fit(model, [spec])
+        ph = json.loads(on_folder.data[0].metadata["processing"])["phase"]
+        # the zero order in the end (processing + fit) against the synthetic error's correction (-e0), at the carrier
+        phase_dev.append((ph["phase0_deg"] + ph["refined_by_fit"]["phase0_deg"] + e0 + 180.0) % 360.0 - 180.0)
+        phase_err.append(ph["refined_by_fit"]["phase0_stderr_deg"])
         for k, true in keys.items():
             name = f"Al.{k}"
             dev[k][0].append(on_folder.values[name] - true)
@@ -145,11 +163,21 @@ def test_fit_on_the_folder_as_well_as_on_the_clean_spectrum(tmp_path):
             dev[k][2].append(on_clean.stderr[name])
     for k, (a, b, e) in dev.items():
         rms_a, rms_b, err = (float(np.sqrt(np.mean(np.square(v)))) for v in (a, b, e))
-        print(f"{k}: RMS deviation folder {rms_a:.4g}, clean {rms_b:.4g}, standard error {err:.4g}")
+        print(f"{k}: RMS deviation folder {rms_a:.4g}, clean {rms_b:.4g}, ratio {rms_a / rms_b:.3f}, "
+              f"standard error {err:.4g}")
         assert rms_a < 3 * err and rms_b < 3 * err, (k, rms_a, rms_b, err)
         assert rms_a <= 2.0 * rms_b + 0.5 * err, (k, rms_a, rms_b, err)
-    rec = on_folder.data[0].metadata["processing"]
-    assert json.loads(rec)["options"] == {"zero_fill_points": 4096}
+        assert rms_a <= 1.3 * rms_b, (k, rms_a, rms_b)
+    # the refined zero order is as good as its stated error (within 1.5 x: an RMS over 20 draws scatters by about
+    # 1 / sqrt(40) = 16 %)
+    rms_phase, err_phase = (float(np.sqrt(np.mean(np.square(v)))) for v in (phase_dev, phase_err))
+    print(f"zero-order phase after the fit: RMS deviation {rms_phase:.3g} deg, stated error {err_phase:.3g} deg")
+    assert rms_phase < 1.5 * err_phase, (rms_phase, err_phase)
+    rec = json.loads(on_folder.data[0].metadata["processing"])
+    assert rec["options"] == {"zero_fill_points": 4096}
+    refined = rec["phase"]["refined_by_fit"]
+    assert abs(refined["phase0_deg"]) < 2.0 and refined["phase0_stderr_deg"] > 0
+    assert any("phase was refined" in n for n in on_folder.notes)
 
 
 def test_fit_command_records_the_processing(folders, tmp_path):

@@ -108,3 +108,71 @@ def test_parameter_errors_name_the_key(mutate, needle):
     mutate(d)
     with pytest.raises(ValueError, match=needle):
         parse_model(d)
+
+
+# ---- the echo-train keys of [processing] and [measurement]: one value each (schema: KeySpec.linked_to)
+
+def _echo_model(measurement: dict, processing: dict, n_meas: int = 1):
+    meas = [{"field_tesla": 9.4, **measurement} for _ in range(n_meas)]
+    return parse_model({"nucleus": "93Nb", "measurement": meas if n_meas > 1 else meas[0],
+                        "site": [{"cq_mhz": 60.0, "eta_q": 0.2}], "processing": processing})
+
+
+def test_schema_links_each_echo_train_key_to_its_twin():
+    from powderspin.model.schema import key_spec
+
+    for table, name, other in [("processing", "echo_period_us", "measurement.echo_train_period_us"),
+                               ("processing", "echo_count", "measurement.echo_train_echoes")]:
+        assert key_spec(table, name).linked_to == other
+        back_table, back_name = other.split(".")
+        assert key_spec(back_table, back_name).linked_to == f"{table}.{name}"
+
+
+def test_spikelet_processing_gives_the_measurement_its_period_and_echoes():
+    m = _echo_model({}, {"echo_train": "spikelets", "echo_period_us": 200.0, "echo_count": 16})
+    meas = m.measurements[0]
+    assert meas.echo_train_period_us == 200.0 and meas.echo_train_echoes == 16
+    back = parse_model(tomllib.loads(model_to_toml(m)))          # written in both places now: they agree
+    assert back.measurements[0].echo_train_period_us == 200.0 and dict(back.processing)["echo_count"] == 16
+
+
+def test_measurement_period_fills_the_processing():
+    from powderspin.processing import ProcessingOptions
+
+    m = _echo_model({"echo_train_period_us": 180.0, "echo_train_output": "envelope"}, {"echo_train": "coadd"})
+    assert dict(m.processing)["echo_period_us"] == 180.0
+    assert "echo_count" not in dict(m.processing)                  # co-adding: every echo in the data
+    assert ProcessingOptions.from_table(dict(m.processing)).echo_period_us == 180.0
+
+
+def test_one_value_written_twice_apart_is_refused():
+    with pytest.raises(ValueError) as e:
+        _echo_model({"echo_train_period_us": 250.0}, {"echo_train": "spikelets", "echo_period_us": 200.0})
+    text = str(e.value)
+    assert "\n" not in text
+    assert text == ("measurement: echo_train_period_us = 250 but [processing] echo_period_us = 200: one value (the "
+                    "echo period), written twice; write it once, in [processing] echo_period_us (the measurement "
+                    "takes it from there)")
+    with pytest.raises(ValueError, match="echo_train_echoes = 32 but .processing. echo_count = 16"):
+        _echo_model({"echo_train_echoes": 32}, {"echo_train": "spikelets", "echo_period_us": 200.0,
+                                                "echo_count": 16})
+
+
+def test_old_files_with_both_keys_agreeing_still_read():
+    m = _echo_model({"echo_train_period_us": 200.0, "echo_train_echoes": 16},
+                    {"echo_train": "spikelets", "echo_period_us": 200.0, "echo_count": 16})
+    assert m.measurements[0].echo_train_period_us == 200.0
+
+
+def test_coadded_data_with_a_spikelet_comb_are_refused():
+    with pytest.raises(ValueError, match='echo_train = "coadd" co-adds the echoes.*write echo_train_output = '
+                                         '"envelope"'):
+        _echo_model({"echo_train_period_us": 200.0}, {"echo_train": "coadd"})
+
+
+def test_measurements_with_different_periods_and_one_processing_table_are_refused():
+    m = {"nucleus": "93Nb", "site": [{"cq_mhz": 60.0}], "processing": {"echo_train": "spikelets"},
+         "measurement": [{"field_tesla": 9.4, "echo_train_period_us": 200.0},
+                         {"field_tesla": 9.4, "echo_train_period_us": 300.0}]}
+    with pytest.raises(ValueError, match=r"different echo_train_period_us \(200, 300\).*separate model files"):
+        parse_model(m)

@@ -14,7 +14,11 @@ The model of the acquisition (an ideal linear-phase digital filter):
   ``exp(-2 pi i f G dw)`` are applied to the transform; the stored FID is the
   first N points of its inverse (the points before the delayed start hold the
   band-limited ringing of the jump, as a real filter's output does);
-- a complex DC offset and seeded complex Gaussian noise are added.
+- a complex DC offset and seeded complex Gaussian noise are added; with
+  ``noise_first=True`` the noise enters before the phase error and the filter
+  (as receiver noise passes the same filter and phase as the signal), so that
+  two FIDs with the same seed and different phase errors hold the same noise
+  once each is corrected (a paired comparison of processing).
 """
 
 from __future__ import annotations
@@ -50,7 +54,7 @@ def simulate_on_fft_grid(nucleus, field, sites, m, dwell_s, carrier_offset_hz, *
 
 
 def fid_from_spectrum(g, dwell_s, n_keep, *, group_delay=0.0, phase0_deg=0.0, phase1_deg=0.0,
-                      dc=0.0, noise=0.0, seed=0):
+                      dc=0.0, noise=0.0, seed=0, noise_first=False):
     """The stored FID of the absorptive spectrum g (module notes); dc and noise relative to the FID's largest point."""
     m = g.size
     herm = np.fft.ifft(np.fft.ifftshift(g))
@@ -58,15 +62,19 @@ def fid_from_spectrum(g, dwell_s, n_keep, *, group_delay=0.0, phase0_deg=0.0, ph
     causal[m // 2:] = 0.0
     if group_delay:
         causal[0] *= 0.5        # a digital filter samples the band-limited jump at its mid-point
+    rng = np.random.default_rng(seed)
+    top = np.max(np.abs(causal))
+    if noise_first and noise:
+        causal[:n_keep] += top * noise * (rng.normal(size=n_keep) + 1j * rng.normal(size=n_keep))
     spec = np.fft.fftshift(np.fft.fft(causal))
     x = (np.arange(m) - m // 2) / m
     f = x / dwell_s
     spec = spec * np.exp(1j * np.deg2rad(phase0_deg + phase1_deg * x)) * np.exp(-2j * np.pi * f * group_delay * dwell_s)
     fid = np.fft.ifft(np.fft.ifftshift(spec))[:n_keep]
+    if noise_first:
+        return fid + top * dc
     top = np.max(np.abs(fid))
-    rng = np.random.default_rng(seed)
-    fid = fid + top * (dc + noise * (rng.normal(size=n_keep) + 1j * rng.normal(size=n_keep)))
-    return fid
+    return fid + top * (dc + noise * (rng.normal(size=n_keep) + 1j * rng.normal(size=n_keep)))
 
 
 def write_bruker(folder, fid, *, dwell_s, sfo1_mhz, bf1_mhz, nucleus, group_delay=None, decim=None, dspfvs=None,

@@ -66,6 +66,7 @@ def test_spikelets_at_multiples_of_the_inverse_period(train):
     spec = process(raw, echo_train="spikelets", echo_period_us=PERIOD * DWELL * 1e6, zero_fill_points=1 << 17)
     spacing = 1.0 / (PERIOD * DWELL)
     assert processing_record(spec)["echo_train"]["spikelet_spacing_hz"] == pytest.approx(spacing)
+    assert processing_record(spec)["echo_train"]["echoes"] == ECHOES     # every echo whose top lies in the data
     y, hz = spec.intensity, spec.hz
     step = hz[1] - hz[0]
     f_grid = fft_axis_hz(M, DWELL)
