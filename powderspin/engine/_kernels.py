@@ -1509,10 +1509,14 @@ def _rf_eigen(levels, ix_off, nu1, dg, of, lam, v):
 
 @njit(cache=True, inline="always")
 def _phasors(lam, t, e):
-    """e[k] = exp(-i 2 pi lam[k] t)."""
+    """e[k] = exp(-i 2 pi lam[k] t) (the polynomial ``_sincos`` where it is accurate, |angle| < 1e6)."""
     for k in range(lam.shape[0]):
         ang = -2.0 * math.pi * lam[k] * t
-        e[k] = complex(math.cos(ang), math.sin(ang))
+        if abs(ang) < 1e6:
+            c, s = _sincos(ang)
+            e[k] = complex(c, s)
+        else:
+            e[k] = complex(math.cos(ang), math.sin(ang))
 
 
 @njit(cache=True, inline="always")
