@@ -118,6 +118,24 @@ class _Memo(dict):
             del self[next(iter(self))]
 
 
+class _ArrayMemo(dict):
+    """A dict of arrays that forgets its oldest entries beyond ``max_bytes`` of array data."""
+
+    def __init__(self, max_bytes: int):
+        super().__init__()
+        self.max_bytes = max(0, int(max_bytes))
+        self.nbytes = 0
+
+    def __setitem__(self, key, value):
+        if key in self:
+            self.nbytes -= self[key].nbytes
+            super().__delitem__(key)
+        super().__setitem__(key, value)
+        self.nbytes += value.nbytes
+        while self.nbytes > self.max_bytes and len(self) > 1:
+            self.nbytes -= super().pop(next(iter(self))).nbytes
+
+
 class SimulationCache:
     """What Simulators keep between calls: lines by job and binned lines by (job, axis, binning).
 
@@ -131,6 +149,10 @@ class SimulationCache:
         Most ``SiteJob -> SiteLines`` entries kept.
     rendered : int, optional
         Most binned-lines entries kept.
+    weights_mb : float, optional
+        Memory (MB) for the per-orientation finite-pulse MQMAS efficiencies, kept by (job, pulses): the nodes
+        of an EFG distribution in 2D are far more than the lines memo holds, and their efficiencies cost
+        several times their lines.
 
     Examples
     --------
@@ -139,9 +161,10 @@ class SimulationCache:
     (0, 0)
     """
 
-    def __init__(self, lines: int = 64, rendered: int = 256):
+    def __init__(self, lines: int = 64, rendered: int = 256, weights_mb: float = 128.0):
         self.lines = _Memo(lines)
         self.rendered = _Memo(rendered)
+        self.weights = _ArrayMemo(int(weights_mb * 2 ** 20))
 
 
 def _widest_broadening_hz(model: Model, meas) -> float:
@@ -513,7 +536,14 @@ class Simulator:
                 base = compute_f1_lines(lines, self._two_d)
                 if free:
                     base = free_t1_bands(lines, base)
-            f1 = mq_excitation(lines, base, pulses) if pulses is not None else base
+            f1 = base
+            if pulses is not None:  # the efficiencies by node (job, pulses): they outlive the F1 entry
+                eff = self.cache.weights.get((lines.job, pulses))
+                if eff is None:
+                    f1 = mq_excitation(lines, base, pulses)
+                    self.cache.weights[(lines.job, pulses)] = f1.excitation
+                else:
+                    f1 = replace(base, pulses=pulses, excitation=eff)
             self.cache.lines[key] = f1
         return f1
 

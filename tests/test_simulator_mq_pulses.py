@@ -112,3 +112,37 @@ def test_efficiencies_are_computed_once_per_simulator():
     before = {id(sim.cache.lines[k]) for k in keys}
     sim.spectrum()
     assert {id(sim.cache.lines[k]) for k in keys} == before
+
+
+def test_efficiencies_of_an_efg_distribution_are_kept_by_node(monkeypatch):
+    # a Czjzek site in 2D has more nodes than the lines memo holds; the efficiencies are kept by (job, pulses), so a
+    # step that moves no node (here a new shift) computes none, and gives what a fresh Simulator gives
+    import powderspin.simulator as S
+
+    meas = {"field_tesla": 14.1, "spinning_hz": "inf", "experiment": "mqmas", "points": 128, "f1_points": 64,
+            "orientations": 8, "gauss_hz": 1500.0, "f1_gauss_hz": 300.0, **PULSES}
+    site = {"label": "glass", "shift_ppm": {"start": 60.0, "min": 0.0, "max": 100.0}, "cq_mhz": 0.0,
+            "czjzek_sigma_mhz": 2.0}
+    model = make_model("27Al", meas, [site])
+    sim = Simulator(model)
+    sim.spectrum()
+    assert len(sim._two_d_parts(sim.model, 0)) > sim.cache.lines.size  # the case that needs the node memo
+    calls = []
+    real = S.mq_excitation
+    monkeypatch.setattr(S, "mq_excitation", lambda *a: calls.append(1) or real(*a))
+    got = sim.spectrum([61.0])
+    assert calls == []
+    monkeypatch.setattr(S, "mq_excitation", real)
+    want = Simulator(model).spectrum([61.0])
+    np.testing.assert_allclose(got.intensity, want.intensity, rtol=0, atol=1e-12 * np.abs(want.intensity).max())
+
+
+def test_weights_memo_forgets_the_oldest_beyond_its_budget():
+    from powderspin.simulator import SimulationCache
+
+    c = SimulationCache(weights_mb=3 * 8e3 / 2 ** 20)  # room for three arrays of 1000 floats
+    for k in range(5):
+        c.weights[k] = np.zeros(1000)
+    assert list(c.weights) == [2, 3, 4] and c.weights.nbytes == 24000
+    c.weights[3] = np.zeros(10)  # replacing an entry counts its new size only
+    assert c.weights.nbytes == 16080

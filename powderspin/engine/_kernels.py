@@ -1417,6 +1417,177 @@ def _excitation_amplitudes(levels, ix_off, mz, nu1, phase1, t1, phase2, t2, echo
 
 
 # ---------------------------------------------------------------------------
+# multiple-quantum (MQMAS) pathways, fused
+#
+# The hard excitation and conversion pulses share one Hamiltonian H0 = diag(D) + nu1 Ix (all pulses are along x,
+# so no phase factors), so one eigendecomposition H0 = V diag(lam) V^T serves both: U(t) = V diag(exp(-i 2 pi lam
+# t)) V^T.  Only a few elements of each propagator enter a pathway, each a sum over the d eigenvectors, so the
+# d x d propagators are never formed.  The inner matrix is tridiagonal, which the eigensolver below uses.
+
+
+@njit(cache=True, inline="always")
+def _pythag(a, b):
+    """sqrt(a^2 + b^2) without overflow; the plain form when it is safe (several times faster than hypot)."""
+    if abs(a) < 1e150 and abs(b) < 1e150:
+        return math.sqrt(a * a + b * b)
+    return math.hypot(a, b)
+
+
+@njit(cache=True)
+def _tridiagonal_eigen(diag, off, lam, v):
+    """Eigenvalues ``lam`` and eigenvectors (columns of ``v``) of a real symmetric tridiagonal matrix.
+
+    ``diag`` (d) is its diagonal and ``off[k]`` (k < d - 1) the element (k, k + 1); both are destroyed
+    (``off`` needs length d).  Implicit QL iterations with Wilkinson's shift, the plane rotations accumulated
+    into ``v`` (J. H. Wilkinson, *The Algebraic Eigenvalue Problem* (1965), ch. 8; G. H. Golub, C. F. Van Loan,
+    *Matrix Computations*, 3rd ed. (1996), sec. 8.3 (both from memory)): O(d^2) per iteration and about two
+    iterations per eigenvalue, against O(d^3) per sweep for Jacobi on the full matrix.
+    """
+    d = diag.shape[0]
+    for i in range(d):
+        for j in range(d):
+            v[i, j] = 0.0
+        v[i, i] = 1.0
+    off[d - 1] = 0.0
+    for l in range(d):
+        for _it in range(64):
+            m = l  # the first negligible off-diagonal element at or below l splits the matrix
+            while m < d - 1:
+                if abs(off[m]) <= 2.2e-16 * (abs(diag[m]) + abs(diag[m + 1])):
+                    break
+                m += 1
+            if m == l:
+                break
+            g = (diag[l + 1] - diag[l]) / (2.0 * off[l])  # Wilkinson's shift from the leading 2 x 2 block
+            r = _pythag(g, 1.0)
+            g = diag[m] - diag[l] + off[l] / (g + (r if g >= 0.0 else -r))
+            s = 1.0
+            c = 1.0
+            p = 0.0
+            i = m - 1
+            split = False
+            while i >= l:  # chase the bulge upwards with plane rotations
+                f = s * off[i]
+                b = c * off[i]
+                r = _pythag(f, g)
+                off[i + 1] = r
+                if r == 0.0:  # an off-diagonal element underflowed: the matrix split
+                    diag[i + 1] -= p
+                    off[m] = 0.0
+                    split = True
+                    break
+                s = f / r
+                c = g / r
+                g = diag[i + 1] - p
+                r = (diag[i] - g) * s + 2.0 * c * b
+                p = s * r
+                diag[i + 1] = g + p
+                g = c * r - b
+                for k in range(d):
+                    f = v[k, i + 1]
+                    v[k, i + 1] = s * v[k, i] + c * f
+                    v[k, i] = c * v[k, i] - s * f
+                i -= 1
+            if split:
+                continue
+            diag[l] -= p
+            off[l] = g
+            off[m] = 0.0
+    for i in range(d):
+        lam[i] = diag[i]
+
+
+@njit(cache=True, inline="always")
+def _rf_eigen(levels, ix_off, nu1, dg, of, lam, v):
+    """Eigendecomposition of diag(levels) + nu1 Ix (real, symmetric, tridiagonal) into ``lam``, ``v``."""
+    d = levels.shape[0]
+    for a in range(d):
+        dg[a] = levels[a]
+        of[a] = nu1 * ix_off[a] if a < d - 1 else 0.0
+    _tridiagonal_eigen(dg, of, lam, v)
+
+
+@njit(cache=True, inline="always")
+def _phasors(lam, t, e):
+    """e[k] = exp(-i 2 pi lam[k] t) (the polynomial ``_sincos`` where it is accurate, |angle| < 1e6)."""
+    for k in range(lam.shape[0]):
+        ang = -2.0 * math.pi * lam[k] * t
+        if abs(ang) < 1e6:
+            c, s = _sincos(ang)
+            e[k] = complex(c, s)
+        else:
+            e[k] = complex(math.cos(ang), math.sin(ang))
+
+
+@njit(cache=True, inline="always")
+def _element(v, e, a, b):
+    """(V diag(e) V^T)[a, b]: one element of a propagator from its eigendecomposition."""
+    acc = 0.0 + 0.0j
+    for k in range(v.shape[1]):
+        acc += v[a, k] * v[b, k] * e[k]
+    return acc
+
+
+@njit(parallel=True, cache=True)
+def _mq_pathway_amplitudes(levels, ix_off, mz, nu1, t_excite, t_convert, zfilter, nu1_sel, t_sel, hi, lo, ct_lo,
+                           ct_hi):
+    """Complex CT signal (n, 2) of the MQMAS pathways with t1 order +p (column 0) and -p (column 1).
+
+    ``A = c <-1/2| rho |1/2>``, c = <1/2|I+|-1/2> = 2 ix_off[ct_hi]: rho1 = U1 Iz U1^H, its element (hi, lo)
+    (order +p) or (lo, hi) (order -p) alone carried by U2 into (ct_lo, ct_hi) (two-pulse) or into the populations
+    and from them by U3 (z-filter).  U1, U2 share the eigendecomposition of diag(levels) + nu1 Ix; U3 is that of
+    the selective pulse (nu1_sel).  All pulses along x.
+    """
+    n, d = levels.shape
+    out = np.empty((n, 2), dtype=np.complex128)
+    cc = 2.0 * ix_off[ct_hi]
+    nchunk = min(n, 64)
+    for ch in prange(nchunk):
+        dg = np.empty(d)
+        of = np.empty(d)
+        lam = np.empty(d)
+        v = np.empty((d, d))
+        v3 = np.empty((d, d))
+        e = np.empty(d, dtype=np.complex128)
+        u_hi = np.empty(d, dtype=np.complex128)
+        u_lo = np.empty(d, dtype=np.complex128)
+        w_hi = np.empty(d, dtype=np.complex128)
+        w_lo = np.empty(d, dtype=np.complex128)
+        for i in range(ch * n // nchunk, (ch + 1) * n // nchunk):
+            lv = levels[i]
+            _rf_eigen(lv, ix_off, nu1, dg, of, lam, v)
+            # excitation: rows hi and lo of U1, then rho1[hi, lo] = sum_q U1[hi, q] m_q conj(U1[lo, q])
+            _phasors(lam, t_excite, e)
+            for q in range(d):
+                u_hi[q] = _element(v, e, hi, q)
+                u_lo[q] = _element(v, e, lo, q)
+            r = 0.0 + 0.0j
+            for q in range(d):
+                r += u_hi[q] * mz[q] * u_lo[q].conjugate()
+            r_conj = r.conjugate()  # rho1[lo, hi] (rho1 is Hermitian)
+            # conversion: U2 (symmetric: V diag V^T)
+            _phasors(lam, t_convert, e)
+            if not zfilter:
+                out[i, 0] = cc * r * _element(v, e, ct_lo, hi) * _element(v, e, ct_hi, lo).conjugate()
+                out[i, 1] = cc * r_conj * _element(v, e, ct_lo, lo) * _element(v, e, ct_hi, hi).conjugate()
+                continue
+            for q in range(d):  # columns hi and lo of U2
+                w_hi[q] = _element(v, e, q, hi)
+                w_lo[q] = _element(v, e, q, lo)
+            _rf_eigen(lv, ix_off, nu1_sel, dg, of, lam, v3)
+            _phasors(lam, t_sel, e)
+            s0 = 0.0 + 0.0j
+            s1 = 0.0 + 0.0j
+            for q in range(d):  # populations |q><q| after U2, read out by rows ct_lo and ct_hi of U3
+                t3 = _element(v3, e, ct_lo, q) * _element(v3, e, ct_hi, q).conjugate()
+                s0 += t3 * (w_hi[q] * w_lo[q].conjugate())
+                s1 += t3 * (w_lo[q] * w_hi[q].conjugate())
+            out[i, 0] = cc * r * s0
+            out[i, 1] = cc * r_conj * s1
+    return out
+
+
+# ---------------------------------------------------------------------------
 # two-dimensional binning (MQMAS, STMAS)
 
 

@@ -751,25 +751,15 @@ def mq_pathway_amplitudes(levels_hz, sequence: MultipleQuantumPulses) -> np.ndar
     p = int(sequence.order)
     if p > 2 * spin + 1e-9:
         raise ValueError(f"order {p} is above 2I = {2 * spin:g}")
-    d = lv.shape[1]
-    mz = spin - np.arange(d, dtype=float)
-    u1 = pulse_propagators(lv, sequence.nu1_hz, sequence.excite_s)
-    u2 = pulse_propagators(lv, sequence.nu1_hz, sequence.convert_s)
+    _, mz, ix_off = _spin_tables(spin)
     hi, lo = _index_of(spin, p / 2.0), _index_of(spin, -p / 2.0)
     ct_lo, ct_hi = _index_of(spin, -0.5), _index_of(spin, 0.5)  # |-1/2><1/2|
-    c = spin + 0.5
-    u3 = None
-    if sequence.kind == "z-filter":
-        u3 = pulse_propagators(lv, sequence.selective_nu1_hz, sequence.selective_s)
-    out = np.empty((lv.shape[0], 2), dtype=complex)
-    for col, (a, b) in enumerate(((hi, lo), (lo, hi))):
-        r1 = np.einsum("nq,q,nq->n", u1[:, a, :], mz, np.conj(u1[:, b, :]))  # (U1 Iz U1^H)[a, b]
-        if u3 is None:
-            out[:, col] = c * r1 * u2[:, ct_lo, a] * np.conj(u2[:, ct_hi, b])
-        else:
-            pop = r1[:, None] * u2[:, :, a] * np.conj(u2[:, :, b])  # populations |q><q| after U2
-            out[:, col] = c * np.einsum("nq,nq,nq->n", u3[:, ct_lo, :], pop, np.conj(u3[:, ct_hi, :]))
-    return out
+    zfilter = sequence.kind == "z-filter"
+    nu_sel = float(sequence.selective_nu1_hz) if zfilter else 0.0
+    t_sel = float(sequence.selective_s) if zfilter else 0.0
+    # one fused kernel: the hard pulses share one eigendecomposition, only the pathway's elements are formed
+    return _k._mq_pathway_amplitudes(lv, ix_off, mz, float(sequence.nu1_hz), float(sequence.excite_s),
+                                     float(sequence.convert_s), zfilter, nu_sel, t_sel, hi, lo, ct_lo, ct_hi)
 
 
 def pathway_signs(spin: float, sequence: MultipleQuantumPulses) -> tuple[float, float]:
