@@ -881,6 +881,10 @@ def _fft_lanes_bitreversed(re, im, twr, twi):
         h *= 2
 
 
+#: harmonics of a line's phase xi below this (radians) are left out of its sideband sum: dropping them
+#: changes each band amplitude by less than their sum (|e^{i d} - 1| <= |d|), i.e. at the level of the
+#: FFT's rounding; the trajectories of the fitted exact route carry such harmonics as rounding noise
+_HARMONIC_FLOOR = 1e-13
 #: a line computed at fewer phases than the site's (``adaptive``) keeps at most this fraction
 #: of its intensity in the outer quarter of its own bands, else its phases are doubled
 _LINE_ALIAS = 1e-12
@@ -1114,7 +1118,8 @@ def _harmonic_sidebands(gr, gi, nphase, adaptive=False):
     equally spaced phases (any K: a harmonic above P/2 is evaluated, not aliased),
     exponentiated and Fourier transformed, ``_LANES`` rows side by side as in
     ``_perturbative_sidebands`` (and, with ``adaptive``, each block at the fewest
-    phases its lines need, as there).  Returns amp (R, P), band n at index n mod P.
+    phases its lines need, as there).  A block's trailing harmonics below ``_HARMONIC_FLOOR``
+    radians in all its rows are left out.  Returns amp (R, P), band n at index n mod P.
     """
     nrow, kk = gr.shape
     p = nphase
@@ -1145,7 +1150,17 @@ def _harmonic_sidebands(gr, gi, nphase, adaptive=False):
                         hr[k, l] = 0.0
                         hi[k, l] = 0.0
             nl = re.shape[1]
-            pb = _line_phases(hr, hi, kk, nb, p) if adaptive else p
+            # the block's highest harmonic above _HARMONIC_FLOOR (the rest change no intensity beyond rounding)
+            kb = kk
+            while kb > 1:
+                big = False
+                for l in range(nb):
+                    if abs(hr[kb - 1, l]) > _HARMONIC_FLOOR or abs(hi[kb - 1, l]) > _HARMONIC_FLOOR:
+                        big = True
+                if big:
+                    break
+                kb -= 1
+            pb = _line_phases(hr, hi, kb, nb, p) if adaptive else p
             while True:
                 o = pb - p0
                 for j in range(pb):
@@ -1154,12 +1169,12 @@ def _harmonic_sidebands(gr, gi, nphase, adaptive=False):
                     ci = zi[o + j]
                     er[0] = cr
                     ei[0] = ci
-                    for k in range(1, kk):
+                    for k in range(1, kb):
                         er[k] = er[k - 1] * cr - ei[k - 1] * ci
                         ei[k] = er[k - 1] * ci + ei[k - 1] * cr
                     for l in range(nl):
                         re[j, l] = 0.0
-                    for k in range(kk):
+                    for k in range(kb):
                         a = er[k]
                         b = ei[k]
                         for l in range(nl):

@@ -445,12 +445,18 @@ def choose_orientations(site: Site, meas: Measurement, nucleus: Nuclide, method:
         oset = select_orientations(frame.symmetry, sub, interpolate=interp)
         job = site_job(site, meas, nucleus, "perturbation", oset)
         lines = lines_memo.get(job) if lines_memo is not None else None
+        memo: dict = {}
         if lines is None:
-            lines = compute_lines(job, orientations=oset)
+            # a set too large to keep is binned while it is computed (not computed again to render)
+            shifted = _shifted(axis, shift_hz)
+            lines, frac = _compute_lines(job, oset, None, "", LINES_MEMORY_BUDGET,
+                                         render=(shifted, meas.binning, BIN_CUTOFF))
+            if frac is not None:
+                memo[_binned_key(job, shifted, meas.binning, BIN_CUTOFF)] = frac
             if lines_memo is not None:
                 lines_memo[job] = lines
         y = render_lines(lines, axis, shift_hz=shift_hz, lorentz_hz=lorentz, gauss_hz=gauss,
-                         binning=meas.binning).intensity
+                         binning=meas.binning, memo=memo).intensity
         return oset, y
 
     prev_set, prev = shape(ORIENTATION_LADDER[0])
@@ -791,6 +797,74 @@ def _ideal_weights(spin: float, m_upper) -> np.ndarray:
     return w / w.sum()
 
 
+class _Binner:
+    """Bins lines while a pass produces them, in orientation order, keeping only a window of orientations.
+
+    With ``"interpolate"`` a triangle is binned as soon as the chunk holding its last vertex has arrived
+    (triangles sorted by their largest vertex index), and a vertex is dropped once no triangle still to
+    come uses it: each orientation's lines are computed once and at most a chunk plus one row of the
+    triangulation is held.  The result equals :func:`~powderspin.engine.lineshape.bin_lines` on the
+    whole set (to rounding: the triangles are summed in another order).
+    """
+
+    def __init__(self, oset: OrientationSet, axis: Axis, binning: str, rate_hz: float, cutoff: float,
+                 weights: np.ndarray | None = None):
+        self.oset = oset
+        self.axis = axis
+        self.interpolate = binning == "interpolate"
+        if binning not in ("interpolate", "histogram"):
+            raise ValueError(f"binning = {binning!r} is not one of 'interpolate', 'histogram'")
+        if self.interpolate and not oset.has_triangles:
+            raise ValueError(f"binning = 'interpolate' needs a triangulated orientation set; '{oset.name}' has none "
+                             "(use binning = 'histogram')")
+        self.rate = float(rate_hz)
+        self.cutoff = float(cutoff)
+        self.weights = weights  # given: used instead of the pass's weights (already normalised lines)
+        self.out = np.zeros(axis.points)
+        if self.interpolate:
+            tris = np.asarray(oset.triangles, dtype=np.int64)
+            last = tris.max(axis=1)
+            order = np.argsort(last, kind="stable")
+            self.tris = np.ascontiguousarray(tris[order])
+            self.tri_w = np.ascontiguousarray(np.asarray(oset.triangle_weights, dtype=float)[order])
+            self.last = last[order]
+            # the smallest vertex index any triangle from position j on still needs
+            first = tris.min(axis=1)[order]
+            self.needed_from = np.minimum.accumulate(first[::-1])[::-1] if first.size else first
+            self.done = 0  # triangles binned so far (in sorted order)
+            self.start = 0  # vertex index of the window's first row
+            self.win = None  # (mean, amp, weights) of vertices start ... end
+
+    def add(self, a: int, b: int, mean: np.ndarray, amp: np.ndarray, w: np.ndarray) -> None:
+        """Lines (mean (n, T), amp (n, T, P), weights (n, T)) of orientations a ... b - 1, in order."""
+        if self.weights is not None:
+            w = self.weights[a:b]
+        ax = self.axis
+        mean = np.ascontiguousarray(mean, dtype=float)
+        amp = np.ascontiguousarray(amp, dtype=float)
+        w = np.ascontiguousarray(w, dtype=float)
+        if not self.interpolate:
+            vw = np.ascontiguousarray(self.oset.weights[a:b], dtype=float)
+            self.out += _k._bin_histogram(mean, amp, w, vw, self.rate, ax.left_edge_hz, ax.dx_hz, ax.points)
+            return
+        if self.win is None:
+            self.start = a
+            self.win = (mean, amp, w)
+        else:
+            self.win = tuple(np.concatenate((x, y)) for x, y in zip(self.win, (mean, amp, w)))
+        m = self.tris.shape[0]
+        upto = int(np.searchsorted(self.last, b, side="left"))  # triangles whose vertices all arrived
+        if upto > self.done:
+            t = np.ascontiguousarray(self.tris[self.done:upto] - self.start)
+            self.out += _k._bin_tent(*self.win, t, self.tri_w[self.done:upto], self.rate, ax.left_edge_hz,
+                                     ax.dx_hz, ax.points, 1, self.cutoff)
+            self.done = upto
+        keep = int(self.needed_from[upto]) if upto < m else b
+        if keep > self.start:
+            self.win = tuple(np.ascontiguousarray(x[keep - self.start:]) for x in self.win)
+            self.start = keep
+
+
 class _Producer:
     """Lines of a job for any subset of its orientations (used by compute and by streamed rendering)."""
 
@@ -878,8 +952,12 @@ class _Producer:
         spread = float(np.max(np.abs(probe - probe.mean(axis=2, keepdims=True)))) if probe.size else 0.0
         return choose_rotor_phases(spread, self.rate)
 
-    def pass_(self, phases: int, store: bool, progress=None, done0: int = 0, total: int = 0):
-        """One pass over the orientation set at ``phases``: lines, band summaries, intensities if stored."""
+    def pass_(self, phases: int, store: bool, progress=None, done0: int = 0, total: int = 0,
+              binner: _Binner | None = None):
+        """One pass over the orientation set at ``phases``: lines, band summaries, intensities if stored.
+
+        ``binner`` (a :class:`_Binner`) receives every chunk of lines as it is computed.
+        """
         oset = self.oset
         n = oset.size
         nt = len(self.m_upper)
@@ -901,6 +979,8 @@ class _Producer:
             w[a:b] = w_c
             if store:
                 amp[a:b] = a_c
+            if binner is not None:
+                binner.add(a, b, m_c, a_c, w_c)
             wv = oset.weights[a:b, None] * w_c
             if p_out == 1:  # one band: plain sums (a parallel kernel is not worth starting)
                 i_c = np.array([wv.sum()])
@@ -965,6 +1045,17 @@ def compute_lines(job: SiteJob, *, orientations: OrientationSet | None = None, p
     >>> sl.intensity.shape, round(float(sl.band_intensity.sum()), 9)
     ((45, 1, 32), 1.0)
     """
+    return _compute_lines(job, orientations, progress, label, memory_budget_bytes)[0]
+
+
+def _compute_lines(job: SiteJob, orientations: OrientationSet | None, progress, label: str,
+                   memory_budget_bytes: int, render: tuple | None = None) -> tuple[SiteLines, np.ndarray | None]:
+    """:func:`compute_lines`, and with ``render = (axis, binning, cutoff)`` lines too large to keep binned
+    while they are computed (one pass instead of a pass and a streamed render).
+
+    Returns the lines and, when they were binned here, the binned fractions (as
+    :func:`~powderspin.engine.lineshape.bin_lines` of the normalised lines gives them; else None).
+    """
     if orientations is None:
         oset = orientation_set_by_name(job.orientations)
     else:
@@ -985,6 +1076,7 @@ def compute_lines(job: SiteJob, *, orientations: OrientationSet | None = None, p
         phases = 1 if rate == 0.0 else (INFINITE_RATE_PHASES_EXACT if prod.exact else INFINITE_RATE_PHASES)
         mean, amp, w, inten, pos, amax = prod.pass_(phases, True, progress, 0, n)
         phases_out = 1
+        binner = None
     else:
         fixed = job.rotor_phases != "auto"
         phases = int(job.rotor_phases) if fixed else prod.first_guess_phases()
@@ -997,7 +1089,9 @@ def compute_lines(job: SiteJob, *, orientations: OrientationSet | None = None, p
         passes = 0
         while True:
             store = n * nt * phases * 8 <= memory_budget_bytes
-            mean, amp, w, inten, pos, amax = prod.pass_(phases, store, progress, passes * n, (passes + 1) * n)
+            binner = None if store or render is None else _Binner(oset, render[0], render[1], rate, render[2])
+            mean, amp, w, inten, pos, amax = prod.pass_(phases, store, progress, passes * n, (passes + 1) * n,
+                                                        binner)
             passes += 1
             nb = np.fft.fftfreq(phases, 1.0 / phases)
             total = inten.sum()
@@ -1023,12 +1117,15 @@ def compute_lines(job: SiteJob, *, orientations: OrientationSet | None = None, p
     if job.pulse is not None:  # normalised by the ideal intensity: the lines sum to the excited fraction
         excited = total / prod.ideal_total if prod.ideal_total > 0 else 0.0
         total = prod.ideal_total
+    frac = binner.out if binner is not None else None
     if total > 0:
         w = w / total
         inten = inten / total
         pos = pos / total
+        if frac is not None:
+            frac = frac / total
     return SiteLines(job, oset, tuple(job.transitions), mean, amp, w, rate, job.method, phases_out,
-                     inten, pos, amax, tuple(notes), excited)
+                     inten, pos, amax, tuple(notes), excited), frac
 
 
 # ---------------------------------------------------------------------------
@@ -1056,6 +1153,16 @@ class RenderedSite:
 
     intensity: np.ndarray
     lost_fraction: float
+
+
+def _shifted(axis: Axis, shift_hz: float) -> Axis:
+    """The axis in the lines' frame (lines translated by ``shift_hz`` = the axis moved the other way)."""
+    return replace(axis, center_hz=axis.center_hz - float(shift_hz))
+
+
+def _binned_key(job: SiteJob, shifted: Axis, binning: str, cutoff: float) -> tuple:
+    """Key of binned lines in a render memo."""
+    return ("binned", job, shifted, binning, cutoff)
 
 
 def render_lines(lines: SiteLines, axis: Axis, *, shift_hz: float = 0.0, weight: float = 1.0,
@@ -1107,9 +1214,9 @@ def render_lines(lines: SiteLines, axis: Axis, *, shift_hz: float = 0.0, weight:
     >>> round(float(r.intensity.sum() * ax.dx_ppm), 2)
     2.0
     """
-    shifted = replace(axis, center_hz=axis.center_hz - float(shift_hz))
+    shifted = _shifted(axis, shift_hz)
     rate = lines.rate_hz if math.isfinite(lines.rate_hz) else 0.0
-    key = ("binned", lines.job, shifted, binning, cutoff)
+    key = _binned_key(lines.job, shifted, binning, cutoff)
     frac = memo.get(key) if memo is not None else None
     if frac is None:
         if lines.intensity is not None:
@@ -1132,32 +1239,13 @@ def render_lines(lines: SiteLines, axis: Axis, *, shift_hz: float = 0.0, weight:
 
 def _render_streamed(lines: SiteLines, axis: Axis, binning: str, rate: float, cutoff: float) -> np.ndarray:
     """Bin lines whose sideband intensities were too large to keep, recomputing them chunk by chunk."""
-    from ..physics.orientations import OrientationSet as _Set
-
     oset = lines.orientations
     prod = _Producer(lines.job, oset)
-    out = np.zeros(axis.points)
-    size = prod.chunk_size(lines.phases)
-    if binning == "interpolate":
-        tris = oset.triangles
-        tw = oset.triangle_weights
-        for a, b in _chunks(tris.shape[0], max(1, size // 2)):
-            t = tris[a:b]
-            verts = np.unique(t)
-            m_c, amp_c, _ = prod.lines(oset.vectors[verts], lines.phases)
-            local = np.searchsorted(verts, t)
-            sub = _Set("chunk", "sphere", oset.vectors[verts], np.full(verts.size, 1.0 / verts.size),
-                       local, tw[a:b] / tw[a:b].sum())
-            part = bin_lines(axis, m_c, amp_c, lines.weights[verts], sub, "interpolate", rate,
-                             cutoff / max(float(tw[a:b].sum()), 1e-300))
-            out += part * float(tw[a:b].sum())
-        return out
-    for a, b in _chunks(oset.size, size):
+    binner = _Binner(oset, axis, binning, rate, cutoff, weights=lines.weights)
+    for a, b in _chunks(oset.size, prod.chunk_size(lines.phases)):
         m_c, amp_c, _ = prod.lines(oset.vectors[a:b], lines.phases)
-        wv = oset.weights[a:b]
-        sub = _Set("chunk", "sphere", oset.vectors[a:b], wv / wv.sum())
-        out += bin_lines(axis, m_c, amp_c, lines.weights[a:b], sub, "histogram", rate, cutoff) * float(wv.sum())
-    return out
+        binner.add(a, b, m_c, amp_c, None)
+    return binner.out
 
 
 # ---------------------------------------------------------------------------

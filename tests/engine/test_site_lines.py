@@ -179,3 +179,26 @@ def test_streamed_lines_render_like_stored_ones():
     h = render_lines(stored, axis, binning="histogram").intensity
     hs = render_lines(streamed, axis, binning="histogram").intensity
     np.testing.assert_allclose(hs, h, rtol=0, atol=1e-12 * h.max())
+
+
+@pytest.mark.parametrize("binning", ["interpolate", "histogram"])
+def test_lines_binned_while_computed_equal_binned_stored_lines(binning, monkeypatch):
+    """Lines too large to keep, binned chunk by chunk as they are computed (the orientation choice's
+    route): the same fractions as bin_lines over the whole stored set (the plain route)."""
+    from powderspin.engine.lineshape import bin_lines
+    from powderspin.engine.site_lines import BIN_CUTOFF, _compute_lines
+
+    m = _model()
+    job = site_job(m.sites[0], m.measurement, AL, "perturbation")
+    stored = compute_lines(job)
+    axis = Axis(3e3, 200e3, 1024, AL.larmor_hz(9.4))
+    ref = bin_lines(axis, stored.mean, stored.intensity, stored.weights, stored.orientations, binning,
+                    stored.rate_hz, BIN_CUTOFF)
+    # a budget of 0 bytes: nothing kept, every chunk binned as it comes; small chunks, so that
+    # triangles span chunks and the window of vertices is exercised
+    monkeypatch.setattr(stage, "_CHUNK_POINTS", 2048)
+    assert stage._Producer(job, stored.orientations).chunk_size(stored.phases) * 8 < stored.orientations.size
+    lines, frac = _compute_lines(job, None, None, "", 0, render=(axis, binning, BIN_CUTOFF))
+    assert lines.intensity is None and frac is not None
+    np.testing.assert_allclose(frac, ref, rtol=0, atol=1e-12 * ref.max())
+    np.testing.assert_allclose(lines.band_intensity, stored.band_intensity, rtol=0, atol=1e-12)
