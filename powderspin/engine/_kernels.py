@@ -117,7 +117,7 @@ def _pair_coefficients(m, mm, x, quad_constant_hz, c2):
 # perturbative producer
 
 
-@njit(parallel=True, cache=True)
+@njit(cache=True, nogil=True)
 def _perturbative_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, m_upper,
                           m_lower, spin, second_order):
     """Offsets (Hz) of transitions m_hi <-> m_lo for every orientation and rotor phase.
@@ -130,6 +130,9 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delt
     the tensor's lab zz part), first-order quadrupolar and second-order
     quadrupolar terms (DEVELOPERS.md, 'Physics formulas' formulas, written with the
     rotation invariants of the EFG so only b = B0 direction is needed).
+
+    Serial and without the GIL: callers split the orientations among threads
+    (``threads.split_work``).
     """
     n_or = axes.shape[0]
     nt = m_upper.shape[0]
@@ -152,7 +155,7 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delt
         sph[p] = math.sin(2.0 * math.pi * p / nphase)
     v0, v1, v2 = efg_principal_values[0], efg_principal_values[1], efg_principal_values[2]
     shift_terms = _shift_terms(delta)
-    for i in prange(n_or):
+    for i in range(n_or):
         n0, n1, n2 = axes[i, 0], axes[i, 1], axes[i, 2]
         u0, u1, u2, w0, w1, w2 = _perp3(n0, n1, n2)
         for p in range(nphase):
@@ -650,8 +653,26 @@ def _add_tent_points(buf, v1, v2, v3, w, nb):
         _tent_corner_points(buf, k, khi + 1, v1, a, d, b, ca, cb, w)
 
 
-@njit(parallel=True, cache=True)
-def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cutoff):
+@njit(cache=True, nogil=True)
+def _band_extent(amp):
+    """Extent of each line's bands (n_v, n_t): the largest |n| whose intensity is not zero.
+
+    A line computed at fewer phases than P (``_perturbative_sidebands`` with ``adaptive``) has exact
+    zeros beyond its own bands, found by scanning inwards from band P/2.
+    """
+    nv, nt, p = amp.shape
+    ext = np.empty((nv, nt), dtype=np.int64)
+    for i in range(nv):
+        for t in range(nt):
+            e = p // 2
+            while e > 0 and amp[i, t, e] == 0.0 and amp[i, t, p - e] == 0.0:
+                e -= 1
+            ext[i, t] = e
+    return ext
+
+
+@njit(cache=True, nogil=True)
+def _bin_tent(mean, amp, weights_t, ext, tris, tri_w, rate_hz, x0, dx, nb, cutoff):
     """Triangle ("tent") interpolation of every line onto the axis points.
 
     mean (n_v, n_t): line centres (Hz) per vertex and transition; amp
@@ -662,68 +683,50 @@ def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cu
     the axis points x0 + (k + 0.5) dx by their hat functions
     (``_add_tent_points``).  Returns (nb,) summed intensities.
 
-    Only the bands a triangle's vertices carry are visited: a line computed at
-    fewer phases than P (``_perturbative_sidebands`` with ``adaptive``) has
-    exact zeros beyond its own bands, found by scanning inwards from band P/2.
+    Only the bands a triangle's vertices carry are visited: ``ext`` (n_v, n_t)
+    is each line's band extent (``_band_extent``).  Serial and without the GIL:
+    callers split the triangles among threads and add the results.
     """
     m = tris.shape[0]
     nt = mean.shape[1]
     p = amp.shape[2]
-    nv = amp.shape[0]
-    # extent of each line's bands: the largest |n| whose intensity is not zero
-    ext = np.empty((nv, nt), dtype=np.int64)
-    for i in prange(nv):
-        for t in range(nt):
-            e = p // 2
-            while e > 0 and amp[i, t, e] == 0.0 and amp[i, t, p - e] == 0.0:
-                e -= 1
-            ext[i, t] = e
-    bufs = np.zeros((nchunk, nb))
-    step = (m + nchunk - 1) // nchunk
     inv = 1.0 / dx
     step_pts = rate_hz * inv  # one band further, in points
-    for c in prange(nchunk):
-        lo = c * step
-        hi = min(m, lo + step)
-        buf = bufs[c]
-        for q in range(lo, hi):
-            a = tris[q, 0]
-            b = tris[q, 1]
-            d = tris[q, 2]
-            for t in range(nt):
-                # vertex order and point coordinates once per line; bands only shift them
-                f1 = mean[a, t]
-                f2 = mean[b, t]
-                f3 = mean[d, t]
-                if f1 > f2:
-                    f1, f2 = f2, f1
-                if f2 > f3:
-                    f2, f3 = f3, f2
-                if f1 > f2:
-                    f1, f2 = f2, f1
-                u1 = (f1 - x0) * inv - 0.5
-                u2 = (f2 - x0) * inv - 0.5
-                u3 = (f3 - x0) * inv - 0.5
-                e = max(ext[a, t], max(ext[b, t], ext[d, t]))
-                for q2 in range(min(p, 2 * e + 1)):
-                    # bands 0, 1, -1, 2, -2, ... out to the vertices' extent
-                    n2 = (q2 + 1) // 2
-                    s = n2 if q2 % 2 == 1 or q2 == 0 else p - n2
-                    w = (
-                        amp[a, t, s] * weights_t[a, t]
-                        + amp[b, t, s] * weights_t[b, t]
-                        + amp[d, t, s] * weights_t[d, t]
-                    ) * (tri_w[q] / 3.0)
-                    if w <= cutoff:
-                        continue
-                    n = s if s < (p + 1) // 2 else s - p
-                    sh = n * step_pts if p > 1 else 0.0
-                    _add_tent_points(buf, u1 + sh, u2 + sh, u3 + sh, w, nb)
-    out = np.zeros(nb)
-    for c in range(nchunk):
-        for k in range(nb):
-            out[k] += bufs[c, k]
-    return out
+    buf = np.zeros(nb)
+    for q in range(m):
+        a = tris[q, 0]
+        b = tris[q, 1]
+        d = tris[q, 2]
+        for t in range(nt):
+            # vertex order and point coordinates once per line; bands only shift them
+            f1 = mean[a, t]
+            f2 = mean[b, t]
+            f3 = mean[d, t]
+            if f1 > f2:
+                f1, f2 = f2, f1
+            if f2 > f3:
+                f2, f3 = f3, f2
+            if f1 > f2:
+                f1, f2 = f2, f1
+            u1 = (f1 - x0) * inv - 0.5
+            u2 = (f2 - x0) * inv - 0.5
+            u3 = (f3 - x0) * inv - 0.5
+            e = max(ext[a, t], max(ext[b, t], ext[d, t]))
+            for q2 in range(min(p, 2 * e + 1)):
+                # bands 0, 1, -1, 2, -2, ... out to the vertices' extent
+                n2 = (q2 + 1) // 2
+                s = n2 if q2 % 2 == 1 or q2 == 0 else p - n2
+                w = (
+                    amp[a, t, s] * weights_t[a, t]
+                    + amp[b, t, s] * weights_t[b, t]
+                    + amp[d, t, s] * weights_t[d, t]
+                ) * (tri_w[q] / 3.0)
+                if w <= cutoff:
+                    continue
+                n = s if s < (p + 1) // 2 else s - p
+                sh = n * step_pts if p > 1 else 0.0
+                _add_tent_points(buf, u1 + sh, u2 + sh, u3 + sh, w, nb)
+    return buf
 
 
 @njit(cache=True)
@@ -955,7 +958,7 @@ def _store_bands(amp_row, re, im, l, pb, p):
     return outer / total if total > 0.0 else 0.0
 
 
-@njit(parallel=True, cache=True, fastmath=True)
+@njit(cache=True, fastmath=True, nogil=True)
 def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, m_upper,
                             spin, second_order,
                             rate_hz, adaptive=False):
@@ -1023,10 +1026,11 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, de
     inv = 1.0 / (p * p)
     v0, v1, v2 = efg_principal_values[0], efg_principal_values[1], efg_principal_values[2]
     shift_terms = _shift_terms(delta)
-    # at least one full set of lanes per chunk (a chunk of one orientation would leave 7 of 8 lanes idle)
-    nchunk = max(1, min(64, (n_or + _LANES - 1) // _LANES))
-    step = (n_or + nchunk - 1) // nchunk if nchunk > 0 else 0
-    for c in prange(nchunk):
+    # serial and without the GIL: the caller splits the orientations among threads (at multiples of
+    # _LANES); one chunk here
+    nchunk = 1
+    step = n_or
+    for c in range(nchunk):
         # per-chunk work buffers (no allocation per orientation, no sharing)
         f = np.empty((4, ns))
         fr = np.empty((_LANES, 4, 5))
@@ -1108,7 +1112,7 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, de
     return mean, amp
 
 
-@njit(parallel=True, cache=True, fastmath=True)
+@njit(cache=True, fastmath=True, nogil=True)
 def _harmonic_sidebands(gr, gi, nphase, adaptive=False):
     """Sideband intensities |F_n|^2 from the Fourier components of each line's phase.
 
@@ -1129,9 +1133,10 @@ def _harmonic_sidebands(gr, gi, nphase, adaptive=False):
     amp = np.empty((nrow, p))
     inv = 1.0 / (p * p)
     nblk = (nrow + _LANES - 1) // _LANES
-    nchunk = max(1, min(64, nblk))
-    step = (nblk + nchunk - 1) // nchunk
-    for c in prange(nchunk):
+    # serial and without the GIL: the caller splits the rows among threads
+    nchunk = 1
+    step = nblk
+    for c in range(nchunk):
         re = np.empty((p, _LANES))
         im = np.empty((p, _LANES))
         hr = np.empty((kk, _LANES))
@@ -1198,40 +1203,30 @@ def _harmonic_sidebands(gr, gi, nphase, adaptive=False):
     return amp
 
 
-@njit(parallel=True, cache=True)
+@njit(cache=True, nogil=True)
 def _band_summary(amp, weights, mean):
     """Per-band totals in one pass over the sideband intensities.
 
     amp (N, T, P), weights (N, T) (powder x transition weights), mean (N, T).
     Returns, for each band index p: the weighted intensity sum_v,t w amp,
     its weighted position sum w amp mean, and the largest amp over (v, t).
+    Serial: one pass over memory, which a second thread does not speed up, and a
+    parallel loop compiles five times longer.
     """
     n, nt, p = amp.shape
-    nchunk = min(max(n, 1), 32)
-    step = (n + nchunk - 1) // nchunk
-    inten = np.zeros((nchunk, p))
-    pos = np.zeros((nchunk, p))
-    amax = np.zeros((nchunk, p))
-    for c in prange(nchunk):
-        for i in range(c * step, min(n, (c + 1) * step)):
-            for t in range(nt):
-                w = weights[i, t]
-                mu = mean[i, t]
-                for j in range(p):
-                    a = amp[i, t, j]
-                    inten[c, j] += w * a
-                    pos[c, j] += w * a * mu
-                    if a > amax[c, j]:
-                        amax[c, j] = a
     out_i = np.zeros(p)
     out_p = np.zeros(p)
     out_m = np.zeros(p)
-    for c in range(nchunk):
-        for j in range(p):
-            out_i[j] += inten[c, j]
-            out_p[j] += pos[c, j]
-            if amax[c, j] > out_m[j]:
-                out_m[j] = amax[c, j]
+    for i in range(n):
+        for t in range(nt):
+            w = weights[i, t]
+            wm = w * mean[i, t]
+            for j in range(p):
+                a = amp[i, t, j]
+                out_i[j] += w * a
+                out_p[j] += wm * a
+                if a > out_m[j]:
+                    out_m[j] = a
     return out_i, out_p, out_m
 
 

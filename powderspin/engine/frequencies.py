@@ -24,6 +24,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from . import _kernels as _k
+from .threads import split_work
 
 if TYPE_CHECKING:  # pragma: no cover
     from ..model.values import Site
@@ -339,13 +340,12 @@ def perturbative_pair_offsets(frame, ax, m_upper, m_lower, rotor_angle_rad, phas
     Part of the engine's internal interface (used by :mod:`powderspin.engine.two_dimensional` for the
     multiple-quantum and satellite transitions; :func:`perturbative_offsets` is the public front).
     """
-    return _k._perturbative_offsets(
-        *kernel_geometry(frame, ax, rotor_angle_rad, phases),
-        np.ascontiguousarray(m_upper, dtype=float),
-        np.ascontiguousarray(m_lower, dtype=float),
-        float(frame.spin),
-        bool(second_order),
-    )
+    geo = kernel_geometry(frame, ax, rotor_angle_rad, phases)
+    rest = (np.ascontiguousarray(m_upper, dtype=float), np.ascontiguousarray(m_lower, dtype=float),
+            float(frame.spin), bool(second_order))
+    parts = split_work(lambda a, b: _k._perturbative_offsets(geo[0][a:b], *geo[1:], *rest), geo[0].shape[0],
+                       grain=max(256, 4096 // max(1, int(phases))))
+    return parts[0] if len(parts) == 1 else np.concatenate(parts)
 
 
 def _operator_products(spin: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

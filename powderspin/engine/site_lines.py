@@ -45,7 +45,7 @@ from .frequencies import (
     site_frame,
     transition_intensity,
 )
-from .lineshape import Axis, bin_lines, broaden
+from .lineshape import Axis, bin_lines, broaden, tent_binned
 from .pulses import PulseSequence, site_excitation
 from .spectrum import SidebandRow
 from .spinning import (
@@ -862,8 +862,7 @@ class _Binner:
         upto = int(np.searchsorted(self.last, b, side="left"))  # triangles whose vertices all arrived
         if upto > self.done:
             t = np.ascontiguousarray(self.tris[self.done:upto] - self.start)
-            self.out += _k._bin_tent(*self.win, t, self.tri_w[self.done:upto], self.rate, ax.left_edge_hz,
-                                     ax.dx_hz, ax.points, 1, self.cutoff)
+            self.out += tent_binned(ax, *self.win, t, self.tri_w[self.done:upto], self.rate, self.cutoff)
             self.done = upto
         keep = int(self.needed_from[upto]) if upto < m else b
         if keep > self.start:
