@@ -171,105 +171,13 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delt
 # exact producer
 
 
-@njit(cache=True)
-def _exact_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, ops, iz_diag,
-                  iplus, upper_index,
-                  lower_index):
-    """Exact transition offsets (Hz) and intensities |<m|I+|m-1>|^2.
-
-    Diagonalises H = nu0 (1 + 1e-6 d_zz) Iz + K sum_ab V_ab I_a I_b at every
-    orientation and rotor phase, labels the eigenstates by <Iz> (descending)
-    and returns offsets E(m_hi) - E(m_lo) - (m_hi - m_lo) nu0 for the level
-    indices ``upper_index`` / ``lower_index`` in that order (m = I first) and the
-    intensities |<m_hi|I+|m_lo>|^2 (zero unless single-quantum).
-
-    ``ops`` holds IxIx, IyIy, IzIz, {Ix,Iy}, {Ix,Iz}, {Iy,Iz} (complex).
-
-    Serial: the fast exact route calls it on a few hundred directions per site
-    (``frequencies.fit_exact_correction``) and the method decision on 96, so a
-    parallel kernel bought nothing but compile time (parallel loops compile
-    several times slower); the levels are ordered by a short insertion sort
-    for the same reason (numpy's argsort compiles a quicksort).
-    """
-    n_or = axes.shape[0]
-    nt = upper_index.shape[0]
-    dim = iz_diag.shape[0]
-    off = np.empty((n_or, nt, nphase))
-    inten = np.empty((n_or, nt, nphase))
-    dphi = 2.0 * math.pi / nphase
-    order = np.empty(dim, dtype=np.int64)
-    for i in range(n_or):
-        n = axes[i]
-        u, v = _perp_pair(n)
-        b = np.empty(3)
-        h = np.empty((dim, dim), dtype=np.complex128)
-        mz = np.empty(dim)
-        for p in range(nphase):
-            _field_direction(n, u, v, cos_r, sin_r, p * dphi, b)
-            ex, ey = _perp_pair(b)
-            # lab-frame EFG components, lab axes (ex, ey, b)
-            vxx = 0.0
-            vyy = 0.0
-            vzz = 0.0
-            vxy = 0.0
-            vxz = 0.0
-            vyz = 0.0
-            for k in range(3):
-                vxx += efg_principal_values[k] * ex[k] * ex[k]
-                vyy += efg_principal_values[k] * ey[k] * ey[k]
-                vzz += efg_principal_values[k] * b[k] * b[k]
-                vxy += efg_principal_values[k] * ex[k] * ey[k]
-                vxz += efg_principal_values[k] * ex[k] * b[k]
-                vyz += efg_principal_values[k] * ey[k] * b[k]
-            dzz = 0.0
-            for r in range(3):
-                for s in range(3):
-                    dzz += b[r] * delta[r, s] * b[s]
-            zee = nu0_hz * (1.0 + 1e-6 * dzz)
-            for r in range(dim):
-                for s in range(dim):
-                    h[r, s] = quad_constant_hz * (
-                        vxx * ops[0, r, s]
-                        + vyy * ops[1, r, s]
-                        + vzz * ops[2, r, s]
-                        + vxy * ops[3, r, s]
-                        + vxz * ops[4, r, s]
-                        + vyz * ops[5, r, s]
-                    )
-                h[r, r] += zee * iz_diag[r]
-            w, vec = np.linalg.eigh(h)
-            for j in range(dim):
-                acc = 0.0
-                for r in range(dim):
-                    acc += (vec[r, j].real ** 2 + vec[r, j].imag ** 2) * iz_diag[r]
-                mz[j] = acc
-            # eigen-indices by descending <Iz> (insertion sort; dim <= 10 here)
-            for j in range(dim):
-                k = j
-                while k > 0 and mz[order[k - 1]] < mz[j]:
-                    order[k] = order[k - 1]
-                    k -= 1
-                order[k] = j
-            for t in range(nt):
-                jh = order[upper_index[t]]
-                jl = order[lower_index[t]]
-                off[i, t, p] = w[jh] - w[jl] - (lower_index[t] - upper_index[t]) * nu0_hz
-                # <psi_hi| I+ |psi_lo>
-                amp = 0.0 + 0.0j
-                for r in range(dim):
-                    for s in range(dim):
-                        amp += np.conj(vec[r, jh]) * iplus[r, s] * vec[s, jl]
-                inten[i, t, p] = amp.real ** 2 + amp.imag ** 2
-    return off, inten
-
-
 @njit(parallel=True, cache=True)
 def _cone_polynomial(axes, cos_r, sin_r, nphase, exponents, coef):
     """Homogeneous polynomials in B0's direction b, evaluated at every orientation and rotor phase.
 
     ``exponents`` (C, 3) holds the powers (a, b, c) of the monomials b_x^a b_y^b b_z^c, all of
     one even degree L; ``coef`` (R, C) one row of coefficients per polynomial.  b is sampled as
-    in ``_exact_offsets`` (``_field_direction``; static when cos_r = 1, nphase = 1).  Returns
+    in ``frequencies.exact_pair_offsets`` (``_field_direction``; static when cos_r = 1, nphase = 1).  Returns
     (n_orient, R, nphase).  On the unit sphere these monomials span the spherical harmonics of
     every even rank <= L, so they represent any smooth even function of b that far.
     """
@@ -458,7 +366,7 @@ def _sideband_intensities(traj, rate_hz):
 # outside 0 .. nb-1 is lost.
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _tent_second_integral(t, a, d, ca, cb, cen, w):
     """Second antiderivative R(t) of a triangle density of area w on [0, d], peak at a.
 
@@ -475,7 +383,7 @@ def _tent_second_integral(t, a, d, ca, cb, cen, w):
     return rise if t <= a else fall
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _tent_corner_points(buf, kfrom, kto, v1, a, d, b, ca, cb, w):
     """Hat integrals of a tent (see ``_add_tent``) at points kfrom <= k < kto, from R.
 
@@ -508,7 +416,7 @@ def _tent_corner_points(buf, kfrom, kto, v1, a, d, b, ca, cb, w):
             r1 = r2
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _split_tent_at_point(buf, x1, x2, x3, kc, w, nb):
     """Hat integrals of a tent that crosses one point kc and reaches no other.
 
@@ -539,7 +447,7 @@ def _split_tent_at_point(buf, x1, x2, x3, kc, w, nb):
         buf[kc + 1] += mr
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _tent_kink_points(buf, kfrom, kto, v1, tau, jump, a, d, up, down):
     """Hat integrals of a tent at points kfrom <= k < kto whose hats meet one corner only.
 
