@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import json
 import os
+import resource
 import subprocess
 import sys
 import tempfile
@@ -69,8 +70,9 @@ for line in sys.stdin:
         s = simulate(models[name])  # compiled and cached
         warm.add(name)
         meta = {k: s.metadata.get(k, {}).get("site 1") for k in ("method", "orientations", "rotor_phases")}
-    t = time.perf_counter(); simulate(models[name]); dt = time.perf_counter() - t
-    print(json.dumps([dt, meta]), flush=True)
+    t = time.perf_counter(); c = time.process_time(); simulate(models[name])
+    dt = time.perf_counter() - t; dc = time.process_time() - c
+    print(json.dumps([dt, dc, meta]), flush=True)
 """
 
 
@@ -90,18 +92,61 @@ def _once(p, name):
     return json.loads(p.stdout.readline())
 
 
-def first_run(python: str) -> tuple[float, float]:
-    """Seconds for ``powderspin demo`` with an empty numba cache, then again with it filled."""
+def _children_cpu() -> float:
+    r = resource.getrusage(resource.RUSAGE_CHILDREN)
+    return r.ru_utime + r.ru_stime
+
+
+def first_run(python: str) -> tuple[float, float, float, float]:
+    """``powderspin demo`` with an empty numba cache, then again with it filled: (wall, CPU) seconds of each."""
     out = []
     with tempfile.TemporaryDirectory() as cache, tempfile.TemporaryDirectory() as work:
         env = dict(os.environ, NUMBA_CACHE_DIR=cache)
         env.setdefault("OMP_WAIT_POLICY", "PASSIVE")
         for k in range(2):
             t = time.perf_counter()
+            c = _children_cpu()
             subprocess.run([python, "-m", "powderspin", "demo", "--out", os.path.join(work, f"d{k}"), "-q"],
                            cwd=work, env=env, check=True, capture_output=True)
-            out.append(time.perf_counter() - t)
-    return out[0], out[1]
+            out += [time.perf_counter() - t, _children_cpu() - c]
+    return tuple(out)
+
+
+COMPILE_PROFILE = r"""
+import collections, os, sys, tempfile, time
+from numba.core import event
+spent = collections.defaultdict(float)
+open_ = {}
+class Listener(event.Listener):
+    def on_start(self, e):
+        open_[id(e.data["dispatcher"]), str(e.data.get("args"))] = time.process_time()
+    def on_end(self, e):
+        c0 = open_.pop((id(e.data["dispatcher"]), str(e.data.get("args"))))
+        spent[e.data["dispatcher"].py_func.__qualname__] += time.process_time() - c0
+event.register("numba:compile", Listener())
+t, c = time.perf_counter(), time.process_time()
+from powderspin.cli.main import main
+try:
+    main(["demo", "--out", os.path.join(tempfile.mkdtemp(), "d"), "-q"])
+except SystemExit:
+    pass
+print(f"demo, empty cache, in one process: wall {time.perf_counter() - t:.1f} s, cpu {time.process_time() - c:.1f} s")
+print("compile cpu per function (s; a function compiled inside another counts in both):")
+for name, sec in sorted(spent.items(), key=lambda x: -x[1])[:15]:
+    print(f"  {sec:6.2f}  {name}")
+"""
+
+
+def compile_profile(python: str) -> None:
+    """The demo with an empty cache, numba's compile events summed per function (CPU seconds)."""
+    with tempfile.TemporaryDirectory() as cache:
+        env = dict(os.environ, NUMBA_CACHE_DIR=cache)
+        env.setdefault("OMP_WAIT_POLICY", "PASSIVE")
+        out = subprocess.run([python, "-c", COMPILE_PROFILE], env=env, cwd=tempfile.gettempdir(), check=True,
+                             capture_output=True, text=True).stdout
+    lines = out.splitlines()
+    first = next(k for k, x in enumerate(lines) if x.startswith("demo, empty"))
+    print("\n".join(lines[first:]))
 
 
 def main():
@@ -112,8 +157,16 @@ def main():
     ap.add_argument("--only", help="comma-separated words; run the cases whose names contain one (and their "
                     "cheap counterparts)")
     ap.add_argument("--no-first-run", action="store_true", help="skip the first-run (empty cache) row")
+    ap.add_argument("--compile-profile", action="store_true",
+                    help="only: the first run's compile time per kernel (numba's compile events)")
     args = ap.parse_args()
     other = args.other
+    if args.compile_profile:
+        compile_profile(sys.executable)
+        if other:
+            print("other revision:")
+            compile_profile(other)
+        return
     names = list(CASES)
     if args.only:
         words = args.only.split(",")
@@ -123,37 +176,45 @@ def main():
     if other:
         procs["other"] = _start(other, names)
     best = {k: {} for k in procs}
+    cpu = {k: {} for k in procs}
     meta = {}
     for name in names:
         for _ in range(CASES[name][4]):
             for k, p in procs.items():  # alternate, so both see the same load
-                dt, m = _once(p, name)
+                dt, dc, m = _once(p, name)
                 best[k][name] = min(best[k].get(name, float("inf")), dt)
+                cpu[k][name] = min(cpu[k].get(name, float("inf")), dc)
                 meta[(k, name)] = m
     for p in procs.values():
         p.stdin.close()
         p.wait()
-    head = f"{'case':<44} {'this / s':>9} {'cheap / s':>9} {'ratio':>7}"
+    print(f"load average (1 min) {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores; best of repeats; "
+          "cpu = process time of the best run's kind (best of repeats)")
+    head = f"{'case':<44} {'this / s':>9} {'cpu / s':>8} {'cheap / s':>9} {'ratio':>7}"
     if other:
-        head += f" {'other / s':>10} {'other/this':>10}"
+        head += f" {'other / s':>10} {'cpu / s':>8} {'other/this':>10} {'cpu ratio':>9}"
     print(head)
     for name in names:
         cheap = CASES[name][3] if CASES[name][3] in names else None
         t = best["this"][name]
-        row = f"{name:<44} {t:9.3f}"
+        row = f"{name:<44} {t:9.3f} {cpu['this'][name]:8.3f}"
         row += f" {best['this'][cheap]:9.3f} {t / best['this'][cheap]:7.1f}" if cheap else f" {'':>9} {'':>7}"
         if other:
             o = best["other"][name]
-            row += f" {o:10.3f} {o / t:10.1f}"
+            oc = cpu["other"][name]
+            row += f" {o:10.3f} {oc:8.3f} {o / t:10.1f} {oc / cpu['this'][name]:9.1f}"
         print(row + f"   [{meta[('this', name)]}]", flush=True)
     if args.no_first_run:
         return
-    a, b = first_run(sys.executable)
-    row = f"{'first run: demo, empty numba cache':<44} {a:9.1f} {b:9.1f} {a / b:7.1f}"
+    a, ac, b, bc = first_run(sys.executable)
+    row = f"{'first run: demo, empty numba cache':<44} {a:9.1f} {ac:8.1f} {b:9.1f} {a / b:7.1f}"
     if other:
-        oa, ob = first_run(other)
-        row += f" {oa:10.1f} {oa / a:10.1f}   (other with the cache filled: {ob:.1f} s)"
+        oa, oac, ob, obc = first_run(other)
+        row += f" {oa:10.1f} {oac:8.1f} {oa / a:10.1f} {oac / ac:9.1f}"
     print(row + "   [cheap = the same run with the cache filled]")
+    print(f"compile share of the first run (1 - filled/empty): wall {1 - b / a:.0%}, cpu {1 - bc / ac:.0%}"
+          + (f"; other: wall {1 - ob / oa:.0%}, cpu {1 - obc / oac:.0%}" if other else ""))
+    print("per kernel: python benchmarks/bench_slow_paths.py --compile-profile")
 
 
 if __name__ == "__main__":

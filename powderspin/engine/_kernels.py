@@ -117,7 +117,7 @@ def _pair_coefficients(m, mm, x, quad_constant_hz, c2):
 # perturbative producer
 
 
-@njit(parallel=True, cache=True)
+@njit(cache=True, nogil=True)
 def _perturbative_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, m_upper,
                           m_lower, spin, second_order):
     """Offsets (Hz) of transitions m_hi <-> m_lo for every orientation and rotor phase.
@@ -130,6 +130,9 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delt
     the tensor's lab zz part), first-order quadrupolar and second-order
     quadrupolar terms (DEVELOPERS.md, 'Physics formulas' formulas, written with the
     rotation invariants of the EFG so only b = B0 direction is needed).
+
+    Serial and without the GIL: callers split the orientations among threads
+    (``threads.split_work``).
     """
     n_or = axes.shape[0]
     nt = m_upper.shape[0]
@@ -152,7 +155,7 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delt
         sph[p] = math.sin(2.0 * math.pi * p / nphase)
     v0, v1, v2 = efg_principal_values[0], efg_principal_values[1], efg_principal_values[2]
     shift_terms = _shift_terms(delta)
-    for i in prange(n_or):
+    for i in range(n_or):
         n0, n1, n2 = axes[i, 0], axes[i, 1], axes[i, 2]
         u0, u1, u2, w0, w1, w2 = _perp3(n0, n1, n2)
         for p in range(nphase):
@@ -168,105 +171,13 @@ def _perturbative_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delt
 # exact producer
 
 
-@njit(cache=True)
-def _exact_offsets(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, ops, iz_diag,
-                  iplus, upper_index,
-                  lower_index):
-    """Exact transition offsets (Hz) and intensities |<m|I+|m-1>|^2.
-
-    Diagonalises H = nu0 (1 + 1e-6 d_zz) Iz + K sum_ab V_ab I_a I_b at every
-    orientation and rotor phase, labels the eigenstates by <Iz> (descending)
-    and returns offsets E(m_hi) - E(m_lo) - (m_hi - m_lo) nu0 for the level
-    indices ``upper_index`` / ``lower_index`` in that order (m = I first) and the
-    intensities |<m_hi|I+|m_lo>|^2 (zero unless single-quantum).
-
-    ``ops`` holds IxIx, IyIy, IzIz, {Ix,Iy}, {Ix,Iz}, {Iy,Iz} (complex).
-
-    Serial: the fast exact route calls it on a few hundred directions per site
-    (``frequencies.fit_exact_correction``) and the method decision on 96, so a
-    parallel kernel bought nothing but compile time (parallel loops compile
-    several times slower); the levels are ordered by a short insertion sort
-    for the same reason (numpy's argsort compiles a quicksort).
-    """
-    n_or = axes.shape[0]
-    nt = upper_index.shape[0]
-    dim = iz_diag.shape[0]
-    off = np.empty((n_or, nt, nphase))
-    inten = np.empty((n_or, nt, nphase))
-    dphi = 2.0 * math.pi / nphase
-    order = np.empty(dim, dtype=np.int64)
-    for i in range(n_or):
-        n = axes[i]
-        u, v = _perp_pair(n)
-        b = np.empty(3)
-        h = np.empty((dim, dim), dtype=np.complex128)
-        mz = np.empty(dim)
-        for p in range(nphase):
-            _field_direction(n, u, v, cos_r, sin_r, p * dphi, b)
-            ex, ey = _perp_pair(b)
-            # lab-frame EFG components, lab axes (ex, ey, b)
-            vxx = 0.0
-            vyy = 0.0
-            vzz = 0.0
-            vxy = 0.0
-            vxz = 0.0
-            vyz = 0.0
-            for k in range(3):
-                vxx += efg_principal_values[k] * ex[k] * ex[k]
-                vyy += efg_principal_values[k] * ey[k] * ey[k]
-                vzz += efg_principal_values[k] * b[k] * b[k]
-                vxy += efg_principal_values[k] * ex[k] * ey[k]
-                vxz += efg_principal_values[k] * ex[k] * b[k]
-                vyz += efg_principal_values[k] * ey[k] * b[k]
-            dzz = 0.0
-            for r in range(3):
-                for s in range(3):
-                    dzz += b[r] * delta[r, s] * b[s]
-            zee = nu0_hz * (1.0 + 1e-6 * dzz)
-            for r in range(dim):
-                for s in range(dim):
-                    h[r, s] = quad_constant_hz * (
-                        vxx * ops[0, r, s]
-                        + vyy * ops[1, r, s]
-                        + vzz * ops[2, r, s]
-                        + vxy * ops[3, r, s]
-                        + vxz * ops[4, r, s]
-                        + vyz * ops[5, r, s]
-                    )
-                h[r, r] += zee * iz_diag[r]
-            w, vec = np.linalg.eigh(h)
-            for j in range(dim):
-                acc = 0.0
-                for r in range(dim):
-                    acc += (vec[r, j].real ** 2 + vec[r, j].imag ** 2) * iz_diag[r]
-                mz[j] = acc
-            # eigen-indices by descending <Iz> (insertion sort; dim <= 10 here)
-            for j in range(dim):
-                k = j
-                while k > 0 and mz[order[k - 1]] < mz[j]:
-                    order[k] = order[k - 1]
-                    k -= 1
-                order[k] = j
-            for t in range(nt):
-                jh = order[upper_index[t]]
-                jl = order[lower_index[t]]
-                off[i, t, p] = w[jh] - w[jl] - (lower_index[t] - upper_index[t]) * nu0_hz
-                # <psi_hi| I+ |psi_lo>
-                amp = 0.0 + 0.0j
-                for r in range(dim):
-                    for s in range(dim):
-                        amp += np.conj(vec[r, jh]) * iplus[r, s] * vec[s, jl]
-                inten[i, t, p] = amp.real ** 2 + amp.imag ** 2
-    return off, inten
-
-
 @njit(parallel=True, cache=True)
 def _cone_polynomial(axes, cos_r, sin_r, nphase, exponents, coef):
     """Homogeneous polynomials in B0's direction b, evaluated at every orientation and rotor phase.
 
     ``exponents`` (C, 3) holds the powers (a, b, c) of the monomials b_x^a b_y^b b_z^c, all of
     one even degree L; ``coef`` (R, C) one row of coefficients per polynomial.  b is sampled as
-    in ``_exact_offsets`` (``_field_direction``; static when cos_r = 1, nphase = 1).  Returns
+    in ``frequencies.exact_pair_offsets`` (``_field_direction``; static when cos_r = 1, nphase = 1).  Returns
     (n_orient, R, nphase).  On the unit sphere these monomials span the spherical harmonics of
     every even rank <= L, so they represent any smooth even function of b that far.
     """
@@ -455,7 +366,7 @@ def _sideband_intensities(traj, rate_hz):
 # outside 0 .. nb-1 is lost.
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _tent_second_integral(t, a, d, ca, cb, cen, w):
     """Second antiderivative R(t) of a triangle density of area w on [0, d], peak at a.
 
@@ -472,7 +383,7 @@ def _tent_second_integral(t, a, d, ca, cb, cen, w):
     return rise if t <= a else fall
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _tent_corner_points(buf, kfrom, kto, v1, a, d, b, ca, cb, w):
     """Hat integrals of a tent (see ``_add_tent``) at points kfrom <= k < kto, from R.
 
@@ -505,7 +416,7 @@ def _tent_corner_points(buf, kfrom, kto, v1, a, d, b, ca, cb, w):
             r1 = r2
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _split_tent_at_point(buf, x1, x2, x3, kc, w, nb):
     """Hat integrals of a tent that crosses one point kc and reaches no other.
 
@@ -536,7 +447,7 @@ def _split_tent_at_point(buf, x1, x2, x3, kc, w, nb):
         buf[kc + 1] += mr
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _tent_kink_points(buf, kfrom, kto, v1, tau, jump, a, d, up, down):
     """Hat integrals of a tent at points kfrom <= k < kto whose hats meet one corner only.
 
@@ -650,8 +561,26 @@ def _add_tent_points(buf, v1, v2, v3, w, nb):
         _tent_corner_points(buf, k, khi + 1, v1, a, d, b, ca, cb, w)
 
 
-@njit(parallel=True, cache=True)
-def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cutoff):
+@njit(cache=True, nogil=True)
+def _band_extent(amp):
+    """Extent of each line's bands (n_v, n_t): the largest |n| whose intensity is not zero.
+
+    A line computed at fewer phases than P (``_perturbative_sidebands`` with ``adaptive``) has exact
+    zeros beyond its own bands, found by scanning inwards from band P/2.
+    """
+    nv, nt, p = amp.shape
+    ext = np.empty((nv, nt), dtype=np.int64)
+    for i in range(nv):
+        for t in range(nt):
+            e = p // 2
+            while e > 0 and amp[i, t, e] == 0.0 and amp[i, t, p - e] == 0.0:
+                e -= 1
+            ext[i, t] = e
+    return ext
+
+
+@njit(cache=True, nogil=True)
+def _bin_tent(mean, amp, weights_t, ext, tris, tri_w, rate_hz, x0, dx, nb, cutoff):
     """Triangle ("tent") interpolation of every line onto the axis points.
 
     mean (n_v, n_t): line centres (Hz) per vertex and transition; amp
@@ -662,68 +591,50 @@ def _bin_tent(mean, amp, weights_t, tris, tri_w, rate_hz, x0, dx, nb, nchunk, cu
     the axis points x0 + (k + 0.5) dx by their hat functions
     (``_add_tent_points``).  Returns (nb,) summed intensities.
 
-    Only the bands a triangle's vertices carry are visited: a line computed at
-    fewer phases than P (``_perturbative_sidebands`` with ``adaptive``) has
-    exact zeros beyond its own bands, found by scanning inwards from band P/2.
+    Only the bands a triangle's vertices carry are visited: ``ext`` (n_v, n_t)
+    is each line's band extent (``_band_extent``).  Serial and without the GIL:
+    callers split the triangles among threads and add the results.
     """
     m = tris.shape[0]
     nt = mean.shape[1]
     p = amp.shape[2]
-    nv = amp.shape[0]
-    # extent of each line's bands: the largest |n| whose intensity is not zero
-    ext = np.empty((nv, nt), dtype=np.int64)
-    for i in prange(nv):
-        for t in range(nt):
-            e = p // 2
-            while e > 0 and amp[i, t, e] == 0.0 and amp[i, t, p - e] == 0.0:
-                e -= 1
-            ext[i, t] = e
-    bufs = np.zeros((nchunk, nb))
-    step = (m + nchunk - 1) // nchunk
     inv = 1.0 / dx
     step_pts = rate_hz * inv  # one band further, in points
-    for c in prange(nchunk):
-        lo = c * step
-        hi = min(m, lo + step)
-        buf = bufs[c]
-        for q in range(lo, hi):
-            a = tris[q, 0]
-            b = tris[q, 1]
-            d = tris[q, 2]
-            for t in range(nt):
-                # vertex order and point coordinates once per line; bands only shift them
-                f1 = mean[a, t]
-                f2 = mean[b, t]
-                f3 = mean[d, t]
-                if f1 > f2:
-                    f1, f2 = f2, f1
-                if f2 > f3:
-                    f2, f3 = f3, f2
-                if f1 > f2:
-                    f1, f2 = f2, f1
-                u1 = (f1 - x0) * inv - 0.5
-                u2 = (f2 - x0) * inv - 0.5
-                u3 = (f3 - x0) * inv - 0.5
-                e = max(ext[a, t], max(ext[b, t], ext[d, t]))
-                for q2 in range(min(p, 2 * e + 1)):
-                    # bands 0, 1, -1, 2, -2, ... out to the vertices' extent
-                    n2 = (q2 + 1) // 2
-                    s = n2 if q2 % 2 == 1 or q2 == 0 else p - n2
-                    w = (
-                        amp[a, t, s] * weights_t[a, t]
-                        + amp[b, t, s] * weights_t[b, t]
-                        + amp[d, t, s] * weights_t[d, t]
-                    ) * (tri_w[q] / 3.0)
-                    if w <= cutoff:
-                        continue
-                    n = s if s < (p + 1) // 2 else s - p
-                    sh = n * step_pts if p > 1 else 0.0
-                    _add_tent_points(buf, u1 + sh, u2 + sh, u3 + sh, w, nb)
-    out = np.zeros(nb)
-    for c in range(nchunk):
-        for k in range(nb):
-            out[k] += bufs[c, k]
-    return out
+    buf = np.zeros(nb)
+    for q in range(m):
+        a = tris[q, 0]
+        b = tris[q, 1]
+        d = tris[q, 2]
+        for t in range(nt):
+            # vertex order and point coordinates once per line; bands only shift them
+            f1 = mean[a, t]
+            f2 = mean[b, t]
+            f3 = mean[d, t]
+            if f1 > f2:
+                f1, f2 = f2, f1
+            if f2 > f3:
+                f2, f3 = f3, f2
+            if f1 > f2:
+                f1, f2 = f2, f1
+            u1 = (f1 - x0) * inv - 0.5
+            u2 = (f2 - x0) * inv - 0.5
+            u3 = (f3 - x0) * inv - 0.5
+            e = max(ext[a, t], max(ext[b, t], ext[d, t]))
+            for q2 in range(min(p, 2 * e + 1)):
+                # bands 0, 1, -1, 2, -2, ... out to the vertices' extent
+                n2 = (q2 + 1) // 2
+                s = n2 if q2 % 2 == 1 or q2 == 0 else p - n2
+                w = (
+                    amp[a, t, s] * weights_t[a, t]
+                    + amp[b, t, s] * weights_t[b, t]
+                    + amp[d, t, s] * weights_t[d, t]
+                ) * (tri_w[q] / 3.0)
+                if w <= cutoff:
+                    continue
+                n = s if s < (p + 1) // 2 else s - p
+                sh = n * step_pts if p > 1 else 0.0
+                _add_tent_points(buf, u1 + sh, u2 + sh, u3 + sh, w, nb)
+    return buf
 
 
 @njit(cache=True)
@@ -881,6 +792,10 @@ def _fft_lanes_bitreversed(re, im, twr, twi):
         h *= 2
 
 
+#: harmonics of a line's phase xi below this (radians) are left out of its sideband sum: dropping them
+#: changes each band amplitude by less than their sum (|e^{i d} - 1| <= |d|), i.e. at the level of the
+#: FFT's rounding; the trajectories of the fitted exact route carry such harmonics as rounding noise
+_HARMONIC_FLOOR = 1e-13
 #: a line computed at fewer phases than the site's (``adaptive``) keeps at most this fraction
 #: of its intensity in the outer quarter of its own bands, else its phases are doubled
 _LINE_ALIAS = 1e-12
@@ -951,7 +866,7 @@ def _store_bands(amp_row, re, im, l, pb, p):
     return outer / total if total > 0.0 else 0.0
 
 
-@njit(parallel=True, cache=True, fastmath=True)
+@njit(cache=True, fastmath=True, nogil=True)
 def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, delta, quad_constant_hz, nu0_hz, m_upper,
                             spin, second_order,
                             rate_hz, adaptive=False):
@@ -1019,10 +934,11 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, de
     inv = 1.0 / (p * p)
     v0, v1, v2 = efg_principal_values[0], efg_principal_values[1], efg_principal_values[2]
     shift_terms = _shift_terms(delta)
-    # at least one full set of lanes per chunk (a chunk of one orientation would leave 7 of 8 lanes idle)
-    nchunk = max(1, min(64, (n_or + _LANES - 1) // _LANES))
-    step = (n_or + nchunk - 1) // nchunk if nchunk > 0 else 0
-    for c in prange(nchunk):
+    # serial and without the GIL: the caller splits the orientations among threads (at multiples of
+    # _LANES); one chunk here
+    nchunk = 1
+    step = n_or
+    for c in range(nchunk):
         # per-chunk work buffers (no allocation per orientation, no sharing)
         f = np.empty((4, ns))
         fr = np.empty((_LANES, 4, 5))
@@ -1104,7 +1020,7 @@ def _perturbative_sidebands(axes, cos_r, sin_r, nphase, efg_principal_values, de
     return mean, amp
 
 
-@njit(parallel=True, cache=True, fastmath=True)
+@njit(cache=True, fastmath=True, nogil=True)
 def _harmonic_sidebands(gr, gi, nphase, adaptive=False):
     """Sideband intensities |F_n|^2 from the Fourier components of each line's phase.
 
@@ -1114,7 +1030,8 @@ def _harmonic_sidebands(gr, gi, nphase, adaptive=False):
     equally spaced phases (any K: a harmonic above P/2 is evaluated, not aliased),
     exponentiated and Fourier transformed, ``_LANES`` rows side by side as in
     ``_perturbative_sidebands`` (and, with ``adaptive``, each block at the fewest
-    phases its lines need, as there).  Returns amp (R, P), band n at index n mod P.
+    phases its lines need, as there).  A block's trailing harmonics below ``_HARMONIC_FLOOR``
+    radians in all its rows are left out.  Returns amp (R, P), band n at index n mod P.
     """
     nrow, kk = gr.shape
     p = nphase
@@ -1124,9 +1041,10 @@ def _harmonic_sidebands(gr, gi, nphase, adaptive=False):
     amp = np.empty((nrow, p))
     inv = 1.0 / (p * p)
     nblk = (nrow + _LANES - 1) // _LANES
-    nchunk = max(1, min(64, nblk))
-    step = (nblk + nchunk - 1) // nchunk
-    for c in prange(nchunk):
+    # serial and without the GIL: the caller splits the rows among threads
+    nchunk = 1
+    step = nblk
+    for c in range(nchunk):
         re = np.empty((p, _LANES))
         im = np.empty((p, _LANES))
         hr = np.empty((kk, _LANES))
@@ -1145,7 +1063,17 @@ def _harmonic_sidebands(gr, gi, nphase, adaptive=False):
                         hr[k, l] = 0.0
                         hi[k, l] = 0.0
             nl = re.shape[1]
-            pb = _line_phases(hr, hi, kk, nb, p) if adaptive else p
+            # the block's highest harmonic above _HARMONIC_FLOOR (the rest change no intensity beyond rounding)
+            kb = kk
+            while kb > 1:
+                big = False
+                for l in range(nb):
+                    if abs(hr[kb - 1, l]) > _HARMONIC_FLOOR or abs(hi[kb - 1, l]) > _HARMONIC_FLOOR:
+                        big = True
+                if big:
+                    break
+                kb -= 1
+            pb = _line_phases(hr, hi, kb, nb, p) if adaptive else p
             while True:
                 o = pb - p0
                 for j in range(pb):
@@ -1154,12 +1082,12 @@ def _harmonic_sidebands(gr, gi, nphase, adaptive=False):
                     ci = zi[o + j]
                     er[0] = cr
                     ei[0] = ci
-                    for k in range(1, kk):
+                    for k in range(1, kb):
                         er[k] = er[k - 1] * cr - ei[k - 1] * ci
                         ei[k] = er[k - 1] * ci + ei[k - 1] * cr
                     for l in range(nl):
                         re[j, l] = 0.0
-                    for k in range(kk):
+                    for k in range(kb):
                         a = er[k]
                         b = ei[k]
                         for l in range(nl):
@@ -1183,40 +1111,30 @@ def _harmonic_sidebands(gr, gi, nphase, adaptive=False):
     return amp
 
 
-@njit(parallel=True, cache=True)
+@njit(cache=True, nogil=True)
 def _band_summary(amp, weights, mean):
     """Per-band totals in one pass over the sideband intensities.
 
     amp (N, T, P), weights (N, T) (powder x transition weights), mean (N, T).
     Returns, for each band index p: the weighted intensity sum_v,t w amp,
     its weighted position sum w amp mean, and the largest amp over (v, t).
+    Serial: one pass over memory, which a second thread does not speed up, and a
+    parallel loop compiles five times longer.
     """
     n, nt, p = amp.shape
-    nchunk = min(max(n, 1), 32)
-    step = (n + nchunk - 1) // nchunk
-    inten = np.zeros((nchunk, p))
-    pos = np.zeros((nchunk, p))
-    amax = np.zeros((nchunk, p))
-    for c in prange(nchunk):
-        for i in range(c * step, min(n, (c + 1) * step)):
-            for t in range(nt):
-                w = weights[i, t]
-                mu = mean[i, t]
-                for j in range(p):
-                    a = amp[i, t, j]
-                    inten[c, j] += w * a
-                    pos[c, j] += w * a * mu
-                    if a > amax[c, j]:
-                        amax[c, j] = a
     out_i = np.zeros(p)
     out_p = np.zeros(p)
     out_m = np.zeros(p)
-    for c in range(nchunk):
-        for j in range(p):
-            out_i[j] += inten[c, j]
-            out_p[j] += pos[c, j]
-            if amax[c, j] > out_m[j]:
-                out_m[j] = amax[c, j]
+    for i in range(n):
+        for t in range(nt):
+            w = weights[i, t]
+            wm = w * mean[i, t]
+            for j in range(p):
+                a = amp[i, t, j]
+                out_i[j] += w * a
+                out_p[j] += wm * a
+                if a > out_m[j]:
+                    out_m[j] = a
     return out_i, out_p, out_m
 
 

@@ -24,6 +24,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from . import _kernels as _k
+from .threads import split_work
 
 if TYPE_CHECKING:  # pragma: no cover
     from ..model.values import Site
@@ -339,13 +340,12 @@ def perturbative_pair_offsets(frame, ax, m_upper, m_lower, rotor_angle_rad, phas
     Part of the engine's internal interface (used by :mod:`powderspin.engine.two_dimensional` for the
     multiple-quantum and satellite transitions; :func:`perturbative_offsets` is the public front).
     """
-    return _k._perturbative_offsets(
-        *kernel_geometry(frame, ax, rotor_angle_rad, phases),
-        np.ascontiguousarray(m_upper, dtype=float),
-        np.ascontiguousarray(m_lower, dtype=float),
-        float(frame.spin),
-        bool(second_order),
-    )
+    geo = kernel_geometry(frame, ax, rotor_angle_rad, phases)
+    rest = (np.ascontiguousarray(m_upper, dtype=float), np.ascontiguousarray(m_lower, dtype=float),
+            float(frame.spin), bool(second_order))
+    parts = split_work(lambda a, b: _k._perturbative_offsets(geo[0][a:b], *geo[1:], *rest), geo[0].shape[0],
+                       grain=max(256, 4096 // max(1, int(phases))))
+    return parts[0] if len(parts) == 1 else np.concatenate(parts)
 
 
 def _operator_products(spin: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -404,14 +404,56 @@ def exact_pair_offsets(frame, ax, upper, lower, rotor_angle_rad, phases):
     :func:`exact_offsets` is the public front).
     """
     ops, iz, ip = _operator_products(frame.spin)
-    return _k._exact_offsets(
-        *kernel_geometry(frame, ax, rotor_angle_rad, phases),
-        ops,
-        iz,
-        ip,
-        np.ascontiguousarray(upper, dtype=np.int64),
-        np.ascontiguousarray(lower, dtype=np.int64),
-    )
+    ax, cos_r, sin_r, nphase, efg, delta, quad, nu0 = kernel_geometry(frame, ax, rotor_angle_rad, phases)
+    upper = np.asarray(upper, dtype=np.int64)
+    lower = np.asarray(lower, dtype=np.int64)
+    n, nt = ax.shape[0], upper.size
+    off = np.empty((n, nt, nphase))
+    inten = np.empty((n, nt, nphase))
+    phi = 2.0 * np.pi * np.arange(nphase) / nphase
+    step = max(1, _EXACT_BLOCK // nphase)
+    for a in range(0, n, step):
+        d = ax[a:a + step]
+        u, v = _perpendicular_pairs(d)
+        # field direction on the cone about each rotor axis (as the perturbative kernels sample it)
+        b = (cos_r * d[:, None, :] + sin_r * (np.cos(phi)[None, :, None] * u[:, None, :]
+                                               + np.sin(phi)[None, :, None] * v[:, None, :])).reshape(-1, 3)
+        ex, ey = _perpendicular_pairs(b)
+        comps = quad * np.stack([(efg * ex * ex).sum(1), (efg * ey * ey).sum(1), (efg * b * b).sum(1),
+                                 (efg * ex * ey).sum(1), (efg * ex * b).sum(1), (efg * ey * b).sum(1)], axis=1)
+        zee = nu0 * (1.0 + 1e-6 * ((b @ delta) * b).sum(axis=1))
+        h = (comps @ ops.reshape(6, -1)).reshape(-1, iz.size, iz.size)
+        h[:, np.arange(iz.size), np.arange(iz.size)] += zee[:, None] * iz
+        w, vec = np.linalg.eigh(h)
+        mz = iz @ (vec.real ** 2 + vec.imag ** 2)
+        order = np.argsort(-mz, axis=1, kind="stable")  # levels by descending <Iz>: index 0 is m = I
+        jh, jl = order[:, upper], order[:, lower]
+        rows = np.arange(w.shape[0])[:, None]
+        o = w[rows, jh] - w[rows, jl] - (lower - upper)[None, :] * nu0
+        vh = np.take_along_axis(vec, jh[:, None, :], axis=2)  # (M, dim, nt) eigenvectors of the upper levels
+        vl = np.take_along_axis(vec, jl[:, None, :], axis=2)
+        amp = (vh.conj() * (ip @ vl)).sum(axis=1)
+        m = d.shape[0]
+        off[a:a + m] = o.reshape(m, nphase, nt).transpose(0, 2, 1)
+        inten[a:a + m] = (amp.real ** 2 + amp.imag ** 2).reshape(m, nphase, nt).transpose(0, 2, 1)
+    return off, inten
+
+
+#: matrices diagonalised per numpy call of the exact route (a few MB of work arrays)
+_EXACT_BLOCK = 4096
+
+
+def _perpendicular_pairs(n: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Orthonormal (u, v) perpendicular to each unit vector n (rows), v = n x u: the kernels' convention
+    (u = n crossed with the coordinate axis least aligned with n), so that rotor phases agree."""
+    a = np.abs(n)
+    first = (a[:, 0] <= a[:, 1]) & (a[:, 0] <= a[:, 2])
+    second = ~first & (a[:, 1] <= a[:, 2])
+    z = np.zeros(n.shape[0])
+    u = np.where(first[:, None], np.stack([z, n[:, 2], -n[:, 1]], 1),
+                 np.where(second[:, None], np.stack([-n[:, 2], z, n[:, 0]], 1), np.stack([n[:, 1], -n[:, 0], z], 1)))
+    u /= np.linalg.norm(u, axis=1)[:, None]
+    return u, np.cross(n, u)
 
 
 def multiple_quantum_offsets(

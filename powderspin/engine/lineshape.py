@@ -57,6 +57,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import _kernels as _k
+from .threads import split_work
 
 __all__ = ["Axis", "make_axis", "bin_lines", "broaden", "baseline_values"]
 
@@ -259,6 +260,28 @@ def make_axis(points: int, nu_ref_hz: float, center_ppm=None, width_ppm=None, sp
     return Axis(c, w, int(points), nu_ref_hz)
 
 
+def tent_binned(axis: Axis, mean: np.ndarray, amp: np.ndarray, weights_t: np.ndarray, tris: np.ndarray,
+                tri_w: np.ndarray, rate_hz: float, cutoff: float) -> np.ndarray:
+    """Triangle interpolation of contiguous line arrays (the kernel behind :func:`bin_lines`).
+
+    Part of the engine's internal interface; the triangles are shared among threads
+    (:func:`~powderspin.engine.threads.split_work`) and their results added.
+    """
+    ext = _k._band_extent(amp)
+    x0, dx, nb = axis.left_edge_hz, axis.dx_hz, axis.points
+
+    def part(a, b):
+        return _k._bin_tent(mean, amp, weights_t, ext, tris[a:b], tri_w[a:b], float(rate_hz), x0, dx, nb,
+                            float(cutoff))
+
+    # a part of at least 2048 triangles (starting a thread costs about as much as binning a few hundred)
+    parts = split_work(part, tris.shape[0], grain=2048)
+    out = parts[0]
+    for y in parts[1:]:
+        out += y
+    return out
+
+
 def bin_lines(axis: Axis, mean, amp, weights_t, orientation_set, binning: str, rate_hz: float = 0.0,
               cutoff: float = 0.0) -> np.ndarray:
     """Bin lines onto the axis; returns the intensity fraction per bin.
@@ -326,9 +349,7 @@ def bin_lines(axis: Axis, mean, amp, weights_t, orientation_set, binning: str, r
             )
         tris = np.ascontiguousarray(orientation_set.triangles, dtype=np.int64)
         tw = np.ascontiguousarray(orientation_set.triangle_weights, dtype=float)
-        nchunk = 8 if tris.shape[0] > 4096 else 1
-        return _k._bin_tent(mean, amp, wt, tris, tw, float(rate_hz), axis.left_edge_hz, axis.dx_hz,
-                            axis.points, nchunk, float(cutoff))
+        return tent_binned(axis, mean, amp, wt, tris, tw, rate_hz, cutoff)
     if binning == "histogram":
         vw = np.ascontiguousarray(orientation_set.weights, dtype=float)
         return _k._bin_histogram(mean, amp, wt, vw, float(rate_hz), axis.left_edge_hz, axis.dx_hz, axis.points)

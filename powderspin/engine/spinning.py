@@ -27,6 +27,7 @@ import numpy as np
 
 from . import _kernels as _k
 from .frequencies import checked_directions, kernel_geometry, upper_level_indices
+from .threads import split_work
 
 __all__ = [
     "rotor_lines",
@@ -233,10 +234,14 @@ def perturbative_sidebands(frame, directions, m_upper, *, rotor_angle_rad: float
     rotor_angle_rad = _check_rotor_angle(rotor_angle_rad)
     d = checked_directions(directions)
     upper_level_indices(frame.spin, m_upper)
-    return _k._perturbative_sidebands(
-        *kernel_geometry(frame, d, rotor_angle_rad, p),
-        np.ascontiguousarray(m_upper, dtype=float), float(frame.spin), bool(second_order), float(rate_hz),
-        bool(adaptive))
+    geo = kernel_geometry(frame, d, rotor_angle_rad, p)
+    rest = (np.ascontiguousarray(m_upper, dtype=float), float(frame.spin), bool(second_order), float(rate_hz),
+            bool(adaptive))
+    parts = split_work(lambda a, b: _k._perturbative_sidebands(geo[0][a:b], *geo[1:], *rest), geo[0].shape[0],
+                       grain=_k._LANES * max(1, 4096 // p))
+    if len(parts) == 1:
+        return parts[0]
+    return np.concatenate([q[0] for q in parts]), np.concatenate([q[1] for q in parts])
 
 
 def rotor_fourier_components(frame, directions, m_upper, *, rotor_angle_rad: float) -> np.ndarray:
@@ -355,5 +360,8 @@ def trajectory_sidebands(traj: np.ndarray, rate_hz: float, phases: int, *, adapt
         amp = np.zeros((n * nt, p))
         amp[:, 0] = 1.0
     else:
-        amp = _k._harmonic_sidebands(np.ascontiguousarray(g.real), np.ascontiguousarray(g.imag), p, bool(adaptive))
+        gr, gi = np.ascontiguousarray(g.real), np.ascontiguousarray(g.imag)
+        parts = split_work(lambda a, b: _k._harmonic_sidebands(gr[a:b], gi[a:b], p, bool(adaptive)), gr.shape[0],
+                           grain=_k._LANES * max(1, 4096 // p))
+        amp = parts[0] if len(parts) == 1 else np.concatenate(parts)
     return mean, amp.reshape(n, nt, p)

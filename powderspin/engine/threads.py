@@ -16,8 +16,9 @@ from __future__ import annotations
 
 import contextlib
 import os
+import threading
 
-__all__ = ["kernel_threads", "idle_threads"]
+__all__ = ["kernel_threads", "idle_threads", "split_work"]
 
 
 def idle_threads() -> int:
@@ -80,3 +81,62 @@ def kernel_threads(n: int | str | None):
         yield
     finally:
         numba.set_num_threads(old)
+
+
+def split_work(work, n: int, *, grain: int = 1) -> list:
+    """Call ``work(a, b)`` on consecutive parts of ``range(n)``, side by side in Python threads.
+
+    The serial kernels release the GIL (``nogil=True``), so parts run in parallel: one compiled
+    serial kernel serves every thread count, where a ``parallel=True`` kernel compiles several times
+    longer (measured in ``benchmarks/bench_slow_paths.py``).  The number of parts is numba's current
+    thread count (see :func:`kernel_threads`), fewer when ``n`` holds fewer than two ``grain``-sized
+    parts; part boundaries fall on multiples of ``grain``.  The first part runs in the calling thread.
+
+    Parameters
+    ----------
+    work : callable
+        ``work(a, b)`` for the items ``a ... b - 1``; its results are returned in order.
+    n : int
+        Number of items.
+    grain : int, optional
+        Parts hold a multiple of this many items (the last one the rest).
+
+    Returns
+    -------
+    list
+        ``[work(a0, b0), work(a1, b1), ...]`` over consecutive parts.
+
+    Examples
+    --------
+    >>> split_work(lambda a, b: (a, b), 10, grain=4)[0][0], split_work(lambda a, b: (a, b), 10)[-1][1]
+    (0, 10)
+    """
+    import numba
+
+    grain = max(1, int(grain))
+    blocks = -(-n // grain)
+    parts = max(1, min(numba.get_num_threads(), blocks))
+    if parts == 1:
+        return [work(0, n)]
+    per = -(-blocks // parts) * grain
+    bounds = [(a, min(n, a + per)) for a in range(0, n, per)]
+    results: list = [None] * len(bounds)
+    errors: list = []
+
+    def run(k):
+        try:
+            results[k] = work(*bounds[k])
+        except BaseException as e:  # handed to the calling thread
+            errors.append(e)
+
+    threads = [threading.Thread(target=run, args=(k,), daemon=True) for k in range(1, len(bounds))]
+    for t in threads:
+        t.start()
+    try:
+        run(0)
+    finally:
+        for t in threads:
+            t.join()
+    if errors:
+        raise errors[0]
+    return results

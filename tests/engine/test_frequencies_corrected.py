@@ -194,3 +194,25 @@ def test_adaptive_sidebands_match_fixed_route(rate):
     _, e_fix = trajectory_sidebands(off, rate, p, adaptive=False)
     _, e_ad = trajectory_sidebands(off, rate, p, adaptive=True)
     np.testing.assert_allclose(e_ad, e_fix, rtol=0, atol=1e-9)
+
+
+def test_harmonics_below_the_floor_change_no_band():
+    # The fitted exact trajectory (degree 16) sampled at 64 phases carries harmonics 17..31 as
+    # rounding noise (~1e-14 rad in xi); the kernel leaves out trailing harmonics below
+    # _HARMONIC_FLOOR.  Source: |F_n|^2 by numerical integration of the phase of the full
+    # trigonometric interpolant of the same samples, every harmonic kept
+    # (tests/reference/sidebands_numpy.py; M. H. Levitt, J. Magn. Reson. 82 (1989) 427).
+    frame = site_frame(make_site(cq_mhz=10.0, eta_q=0.3), get_nuclide("27Al"), 9.4)
+    ms = [2.5, 0.5]
+    corr = fit_exact_correction(frame, ms)
+    off, _ = corrected_exact_offsets(frame, _dirs(11, 3), ms, corr, rotor_angle_rad=MAGIC, phases=64)
+    rate, p = 5000.0, 4096
+    g = np.fft.fft(off, axis=-1)[..., 1:32] / 64 / (1j * np.arange(1, 32) * rate)
+    assert np.abs(g[..., 20:]).max() < _k._HARMONIC_FLOOR  # the case does exercise the floor
+    _, amp = trajectory_sidebands(off, rate, p, adaptive=False)
+    n = np.fft.fftfreq(p, 1.0 / p).astype(int)
+    for i in range(off.shape[0]):
+        for t in range(off.shape[1]):
+            _, ref = sidebands_numpy.sideband_intensities(sidebands_numpy.trig_interpolant(off[i, t]), rate,
+                                                          samples_per_period=16384)
+            np.testing.assert_allclose(amp[i, t], ref[n % ref.size], rtol=0, atol=1e-9)

@@ -155,10 +155,17 @@ def _points(x0, dx, nb):
 
 
 def _tent(mean, amp, wt, tris, tw, rate, x0, dx, nb, nchunk=1, cutoff=0.0):
-    return _k._bin_tent(np.ascontiguousarray(mean, float), np.ascontiguousarray(amp, float),
-                        np.ascontiguousarray(wt, float), np.ascontiguousarray(tris, np.int64),
-                        np.ascontiguousarray(tw, float), float(rate), float(x0), float(dx), int(nb),
-                        int(nchunk), float(cutoff))
+    # nchunk > 1: the triangles in that many parts, added (as the threads of lineshape.tent_binned do)
+    mean, amp, wt = (np.ascontiguousarray(x, float) for x in (mean, amp, wt))
+    tris, tw = np.ascontiguousarray(tris, np.int64), np.ascontiguousarray(tw, float)
+    ext = _k._band_extent(amp)
+    out = np.zeros(int(nb))
+    for part in np.array_split(np.arange(tris.shape[0]), int(nchunk)):
+        if part.size:
+            a, b = part[0], part[-1] + 1
+            out += _k._bin_tent(mean, amp, wt, ext, tris[a:b], tw[a:b], float(rate), float(x0), float(dx), int(nb),
+                                float(cutoff))
+    return out
 
 
 def _octahedron_mesh(order):
@@ -492,3 +499,17 @@ def test_lane_fft_matches_numpy(p):
     im = np.ascontiguousarray(x.imag[rev])
     _k._fft_lanes_bitreversed(re, im, twr, twi)
     assert np.allclose(re + 1j * im, np.fft.fft(x, axis=0), atol=1e-11 * p)
+
+
+def test_band_extent_matches_numpy():
+    # Source: the definition, in numpy: the largest |n| (bands in FFT order) whose intensity is not zero.
+    rng = np.random.default_rng(9)
+    p = 32
+    amp = np.zeros((5, 2, p))
+    for i, e in enumerate([0, 1, 5, 16, 9]):
+        n = np.fft.fftfreq(p, 1.0 / p).astype(int)
+        amp[i, 0, np.abs(n) <= e] = rng.random(int((np.abs(n) <= e).sum())) + 0.1
+    amp[3, 1, 16] = 1.0  # the Nyquist band alone
+    n = np.abs(np.fft.fftfreq(p, 1.0 / p).astype(int))
+    ref = np.array([[int(n[a > 0].max()) if (a > 0).any() else 0 for a in row] for row in amp])
+    np.testing.assert_array_equal(_k._band_extent(amp), ref)

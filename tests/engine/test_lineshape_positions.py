@@ -34,8 +34,9 @@ from powderspin.simulator import Simulator, simulate
 def _tent(f, w, x0, dx, nb):
     """One triangle (vertex frequencies f) of weight w through the tent kernel."""
     mean = np.ascontiguousarray(np.asarray(f, float)[:, None])
-    return _k._bin_tent(mean, np.ones((3, 1, 1)), np.ones((3, 1)), np.array([[0, 1, 2]], np.int64),
-                        np.array([w]), 0.0, float(x0), float(dx), int(nb), 1, 0.0)
+    amp = np.ones((3, 1, 1))
+    return _k._bin_tent(mean, amp, np.ones((3, 1)), _k._band_extent(amp), np.array([[0, 1, 2]], np.int64),
+                        np.array([w]), 0.0, float(x0), float(dx), int(nb), 0.0)
 
 
 def _first_moment(x, y):

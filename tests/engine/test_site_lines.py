@@ -179,3 +179,53 @@ def test_streamed_lines_render_like_stored_ones():
     h = render_lines(stored, axis, binning="histogram").intensity
     hs = render_lines(streamed, axis, binning="histogram").intensity
     np.testing.assert_allclose(hs, h, rtol=0, atol=1e-12 * h.max())
+
+
+@pytest.mark.parametrize("binning", ["interpolate", "histogram"])
+def test_lines_binned_while_computed_equal_binned_stored_lines(binning, monkeypatch):
+    """Lines too large to keep, binned chunk by chunk as they are computed (the orientation choice's
+    route): the same fractions as bin_lines over the whole stored set (the plain route)."""
+    from powderspin.engine.lineshape import bin_lines
+    from powderspin.engine.site_lines import BIN_CUTOFF, _compute_lines
+
+    m = _model()
+    job = site_job(m.sites[0], m.measurement, AL, "perturbation")
+    stored = compute_lines(job)
+    axis = Axis(3e3, 200e3, 1024, AL.larmor_hz(9.4))
+    ref = bin_lines(axis, stored.mean, stored.intensity, stored.weights, stored.orientations, binning,
+                    stored.rate_hz, BIN_CUTOFF)
+    # a budget of 0 bytes: nothing kept, every chunk binned as it comes; small chunks, so that
+    # triangles span chunks and the window of vertices is exercised
+    monkeypatch.setattr(stage, "_CHUNK_POINTS", 2048)
+    assert stage._Producer(job, stored.orientations).chunk_size(stored.phases) * 8 < stored.orientations.size
+    lines, frac = _compute_lines(job, None, None, "", 0, render=(axis, binning, BIN_CUTOFF))
+    assert lines.intensity is None and frac is not None
+    np.testing.assert_allclose(frac, ref, rtol=0, atol=1e-12 * ref.max())
+    np.testing.assert_allclose(lines.band_intensity, stored.band_intensity, rtol=0, atol=1e-12)
+
+
+def test_lines_taken_from_the_previous_set_equal_computed_ones(monkeypatch):
+    """The orientation choice's next set holds the previous set's directions (a triangulated set of
+    twice the subdivisions); lines taken from it equal lines computed afresh."""
+    from powderspin.engine.site_lines import _compute_lines
+    from powderspin.physics.orientations import select_orientations
+
+    m = _model(span_ppm=0.0, euler_deg=[0.0, 0.0, 0.0])
+    meas = m.measurement
+    coarse, fine = (select_orientations("octant", s, interpolate=True) for s in (8, 16))
+    job_c = site_job(m.sites[0], meas, AL, "perturbation", coarse)
+    job_f = site_job(m.sites[0], meas, AL, "perturbation", fine)
+    known = compute_lines(job_c, orientations=coarse)
+    fresh = compute_lines(job_f, orientations=fine)
+    assert fresh.phases == known.phases
+    rows = stage._shared_rows(fine, coarse)
+    assert (rows >= 0).sum() == coarse.size
+    np.testing.assert_allclose(fine.vectors[rows >= 0], coarse.vectors[rows[rows >= 0]], rtol=0, atol=1e-12)
+    calls = []
+    real = stage._Producer.reused_lines
+    monkeypatch.setattr(stage._Producer, "reused_lines", lambda self, *a: calls.append(1) or real(self, *a))
+    reused, _ = _compute_lines(job_f, fine, None, "", stage.LINES_MEMORY_BUDGET, known=known)
+    assert calls  # the shared directions were taken from the known lines
+    np.testing.assert_allclose(reused.mean, fresh.mean, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(reused.intensity, fresh.intensity, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(reused.band_intensity, fresh.band_intensity, rtol=0, atol=1e-12)

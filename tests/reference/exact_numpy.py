@@ -1,6 +1,6 @@
 """Slow, obvious exact diagonalisation of the Zeeman + quadrupolar + secular shift Hamiltonian.
 
-Twin of ``powderspin.engine._kernels._exact_offsets``; written independently with
+Twin of ``powderspin.engine.frequencies.exact_pair_offsets``; written independently with
 plain numpy and without importing anything from powderspin.
 
 For each B0 direction ``b`` (a unit vector in the crystallite frame):
