@@ -33,6 +33,7 @@ from typing import Mapping
 import numpy as np
 
 from ..engine.lineshape import Axis
+from ..frozen import reduce_through_init
 from ..io.spectra import MeasuredSpectrum
 from ..io.spectra2d import MeasuredSpectrum2D
 from ..model.values import Model
@@ -77,6 +78,8 @@ class TwoDimensionalFit:
     n_evaluations: int
     warnings: tuple = ()
     scales: tuple = field(default=())
+
+    __reduce__ = reduce_through_init  # picklable: to and from Dask workers (powderspin.frozen)
 
     def __post_init__(self):
         object.__setattr__(self, "values", MappingProxyType(dict(self.values)))

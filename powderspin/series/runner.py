@@ -274,7 +274,11 @@ def _series_client(client=None, *, workers: int | None = None, scheduler: str | 
 
 
 def dask_map(client):
-    """A ``map(function, items)`` that runs on a Dask client, in the items' order (``fit(..., map_starts=...)``).
+    """A ``map(function, items)`` that runs on a Dask client, in the items' order.
+
+    The one way independent evaluations run on Dask outside a series:
+    ``fit(..., map_starts=...)`` (``fit --global --workers N``) and
+    ``plan(..., map_candidates=...)`` (``plan --workers N``).
 
     Parameters
     ----------
@@ -283,8 +287,10 @@ def dask_map(client):
     Returns
     -------
     callable
-        ``run(function, items) -> list``: one task per item; the results in
-        the order of the items.
+        ``run(function, items, on_result=None) -> list``: one task per item;
+        the results in the order of the items.  ``on_result(k, value)``, when
+        given, is called here as each result arrives (in any order), e.g. for
+        a progress bar.
 
     Examples
     --------
@@ -293,8 +299,19 @@ def dask_map(client):
     ...     dask_map(c)(abs, [-1, 2, -3])
     [1, 2, 3]
     """
-    def run(function, items):
-        return client.gather(client.map(function, list(items), pure=False))
+    def run(function, items, on_result=None):
+        futures = client.map(function, list(items), pure=False)
+        if on_result is None:
+            return client.gather(futures)
+        from distributed import as_completed
+
+        where = {f.key: k for k, f in enumerate(futures)}
+        out = [None] * len(futures)
+        for f in as_completed(futures):
+            k = where[f.key]
+            out[k] = f.result()
+            on_result(k, out[k])
+        return out
 
     return run
 
