@@ -13,7 +13,11 @@ same run,
 * a straightforward planner for a sample of candidates: every spectrum of
   the Jacobian simulated from scratch by a new Simulator (no memo of site
   lines, so every site's frequencies and sidebands are recomputed for every
-  parameter), extrapolated to the whole plan.
+  parameter), extrapolated to the whole plan;
+* the same plan with its candidates on a local Dask cluster of 2 worker
+  processes (``plan --workers 2``), alternating with the serial plan, best of
+  the repeats each, and the ratio (the cluster is started and its workers
+  warmed once, outside the timings, as a series or a long plan pays it once).
 
 The model is an invented aluminophosphate-like sample (three 27Al sites, C_Q
 4.5 to 8 MHz); "auto" orientation sets and rotor phases, as a user would run it.
@@ -45,11 +49,11 @@ def model():
     return ps.make_model("27Al", {"field_tesla": 14.1, "points": 2048, "lorentz_hz": 150.0}, SITES)
 
 
-def timed_plan(m, quiet, threads=1):
+def timed_plan(m, quiet, threads=1, map_candidates=None):
     bar = TerminalProgress(quiet, delay=2.0)
     try:
         t0 = time.perf_counter()
-        p = ps.plan(m, FIELDS, n_rates=20, progress=bar, threads=threads)
+        p = ps.plan(m, FIELDS, n_rates=20, progress=bar, threads=threads, map_candidates=map_candidates)
         wall = time.perf_counter() - t0
     finally:
         bar.close()
@@ -80,13 +84,31 @@ def straightforward_per_candidate(m, p, samples=4):
     return (time.perf_counter() - t0) / len(rates)
 
 
+def dask_scan(m, repeat: int, workers: int = 2):
+    """Best wall times of the plan serial and on a LocalCluster of ``workers`` processes, alternating."""
+    from powderspin.series.runner import dask_map, series_client
+
+    with series_client(workers=workers) as c:
+        run = dask_map(c)
+        # warm: every worker loads the compiled kernels and orientation sets once
+        ps.plan(m, [14.1], rates_hz=[5000.0 + 1000.0 * k for k in range(4 * workers)], map_candidates=run)
+        serial, dask = [], []
+        for _ in range(repeat):
+            serial.append(timed_plan(m, True)[0])
+            dask.append(timed_plan(m, True, map_candidates=run)[0])
+    return min(serial), min(dask)
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--quiet", action="store_true", help="no progress bar")
+    ap.add_argument("--only-dask", action="store_true", help="only the plan scan serial vs 2 Dask workers")
     args = ap.parse_args(argv)
     m = model()
     ps.plan(m, [14.1], rates_hz=[10000.0])  # warm: compiled kernels loaded, caches filled
+    if args.only_dask:
+        return print_dask(m, args.repeat)
     best = None
     for k in range(args.repeat):
         wall, share, p = timed_plan(m, args.quiet)
@@ -105,7 +127,14 @@ def main(argv=None):
     print(f"straightforward (no memo of site lines): {1e3 * per:.0f} ms per candidate, about {per * n:.1f} s for "
           f"the plan (ratio {per * n / wall:.1f} to the planner)")
     print("recommended: " + ", ".join(f"{f.field_tesla:g} T: {f.recommended_rate_hz}" for f in p.fields))
+    print_dask(m, args.repeat)
 
 
-if __name__ == "__main__":
+def print_dask(m, repeat):
+    s, d = dask_scan(m, repeat)
+    print(f"plan scan ({len(FIELDS)} fields x 20 rates) on a local Dask cluster of 2 workers: best {d:.2f} s vs "
+          f"serial {s:.2f} s, alternating, best of {repeat} (ratio {s / d:.2f}x)")
+
+
+if __name__ == "__main__":  # the guard also keeps Dask's spawned worker processes from running the benchmark
     main()

@@ -195,6 +195,51 @@ def add_cache_options(p) -> None:
     g.add_argument("--no-cache", action="store_true", help="do not read or write the lineshape library")
 
 
+def add_dask_options(p, work: str) -> None:
+    """``--workers N`` and ``--scheduler ADDRESS``: run ``work`` (e.g. "run the starts") on a Dask client.
+
+    One wording for every command that runs independent evaluations on Dask (``fit --global``, ``plan``);
+    :func:`check_dask_options` checks them and :func:`dask_mapper` opens the client.
+    """
+    p.add_argument("--workers", type=int, metavar="N",
+                   help=f"{work} on a local Dask cluster of N single-threaded processes")
+    p.add_argument("--scheduler", metavar="ADDRESS",
+                   help=f"{work} on a running Dask scheduler (e.g. tcp://head-node:8786)")
+
+
+def check_dask_options(args) -> bool:
+    """Refuse ``--workers`` with ``--scheduler`` and fewer than 1 worker; whether either was given."""
+    workers, scheduler = getattr(args, "workers", None), getattr(args, "scheduler", None)
+    if workers is not None and scheduler is not None:
+        raise CliError("--workers and --scheduler: give one (the scheduler's cluster has its own workers)")
+    if workers is not None and workers < 1:
+        raise CliError(f"--workers {workers}: give at least 1 worker process")
+    return workers is not None or scheduler is not None
+
+
+def dask_mapper(args, stack):
+    """With ``--workers``/``--scheduler``: a ``map`` that runs on a Dask client (else None).
+
+    The client is :func:`powderspin.series.runner.series_client` (the series' one) and the map
+    :func:`powderspin.series.runner.dask_map`.  The client starts at the first call (so the checks of the
+    command's inputs refuse bad ones before any cluster starts) and is entered on ``stack``: it closes when
+    ``stack`` does.
+    """
+    if getattr(args, "workers", None) is None and getattr(args, "scheduler", None) is None:
+        return None
+    from ..series.runner import dask_map, series_client
+
+    opened = []
+
+    def run(function, items, **options):
+        if not opened:
+            opened.append(dask_map(stack.enter_context(series_client(workers=args.workers,
+                                                                     scheduler=args.scheduler))))
+        return opened[0](function, items, **options)
+
+    return run
+
+
 def interrupted(e: BaseException) -> bool:
     """True when a KeyboardInterrupt is somewhere in the cause/context chain of ``e``."""
     seen = set()

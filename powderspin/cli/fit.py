@@ -9,7 +9,10 @@ from pathlib import Path
 from .common import (
     CliError,
     add_cache_options,
+    add_dask_options,
+    check_dask_options,
     compile_note,
+    dask_mapper,
     kernel_store,
     outputs_together,
     parse_range,
@@ -41,10 +44,7 @@ def add_parser(sub) -> None:
     f.add_argument("--profile", choices=("auto", "all", "none"), default="auto",
                    help="profile-likelihood intervals: where chi-square is not quadratic within one standard error "
                         "(auto, the default), for every parameter (all) or none")
-    f.add_argument("--workers", type=int, metavar="N",
-                   help="with --global: run the starts on a local Dask cluster of N single-threaded processes")
-    f.add_argument("--scheduler", metavar="ADDRESS",
-                   help="with --global: run the starts on a running Dask scheduler (e.g. tcp://head-node:8786)")
+    add_dask_options(f, "with --global: run the starts")
     f.add_argument("--posterior", action="store_true",
                    help="also sample the posterior (emcee) and write a corner plot beside the report")
     f.add_argument("--walkers", type=int, help="posterior walkers (default max(16, 4 x free parameters))")
@@ -106,15 +106,9 @@ def run_fit(model, data, args, outputs, protect, *, force: bool, quiet: bool, al
     import contextlib
 
     progress = terminal_progress(argparse.Namespace(quiet=quiet), delay=1.0)
-    parallel = getattr(args, "workers", None) is not None or getattr(args, "scheduler", None) is not None
     try:
         with contextlib.ExitStack() as stack:
-            map_starts = None
-            if parallel:
-                from ..series.runner import dask_map, series_client
-
-                client = stack.enter_context(series_client(workers=args.workers, scheduler=args.scheduler))
-                map_starts = dask_map(client)
+            map_starts = dask_mapper(args, stack)
             result = fit(model, data, regions=regions, noise_region=noise, axis=args.axis,
                          global_search=args.global_search, starts=args.starts, seed=args.seed,
                          posterior=args.posterior, walkers=args.walkers, steps=args.steps, burn=args.burn,
@@ -177,10 +171,7 @@ def run(args) -> int:
     _check_sampler_flags(args, len(model.free))
     if (args.workers is not None or args.scheduler is not None) and not args.global_search:
         raise CliError("--workers and --scheduler run the starts of a global search in parallel; add --global")
-    if args.workers is not None and args.scheduler is not None:
-        raise CliError("--workers and --scheduler: give one (the scheduler's cluster has its own workers)")
-    if args.workers is not None and args.workers < 1:
-        raise CliError(f"--workers {args.workers}: give at least 1 worker process")
+    check_dask_options(args)
     data = data_items(model, list(args.data) if args.data else None)
     for p in data:
         if not Path(p).exists():

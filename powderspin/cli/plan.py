@@ -2,11 +2,21 @@
 
 from __future__ import annotations
 
+import contextlib
 import math
 import sys
 from pathlib import Path
 
-from .common import CliError, compile_note, numbers, outputs_together, terminal_progress
+from .common import (
+    CliError,
+    add_dask_options,
+    check_dask_options,
+    compile_note,
+    dask_mapper,
+    numbers,
+    outputs_together,
+    terminal_progress,
+)
 
 __all__ = ["add_parser", "run"]
 
@@ -49,9 +59,11 @@ def _run(args) -> int:
     compile_note(args)
     progress = terminal_progress(args, delay=2.0)
     try:
-        result = plan(model, fields, rotors=args.rotors, rotor_table=table, max_rate_hz=args.max_rate,
-                      rates_hz=rates, n_rates=args.rate_count, threshold=args.threshold, snr=args.snr,
-                      precision=not args.no_precision, progress=progress, values=at)
+        with contextlib.ExitStack() as stack:  # with --workers/--scheduler: the candidates on a Dask client
+            result = plan(model, fields, rotors=args.rotors, rotor_table=table, max_rate_hz=args.max_rate,
+                          rates_hz=rates, n_rates=args.rate_count, threshold=args.threshold, snr=args.snr,
+                          precision=not args.no_precision, progress=progress, values=at,
+                          map_candidates=dask_mapper(args, stack))
     finally:
         progress.close()
     with outputs_together():  # the JSON and the plot appear together at the end, or neither does
@@ -102,6 +114,7 @@ def add_parser(sub) -> None:
     p.add_argument("--values", metavar="RESULT.toml",
                    help="compute the precision at a fit's values (a result file of 'powderspin fit') instead of the "
                         "model's start values")
+    add_dask_options(p, "run the candidates (every field x rate)")
     p.add_argument("--json", metavar="OUT.json", help="write every number behind the plan as JSON ('-': stdout)")
     p.add_argument("--plot", metavar="OUT.png", help="write a figure (.png, .pdf or .svg)")
     p.add_argument("--force", action="store_true", help="overwrite existing output files")
@@ -120,6 +133,8 @@ def _in_range(flag: str, text: str, value: float, low: float, high: float, *, op
 
 def run(args) -> int:
     from ..model.schema import field_hint, key_spec
+
+    check_dask_options(args)
 
     texts = {}
     for name, what, unit in (("max_rate", "--max-rate", "Hz"), ("threshold", "--threshold", ""),

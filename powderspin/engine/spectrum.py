@@ -24,6 +24,8 @@ from typing import Mapping
 
 import numpy as np
 
+from ..frozen import reduce_through_init
+
 __all__ = ["Spectrum", "SidebandRow"]
 
 
@@ -105,6 +107,8 @@ class Spectrum:
     site_intensities: np.ndarray
     metadata: Mapping = field(default_factory=dict)
     sidebands: tuple[SidebandRow, ...] = ()
+
+    __reduce__ = reduce_through_init  # picklable: to and from Dask workers (powderspin.frozen)
 
     def __post_init__(self):
         for name in ("hz", "ppm", "intensity", "site_intensities"):

@@ -9,6 +9,8 @@ from typing import Mapping
 
 import numpy as np
 
+from ..frozen import reduce_through_init
+
 __all__ = ["Spectrum2D"]
 
 
@@ -54,6 +56,8 @@ class Spectrum2D:
     site_labels: tuple[str, ...]
     site_intensities: np.ndarray
     metadata: Mapping = field(default_factory=dict)
+
+    __reduce__ = reduce_through_init  # picklable: to and from Dask workers (powderspin.frozen)
 
     def __post_init__(self):
         for name in ("f1_hz", "f1_ppm", "f2_hz", "f2_ppm", "intensity", "site_intensities"):

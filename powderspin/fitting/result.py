@@ -20,6 +20,7 @@ from typing import Mapping
 
 import numpy as np
 
+from ..frozen import reduce_through_init
 from ..model.modelfile import model_to_dict
 from ..model.values import Model
 
@@ -337,6 +338,8 @@ class FitResult:
     minima: tuple = ()
     curvature: tuple = ()
     profile_intervals: Mapping = field(default_factory=dict)
+
+    __reduce__ = reduce_through_init  # picklable: to and from Dask workers (powderspin.frozen)
 
     def __post_init__(self):
         for k in ("values", "stderr", "derived", "excitation", "profile_intervals"):

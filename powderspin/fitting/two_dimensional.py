@@ -40,6 +40,7 @@ from typing import Mapping
 import numpy as np
 
 from ..engine.lineshape import Axis
+from ..frozen import reduce_through_init
 from ..io.spectra import MeasuredSpectrum
 from ..io.spectra2d import MeasuredSpectrum2D
 from ..model.values import FitSettings, Model
@@ -97,6 +98,8 @@ class TwoDimensionalFit:
     data: tuple = field(default=())
     spectra: tuple = field(default=())
     selection: Mapping = field(default_factory=dict)
+
+    __reduce__ = reduce_through_init  # picklable: to and from Dask workers (powderspin.frozen)
 
     def __post_init__(self):
         object.__setattr__(self, "selection", MappingProxyType(dict(self.selection)))

@@ -81,6 +81,7 @@ from typing import Mapping
 
 import numpy as np
 
+from ..frozen import reduce_through_init
 from ..physics.nuclides import UnknownNuclideError, get_nuclide
 from .spectra import DataError
 
@@ -140,6 +141,8 @@ class RawFID:
     group_delay_points: float
     source: str
     metadata: Mapping = field(default_factory=dict)
+
+    __reduce__ = reduce_through_init  # picklable: to and from Dask workers (powderspin.frozen)
 
     def __post_init__(self):
         a = np.array(self.data, dtype=complex)

@@ -122,6 +122,7 @@ from typing import Mapping
 import numpy as np
 
 from ..files import write_text_atomic
+from ..frozen import reduce_through_init
 from ..physics.nuclides import UnknownNuclideError, get_nuclide
 
 __all__ = [
@@ -322,6 +323,8 @@ class MeasuredSpectrum:
     nucleus: str | None = None
     field_tesla: float | None = None
     metadata: Mapping = field(default_factory=dict)
+
+    __reduce__ = reduce_through_init  # picklable: to and from Dask workers (powderspin.frozen)
 
     def __post_init__(self):
         hz = _frozen(self.hz)

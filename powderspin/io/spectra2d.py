@@ -40,6 +40,7 @@ from typing import Mapping
 import numpy as np
 
 from ..files import STDOUT, OutputPathError, check_outputs, write_text_atomic, write_via
+from ..frozen import reduce_through_init
 from .spectra import DataError
 
 __all__ = ["SPECTRUM_2D_SUFFIXES", "spectrum_2d_format", "spectrum_2d_text", "write_spectrum_2d",
@@ -221,6 +222,8 @@ class MeasuredSpectrum2D:
     nu_ref_hz: float
     source: str
     metadata: Mapping = field(default_factory=dict)
+
+    __reduce__ = reduce_through_init  # picklable: to and from Dask workers (powderspin.frozen)
 
     def __post_init__(self):
         for name in ("f1_ppm", "f2_ppm", "intensity"):

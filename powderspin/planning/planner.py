@@ -169,6 +169,7 @@ from ..model.schema import (
     key_spec,
 )
 from ..model.values import IDEAL_MQ_PULSES, Measurement, Model, ModelError, check_number
+from ..physics.orientations import OrientationSetError, orientation_set_by_name
 from ..progress import emit
 from ..simulator import SimulationCache, Simulator, as_model, estimate_spans_hz
 from ..uncertainty import covariance_from_fisher
@@ -473,19 +474,69 @@ def _setup_field(model: Model, meas: Measurement, field_t: float, dx: float, slo
 # ----- one candidate
 
 
-def _evaluate_rate(model: Model, setup: _FieldSetup, rate: float, table: RotorTable, params: list | None,
-                   snr: float, clock: _Clock):
-    axis = setup.axis
-    meas = replace(setup.meas, spinning_hz=rate, rotor_phases="auto")
+@dataclass(frozen=True)
+class _Candidate:
+    """One candidate (field, rate) as a task of ``map_candidates``: what its evaluation reads, all of it picklable.
+
+    ``sets`` holds each site's orientation set, or its name where the set's generator gives this very set again by
+    name (it is then rebuilt, once per process, where the task runs, instead of shipped with every task).
+    """
+
+    model: Model
+    axis: Axis
+    meas: Measurement          # at the field, static, template broadening
+    methods: tuple
+    sets: tuple
+    rate_hz: float
+    table: RotorTable
+    params: tuple
+    snr: float
+    threads: int | None
+
+
+@dataclass(frozen=True)
+class _CandidateOutcome:
+    """What a candidate task returns: its result, its spectrum (None when not computed) and its seconds."""
+
+    result: RateResult
+    spectrum: object
+    seconds: float
+
+
+def _shipped_set(s):
+    """The orientation set as it travels to a task: its name when the name gives this very set back, else itself."""
+    if s is None:
+        return None
+    try:
+        if orientation_set_by_name(s.name) is s:
+            return s.name
+    except OrientationSetError:
+        pass
+    return s
+
+
+def _candidate_task(c: _Candidate) -> _CandidateOutcome:
+    """Evaluate one candidate where the task runs (a Dask worker), with a simulation memo of its own."""
+    t0 = time.perf_counter()
+    sets = [orientation_set_by_name(s) if isinstance(s, str) else s for s in c.sets]
+    n = len(c.model.sites)
+    cache = SimulationCache(lines=16 * n, rendered=64 * n)
+    with kernel_threads(c.threads):
+        res, spec = _evaluate_rate(c.model, c.axis, c.meas, list(c.methods), sets, cache, c.rate_hz, c.table,
+                                   list(c.params), c.snr)
+    return _CandidateOutcome(res, spec, time.perf_counter() - t0)
+
+
+def _evaluate_rate(model: Model, axis: Axis, static: Measurement, methods: list, sets: list, cache: SimulationCache,
+                   rate: float, table: RotorTable, params: list | None, snr: float):
+    meas = replace(static, spinning_hz=rate, rotor_phases="auto")
     reach = table.reaching(rate)
     rotors = tuple(r.name for r in reach)
     rel_signal = reach[0].sample_volume_ul / table.largest_volume_ul() if reach else 0.0
-    t0 = time.perf_counter()
-    options = dict(axis=axis, methods=setup.methods_mas, orientations=setup.sets_mas, cache=setup.cache)
+    options = dict(axis=axis, methods=methods, orientations=sets, cache=cache)
     try:  # each site's rotor phases, then the largest for every site (so the Jacobian's spectra cannot jump)
         phases = max(Simulator(_at(model, meas), point_values=False, **options).rotor_phases)
     except ModelError as e:
-        clock.add("candidates", t0)
         return RateResult(rate, False, reason=str(e), rotors=rotors, relative_signal=rel_signal), None
     fixed = replace(meas, rotor_phases=int(phases))
     base_model = _at(model, fixed)
@@ -510,7 +561,6 @@ def _evaluate_rate(model: Model, setup: _FieldSetup, rate: float, table: RotorTa
         jac = sim.jacobian(steps=[parameter_step(q) for q in params],
                            base=np.asarray(spec.site_intensities, dtype=float))
         fisher = fisher_information(jac, y0, sigma)
-    clock.add("candidates", t0)
     result = RateResult(rate, True, overlap=tuple(tuple(r) for r in ov), max_overlap=float(worst_v), worst=(wi, wj),
                         sideband_fraction=frac, resolution=tuple(tuple(r) for r in res),
                         max_resolution_overlap=float(max_res), rotors=rotors, rotor_phases=int(phases),
@@ -522,7 +572,7 @@ def _evaluate_rate(model: Model, setup: _FieldSetup, rate: float, table: RotorTa
 def plan(model, fields=None, *, rotors=None, rotor_table=None, max_rate_hz=None, rates_hz=None,
          n_rates: int = DEFAULT_RATE_COUNT, min_rate_hz: float = DEFAULT_MIN_RATE_HZ,
          threshold: float = DEFAULT_THRESHOLD, snr: float = DEFAULT_SNR, precision: bool = True,
-         orientations=None, progress=None, threads: int | None = 1, values=None) -> Plan:
+         orientations=None, progress=None, threads: int | None = 1, values=None, map_candidates=None) -> Plan:
     """Plan an experiment: simulate the sample at each candidate field and spinning rate.
 
     For each field, the candidate rates are tried from the slowest; at each
@@ -576,6 +626,18 @@ def plan(model, fields=None, *, rotors=None, rotor_table=None, max_rate_hz=None,
         fitted values, or ``{"A.cq_mhz": 4.1, ...}``); default the model's own
         values (the start values of free parameters).  The plan says which
         (``Plan.parameter_source``).
+    map_candidates : callable, optional
+        How the candidates (every field x rate) are evaluated:
+        ``map_candidates(function, items, on_result=callback)`` returns
+        ``[function(item) for item in items]`` computed anywhere and calls
+        ``callback(k, value)`` here as each value arrives, e.g.
+        :func:`powderspin.series.runner.dask_map` of a Dask client
+        (``powderspin plan --workers N``).  Every field's set-up (axis,
+        producers, orientation sets, widths) is made here first, so a kernel
+        grid is built once, before any task starts; each task then evaluates
+        one candidate with a simulation memo of its own.  The plan is the
+        serial one (only ``timings["candidates"]`` then sums the tasks'
+        seconds).  Default: one after the other, here.
 
     Returns
     -------
@@ -619,13 +681,16 @@ def plan(model, fields=None, *, rotors=None, rotor_table=None, max_rate_hz=None,
     >>> d["fields"][0]["recommended_rate_hz"], len(d["cautions"]) > 0
     (20000.0, True)
     """
+    if map_candidates is not None and not callable(map_candidates):
+        raise PlanError(f"map_candidates must be callable (e.g. powderspin.series.runner.dask_map(client)), got "
+                        f"{type(map_candidates).__name__}")
     with kernel_threads(threads):
         return _plan(model, fields, rotors, rotor_table, max_rate_hz, rates_hz, n_rates, min_rate_hz, threshold, snr,
-                     precision, orientations, progress, values)
+                     precision, orientations, progress, values, map_candidates, threads)
 
 
 def _plan(model, fields, rotors, rotor_table, max_rate_hz, rates_hz, n_rates, min_rate_hz, threshold, snr, precision,
-          orientations, progress, values=None) -> Plan:
+          orientations, progress, values=None, map_candidates=None, threads=1) -> Plan:
     t_start = time.perf_counter()
     model = _as_model(model)
     at_text = "the model's values (start values of free parameters)"
@@ -670,18 +735,39 @@ def _plan(model, fields, rotors, rotor_table, max_rate_hz, rates_hz, n_rates, mi
     total = len(fields_t) * (1 + len(rates))
     done = 0
     field_plans = []
+    setups = []
     for ft in fields_t:
         setup = _setup_field(model, meas, ft, dx, rates[0], orientations, clock)
+        setups.append(setup)
         done += 1
         emit(progress, "plan", done, total, unit="experiments")
+        if map_candidates is not None:
+            continue  # every field's set-up first (here, so that kernel grids are built once); then the candidates
         results, spectra = [], {}
         for r in rates:
-            res, spec = _evaluate_rate(model, setup, r, table, params, snr, clock)
+            t0 = time.perf_counter()
+            res, spec = _evaluate_rate(model, setup.axis, setup.meas, setup.methods_mas, setup.sets_mas, setup.cache,
+                                       r, table, params, snr)
+            clock.add("candidates", t0)
             results.append(res)
             spectra[r] = spec
             done += 1
             emit(progress, "plan", done, total, unit="experiments")
         field_plans.append((setup, results, spectra))
+    if map_candidates is not None:
+        jobs = [_Candidate(model, s.axis, s.meas, tuple(s.methods_mas), tuple(_shipped_set(x) for x in s.sets_mas),
+                           r, table, tuple(params), snr, threads) for s in setups for r in rates]
+        arrived = [done]
+
+        def on_result(k, outcome):
+            arrived[0] += 1
+            emit(progress, "plan", arrived[0], total, unit="experiments")
+
+        outcomes = map_candidates(_candidate_task, jobs, on_result=on_result)
+        clock.t["candidates"] += sum(o.seconds for o in outcomes)
+        for k, setup in enumerate(setups):
+            mine = outcomes[k * len(rates):(k + 1) * len(rates)]
+            field_plans.append((setup, [o.result for o in mine], {r: o.spectrum for r, o in zip(rates, mine)}))
     # -- precision: errors, criterion
     info: list = []
     refs: dict = {}

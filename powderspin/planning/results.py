@@ -18,6 +18,7 @@ import numpy as np
 
 from .. import __version__
 from ..engine.lineshape import Axis
+from ..frozen import reduce_through_init
 from ..model.values import Model
 from .rotors import RotorTable
 
@@ -147,6 +148,8 @@ class RateResult:
     worst_parameter: str = ""
     fisher: Any = None
     log_det: float = math.nan
+
+    __reduce__ = reduce_through_init  # picklable: to and from Dask workers (powderspin.frozen)
 
     def __post_init__(self):
         object.__setattr__(self, "stderr", MappingProxyType(dict(self.stderr)))
@@ -352,6 +355,8 @@ class Plan:
     notes: tuple
     cautions: tuple
     timings: Mapping
+
+    __reduce__ = reduce_through_init  # picklable: to and from Dask workers (powderspin.frozen)
 
     def __post_init__(self):
         object.__setattr__(self, "timings", MappingProxyType(dict(self.timings)))

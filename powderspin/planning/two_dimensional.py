@@ -26,6 +26,7 @@ from dataclasses import dataclass, field, replace
 from types import MappingProxyType
 from typing import Mapping
 
+from ..frozen import reduce_through_init
 from ..model.values import Model
 from ..physics.multiple_quantum import allowed_mq_orders
 from ..simulator import as_model, simulate
@@ -60,6 +61,8 @@ class F1Resolution:
     f2_overlaps: Mapping
     threshold: float
     notes: tuple = field(default=())
+
+    __reduce__ = reduce_through_init  # picklable: to and from Dask workers (powderspin.frozen)
 
     def __post_init__(self):
         for k in ("f1_centres_ppm", "f2_centres_ppm", "f1_overlaps", "f2_overlaps"):

@@ -50,7 +50,7 @@ from .inputs import SeriesError, collect_items, file_digest, input_hash, numeric
 from .tasks import FitOptions, SeriesJob, TaskOutcome, fit_one, one_line
 
 __all__ = ["fit_series", "SeriesResult", "SeriesRow", "series_client", "table_csv_text", "MARKER", "TABLE_NAME",
-           "TRENDS_NAME", "worker_environment", "dask_map"]
+           "TRENDS_NAME", "worker_environment", "pre_spawn_environment", "dask_map"]
 
 #: the file that marks a folder as a series' output (it may then be refilled)
 MARKER = ".powderspin-series"
@@ -158,6 +158,34 @@ class SeriesResult:
                 f"{self.reused} reused from earlier runs); table {self.output_dir / TABLE_NAME}")
 
 
+def pre_spawn_environment() -> dict:
+    """Dask's environment for new worker processes, less ``MALLOC_TRIM_THRESHOLD_`` (it made every fit 1.6x dearer).
+
+    ``distributed``'s nanny sets the variables of its ``distributed.nanny.pre-spawn-environ`` setting before it
+    starts a worker process; by default they include ``MALLOC_TRIM_THRESHOLD_=65536``, which returns freed memory
+    to the system sooner.  Setting that threshold turns off glibc's dynamic mmap threshold (the mallopt(3) manual
+    page: setting any of M_TRIM_THRESHOLD, M_TOP_PAD, M_MMAP_THRESHOLD or M_MMAP_MAX does; from memory), so every
+    array above 128 kB is then mapped afresh and its pages faulted in and zeroed each time it is made.  A fit
+    makes many such temporaries: in the series benchmark's fit the worker took 20 times the minor page faults and
+    1.6 times the CPU time of the same fit in the main process (``benchmarks/bench_series.py`` prints both).  The
+    other variables (one thread for OpenMP, MKL and OpenBLAS) are kept.
+
+    Returns
+    -------
+    dict
+
+    Examples
+    --------
+    >>> "MALLOC_TRIM_THRESHOLD_" in pre_spawn_environment()
+    False
+    """
+    import dask
+
+    env = dict(dask.config.get("distributed.nanny.pre-spawn-environ", default={}) or {})
+    env.pop("MALLOC_TRIM_THRESHOLD_", None)
+    return env
+
+
 def worker_environment() -> dict:
     """Environment of the worker processes a series starts: compiled kernels on one thread, sleeping waits.
 
@@ -260,7 +288,9 @@ def _series_client(client=None, *, workers: int | None = None, scheduler: str | 
     n = workers if workers is not None else (os.cpu_count() or 1)
     # ":0": any free port, so that several series (or users) on one machine do not collide.  WORKER_CONFIG: fewer
     # wake-ups of each worker's event-loop thread, which otherwise takes the GIL from the fit 100 times a second.
-    with dask.config.set(WORKER_CONFIG):
+    # pre_spawn_environment: without the malloc setting that made every fit in a worker 1.6x dearer
+    spawn = {"distributed.nanny.pre-spawn-environ": pre_spawn_environment()}
+    with dask.config.set(WORKER_CONFIG), dask.config.set(spawn):
         cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, silence_logs=logging.ERROR,
                                dashboard_address=":0", env=worker_environment())
     try:
@@ -274,7 +304,11 @@ def _series_client(client=None, *, workers: int | None = None, scheduler: str | 
 
 
 def dask_map(client):
-    """A ``map(function, items)`` that runs on a Dask client, in the items' order (``fit(..., map_starts=...)``).
+    """A ``map(function, items)`` that runs on a Dask client, in the items' order.
+
+    The one way independent evaluations run on Dask outside a series:
+    ``fit(..., map_starts=...)`` (``fit --global --workers N``) and
+    ``plan(..., map_candidates=...)`` (``plan --workers N``).
 
     Parameters
     ----------
@@ -283,8 +317,10 @@ def dask_map(client):
     Returns
     -------
     callable
-        ``run(function, items) -> list``: one task per item; the results in
-        the order of the items.
+        ``run(function, items, on_result=None) -> list``: one task per item;
+        the results in the order of the items.  ``on_result(k, value)``, when
+        given, is called here as each result arrives (in any order), e.g. for
+        a progress bar.
 
     Examples
     --------
@@ -293,8 +329,19 @@ def dask_map(client):
     ...     dask_map(c)(abs, [-1, 2, -3])
     [1, 2, 3]
     """
-    def run(function, items):
-        return client.gather(client.map(function, list(items), pure=False))
+    def run(function, items, on_result=None):
+        futures = client.map(function, list(items), pure=False)
+        if on_result is None:
+            return client.gather(futures)
+        from distributed import as_completed
+
+        where = {f.key: k for k, f in enumerate(futures)}
+        out = [None] * len(futures)
+        for f in as_completed(futures):
+            k = where[f.key]
+            out[k] = f.result()
+            on_result(k, out[k])
+        return out
 
     return run
 

@@ -79,3 +79,23 @@ def test_example_data_are_remade_by_the_script(tmp_path):
                 x = [float(v) for v in a.split(",")]
                 y = [float(v) for v in b.split(",")]
                 assert np.allclose(x, y, rtol=1e-5, atol=1e-5), (p.name, a, b)
+
+
+def _worker_env():
+    import os
+
+    return {k: os.environ.get(k) for k in ("MALLOC_TRIM_THRESHOLD_", "OMP_NUM_THREADS", "NUMBA_NUM_THREADS")}
+
+
+def test_workers_keep_the_dynamic_malloc_threshold():
+    """A LocalCluster worker gets one thread for numba and OpenMP, but not Dask's MALLOC_TRIM_THRESHOLD_: setting it
+    turns off glibc's dynamic mmap threshold (mallopt(3) manual page, from memory), which made every fit in a worker
+    fault in its large temporaries afresh (1.6x the CPU time; benchmarks/bench_series.py)."""
+    import os
+
+    before = os.environ.get("MALLOC_TRIM_THRESHOLD_")
+    with series_client(workers=1) as c:
+        c.wait_for_workers(1)
+        (env,) = c.run(_worker_env).values()
+    assert env == {"MALLOC_TRIM_THRESHOLD_": before, "OMP_NUM_THREADS": "1", "NUMBA_NUM_THREADS": "1"}
+    assert os.environ.get("MALLOC_TRIM_THRESHOLD_") == before  # nor is it left in this process's environment
