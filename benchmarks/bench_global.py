@@ -49,10 +49,13 @@ def case_static8(repeat):
     def model(start):
         m = hc.model("co59", start)
         held = next(p for p in m.free if p.name == "measurement 1.gauss_hz")
-        return m.with_parameters({held.address: 1500.0}).__class__(
-            m.nucleus, tuple(m.measurements), tuple(m.sites), tuple(p for p in m.free if p is not held), m.tied,
-            m.fit, m.source)
+        # held at the value the data were made with (the measurements and sites of the model *with* that value:
+        # taking the original model's would hold it at the start's value, 1000 Hz, which no search can undo)
+        h = m.with_parameters({held.address: 1500.0})
+        return h.__class__(h.nucleus, tuple(h.measurements), tuple(h.sites), tuple(p for p in h.free if p is not held),
+                           h.tied, h.fit, h.source)
 
+    assert model(hc.poor_start("co59")).measurements[0].gauss_hz == 1500.0
     truth_fit = fit(model(hc.truth("co59")), [d], noise_region=noise, profile="none")
     t, r = timed(lambda: fit(model(hc.poor_start("co59")), [d], noise_region=noise, global_search=True,
                              profile="none"), repeat)

@@ -904,7 +904,8 @@ class Simulator:
 
             sh = site.shift.iso_ppm * f + offset_hz
             r = d.render(axis, shift_hz=sh, store=self.kernel_store, weight=site.weight, lorentz_hz=lorentz,
-                         gauss_hz=gauss, progress=None if self.progress is None else kernel_progress, site=site)
+                         gauss_hz=gauss, progress=None if self.progress is None else kernel_progress, site=site,
+                         point_values=self.point_values)
             return r, None, sh
         lines, sh = self._site_lines(model, k)
         r = render_lines(lines, axis, shift_hz=sh, weight=site.weight, lorentz_hz=lorentz,

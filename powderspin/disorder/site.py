@@ -127,7 +127,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from ..engine.frequencies import perturbation_error_hz, site_frame
-from ..engine.lineshape import Axis, broaden
+from ..engine.lineshape import Axis, broaden, hat_corrected_gauss
 from ..engine.site_lines import (
     BIN_CUTOFF,
     RenderedSite,
@@ -719,7 +719,7 @@ class DistributedSite:
 
     def render(self, axis: Axis, *, shift_hz: float, store: KernelStore, weight: float | None = None,
                lorentz_hz: float | None = None, gauss_hz: float | None = None, progress=None,
-               site: Site | None = None) -> RenderedSite:
+               site: Site | None = None, point_values: bool = False) -> RenderedSite:
         """The site's line shape on an axis: kernels summed with the grid weights, translated, weighed, broadened.
 
         Parameters
@@ -739,6 +739,16 @@ class DistributedSite:
             (the distribution's width, C_Q0, eta0, weight, broadening); the
             kernel grid, made for the whole range of the free parameters, is
             reused.  Default: the site it was made with.
+        point_values : bool, optional
+            Make each point the continuous spectrum at its frequency, as for a
+            single site: the kernels' hat sharing on the kernel axis (step s)
+            and the translation's onto ``axis`` (step dx) smooth the pattern
+            by triangles of variances s^2/6 and dx^2/6, which the Gaussian
+            broadening gives back (narrowed by their sum,
+            :func:`powderspin.engine.lineshape.hat_corrected_gauss`).  The
+            caller chooses the axis fine enough for the rest
+            (:func:`powderspin.engine.lineshape.sampling_oversampling`).
+            Default False: points are bin values of the broadened pattern.
 
         Returns
         -------
@@ -762,6 +772,8 @@ class DistributedSite:
         frac = kset.fractions(w, axis, shift_hz)
         inside = float(frac.sum())
         y = frac * weight / axis.dx_ppm
+        if point_values:  # the two hat sharings add their variances: one hat of step sqrt(dx^2 + s^2)
+            gauss_hz = hat_corrected_gauss(gauss_hz, math.hypot(axis.dx_hz, kset.step_hz))
         y = broaden(y, axis.dx_hz, lorentz_hz, gauss_hz)
         kept = float(y.sum() * axis.dx_ppm / weight) if weight > 0 else inside
         if meas.pulse_sequence != "ideal":  # the kernels integrate to their excited fractions; lost is relative

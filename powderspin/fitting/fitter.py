@@ -178,6 +178,11 @@ def _least_squares(problem: FitProblem, x0, max_evaluations: int | None):
                          method="trf", x_scale="jac", max_nfev=max_evaluations)
 
 
+def _limit(user: int | None, search: int | None) -> int | None:
+    """The evaluation limit of a run: the user's and the search's, the smaller (None: none)."""
+    return search if user is None else (user if search is None else min(user, search))
+
+
 def _run_from(problem: FitProblem, max_evaluations, x0):
     """One least-squares run of a global search on a copy of the problem (a task of ``map_starts``).
 
@@ -601,13 +606,13 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
                          + ": give min and max to search where the value can physically be")
         map_runs = None
         if map_starts is not None:
-            def map_runs(pts):
-                done = map_starts(functools.partial(_run_from, _detached(problem), max_evaluations), pts)
+            def map_runs(pts, cap):
+                done = map_starts(functools.partial(_run_from, _detached(problem), _limit(max_evaluations, cap)), pts)
                 problem.n_evaluations += sum(n for _, n in done)
                 return [run for run, _ in done]
 
         search = global_search_(problem, x0, refinements=None if starts is None else int(starts) - 1, seed=seed,
-                                local=lambda v, n: _least_squares(problem, v, max_evaluations if n is None else n),
+                                local=lambda v, n: _least_squares(problem, v, _limit(max_evaluations, n)),
                                 fold=lambda v: fold_vector(free, v, problem.lo, problem.hi, problem.model)[0],
                                 kernel_store=kernel_store, map_runs=map_runs)
         sol = search.best

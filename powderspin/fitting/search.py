@@ -40,6 +40,16 @@ looks for the lowest minimum in three steps.
    barrier: one valley, e.g. along a poorly determined direction).  Every
    minimum within
    :data:`MINIMA_MARGIN` of the lowest is reported with its values.
+4. **Restarts across the skew switch.**  The Euler angles of a shift tensor
+   refer to its Haeberlen axes, which jump at skew 0, so a local fit cannot
+   cross skew = 0 (:func:`switch_restarts`).  From each of the
+   :data:`SWITCH_MINIMA` lowest minima, every free skew (or shift
+   anisotropy) is reversed and a local fit run from there; repeated from
+   the new lowest minima while that lowers the best chi-square (at most
+   :data:`SWITCH_ROUNDS` rounds), then the minima are grouped again.  On the
+   hard static cases of ``tests/fitting/test_search.py`` the lowest minimum
+   was a near-degenerate twin, skew -0.6 beside the truth's +0.3 at chi-square
+   +0.4, that no candidate reached and the restart finds.
 
 References
 ----------
@@ -61,7 +71,8 @@ from .data import FitError
 from .problem import FitProblem
 
 __all__ = ["global_search", "SearchOutcome", "Minimum", "MINIMA_MARGIN", "SAME_MINIMUM_CHI2",
-           "SAME_MINIMUM_FRACTION", "DE_POPULATION_PER_PARAMETER", "DE_GENERATIONS", "default_refinements"]
+           "SAME_MINIMUM_FRACTION", "DE_POPULATION_PER_PARAMETER", "DE_GENERATIONS", "default_refinements",
+           "switch_restarts", "run_evaluations"]
 
 #: minima whose chi-square exceeds the lowest by less than this are reported (a chi-square difference of 9 is the
 #: three-standard-error contour of one parameter: such a minimum cannot be ruled out by the data; common practice)
@@ -76,6 +87,13 @@ DE_POPULATION_PER_PARAMETER = 10
 DE_GENERATIONS = 5
 #: share of the candidates taken from a scrambled Sobol set instead of the evolved population (diversity)
 SOBOL_SHARE = 0.5
+#: a refinement's first run takes at most this many residual evaluations per free parameter (plus one), see
+#: run_evaluations
+RUN_EVALUATIONS_PER_PARAMETER = 10
+#: restarts across the skew switch: from this many of the lowest distinct minima ...
+SWITCH_MINIMA = 3
+#: ... repeated (from the new lowest minima) while a round lowers the best chi-square, at most this many rounds
+SWITCH_ROUNDS = 2
 #: library scan: C_Q nodes (uniform in C_Q^2, the pattern's width), eta nodes, at most this many shift nodes
 SCAN_CQ_NODES = 24
 SCAN_ETA_NODES = 6
@@ -117,11 +135,15 @@ class SearchOutcome:
     minima : tuple of Minimum
         Distinct minima within :data:`MINIMA_MARGIN` of the lowest, lowest first.
     starts : int
-        Refined starts.
+        Refined starts (the user's and the candidates).
     starts_at_best : int
-        Starts that ended in the best minimum.
+        Runs (starts and restarts) that ended in the best minimum.
     method : str
         How the candidates were found, with the budget, in words.
+    restarts : int
+        Further least-squares runs from the lowest minima across the skew
+        switch (:func:`switch_restarts`), besides the ``starts``; their runs
+        are in ``runs`` and count in ``starts_at_best``.
     """
 
     best: object
@@ -130,6 +152,33 @@ class SearchOutcome:
     starts: int
     starts_at_best: int
     method: str
+    restarts: int = 0
+
+
+def run_evaluations(n_free: int) -> int:
+    """Residual evaluations a global search's refinement may take before it is judged: ``10 (p + 1)``.
+
+    Counted as :func:`scipy.optimize.least_squares` counts them (``max_nfev``:
+    residuals, not the p further spectra each Jacobian costs).  Runs that
+    converge take a few dozen on the hard static cases (eight or nine free
+    parameters); a few wander for hundreds into poor minima.  A run that
+    reaches the limit is continued only when it is already within
+    :data:`MINIMA_MARGIN` of the lowest converged run.
+
+    Parameters
+    ----------
+    n_free : int
+
+    Returns
+    -------
+    int
+
+    Examples
+    --------
+    >>> run_evaluations(9)
+    100
+    """
+    return RUN_EVALUATIONS_PER_PARAMETER * (int(n_free) + 1)
 
 
 def default_refinements(n_free: int) -> int:
@@ -149,6 +198,51 @@ def default_refinements(n_free: int) -> int:
     (8, 27)
     """
     return max(8, 3 * int(n_free))
+
+
+def switch_restarts(problem: FitProblem, x) -> list:
+    """Restarts of a minimum across the skew switch: each free skew (or anisotropy) reversed, the rest kept.
+
+    The Euler angles of a shift tensor refer to its Haeberlen axes, whose z
+    axis is the principal axis furthest from the isotropic value: d33 for
+    skew > 0, d11 for skew < 0 (U. Haeberlen, *High Resolution NMR in
+    Solids*, Adv. Magn. Reson. Suppl. 1, 1976; J. Mason, Solid State Nucl.
+    Magn. Reson. 2 (1993) 285).  As the skew passes 0 the axes the angles
+    refer to jump, so chi-square jumps there too and a local fit started on
+    one side stays on it.  With the shift anisotropy beside a quadrupolar
+    coupling at a general orientation, a minimum on the other side can fit
+    as well or better; reversing the skew at the same span (the anisotropic
+    part of the principal values reversed: in the Haeberlen parameters
+    ``aniso -> -aniso`` at the same eta) with the angles kept starts a local
+    fit there.
+
+    Parameters
+    ----------
+    problem : FitProblem
+    x : numpy.ndarray
+        A minimum (free-parameter values).
+
+    Returns
+    -------
+    list of numpy.ndarray
+        One restart per free skew or ``aniso_ppm`` whose reversed value lies
+        within its bounds (none at skew 0).
+
+    Examples
+    --------
+    See ``tests/fitting/test_search.py``.
+    """
+    out = []
+    for k, fp in enumerate(problem.params):
+        a = fp.address
+        if a.table != "site" or a.item is not None or a.key not in ("skew", "aniso_ppm"):
+            continue
+        v = -float(x[k])
+        if abs(v) > 1e-9 * (problem.hi[k] - problem.lo[k]) and problem.lo[k] <= v <= problem.hi[k]:
+            y = np.array(x, dtype=float)
+            y[k] = v
+            out.append(y)
+    return out
 
 
 # ---------------------------------------------------------------------------
@@ -428,7 +522,11 @@ def global_search(problem: FitProblem, x0, *, refinements: int | None, seed: int
         Seed of the differential evolution.
     local : callable
         ``local(x, max_evaluations) -> OptimizeResult``: one local
-        least-squares run (``None``: to convergence).
+        least-squares run (``None``: to convergence).  Each start is first
+        run with at most :func:`run_evaluations` evaluations; the runs that
+        stop there (optimiser status 0) are continued to convergence when
+        their chi-square is within :data:`MINIMA_MARGIN` of the lowest
+        converged run, and otherwise dropped as wanderers far above it.
     fold : callable, optional
         ``fold(x) -> x``: the representative of x's symmetry class.
     kernel_store : KernelStore, optional
@@ -436,9 +534,10 @@ def global_search(problem: FitProblem, x0, *, refinements: int | None, seed: int
         Evaluations of the differential evolution (default
         ``DE_POPULATION_PER_PARAMETER * p * (DE_GENERATIONS + 1)``).
     map_runs : callable, optional
-        ``map_runs(starts) -> [OptimizeResult, ...]``: the local refinements
-        computed elsewhere (e.g. on a Dask client), each to convergence; the
-        same runs as ``local`` would make, in order.
+        ``map_runs(starts, max_evaluations) -> [OptimizeResult, ...]``: the
+        local refinements computed elsewhere (e.g. on a Dask client), each
+        with that limit (None: to convergence); the same runs as ``local``
+        would make, in order.
 
     Returns
     -------
@@ -471,13 +570,36 @@ def global_search(problem: FitProblem, x0, *, refinements: int | None, seed: int
         cands = list(cands) + list(qmc.scale(pts, lo, np.where(hi > lo, hi, lo + 1e-12)))
         method += f", and {n_s} Sobol points"
     starts = [x0] + list(cands[:n_ref])
-    runs = list(map_runs(starts)) if map_runs is not None and len(starts) > 1 else [local(c, None) for c in starts]
-    finished = [True] * len(runs)
+
+    cap = run_evaluations(p)
+
+    def run_all(points):
+        if map_runs is not None and len(points) > 1:
+            return list(map_runs(points, cap))
+        return [local(c, cap) for c in points]
+
+    def finish(all_runs):
+        """Runs stopped by the cap that could still reach a minimum within the margin are run to convergence."""
+        done = [r.cost for r in all_runs if r.status != 0]
+        capped = [k for k, r in enumerate(all_runs) if r.status == 0]
+        if not done:  # every run stopped at the limit: the lowest is continued
+            capped = sorted(capped, key=lambda k: all_runs[k].cost)[:1]
+        top = 2.0 * min(done) + MINIMA_MARGIN if done else math.inf
+        todo = [k for k in capped if 2.0 * all_runs[k].cost <= top]
+        if todo:
+            for k, r in zip(todo, run_all_unbounded([all_runs[k].x for k in todo])):
+                all_runs[k] = r
+        return all_runs
+
+    def run_all_unbounded(points):
+        if map_runs is not None and len(points) > 1:
+            return list(map_runs(points, None))
+        return [local(c, None) for c in points]
+
+    runs = finish(run_all(starts))
+    n_starts = len(runs)
     fold = fold or (lambda v: v)
     span = np.where(problem.hi > problem.lo, problem.hi - problem.lo, 1.0)
-    chi = np.array([2.0 * r.cost for r in runs])
-    order = np.argsort(chi, kind="stable")
-    groups: list = []  # [chi2, x, count]
 
     def chi2(v):
         try:
@@ -492,19 +614,45 @@ def global_search(problem: FitProblem, x0, *, refinements: int | None, seed: int
         top = max(ca, cb) + SAME_MINIMUM_CHI2
         return all(chi2(xa + t * (xb - xa)) <= top for t in (0.25, 0.5, 0.75))
 
-    for k in order:
-        if not finished[k]:
-            continue
-        xf = np.clip(np.asarray(fold(runs[k].x), dtype=float), problem.lo, problem.hi)
-        for g in groups:
-            if same_basin(xf, chi[k], g[1], g[0]):
-                g[2] += 1
-                break
-        else:
-            groups.append([float(chi[k]), xf, 1])
-    best = runs[next(int(k) for k in order if finished[k])]
+    def grouped(all_runs):
+        chi = np.array([2.0 * r.cost for r in all_runs])
+        groups: list = []  # [chi2, x, count]
+        for k in np.argsort(chi, kind="stable"):
+            xf = np.clip(np.asarray(fold(all_runs[k].x), dtype=float), problem.lo, problem.hi)
+            for g in groups:
+                if same_basin(xf, chi[k], g[1], g[0]):
+                    g[2] += 1
+                    break
+            else:
+                groups.append([float(chi[k]), xf, 1])
+        return groups, chi
+
+    # restarts across the skew switch from the lowest minima (local least squares cannot cross it)
+    groups, chi = grouped(runs)
+    n_restarts = 0
+    tried: list = []
+    for _ in range(SWITCH_ROUNDS):
+        todo = []
+        for g in groups[:SWITCH_MINIMA]:
+            for y in switch_restarts(problem, g[1]):
+                if not any(np.max(np.abs(y - t) / span) <= SAME_MINIMUM_FRACTION for t in tried):
+                    tried.append(y)
+                    todo.append(y)
+        if not todo:
+            break
+        best_before = groups[0][0]
+        runs = finish(runs + run_all(todo))
+        n_restarts += len(todo)
+        groups, chi = grouped(runs)
+        if not groups[0][0] < best_before - SAME_MINIMUM_CHI2:
+            break
+    order = np.argsort(chi, kind="stable")
+    best = runs[int(order[0])]
     names = [fp.name for fp in problem.params]
     minima = tuple(Minimum(g[0], {n: float(v) for n, v in zip(names, g[1])}, g[2]) for g in groups
                    if g[0] <= groups[0][0] + MINIMA_MARGIN)
-    method = f"{method}; then least squares from the start and {len(runs) - 1} candidates"
-    return SearchOutcome(best, tuple(runs), minima, len(runs), groups[0][2], method)
+    method = f"{method}; then least squares from the start and {n_starts - 1} candidates"
+    if n_restarts:
+        method += (f", and {n_restarts} restarts of the lowest minima with the skew (or anisotropy) of the shift "
+                   "tensor reversed, across the switch of its principal axes at skew 0 that local fits cannot cross")
+    return SearchOutcome(best, tuple(runs), minima, n_starts, groups[0][2], method, n_restarts)
