@@ -33,9 +33,11 @@ Formats
   ``TMAG`` section's fields used are ``actual_npts`` (complex points per
   dimension; one FID when the others are 1, several FIDs when only the second
   is larger), ``dwell`` (s, of the first dimension; the dwell time), ``sw``
-  (Hz; must equal 1/dwell within 0.1 %, else the file is refused as
-  contradictory), ``obs_channel`` (the observed channel, 1 to 4) and, for that
-  channel, ``ob_freq`` (transmitter, MHz) and ``nuclei`` (the nucleus).  The
+  (Hz; must equal 1/dwell, or half of it, within 0.1 %, else the file is
+  refused as contradictory; half is accepted because, from memory, the
+  acquisition software states the spectral width as a +/- value),
+  ``obs_channel`` (the observed channel, 1 to 4) and, for that channel,
+  ``ob_freq`` (transmitter, MHz) and ``nuclei`` (the nucleus).  The
   ``DATA`` section holds little-endian complex64 samples; its length must be
   8 x the product of ``actual_npts`` and the file must hold all of it (checked
   before nmrglue maps it).  The file states no frequency of 0 ppm that nmrglue
@@ -663,9 +665,9 @@ def _read_tecmag(source, p: Path, expect: str) -> RawFID:
     sw = float(dic["sw"][0])
     if not math.isfinite(dwell) or dwell <= 0:
         raise DataError(source, f"the .tnt TMAG dwell = {dwell!r} s must be a finite number > 0")
-    if not math.isfinite(sw) or sw <= 0 or abs(sw * dwell - 1.0) > FIELD_TOLERANCE:
+    if not math.isfinite(sw) or sw <= 0 or min(abs(sw * dwell - 1.0), abs(2.0 * sw * dwell - 1.0)) > FIELD_TOLERANCE:
         raise DataError(source, f"the .tnt TMAG sw = {sw!r} Hz contradicts dwell = {dwell!r} s (sw must be "
-                        f"1/dwell = {1.0 / dwell:.6g} Hz within 0.1 %)")
+                        f"1/dwell = {1.0 / dwell:.6g} Hz, or half of it, within 0.1 %)")
     chan = int(dic["obs_channel"])
     if not 1 <= chan <= 4:
         raise DataError(source, f"the .tnt TMAG obs_channel = {chan} must be a channel 1 to 4")

@@ -135,8 +135,10 @@ def test_tecmag_bad_files(tmp_path):
     bad = tmp_path / "bad.tnt"
     bad.write_bytes(b"XXXX" + whole[4:])
     _expect(bad, "not a Tecmag .tnt file")
-    contra, _, _ = _tnt(tmp_path, "contra.tnt", sw_hz=1.0 / (2 * TNT_DWELL))
-    _expect(contra, "sw = 125000.0 Hz contradicts dwell")
+    contra, _, _ = _tnt(tmp_path, "contra.tnt", sw_hz=1.0 / (4 * TNT_DWELL))
+    _expect(contra, "sw = 62500.0 Hz contradicts dwell")
+    half, _, _ = _tnt(tmp_path, "half.tnt", sw_hz=1.0 / (2 * TNT_DWELL))     # a +/- half width: accepted
+    assert read_raw(half).dwell_s == TNT_DWELL
     _expect(path, "a .tnt file states it", dwell_us=4.0)
     _expect(path, "states the nucleus 27Al", nucleus="23Na")
 
