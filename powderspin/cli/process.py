@@ -28,11 +28,11 @@ def add_parser(sub) -> None:
     """Add the ``process`` command to the subparsers ``sub``."""
     from ..model.schema import keys_of
 
-    p = sub.add_parser("process", help="process raw time-domain data (fid/ser folders, .npy or text FIDs) into "
+    p = sub.add_parser("process", help="process raw time-domain data (fid/ser folders, .tnt, .npy or text FIDs) into "
                                        "a referenced spectrum")
-    p.add_argument("data", nargs="+", help="raw data: a spectrometer folder (fid or ser with acqus, or fid with "
-                                           "procpar), a .npy or two-column text FID; several = frequency-stepped "
-                                           "sub-spectra")
+    p.add_argument("data", nargs="+", help="raw data: a spectrometer folder (fid or ser with acqus, fid with "
+                                           "procpar, or data.1d with acqu.par), a .tnt file, a .npy or two-column "
+                                           "text FID; several = frequency-stepped sub-spectra")
     p.add_argument("-o", "--output", required=True, help="spectrum to write: .csv/.txt (CSV) or .jdx/.dx (JCAMP-DX)")
     p.add_argument("--plot", help="also write a figure (.png, .pdf or .svg)")
     p.add_argument("--model", help="model file: its [processing] table, and its nucleus and field to check against")

@@ -28,6 +28,35 @@ Formats
   ``tn`` (the nucleus) and, when present, ``reffrq`` (MHz, the frequency of
   0 ppm) as the base frequency; without it the transmitter frequency is the
   base frequency.  These files have no digital-filter delay.
+- A Tecmag ``.tnt`` file, read through nmrglue's Tecmag reader
+  (``nmrglue.fileio.tecmag``).  The file is a sequence of tagged sections; the
+  ``TMAG`` section's fields used are ``actual_npts`` (complex points per
+  dimension; one FID when the others are 1, several FIDs when only the second
+  is larger), ``dwell`` (s, of the first dimension; the dwell time), ``sw``
+  (Hz; must equal 1/dwell, or half of it, within 0.1 %, else the file is
+  refused as contradictory; half is accepted because, from memory, the
+  acquisition software states the spectral width as a +/- value),
+  ``obs_channel`` (the observed channel, 1 to 4) and, for that channel,
+  ``ob_freq`` (transmitter, MHz) and ``nuclei`` (the nucleus).  The
+  ``DATA`` section holds little-endian complex64 samples; its length must be
+  8 x the product of ``actual_npts`` and the file must hold all of it (checked
+  before nmrglue maps it).  The file states no frequency of 0 ppm that nmrglue
+  interprets (its ``base_freq`` field is noted there as not meaningful), so the
+  transmitter frequency is the base frequency, and no digital-filter group
+  delay (0).
+- A Magritek Spinsolve folder holding ``acqu.par`` and ``data.1d`` (or
+  ``fid.1d``), read through nmrglue's Spinsolve reader
+  (``nmrglue.fileio.spinsolve``).  ``acqu.par`` keys used, as nmrglue
+  interprets them: ``bandwidth`` (kHz; the dwell time is 1/bandwidth),
+  ``b1Freq`` (MHz, the frequency of 0 ppm: the base frequency),
+  ``lowestFrequency`` (Hz from b1Freq to the low edge of the band; the
+  transmitter is at its centre, b1Freq + lowestFrequency + bandwidth/2) and
+  ``rxChannel`` (the nucleus).  ``data.1d`` holds a 32-byte header (eight
+  little-endian 32-bit integers, of which ``xDim`` is the number of complex
+  points and ``yDim``, ``zDim``, ``qDim`` must be at most 1), then ``xDim``
+  float32 values of the time axis and ``xDim`` interleaved float32 pairs
+  (real, imaginary); a file of any other length is refused.  No group delay
+  (0).
 - A NumPy ``.npy`` file holding a complex 1-D array, or a real 2 x N or N x 2
   array (real and imaginary parts); the dwell time must be given.
 - A text file (``.txt``, ``.csv``, ``.dat``, ``.tsv``) with two columns (real
@@ -41,9 +70,10 @@ frequency, index by index.  This is how nmrglue's own example
 ``examples/bruker_processed_1d/dig_filter_remove.py`` compares the transform
 of raw Bruker data with the spectrometer's processed spectrum (which it
 reverses, because processed spectra are stored with the frequency
-decreasing).  The same sense is assumed for Agilent/Varian data and for
-``.npy``/text FIDs; ``conjugate=True`` reverses it for data recorded the
-other way.
+decreasing).  The same sense is assumed for Agilent/Varian, Tecmag and
+Spinsolve data and for ``.npy``/text FIDs (for Tecmag and Spinsolve the
+samples are nmrglue's, unchanged); ``conjugate=True`` reverses it for data
+recorded the other way.
 
 The field and the reference frequency
 -------------------------------------
@@ -92,6 +122,8 @@ FIELD_TOLERANCE = 1e-3
 #: fewest complex points a FID must hold
 MIN_RAW_POINTS = 16
 _TEXT_SUFFIXES = (".txt", ".csv", ".dat", ".tsv")
+_SPINSOLVE_FIDS = ("data.1d", "fid.1d")
+_FOLDERS = "a fid or ser file with its parameters (acqus or procpar), or data.1d with acqu.par"
 _NUCLEUS = re.compile(r"^\s*(\d+)\s*([A-Za-z]{1,2})\s*$")
 _NUCLEUS_REVERSED = re.compile(r"^\s*([A-Za-z]{1,2})\s*(\d+)\s*$")
 
@@ -224,7 +256,7 @@ def _canonical_nucleus(text) -> str | None:
 
 
 def is_raw_data(path) -> bool:
-    """True for a folder that holds time-domain data (``fid`` or ``ser``) and no processed spectrum request.
+    """True for raw time-domain data: a folder with ``fid``, ``ser``, ``data.1d`` or ``fid.1d``, or a ``.tnt`` file.
 
     Parameters
     ----------
@@ -241,8 +273,8 @@ def is_raw_data(path) -> bool:
     """
     p = Path(path)
     if p.is_dir():
-        return (p / "fid").is_file() or (p / "ser").is_file()
-    return p.name == "fid" and p.is_file()
+        return any((p / name).is_file() for name in ("fid", "ser") + _SPINSOLVE_FIDS)
+    return p.is_file() and (p.name in ("fid",) + _SPINSOLVE_FIDS or p.suffix.lower() == ".tnt")
 
 
 def _positive_option(source, name, value, unit):
@@ -263,9 +295,10 @@ def read_raw(path, *, dwell_us: float | None = None, nucleus: str | None = None,
     ----------
     path : str or os.PathLike
         A Bruker folder (``fid`` or ``ser`` with ``acqus``), an
-        Agilent/Varian folder (``fid`` with ``procpar``), a ``fid`` file in
-        such a folder, a ``.npy`` file or a two-column text file (module
-        notes).
+        Agilent/Varian folder (``fid`` with ``procpar``), a Spinsolve folder
+        (``data.1d`` or ``fid.1d`` with ``acqu.par``), a ``fid``/``data.1d``
+        file in such a folder, a Tecmag ``.tnt`` file, a ``.npy`` file or a
+        two-column text file (module notes).
     dwell_us : float, optional
         Dwell time (microseconds) of a ``.npy`` or text FID (required there;
         refused for folders, which state it).
@@ -315,7 +348,7 @@ def read_raw(path, *, dwell_us: float | None = None, nucleus: str | None = None,
     ...         read_raw(d)
     ...     except DataError as err:
     ...         print(str(err).split(": ", 1)[1])
-    holds no raw data: expected a fid or ser file with its parameters (acqus or procpar)
+    holds no raw data: expected a fid or ser file with its parameters (acqus or procpar), or data.1d with acqu.par
     """
     source = str(path)
     if expect not in ("fid", "ser", "any"):
@@ -331,9 +364,14 @@ def read_raw(path, *, dwell_us: float | None = None, nucleus: str | None = None,
             raise DataError(source, f"nucleus = {nucleus!r} is not a nucleus name such as '27Al'")
     if not p.exists():
         raise DataError(source, "no such file or directory")
-    if p.is_file() and p.name in ("fid", "ser"):
+    if p.is_file() and p.name in ("fid", "ser") + _SPINSOLVE_FIDS:
         p = p.parent
-    if p.is_dir():
+    if p.is_file() and p.suffix.lower() == ".tnt":
+        for name, value in (("dwell_us", dwell), ("carrier_mhz", carrier), ("base_mhz", base)):
+            if value is not None:
+                raise DataError(source, f"option {name} is for .npy and text FIDs; a .tnt file states it")
+        raw = _check_nucleus(source, _read_tecmag(source, p, expect), nucleus, given_nuc)
+    elif p.is_dir():
         for name, value in (("dwell_us", dwell), ("carrier_mhz", carrier), ("base_mhz", base)):
             if value is not None:
                 raise DataError(source, f"option {name} is for .npy and text FIDs; a spectrometer folder states it")
@@ -341,17 +379,18 @@ def read_raw(path, *, dwell_us: float | None = None, nucleus: str | None = None,
             raw = _read_bruker(source, p, expect)
         elif (p / "procpar").is_file():
             raw = _read_varian(source, p, expect)
+        elif (p / "acqu.par").is_file():
+            raw = _read_spinsolve(source, p, expect)
         elif (p / "fid").is_file() or (p / "ser").is_file():
             which = "fid" if (p / "fid").is_file() else "ser"
             raise DataError(source, f"holds a {which} file but no parameters (acqus or procpar); the dwell time, "
                             "frequencies and nucleus come from them")
+        elif any((p / name).is_file() for name in _SPINSOLVE_FIDS):
+            raise DataError(source, "holds a data.1d/fid.1d file but no parameters (acqu.par); the dwell time, "
+                            "frequencies and nucleus come from them")
         else:
-            raise DataError(source, "holds no raw data: expected a fid or ser file with its parameters "
-                            "(acqus or procpar)")
-        if given_nuc is not None and raw.nucleus is not None and raw.nucleus != given_nuc:
-            raise DataError(source, f"the file states the nucleus {raw.nucleus}, but nucleus={nucleus!r} was given")
-        if raw.nucleus is None and given_nuc is not None:
-            raw = _with(raw, nucleus=given_nuc)
+            raise DataError(source, f"holds no raw data: expected {_FOLDERS}")
+        raw = _check_nucleus(source, raw, nucleus, given_nuc)
     else:
         suffix = p.suffix.lower()
         if dwell is None:
@@ -366,7 +405,8 @@ def read_raw(path, *, dwell_us: float | None = None, nucleus: str | None = None,
         else:
             shown = f"'{p.suffix}'" if p.suffix else "(no extension)"
             raise DataError(source, f"unsupported raw-data file {shown}; give a spectrometer folder (fid/ser with "
-                            f"acqus or procpar), a .npy FID or a two-column text FID ({' '.join(_TEXT_SUFFIXES)})")
+                            f"acqus or procpar, or data.1d with acqu.par), a .tnt file, a .npy FID or a two-column "
+                            f"text FID ({' '.join(_TEXT_SUFFIXES)})")
         if base is None:
             base = carrier
         raw = RawFID(data, dwell / 1e6, None if carrier is None else carrier * 1e6,
@@ -377,6 +417,14 @@ def read_raw(path, *, dwell_us: float | None = None, nucleus: str | None = None,
     if conjugate:
         raw = _with(raw, data=np.conj(raw.data), metadata={**raw.metadata, "conjugated": True})
     return _with_field(raw)
+
+
+def _check_nucleus(source, raw: RawFID, nucleus, given_nuc) -> RawFID:
+    if given_nuc is not None and raw.nucleus is not None and raw.nucleus != given_nuc:
+        raise DataError(source, f"the file states the nucleus {raw.nucleus}, but nucleus={nucleus!r} was given")
+    if raw.nucleus is None and given_nuc is not None:
+        raw = _with(raw, nucleus=given_nuc)
+    return raw
 
 
 def _with(raw: RawFID, **changes) -> RawFID:
@@ -548,6 +596,138 @@ def _read_varian(source, d: Path, expect: str) -> RawFID:
         meta["procpar.reffrq"] = ref
     return RawFID(data, 1.0 / params["sw"], params["sfrq"] * 1e6, (ref or params["sfrq"]) * 1e6, nuc, None, 0.0,
                   source, meta)
+
+
+# --------------------------------------------------------------------------
+# Tecmag .tnt
+# --------------------------------------------------------------------------
+def _tnt_sections(source, p: Path) -> dict:
+    """The tagged sections of a .tnt file: tag -> (offset of its content, length); refuses a cut-short file."""
+    nbytes = p.stat().st_size
+    sections = {}
+    with open(p, "rb") as f:
+        magic = f.read(8)
+        if not re.match(rb"^TNT1\.\d\d\d$", magic):
+            raise DataError(source, f"is not a Tecmag .tnt file (it starts with {magic[:8]!r}, not TNT1.xxx)")
+        pos = 8
+        while pos + 12 <= nbytes:
+            f.seek(pos)
+            head = f.read(12)
+            tag = head[:4].decode("latin1")
+            length = int.from_bytes(head[8:12], "little")
+            if pos + 12 + length > nbytes:
+                raise DataError(source, f"the .tnt file is truncated: its {tag} section states {length} bytes but "
+                                f"only {nbytes - pos - 12} remain")
+            sections.setdefault(tag, (pos + 12, length))
+            pos += 12 + length
+    for tag in ("TMAG", "DATA"):
+        if tag not in sections:
+            raise DataError(source, f"the .tnt file has no {tag} section (it may be truncated)")
+    return sections
+
+
+def _read_tecmag(source, p: Path, expect: str) -> RawFID:
+    from nmrglue.fileio import tecmag
+    sections = _tnt_sections(source, p)
+    if sections["TMAG"][1] != tecmag.TNTTMAG.itemsize:
+        raise DataError(source, f"the .tnt TMAG section holds {sections['TMAG'][1]} bytes, not the "
+                        f"{tecmag.TNTTMAG.itemsize} of the layout nmrglue reads")
+    with open(p, "rb") as f:
+        f.seek(sections["TMAG"][0])
+        tmag = np.frombuffer(f.read(tecmag.TNTTMAG.itemsize), tecmag.TNTTMAG, count=1)[0]
+    npts = [int(x) for x in tmag["actual_npts"]]
+    if min(npts) < 1:
+        raise DataError(source, f"the .tnt TMAG actual_npts = {npts} must all be >= 1")
+    total = int(np.prod(npts))
+    if sections["DATA"][1] != 8 * total:
+        raise DataError(source, f"the .tnt DATA section holds {sections['DATA'][1]} bytes but TMAG actual_npts = "
+                        f"{npts} states {8 * total} (8 bytes per complex point)")
+    if any(n > 1 for n in npts[2:]):
+        raise DataError(source, f"the .tnt TMAG actual_npts = {npts}: only one FID or a series of FIDs (second "
+                        "dimension) is read, not 3-D or 4-D data")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        try:
+            dic, mapped = tecmag.read(str(p))
+            data = np.array(mapped, dtype=complex)
+            del mapped
+        except Exception as err:
+            raise DataError(source, f"the .tnt file could not be read ({type(err).__name__}: {err})") from None
+    data = data.reshape(npts[0], npts[1]).T  # nmrglue's shape is actual_npts (Fortran order): one FID per column
+    if npts[1] > 1 and expect == "fid":
+        raise DataError(source, f"the .tnt file holds {npts[1]} FIDs (TMAG actual_npts = {npts}) where one FID is "
+                        "expected; choose one FID with row=N (--row N)")
+    if npts[1] == 1 and expect == "ser":
+        raise DataError(source, "the .tnt file holds a single FID where a series of FIDs is expected")
+    if npts[1] == 1:
+        data = data[0]
+    dwell = float(dic["dwell"][0])
+    sw = float(dic["sw"][0])
+    if not math.isfinite(dwell) or dwell <= 0:
+        raise DataError(source, f"the .tnt TMAG dwell = {dwell!r} s must be a finite number > 0")
+    if not math.isfinite(sw) or sw <= 0 or min(abs(sw * dwell - 1.0), abs(2.0 * sw * dwell - 1.0)) > FIELD_TOLERANCE:
+        raise DataError(source, f"the .tnt TMAG sw = {sw!r} Hz contradicts dwell = {dwell!r} s (sw must be "
+                        f"1/dwell = {1.0 / dwell:.6g} Hz, or half of it, within 0.1 %)")
+    chan = int(dic["obs_channel"])
+    if not 1 <= chan <= 4:
+        raise DataError(source, f"the .tnt TMAG obs_channel = {chan} must be a channel 1 to 4")
+    freq = float(dic["ob_freq"][chan - 1])
+    if not math.isfinite(freq) or freq <= 0:
+        raise DataError(source, f"the .tnt TMAG ob_freq[{chan}] = {freq!r} MHz (the observed channel's transmitter "
+                        "frequency) must be a finite number > 0")
+    label = bytes(dic["nuclei"][chan - 1]).split(b"\0")[0].decode("latin1").strip()
+    meta = {"format": "Tecmag .tnt", "tnt.actual_npts": npts, "tnt.dwell": dwell, "tnt.sw": sw,
+            "tnt.obs_channel": chan, "tnt.ob_freq": freq, "tnt.nuclei": label,
+            "tnt.magnet_field": float(dic["magnet_field"]),
+            "base_source": "the transmitter frequency (the file states no frequency of 0 ppm)",
+            "group_delay_source": "none stated"}
+    return RawFID(data, dwell, freq * 1e6, freq * 1e6, _canonical_nucleus(label), None, 0.0, source, meta)
+
+
+# --------------------------------------------------------------------------
+# Magritek Spinsolve
+# --------------------------------------------------------------------------
+def _read_spinsolve(source, d: Path, expect: str) -> RawFID:
+    name = next((n for n in _SPINSOLVE_FIDS if (d / n).is_file()), None)
+    if name is None:
+        raise DataError(source, "holds acqu.par but no time-domain data (data.1d or fid.1d)")
+    if expect == "ser":
+        raise DataError(source, f"holds a single FID ({name}) where a series of FIDs is expected")
+    nbytes = (d / name).stat().st_size
+    if nbytes < 32:
+        raise DataError(source, f"the {name} file is truncated: {nbytes} bytes, less than its 32-byte header")
+    head = np.fromfile(d / name, dtype="<u4", count=8)
+    xdim, ydim, zdim, qdim = (int(v) for v in head[4:8])
+    if any(v > 1 for v in (ydim, zdim, qdim)):
+        raise DataError(source, f"the {name} header states yDim = {ydim}, zDim = {zdim}, qDim = {qdim}: only one "
+                        "FID (all at most 1) is read")
+    if xdim < 1 or nbytes != 32 + 12 * xdim:
+        raise DataError(source, f"the {name} file is truncated or not 1-D: its header states xDim = {xdim} "
+                        f"complex points ({32 + 12 * xdim} bytes with the time axis), {nbytes} bytes found")
+    from nmrglue.fileio import spinsolve
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        try:
+            dic, data = spinsolve.read(str(d), specfile=name)
+        except Exception as err:
+            raise DataError(source, f"acqu.par or {name} could not be read ({type(err).__name__}: {err})") from None
+    acq = dic["acqu"]
+    bw = _number(source, acq, "bandwidth", "acqu.par")
+    b1 = _number(source, acq, "b1Freq", "acqu.par")
+    low = _number(source, acq, "lowestFrequency", "acqu.par", positive=False)
+    sw = bw * 1e3
+    carrier = b1 * 1e6 + low + 0.5 * sw
+    if carrier <= 0:
+        raise DataError(source, f"acqu.par b1Freq = {b1} MHz and lowestFrequency = {low} Hz put the transmitter at "
+                        f"{carrier:.6g} Hz; it must be > 0")
+    nuc = _canonical_nucleus(acq.get("rxChannel"))
+    data = np.asarray(data, dtype=complex)
+    if data.shape != (xdim,):
+        raise DataError(source, f"the {name} file gave {data.shape} points where its header states xDim = {xdim}")
+    meta = {"format": f"Spinsolve {name} + acqu.par", f"{name}.xDim": xdim, "acqu.par.bandwidth": bw,
+            "acqu.par.b1Freq": b1, "acqu.par.lowestFrequency": low, "acqu.par.rxChannel": str(acq.get("rxChannel")),
+            "group_delay_source": "none stated"}
+    return RawFID(data, 1.0 / sw, carrier, b1 * 1e6, nuc, None, 0.0, source, meta)
 
 
 # --------------------------------------------------------------------------
