@@ -21,7 +21,6 @@ import numpy as np
 
 from ..model.values import Model, ParameterAddress
 from ..uncertainty import covariance_from_fisher, propagate, standard_errors
-from .results import RateResult
 
 __all__ = ["PARAMETER_REFERENCES", "DIFF_STEP", "PrecisionParameter", "precision_parameters", "parameter_step",
            "reported", "fisher_information", "errors", "criterion", "log_det", "with_precision", "reference_floor"]
@@ -337,7 +336,7 @@ def log_det(cov: np.ndarray, refs: list) -> float:
     return float(ld) if sign > 0 else math.inf
 
 
-def with_precision(r: RateResult, info, g, refs, skip, prefs) -> RateResult:
+def with_precision(r, info, g, refs, skip, prefs):
     """A candidate's result with its standard errors, relative errors and criteria filled in.
 
     Parameters

@@ -20,6 +20,7 @@ from .. import __version__
 from ..engine.lineshape import Axis
 from ..frozen import reduce_through_init
 from ..model.values import Model
+from .precision import reference_floor
 from .rotors import RotorTable
 
 __all__ = ["SiteSummary", "RateResult", "FieldPlan", "ParameterInfo", "Plan", "DEFINITIONS", "CAUTIONS"]
@@ -645,8 +646,6 @@ def _key_of(name: str) -> str:
 
 def _error_columns(p: Plan) -> list:
     """The error columns the plan's parameters need, with the parameters of each."""
-    from .precision import reference_floor
-
     cols = []
     usable = [q for q in p.parameters if not q.at_bound]
     for head, unit, keys, relative in _ERROR_COLUMNS:
