@@ -244,6 +244,17 @@ def _run_two_dimensional(model, model_path: Path, data, args) -> int:
             spectra[j], _, warns, _ = read_measured(item, model, j, args.axis)
             for w in warns:
                 print(f"warning: {w}", file=sys.stderr)
+    if noise is not None:  # before any work: a noise region must hold points of every measurement's (F2) axis
+        from ..fitting.data import FitError
+        from ..fitting.two_dimensional import check_noise_region
+
+        for j, sp in spectra.items():
+            two = model.measurements[j].is_two_dimensional
+            try:
+                check_noise_region(sp.f2_ppm if two else sp.ppm, noise, f"measurement {j + 1}",
+                                   "F2 axis" if two else "axis", "--noise-region")
+            except FitError as e:
+                raise CliError(str(e)) from None
     compile_note(args)
     import contextlib
 

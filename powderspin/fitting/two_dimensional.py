@@ -55,7 +55,8 @@ from .result import interval_text, posterior_interval_tables, posterior_line, se
 from .search import minima_report
 from .symmetry import fold_vector
 
-__all__ = ["TwoDimensionalFit", "fit_two_dimensional", "noise_from_region_2d", "selection_mask_2d"]
+__all__ = ["TwoDimensionalFit", "check_noise_region", "fit_two_dimensional", "noise_from_region_2d",
+           "selection_mask_2d"]
 
 #: a data axis may differ from uniform by this fraction of its step
 _AXIS_RTOL = 1e-6
@@ -500,6 +501,39 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
     return replace(result, spectra=_fitted_spectra(result.fitted_model(), axes))
 
 
+def check_noise_region(axis_ppm, region, where: str = "measurement", axis: str = "F2 axis",
+                       option: str = "noise_region") -> None:
+    """Refuse a noise region that holds fewer than ``MIN_NOISE_POINTS`` points of a data axis.
+
+    Parameters
+    ----------
+    axis_ppm : array_like
+        The axis (F2 of 2D data).
+    region : (ppm_hi, ppm_lo)
+    where : str, optional
+        The measurement's name.
+    axis : str, optional
+        The axis's name in the message.
+    option : str, optional
+        How the message names the setting (``"--noise-region"`` on the command line).
+
+    Raises
+    ------
+    powderspin.fitting.data.FitError
+        Naming the option, the points found and the axis's range.
+
+    Examples
+    --------
+    >>> check_noise_region(np.linspace(30.0, -30.0, 64), (25.0, 15.0))
+    """
+    f2 = np.asarray(axis_ppm, dtype=float)
+    k = int(((f2 <= region[0]) & (f2 >= region[1])).sum())
+    if k < MIN_NOISE_POINTS:
+        raise FitError(f"{where}: {option} [{region[0]:g}, {region[1]:g}] ppm holds {k} point(s) of the data's "
+                       f"{axis}; it needs at least {MIN_NOISE_POINTS} (the {axis} covers {f2.max():.6g} to "
+                       f"{f2.min():.6g} ppm)")
+
+
 def noise_from_region_2d(y, f2_ppm, region, where: str = "measurement") -> float:
     """Noise level from a signal-free F2 range: every row's straight line removed, the variances pooled.
 
@@ -533,12 +567,7 @@ def noise_from_region_2d(y, f2_ppm, region, where: str = "measurement") -> float
     """
     y = np.atleast_2d(np.asarray(y, dtype=float))
     f2 = np.asarray(f2_ppm, dtype=float)
-    k = int(((f2 <= region[0]) & (f2 >= region[1])).sum())
-    if k < MIN_NOISE_POINTS:
-        axis = "F2 axis" if y.shape[0] > 1 else "axis"
-        raise FitError(f"{where}: noise_region [{region[0]:g}, {region[1]:g}] ppm holds {k} point(s) of the data's "
-                       f"{axis}; it needs at least {MIN_NOISE_POINTS} (the {axis} covers {f2.max():.6g} to "
-                       f"{f2.min():.6g} ppm)")
+    check_noise_region(f2, region, where, "F2 axis" if y.shape[0] > 1 else "axis")
     # each row's scatter about its own straight line (noise_from_region), pooled over the rows (equal counts)
     var = [noise_from_region(row, f2, region) ** 2 for row in y]
     return float(math.sqrt(float(np.mean(var))))
