@@ -205,12 +205,8 @@ def _run_two_dimensional(model, model_path: Path, data, args) -> int:
     from ..io.spectra2d import read_spectrum_2d
     from ..physics.multiple_quantum import two_dimensional_scale
 
-    refused = [name for name, on in (("--posterior", args.posterior),
-                                     ("--global", args.global_search),
-                                     ("--noise-region", args.noise_region)) if on]
-    if refused:
-        raise CliError(f"{', '.join(refused)}: not available yet when the model has a 2D (MQMAS/STMAS) measurement")
     regions = [parse_range(r, "--region") for r in args.region] if args.region else None
+    noise = parse_range(args.noise_region, "--noise-region")
     f1_regions = [parse_range(r, "--f1-region") for r in args.f1_region] if args.f1_region else None
     out = Path(args.output)
     if out.suffix.lower() != ".toml":
@@ -227,8 +223,15 @@ def _run_two_dimensional(model, model_path: Path, data, args) -> int:
         for j in two_d:
             reports[j] = rp if len(two_d) == 1 else rp.with_name(f"{rp.stem}-m{j + 1}{rp.suffix}")
     csvs = csv_paths(out, len(model.measurements))
+    corner = None
+    if args.posterior:  # the corner plot beside the report (or the result), as for a 1D fit
+        base = Path(args.report) if args.report else out.with_suffix(".png")
+        corner = base.with_name(f"{base.stem}-corner{base.suffix}")
+    from ..plotting.report import REPORT_SUFFIXES
+
     check_outputs([(out, "result file")] + [(c, "fit CSV") for c in csvs]
-                  + [(r, "report", PLOT_SUFFIXES) for r in reports.values()], force=args.force, protect=protect)
+                  + [(r, "report", PLOT_SUFFIXES) for r in reports.values()]
+                  + ([(corner, "corner plot", REPORT_SUFFIXES)] if corner else []), force=args.force, protect=protect)
     spectra = {}
     for j, (meas, item) in enumerate(zip(model.measurements, data)):
         if meas.is_two_dimensional:
@@ -241,8 +244,31 @@ def _run_two_dimensional(model, model_path: Path, data, args) -> int:
             spectra[j], _, warns, _ = read_measured(item, model, j, args.axis)
             for w in warns:
                 print(f"warning: {w}", file=sys.stderr)
+    if noise is not None:  # before any work: a noise region must hold points of every measurement's (F2) axis
+        from ..fitting.data import FitError
+        from ..fitting.two_dimensional import check_noise_region
+
+        for j, sp in spectra.items():
+            two = model.measurements[j].is_two_dimensional
+            try:
+                check_noise_region(sp.f2_ppm if two else sp.ppm, noise, f"measurement {j + 1}",
+                                   "F2 axis" if two else "axis", "--noise-region")
+            except FitError as e:
+                raise CliError(str(e)) from None
     compile_note(args)
-    result = fit_two_dimensional(model, spectra, regions=regions, f1_regions=f1_regions, slice_f1_ppm=args.slice)
+    import contextlib
+
+    progress = terminal_progress(argparse.Namespace(quiet=args.quiet), delay=1.0)
+    try:
+        with contextlib.ExitStack() as stack:
+            result = fit_two_dimensional(model, spectra, regions=regions, f1_regions=f1_regions,
+                                         slice_f1_ppm=args.slice, noise_region=noise,
+                                         global_search=args.global_search, starts=args.starts, seed=args.seed,
+                                         posterior=args.posterior, walkers=args.walkers, steps=args.steps,
+                                         burn=args.burn, max_steps=args.max_steps, progress=progress,
+                                         map_starts=dask_mapper(args, stack), profile=args.profile)
+    finally:
+        progress.close()
     header = ("# fitted by powderspin fit (2D): the values are the fitted ones, each measurement's scale the solved "
               "intensity factor\n" + "".join(f"# {k} = {v:.8g} +- {result.stderr[k]:.3g}\n"
                                                 for k, v in result.values.items()))
@@ -257,6 +283,10 @@ def _run_two_dimensional(model, model_path: Path, data, args) -> int:
             for j, rp in reports.items():
                 written.append(save_fit_report_2d(spectra[j], result.spectra[j], rp, force=args.force,
                                                   protect=protect + [out], mask=result.masks[j]))
+        if corner is not None:
+            from ..plotting.report import save_corner
+
+            written.append(save_corner(result, corner, force=args.force, protect=protect + [out]))
     print(result.summary(), end="")
     for p in written:
         print(f"wrote {p}", file=sys.stderr)

@@ -208,3 +208,67 @@ def profile_interval(problem: FitProblem, x, i: int, stderr: float, local, *, de
         ends.append(float(end))
         found.append(got)
     return ends[0], ends[1], found[0], found[1], lowest
+
+
+def curvature_report(problem: FitProblem, x, cov, free, chi2: float, profile: str, local):
+    """The curvature check at a solution, profile intervals where it fails (or for all), and the warnings to give.
+
+    Parameters
+    ----------
+    problem : FitProblem
+        A 1D or a 2D (or joint) fit's problem.
+    x : numpy.ndarray
+        The solution.
+    cov : numpy.ndarray (p, p)
+        Covariance of the free parameters.
+    free : sequence of FreeParameter
+    chi2 : float
+        Chi-square at ``x``.
+    profile : {"auto", "all", "none"}
+        Which parameters get profile intervals: those along which the check
+        fails (with loading at least 0.3), every one but weights, or none.
+    local : callable
+        As for :func:`profile_interval`.
+
+    Returns
+    -------
+    (list of CurvatureRow, dict, list of str)
+        The rows, the profile intervals by name ``(low, high, low found,
+        high found)``, and the warnings.
+    """
+    names = [fp.name for fp in free]
+    x = np.asarray(x, dtype=float)
+    curv = curvature_check(problem, x, problem.jacobian(x), cov, names)
+    warns = []
+    profiles = {}
+    failed = [row for row in curv if not row.quadratic]
+    if profile != "none":
+        todo = set()
+        for row in curv:
+            if profile == "all" or not row.quadratic:
+                todo |= {n for n, w in row.loadings.items() if abs(w) >= 0.3}
+        sd_free = np.sqrt(np.clip(np.diag(cov), 0.0, None))
+        for i, fp in enumerate(free):
+            if fp.name not in todo or fp.address.key == "weight" or not (np.isfinite(sd_free[i]) and sd_free[i] > 0):
+                continue
+            lo_, hi_, f_lo, f_hi, lowest = profile_interval(problem, x, i, float(sd_free[i]), local)
+            profiles[fp.name] = (lo_, hi_, f_lo, f_hi)
+            if lowest < chi2 - 0.05:
+                warns.append(f"scanning {fp.name} found a chi-square {chi2 - lowest:.3g} lower than the fit's: the fit "
+                             "did not reach the minimum (try --global)")
+    if failed:
+        worst = []
+        for row in failed:
+            acts = [v for v in (row.minus, row.plus) if math.isfinite(v)]
+            what = row.label if row.label in row.loadings else (row.label + " (" + ", ".join(
+                f"{n} {w:+.2f}" for n, w in sorted(row.loadings.items(), key=lambda t: -abs(t[1]))[:3]) + ")")
+            worst.append(f"{what}: chi-square rose by {' and '.join(f'{v:.3g}' for v in acts)} at -+1 standard "
+                         f"error, {row.predicted:.3g} predicted")
+        text = ("the chi-square surface is not quadratic within one standard error, so the standard errors "
+                "misstate the uncertainty along " + "; ".join(worst))
+        if profiles:
+            text += ("; read the profile-likelihood intervals (chi-square + 1, the other parameters re-optimised) "
+                     "instead: " + ", ".join(f"{n} in [{a:.6g}, {b:.6g}]" + ("" if fa and fb else " (open)")
+                                             for n, (a, b, fa, fb) in profiles.items()))
+        warns.append(text)
+    return curv, profiles, warns

@@ -89,7 +89,7 @@ from ..engine.threads import kernel_threads
 from ..model.values import FitSettings, FreeParameter, Model, ModelError, ParameterAddress
 from ..simulator import SimulationCache, Simulator, as_model
 from ..uncertainty import correlation, covariance_from_jacobian, standard_errors
-from .curvature import curvature_check, profile_interval
+from .curvature import curvature_report
 from .data import (
     MIN_NOISE_POINTS,
     FitError,
@@ -102,12 +102,12 @@ from .data import (
     read_measured,
     region_mask,
 )
-from .posterior import DEFAULT_STEPS, MIN_AUTOCORRELATION_TIMES, sample_posterior
+from .posterior import DEFAULT_STEPS, posterior_messages, sample_posterior
 from .problem import FitProblem
 from .reported import NATURAL_RANGE, fitted_model, parameter_warnings, reported_values, stderr_tables
 from .result import FitResult
-from .search import MINIMA_MARGIN
 from .search import global_search as global_search_
+from .search import minima_report
 from .symmetry import fold_vector, skew_switch_notes
 
 __all__ = ["fit", "FitError", "DEFAULT_STEPS", "CONVERGED_CHI2", "check_sampler_memory", "sampler_memory_bytes"]
@@ -234,6 +234,50 @@ def _sobol_starts(lo, hi, n: int, seed: int) -> np.ndarray:
 def _schema_span(p: FreeParameter) -> float:
     s = p.address.spec()
     return s.high - s.low
+
+
+def run_global_search(problem: FitProblem, x0, starts, seed: int, max_evaluations, kernel_store=None,
+                      map_starts=None):
+    """The global search of a fit (1D, 2D or joint) on its problem: the warning on unbounded ranges, then the search.
+
+    Parameters
+    ----------
+    problem : FitProblem
+    x0 : numpy.ndarray
+        The user's start.
+    starts : int or None
+        Least-squares starts, the user's included (None: the default).
+    seed : int
+    max_evaluations : int or None
+        The user's limit on each least-squares run.
+    kernel_store : KernelStore, optional
+    map_starts : callable, optional
+        As for :func:`fit`.
+
+    Returns
+    -------
+    (powderspin.fitting.search.SearchOutcome, list of str)
+        The outcome and the warnings.
+    """
+    free = problem.params
+    warns = []
+    unbounded = [p.name for p in free if (p.max - p.min) >= 0.5 * _schema_span(p)
+                 and p.address.key not in NATURAL_RANGE and p.address.key != "euler_deg"]
+    if unbounded:
+        warns.append("global search over the whole allowed range of " + ", ".join(unbounded)
+                     + ": give min and max to search where the value can physically be")
+    map_runs = None
+    if map_starts is not None:
+        def map_runs(pts, cap):
+            done = map_starts(functools.partial(_run_from, _detached(problem), _limit(max_evaluations, cap)), pts)
+            problem.n_evaluations += sum(n for _, n in done)
+            return [run for run, _ in done]
+
+    search = global_search_(problem, x0, refinements=None if starts is None else int(starts) - 1, seed=seed,
+                            local=lambda v, n: _least_squares(problem, v, _limit(max_evaluations, n)),
+                            fold=lambda v: fold_vector(free, v, problem.lo, problem.hi, problem.model)[0],
+                            kernel_store=kernel_store, map_runs=map_runs)
+    return search, warns
 
 
 def _verdict(sol, max_evaluations) -> tuple[bool, str]:
@@ -599,22 +643,8 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     n_starts, at_best = 1, 1
     search = None
     if global_search:
-        unbounded = [p.name for p in free if (p.max - p.min) >= 0.5 * _schema_span(p)
-                     and p.address.key not in NATURAL_RANGE and p.address.key != "euler_deg"]
-        if unbounded:
-            warns.append("global search over the whole allowed range of " + ", ".join(unbounded)
-                         + ": give min and max to search where the value can physically be")
-        map_runs = None
-        if map_starts is not None:
-            def map_runs(pts, cap):
-                done = map_starts(functools.partial(_run_from, _detached(problem), _limit(max_evaluations, cap)), pts)
-                problem.n_evaluations += sum(n for _, n in done)
-                return [run for run, _ in done]
-
-        search = global_search_(problem, x0, refinements=None if starts is None else int(starts) - 1, seed=seed,
-                                local=lambda v, n: _least_squares(problem, v, _limit(max_evaluations, n)),
-                                fold=lambda v: fold_vector(free, v, problem.lo, problem.hi, problem.model)[0],
-                                kernel_store=kernel_store, map_runs=map_runs)
+        search, search_warns = run_global_search(problem, x0, starts, seed, max_evaluations, kernel_store, map_starts)
+        warns += search_warns
         sol = search.best
         n_starts, at_best = search.starts, search.starts_at_best
     else:
@@ -692,57 +722,13 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     warns += parameter_warnings(free, x, values, stderr, corr, names, getattr(sol, "active_mask", None))
     notes.extend(skew_switch_notes(problem.model, free, values, stderr))
     # -- does the quadratic picture hold within one standard error?  Profile intervals where it does not
-    jp = problem.jacobian(x)
-    curv = curvature_check(problem, x, jp, cov[:p, :p], names)
-    profiles = {}
-    failed = [row for row in curv if not row.quadratic]
-    if profile != "none":
-        todo = set()
-        for row in curv:
-            if profile == "all" or not row.quadratic:
-                todo |= {n for n, w in row.loadings.items() if abs(w) >= 0.3}
-        sd_free = np.sqrt(np.clip(np.diag(cov[:p, :p]), 0.0, None))
-        for i, fp in enumerate(free):
-            if fp.name not in todo or fp.address.key == "weight" or not (np.isfinite(sd_free[i]) and sd_free[i] > 0):
-                continue
-            lo_, hi_, f_lo, f_hi, lowest = profile_interval(problem, x, i, float(sd_free[i]), _profile_local)
-            profiles[fp.name] = (lo_, hi_, f_lo, f_hi)
-            if lowest < chi2 - 0.05:
-                warns.append(f"scanning {fp.name} found a chi-square {chi2 - lowest:.3g} lower than the fit's: the fit "
-                             "did not reach the minimum (try --global)")
-    if failed:
-        worst = []
-        for row in failed:
-            acts = [v for v in (row.minus, row.plus) if math.isfinite(v)]
-            what = row.label if row.label in row.loadings else (row.label + " (" + ", ".join(
-                f"{n} {w:+.2f}" for n, w in sorted(row.loadings.items(), key=lambda t: -abs(t[1]))[:3]) + ")")
-            worst.append(f"{what}: chi-square rose by {' and '.join(f'{v:.3g}' for v in acts)} at -+1 standard "
-                         f"error, {row.predicted:.3g} predicted")
-        text = ("the chi-square surface is not quadratic within one standard error, so the standard errors "
-                "misstate the uncertainty along " + "; ".join(worst))
-        if profiles:
-            text += ("; read the profile-likelihood intervals (chi-square + 1, the other parameters re-optimised) "
-                     "instead: " + ", ".join(f"{n} in [{a:.6g}, {b:.6g}]" + ("" if fa and fb else " (open)")
-                                             for n, (a, b, fa, fb) in profiles.items()))
-        warns.append(text)
+    curv, profiles, curv_warns = curvature_report(problem, x, cov[:p, :p], free, chi2, profile, _profile_local)
+    warns += curv_warns
     minima = ()
     if search is not None:
-        minima = []
-        for mn in search.minima:  # chi-square at the final noise levels
-            v = np.array([mn.values[n] for n in names])
-            ev = problem.evaluate(v)
-            minima.append(replace(mn, chi_square=float(ev.residual @ ev.residual)))
-        minima = tuple(sorted(minima, key=lambda mn: mn.chi_square))
-        notes.append(f"global search: {search.method}")
-        if at_best == 1 and n_starts > 1:
-            warns.append(f"the best fit was reached by one start only (of {n_starts}): a lower minimum may exist "
-                         "that no start reached; run again with more starts (--starts) or another seed")
-        others = [mn for mn in minima[1:]]
-        if others:
-            lines = "; ".join(f"chi-square +{mn.chi_square - minima[0].chi_square:.3g}: "
-                              + ", ".join(f"{n} = {v:.6g}" for n, v in mn.values.items()) for mn in others)
-            warns.append(f"{len(others)} other distinct minimum/minima lie within chi-square {MINIMA_MARGIN:g} of the "
-                         f"best and fit the data almost as well: {lines}")
+        minima, search_notes, search_warns = minima_report(search, problem, names, n_starts, at_best)
+        notes += search_notes
+        warns += search_warns
     if noise_source == "noise region" and red > 2.0:
         warns.append(f"the reduced chi-square is {red:.3g}: the model does not describe the data within the noise "
                      "(missing sites, wrong broadening or baseline); the standard errors are then too small")
@@ -768,14 +754,9 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     post = None
     if posterior:
         post = sample_posterior(problem, x, free, cov[:p, :p], walkers, steps, burn, seed, progress, max_steps)
-        if not post.converged:
-            warns.append(f"the posterior chain is too short even after extending it to {post.steps} steps: "
-                         f"{post.steps - post.burn} kept steps per walker are fewer than {MIN_AUTOCORRELATION_TIMES} "
-                         f"integrated autocorrelation times (longest {max(post.autocorrelation_steps):.3g} steps); "
-                         "the posterior intervals are not reliable: raise max_steps (--max-steps)")
-        elif post.steps > int(steps):
-            notes.append(f"the posterior chain was extended from {int(steps)} to {post.steps} steps to span "
-                         f"{MIN_AUTOCORRELATION_TIMES} autocorrelation times")
+        post_warns, post_notes = posterior_messages(post, steps)
+        warns += post_warns
+        notes += post_notes
     return FitResult(
         model=fitted, names=names, values=values, stderr=stderr, covariance=q_cov[:p, :p], correlation=corr,
         success=success, message=message, n_evaluations=problem.n_evaluations, reduced_chi_square=red,

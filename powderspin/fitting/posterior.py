@@ -147,3 +147,28 @@ def sample_posterior(problem: FitProblem, x, free, cov, walkers, steps, burn, se
                             tuple(map(float, q84)), chain, nw, steps, burn, tuple(map(float, tau)),
                             bool(steps - burn >= MIN_AUTOCORRELATION_TIMES * float(np.max(tau))),
                             float(np.mean(sampler.acceptance_fraction)))
+
+
+def posterior_messages(post: PosteriorSummary, steps: int) -> tuple[list, list]:
+    """What a fit says of its posterior sample: a chain too short (a warning) or extended (a note).
+
+    Parameters
+    ----------
+    post : PosteriorSummary
+    steps : int
+        The steps asked for.
+
+    Returns
+    -------
+    (list of str, list of str)
+        Warnings and notes.
+    """
+    if not post.converged:
+        return [f"the posterior chain is too short even after extending it to {post.steps} steps: "
+                f"{post.steps - post.burn} kept steps per walker are fewer than {MIN_AUTOCORRELATION_TIMES} "
+                f"integrated autocorrelation times (longest {max(post.autocorrelation_steps):.3g} steps); "
+                "the posterior intervals are not reliable: raise max_steps (--max-steps)"], []
+    if post.steps > int(steps):
+        return [], [f"the posterior chain was extended from {int(steps)} to {post.steps} steps to span "
+                    f"{MIN_AUTOCORRELATION_TIMES} autocorrelation times"]
+    return [], []

@@ -391,13 +391,7 @@ class FitResult:
             v, e = self.values[n], self.stderr[n]
             unit = _unit_of(n)
             line = f"  {n:<{w}}  {format_value(v, e).replace(' +- ', ' ± ')}" + (f" {unit}" if unit else "")
-            if self.posterior is not None:
-                lo, hi = self.posterior.interval(n)
-                med = self.posterior.median[self.posterior.names.index(n)]
-                line += f"   posterior median {med:.6g}, 16-84 %: [{lo:.6g}, {hi:.6g}]"
-            if n in self.profile_intervals:
-                a, b = self.profile_intervals[n]
-                line += f"   profile interval [{a:.6g}, {b:.6g}]"
+            line += interval_text(n, self.posterior, self.profile_intervals)
             lines.append(line)
         head = (f"fit: reduced chi-square {self.reduced_chi_square:.4g} ({self.degrees_of_freedom} degrees of "
                 f"freedom; noise from the {self.noise_source}), {self.n_evaluations} evaluations, "
@@ -408,9 +402,7 @@ class FitResult:
         for n, (v, e) in self.derived.items():
             out.append(f"  {n:<{w}}  {format_value(v, e).replace(' +- ', ' ± ')}   (derived)")
         if self.posterior is not None:
-            p = self.posterior
-            out.append(f"posterior: {p.walkers} walkers x {p.steps} steps, first {p.burn} discarded; longest "
-                       f"autocorrelation time {max(p.autocorrelation_steps):.3g} steps; acceptance {p.acceptance:.2f}")
+            out.append(posterior_line(self.posterior))
         for j, sites in self.excitation.items():
             where = "" if len(self.excitation) == 1 and j == "0" else f" (measurement {int(j) + 1})"
             out.append(f"populations corrected for excitation{where}:")
@@ -462,7 +454,7 @@ class FitResult:
             if self.site_stderr[i]:
                 t["stderr"] = _rounded_errors(self.site_stderr[i])
         if self.posterior is not None:
-            self._intervals(d, meas)
+            posterior_interval_tables(self.model, self.posterior, d, meas)
         fit = d.setdefault("fit", {})
         res: dict = {
             "success": bool(self.success),
@@ -491,17 +483,7 @@ class FitResult:
         if self.starts > 1:
             res["starts"] = int(self.starts)
             res["starts_at_best"] = int(self.starts_at_best)
-        if self.profile_intervals:
-            res["profile_intervals"] = {n: [float(a), float(b)] for n, (a, b) in self.profile_intervals.items()}
-        if self.curvature:
-            res["quadratic_check"] = [{"direction": c.label, "predicted": float(c.predicted),
-                                       "minus": float(c.minus), "plus": float(c.plus), "quadratic": bool(c.quadratic)}
-                                      for c in self.curvature]
-        if self.minima:
-            res["minima"] = [{"chi_square": float(mn.chi_square), "starts": int(mn.starts),
-                              "values": {n: float(v) for n, v in mn.values.items()}} for mn in self.minima]
-        if self.posterior is not None:
-            res["posterior"] = self.posterior.to_dict()
+        res.update(search_tables(self.minima, self.curvature, self.profile_intervals, self.posterior))
         records = [getattr(s, "metadata", {}).get("processing") for s in self.data]
         if any(records):  # how raw data were processed, one table per measurement ({} for a spectrum file)
             res["processing"] = [json.loads(r) if r else {} for r in records]
@@ -530,17 +512,100 @@ class FitResult:
             if isinstance(t.get("baseline"), list) and len(errs) == len(t["baseline"]):
                 t["baseline"] = [round_to_error(float(b), float(e)) for b, e in zip(t["baseline"], errs)]
 
-    def _intervals(self, d: dict, meas: list) -> None:
-        post = self.posterior
-        for k, n in enumerate(post.names):
-            try:
-                a = self.model.address_of(n)
-            except ValueError:
-                continue
-            target = (d["site"][a.index] if a.table == "site" else meas[a.index]).setdefault("interval", {})
-            pair = [float(post.low[k]), float(post.high[k])]
-            if a.item is not None:
-                e = target.setdefault("euler_deg", [[0.0, 0.0], [0.0, 0.0], [0.0, 0.0]])
-                e[a.item] = pair
-            else:
-                target[a.key] = pair
+
+def interval_text(name: str, posterior, profile_intervals) -> str:
+    """The posterior median and 16-84 % interval and the profile interval of one parameter, as text for a summary.
+
+    Parameters
+    ----------
+    name : str
+    posterior : PosteriorSummary or None
+    profile_intervals : Mapping of str to (float, float)
+
+    Returns
+    -------
+    str
+        Empty when there is neither.
+    """
+    line = ""
+    if posterior is not None and name in posterior.names:
+        lo, hi = posterior.interval(name)
+        med = posterior.median[posterior.names.index(name)]
+        line += f"   posterior median {med:.6g}, 16-84 %: [{lo:.6g}, {hi:.6g}]"
+    if name in profile_intervals:
+        a, b = profile_intervals[name]
+        line += f"   profile interval [{a:.6g}, {b:.6g}]"
+    return line
+
+
+def posterior_line(p) -> str:
+    """One line of a summary on a posterior sample: its size, autocorrelation and acceptance.
+
+    Parameters
+    ----------
+    p : PosteriorSummary
+
+    Returns
+    -------
+    str
+    """
+    return (f"posterior: {p.walkers} walkers x {p.steps} steps, first {p.burn} discarded; longest "
+            f"autocorrelation time {max(p.autocorrelation_steps):.3g} steps; acceptance {p.acceptance:.2f}")
+
+
+def search_tables(minima, curvature, profile_intervals, posterior) -> dict:
+    """The ``[fit.result]`` entries of a global search, the curvature check and a posterior sample (1D and 2D fits).
+
+    Parameters
+    ----------
+    minima : sequence of powderspin.fitting.search.Minimum
+    curvature : sequence of powderspin.fitting.curvature.CurvatureRow
+    profile_intervals : Mapping of str to (float, float)
+    posterior : PosteriorSummary or None
+
+    Returns
+    -------
+    dict
+        ``profile_intervals``, ``quadratic_check``, ``minima`` and
+        ``posterior``, each only when there is something to write.
+    """
+    res: dict = {}
+    if profile_intervals:
+        res["profile_intervals"] = {n: [float(a), float(b)] for n, (a, b) in profile_intervals.items()}
+    if curvature:
+        res["quadratic_check"] = [{"direction": c.label, "predicted": float(c.predicted),
+                                   "minus": float(c.minus), "plus": float(c.plus), "quadratic": bool(c.quadratic)}
+                                  for c in curvature]
+    if minima:
+        res["minima"] = [{"chi_square": float(mn.chi_square), "starts": int(mn.starts),
+                          "values": {n: float(v) for n, v in mn.values.items()}} for mn in minima]
+    if posterior is not None:
+        res["posterior"] = posterior.to_dict()
+    return res
+
+
+def posterior_interval_tables(model: Model, post, d: dict, meas: list) -> None:
+    """Write each sampled parameter's 16-84 % interval into an ``interval`` table of its site or measurement.
+
+    Parameters
+    ----------
+    model : Model
+        The fitted model (names to addresses).
+    post : PosteriorSummary
+    d : dict
+        :func:`powderspin.model.modelfile.model_to_dict` of the model (changed in place).
+    meas : list of dict
+        Its measurement tables.
+    """
+    for k, n in enumerate(post.names):
+        try:
+            a = model.address_of(n)
+        except ValueError:
+            continue
+        target = (d["site"][a.index] if a.table == "site" else meas[a.index]).setdefault("interval", {})
+        pair = [float(post.low[k]), float(post.high[k])]
+        if a.item is not None:
+            e = target.setdefault("euler_deg", [[0.0, 0.0], [0.0, 0.0], [0.0, 0.0]])
+            e[a.item] = pair
+        else:
+            target[a.key] = pair

@@ -264,6 +264,8 @@ def scan_applies(model: Model, free) -> bool:
     if len(model.measurements) != 1 or model.tied:
         return False
     meas = model.measurements[0]
+    if meas.is_two_dimensional:  # the library holds 1D lineshapes
+        return False
     if not (meas.is_static or meas.is_infinite_rate) or meas.method == "exact":
         return False
     spin = model.nucleus.spin
@@ -656,3 +658,41 @@ def global_search(problem: FitProblem, x0, *, refinements: int | None, seed: int
         method += (f", and {n_restarts} restarts of the lowest minima with the skew (or anisotropy) of the shift "
                    "tensor reversed, across the switch of its principal axes at skew 0 that local fits cannot cross")
     return SearchOutcome(best, tuple(runs), minima, n_starts, groups[0][2], method, n_restarts)
+
+
+def minima_report(search: SearchOutcome, problem: FitProblem, names, n_starts: int, at_best: int):
+    """The minima of a search with their chi-square at the problem's present noise levels, and what to say of them.
+
+    Parameters
+    ----------
+    search : SearchOutcome
+    problem : FitProblem
+        The fit's problem (1D, 2D or joint), with its final noise levels.
+    names : sequence of str
+        The free parameters' names, in order.
+    n_starts, at_best : int
+        Starts run, and how many reached the best fit.
+
+    Returns
+    -------
+    (tuple of Minimum, list of str, list of str)
+        The minima (lowest first), the notes and the warnings.
+    """
+    minima = []
+    for mn in search.minima:  # chi-square at the final noise levels
+        v = np.array([mn.values[n] for n in names])
+        ev = problem.evaluate(v)
+        minima.append(replace(mn, chi_square=float(ev.residual @ ev.residual)))
+    minima = tuple(sorted(minima, key=lambda mn: mn.chi_square))
+    notes = [f"global search: {search.method}"]
+    warns = []
+    if at_best == 1 and n_starts > 1:
+        warns.append(f"the best fit was reached by one start only (of {n_starts}): a lower minimum may exist "
+                     "that no start reached; run again with more starts (--starts) or another seed")
+    others = list(minima[1:])
+    if others:
+        lines = "; ".join(f"chi-square +{mn.chi_square - minima[0].chi_square:.3g}: "
+                          + ", ".join(f"{n} = {v:.6g}" for n, v in mn.values.items()) for mn in others)
+        warns.append(f"{len(others)} other distinct minimum/minima lie within chi-square {MINIMA_MARGIN:g} of the "
+                     f"best and fit the data almost as well: {lines}")
+    return minima, notes, warns

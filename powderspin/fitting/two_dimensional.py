@@ -39,6 +39,7 @@ from typing import Mapping
 
 import numpy as np
 
+from ..checks import whole_number
 from ..engine.lineshape import Axis
 from ..frozen import reduce_through_init
 from ..io.spectra import MeasuredSpectrum
@@ -46,10 +47,16 @@ from ..io.spectra2d import MeasuredSpectrum2D
 from ..model.values import FitSettings, Model
 from ..simulator import as_model
 from ..uncertainty import covariance_from_jacobian, standard_errors
-from .data import FitError, point_noise, region_mask
+from .curvature import curvature_report
+from .data import MIN_NOISE_POINTS, FitError, check_region, noise_from_region, point_noise, region_mask
+from .posterior import DEFAULT_STEPS, posterior_messages, sample_posterior
 from .problem import FitProblem
+from .result import interval_text, posterior_interval_tables, posterior_line, search_tables
+from .search import minima_report
+from .symmetry import fold_vector
 
-__all__ = ["TwoDimensionalFit", "fit_two_dimensional", "selection_mask_2d"]
+__all__ = ["TwoDimensionalFit", "check_noise_region", "fit_two_dimensional", "noise_from_region_2d",
+           "selection_mask_2d"]
 
 #: a data axis may differ from uniform by this fraction of its step
 _AXIS_RTOL = 1e-6
@@ -81,7 +88,22 @@ class TwoDimensionalFit:
         The fitted model simulated on each measurement's data axes, its scale
         applied (Spectrum2D or Spectrum).
     selection : Mapping
-        The regions, F1 regions and slices used (ppm).
+        The regions, F1 regions and slices used (ppm), and the noise region.
+    noise : tuple of float
+        Each measurement's noise level (data units).
+    noise_source : str
+        ``"noise region"`` or ``"point-to-point"`` (the robust estimate along F2).
+    notes : tuple of str
+    starts, starts_at_best : int
+        Least-squares starts of a global search, and how many reached the best fit.
+    minima : tuple of powderspin.fitting.search.Minimum
+        After a global search: every distinct minimum within the margin of the best.
+    curvature : tuple of powderspin.fitting.curvature.CurvatureRow
+        Predicted and actual chi-square rises at one standard error.
+    profile_intervals : Mapping of str to (float, float)
+        Profile-likelihood intervals where the curvature check asked for them.
+    posterior : powderspin.fitting.result.PosteriorSummary or None
+        The posterior sample, when asked for.
     """
 
     model: Model
@@ -98,6 +120,15 @@ class TwoDimensionalFit:
     data: tuple = field(default=())
     spectra: tuple = field(default=())
     selection: Mapping = field(default_factory=dict)
+    noise: tuple = ()
+    noise_source: str = "point-to-point"
+    notes: tuple = ()
+    starts: int = 1
+    starts_at_best: int = 1
+    minima: tuple = ()
+    curvature: tuple = ()
+    profile_intervals: Mapping = field(default_factory=dict)
+    posterior: object = None
 
     __reduce__ = reduce_through_init  # picklable: to and from Dask workers (powderspin.frozen)
 
@@ -105,6 +136,7 @@ class TwoDimensionalFit:
         object.__setattr__(self, "selection", MappingProxyType(dict(self.selection)))
         object.__setattr__(self, "values", MappingProxyType(dict(self.values)))
         object.__setattr__(self, "stderr", MappingProxyType(dict(self.stderr)))
+        object.__setattr__(self, "profile_intervals", MappingProxyType(dict(self.profile_intervals)))
 
     def summary(self) -> str:
         """Plain text: verdict, values with standard errors, chi-square, scales and warnings.
@@ -116,10 +148,17 @@ class TwoDimensionalFit:
         lines = [f"fit {'converged' if self.success else 'did NOT converge'}: {self.message}",
                  f"{'parameter':<24} {'value':>14} {'std. error':>12}"]
         for k, v in self.values.items():
-            lines.append(f"{k:<24} {v:>14.6g} {self.stderr[k]:>12.3g}")
-        lines.append(f"chi-square {self.chi_square:.6g}, reduced {self.reduced_chi_square:.4g}, "
-                     f"{self.n_evaluations} evaluations")
+            lines.append(f"{k:<24} {v:>14.6g} {self.stderr[k]:>12.3g}"
+                         + interval_text(k, self.posterior, self.profile_intervals))
+        head = (f"chi-square {self.chi_square:.6g}, reduced {self.reduced_chi_square:.4g} (noise from the "
+                f"{self.noise_source}), {self.n_evaluations} evaluations")
+        if self.starts > 1:
+            head += f", {self.starts_at_best} of {self.starts} starts reached the best fit"
+        lines.append(head)
         lines.append("scale per measurement: " + ", ".join(f"{c:.6g}" for c in self.scales))
+        if self.posterior is not None:
+            lines.append(posterior_line(self.posterior))
+        lines.extend(f"note: {t}" for t in self.notes)
         lines.extend(f"warning: {w}" for w in self.warnings)
         return "\n".join(lines) + "\n"
 
@@ -137,6 +176,44 @@ class TwoDimensionalFit:
         free = tuple(replace(p, start=min(max(float(self.values.get(p.name, p.start)), p.min), p.max))
                      for p in m.free)
         return replace(m, free=free)
+
+    def to_dict(self) -> dict:
+        """The result as the nested dict of a result file: the fitted model plus ``[fit.result]``.
+
+        ``[fit.result]`` holds the verdict, chi-square, noise and scales, and
+        (as a 1D fit's result file does: :func:`powderspin.fitting.result.search_tables`)
+        the minima of a global search, the curvature check, profile intervals
+        and the posterior summary; a posterior also puts each parameter's
+        16-84 % interval into an ``interval`` table of its site or measurement.
+
+        Returns
+        -------
+        dict
+
+        See Also
+        --------
+        powderspin.io.results.write_result_2d
+        """
+        from ..model.modelfile import model_to_dict
+
+        fitted = self.fitted_model()
+        d = model_to_dict(fitted)
+        meas = d["measurement"] if isinstance(d["measurement"], list) else [d["measurement"]]
+        if self.posterior is not None:
+            posterior_interval_tables(fitted, self.posterior, d, meas)
+        res = {"success": bool(self.success), "message": str(self.message),
+               "chi_square": float(f"{self.chi_square:.6g}"),
+               "reduced_chi_square": float(f"{self.reduced_chi_square:.4g}"),
+               "noise_source": self.noise_source, "noise": [float(f"{v:.4g}") for v in self.noise],
+               "evaluations": int(self.n_evaluations), "parameters": list(self.values),
+               "stderr": {k: float(v) for k, v in self.stderr.items()},
+               "scales": [float(c) for c in self.scales], "warnings": list(self.warnings), "notes": list(self.notes)}
+        if self.starts > 1:
+            res["starts"] = int(self.starts)
+            res["starts_at_best"] = int(self.starts_at_best)
+        res.update(search_tables(self.minima, self.curvature, self.profile_intervals, self.posterior))
+        d.setdefault("fit", {})["result"] = res
+        return d
 
 
 def _axis_2d(item: MeasuredSpectrum2D, nu_ref: float, j: int) -> tuple[Axis, Axis]:
@@ -199,7 +276,10 @@ def selection_mask_2d(f1_ppm, f2_ppm, regions=(), f1_regions=(), slice_f1_ppm=()
 
 def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
                         max_evaluations: int | None = None, regions=None, f1_regions=None,
-                        slice_f1_ppm=None) -> TwoDimensionalFit:
+                        slice_f1_ppm=None, noise_region=None, global_search: bool = False, starts: int | None = None,
+                        seed: int = 0, posterior: bool = False, walkers: int | None = None,
+                        steps: int = DEFAULT_STEPS, burn: int | None = None, max_steps: int | None = None,
+                        progress=None, map_starts=None, profile: str = "auto") -> TwoDimensionalFit:
     """Fit a model to 2D spectra, or to 2D and 1D spectra of the same sample together.
 
     Parameters
@@ -212,10 +292,10 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
         takes a :class:`~powderspin.io.spectra2d.MeasuredSpectrum2D`, a 1D one a
         :class:`~powderspin.io.spectra.MeasuredSpectrum`.
     noise : mapping of int to float, optional
-        Noise level (data units) per measurement; default the robust
-        point-to-point estimate along F2.
+        Noise level (data units) per measurement; default from ``noise_region``,
+        else the robust point-to-point estimate along F2.
     max_evaluations : int, optional
-        Limit on the optimiser's evaluations.
+        Limit on the optimiser's evaluations (of each run of a global search).
     regions : sequence of (ppm_hi, ppm_lo), optional
         F2 ranges of 2D data (the axis of 1D data) to fit; default the model's
         ``[fit] regions``, else everything.
@@ -223,6 +303,27 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
         F1 ranges of 2D data whose F2 slices are fitted; default ``[fit] f1_regions``.
     slice_f1_ppm : sequence of float, optional
         F1 positions of single F2 slices to fit; default ``[fit] slice_f1_ppm``.
+    noise_region : (ppm_hi, ppm_lo), optional
+        A signal-free F2 range (default the model's ``[fit] noise_region``): the
+        noise level of 2D data is the scatter of every F1 row's points there,
+        each row's straight line removed and the variances pooled; of 1D data
+        as :func:`powderspin.fitting.fitter.fit` takes it.  With a noise
+        region the standard errors are not scaled by the reduced chi-square
+        (a reduced chi-square above 2 is warned about instead).
+    global_search, starts, seed : optional
+        Global search (:func:`powderspin.fitting.search.global_search`, the
+        same as :func:`powderspin.fitting.fitter.fit`'s): the model's start
+        plus differential-evolution candidates, each refined; the minima
+        within chi-square 9 of the best are listed (``minima``).
+    posterior, walkers, steps, burn, max_steps : optional
+        Sample the posterior with emcee from the solution
+        (:func:`powderspin.fitting.posterior.sample_posterior`), as ``fit`` does.
+    progress : callable, optional
+        Subscriber of the progress protocol (stages ``"fit"`` and ``"posterior"``).
+    map_starts : callable, optional
+        How the runs of a global search are run (as for ``fit``).
+    profile : {"auto", "all", "none"}, optional
+        Profile-likelihood intervals (:func:`powderspin.fitting.curvature.curvature_report`).
 
     Returns
     -------
@@ -233,23 +334,45 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
     powderspin.fitting.data.FitError
         No free parameters, data for a measurement of the other kind, axes that
         do not match the model's nucleus and field, a flat spectrum, a
-        selection that holds no data point or fewer points than parameters.
+        selection that holds no data point or fewer points than parameters, a
+        noise region with fewer than ``MIN_NOISE_POINTS`` points in a row, or
+        bad sampler or search settings (as ``fit`` refuses them).
 
     See Also
     --------
-    selection_mask_2d, powderspin.io.results.write_result_2d
+    selection_mask_2d, powderspin.io.results.write_result_2d, powderspin.fitting.fitter.fit
 
     References
     ----------
     G. H. Golub, V. Pereyra, SIAM J. Numer. Anal. 10 (1973) 413 (variable projection); L. Frydman,
-    J. S. Harwood, J. Am. Chem. Soc. 117 (1995) 5367 (MQMAS).
+    J. S. Harwood, J. Am. Chem. Soc. 117 (1995) 5367 (MQMAS); D. Foreman-Mackey, D. W. Hogg, D. Lang,
+    J. Goodman, Publ. Astron. Soc. Pac. 125 (2013) 306 (emcee).
+
+    Examples
+    --------
+    See ``tests/fitting/test_two_dimensional_fit.py`` and ``tests/fitting/test_two_dimensional_search.py``.
     """
-    from scipy.optimize import least_squares
+    from .fitter import (
+        _check_arguments,
+        _free_parameters,
+        _least_squares,
+        _profile_local,
+        _verdict,
+        check_sampler_memory,
+        run_global_search,
+    )
 
-    from .fitter import _free_parameters
-
+    if profile not in ("auto", "all", "none"):
+        raise FitError(f"profile = {profile!r} must be one of 'auto', 'all', 'none'")
+    args = _check_arguments(global_search, starts, seed, posterior, walkers, steps, burn, max_evaluations, None)
+    starts, seed, walkers, steps, burn, max_evaluations = (args[k] for k in ("starts", "seed", "walkers", "steps",
+                                                                              "burn", "max_evaluations"))
+    if max_steps is not None:
+        max_steps = whole_number(max_steps, "max_steps", FitError, low=10)
     model = as_model(model, "fit")
     params, notes = _free_parameters(model)
+    check_sampler_memory(len(params), walkers if posterior else None, steps if posterior else None,
+                         starts if global_search else None)
     fs = model.fit
     try:
         regs = fs.regions if regions is None else FitSettings(regions=tuple(regions)).regions
@@ -257,6 +380,7 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
         cuts = fs.slice_f1_ppm if slice_f1_ppm is None else FitSettings(slice_f1_ppm=tuple(slice_f1_ppm)).slice_f1_ppm
     except (TypeError, ValueError) as e:
         raise FitError(str(e)) from None
+    noise_reg = fs.noise_region if noise_region is None else check_region(noise_region, "noise_region")
     if (f1_regs or cuts) and not any(m.is_two_dimensional for m in model.measurements):
         raise FitError("f1_regions / slice_f1_ppm choose F2 slices of 2D data; the model has no 2D measurement")
     if not data:
@@ -270,6 +394,8 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
                        f"0 to {len(model.measurements) - 1}); got {idx}")
     axes, ys, masks, sigmas = [], [], [], []
     warnings = list(notes)
+    notes = []
+    given = noise is not None
     for j in idx:
         meas = model.measurements[j]
         item = data[j]
@@ -280,19 +406,25 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
                                "spectrum (powderspin.io.spectra2d.read_spectrum_2d)")
             axes.append(_axis_2d(item, nu_ref, j))
             y = np.asarray(item.intensity, dtype=float)
-            sig = point_noise(y.ravel()) if noise is None or j not in noise else float(noise[j])
             try:
                 mask = selection_mask_2d(item.f1_ppm, item.f2_ppm, regs, f1_regs, cuts)
             except FitError as e:
                 raise FitError(f"measurement {j + 1}: {e}") from None
+            f2 = np.asarray(item.f2_ppm, dtype=float)
         else:
             if not isinstance(item, MeasuredSpectrum):
                 raise FitError(f"measurement {j + 1} is a 1D spectrum: its data must be a MeasuredSpectrum "
                                "(powderspin.io.spectra.read_spectrum)")
             axes.append(Axis.from_points(item.hz, nu_ref, rtol=1e-3))
             y = np.asarray(item.intensity, dtype=float)
-            sig = point_noise(y) if noise is None or j not in noise else float(noise[j])
             mask = region_mask(np.asarray(item.ppm, dtype=float), list(regs))
+            f2 = np.asarray(item.ppm, dtype=float)
+        if given and j in noise:
+            sig = float(noise[j])
+        elif noise_reg is not None:
+            sig = noise_from_region_2d(y, f2, noise_reg, f"measurement {j + 1}")
+        else:
+            sig = point_noise(y.ravel())
         if not (math.isfinite(sig) and sig > 0):
             raise FitError(f"measurement {j + 1}: the noise level is {sig!r}; give noise = {{{j}: value}} "
                            "(data units) for a noiseless spectrum")
@@ -303,6 +435,7 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
         ys.append(y)
         masks.append(mask)
         sigmas.append(sig)
+    noise_source = "noise region" if noise_reg is not None else "point-to-point"
     if any(m.is_two_dimensional and m.mq_pulses == "ideal" for m in model.measurements) and any(
             p.address.table == "site" and p.address.key == "weight" for p in params):
         warnings.append("site weights fitted to MQMAS/STMAS data: the simulation assumes ideal excitation, but "
@@ -312,26 +445,132 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
     if n_points <= len(params) + len(masks):
         raise FitError(f"the fit regions hold {n_points} data point(s) for {len(params)} free and {len(masks)} "
                        "linear parameters; widen the regions or choose more slices")
-    problem = FitProblem(model, params, axes, ys, masks, sigmas, None, None)
+    problem = FitProblem(model, params, axes, ys, masks, sigmas, None, None, progress)
     x0 = np.clip([p.start for p in params], problem.lo, problem.hi)
-    sol = least_squares(problem.residual, x0, jac=problem.jacobian, bounds=(problem.lo, problem.hi),
-                        method="trf", x_scale="jac", max_nfev=max_evaluations)
-    e = problem.evaluate(sol.x)
+    n_starts, at_best, search = 1, 1, None
+    if global_search:
+        search, search_warns = run_global_search(problem, x0, starts, seed, max_evaluations, None, map_starts)
+        warnings += search_warns
+        sol = search.best
+        n_starts, at_best = search.starts, search.starts_at_best
+    else:
+        sol = _least_squares(problem, x0, max_evaluations)
+    success, message = _verdict(sol, max_evaluations)
+    x, fold_notes = fold_vector(params, sol.x, problem.lo, problem.hi, problem.model)
+    notes.extend(fold_notes)
+    e = problem.evaluate(x)
     chi2 = float(np.einsum("i,i->", e.residual, e.residual))
-    jfull, n_lin = problem.full_jacobian(sol.x)
-    dof = max(1, e.residual.size - sol.x.size - sum(n_lin))
+    jfull, n_lin = problem.full_jacobian(x)
+    dof = max(1, e.residual.size - x.size - sum(n_lin))
     red = chi2 / dof
-    cov = covariance_from_jacobian(jfull) * max(1.0, red)
-    err = standard_errors(cov)[:sol.x.size]
-    names = [p.name for p in params]
-    fitted = problem.model_at(sol.x)
+    cov = covariance_from_jacobian(jfull)
+    if noise_source == "noise region":
+        if red > 2.0:
+            warnings.append(f"the reduced chi-square is {red:.3g}: the model does not describe the data within the "
+                            "noise (missing sites, wrong broadening); the standard errors are then too small")
+    else:
+        cov = cov * max(1.0, red)
+    p = x.size
+    err = standard_errors(cov)[:p]
+    names = [fp.name for fp in params]
+    curv, profiles, curv_warns = curvature_report(problem, x, cov[:p, :p], params, chi2, profile, _profile_local)
+    warnings += curv_warns
+    minima = ()
+    if search is not None:
+        minima, search_notes, search_warns = minima_report(search, problem, names, n_starts, at_best)
+        notes += search_notes
+        warnings += search_warns
+    post = None
+    if posterior:
+        post = sample_posterior(problem, x, params, cov[:p, :p], walkers, steps, burn, seed, progress, max_steps)
+        post_warns, post_notes = posterior_messages(post, steps)
+        warnings += post_warns
+        notes += post_notes
+    if not success:
+        warnings.insert(0, message)
+    fitted = problem.model_at(x)
     scales = tuple(float(c[0]) for c in e.coefs)
-    result = TwoDimensionalFit(fitted, dict(zip(names, map(float, sol.x))), dict(zip(names, map(float, err))), chi2,
-                               red, bool(sol.success), str(sol.message), int(problem.n_evaluations), tuple(warnings),
+    result = TwoDimensionalFit(fitted, dict(zip(names, map(float, x))), dict(zip(names, map(float, err))), chi2,
+                               red, bool(success), str(sol.message), int(problem.n_evaluations), tuple(warnings),
                                scales, tuple(masks), tuple(data[j] for j in idx), (),
                                {"regions": [list(r) for r in regs], "f1_regions": [list(r) for r in f1_regs],
-                                "slice_f1_ppm": list(cuts)})
+                                "slice_f1_ppm": list(cuts),
+                                "noise_region": None if noise_reg is None else list(noise_reg)},
+                               tuple(float(v) for v in problem.sigmas), noise_source, tuple(notes), n_starts, at_best,
+                               minima, tuple(curv), {n: (a, b) for n, (a, b, _, _) in profiles.items()}, post)
     return replace(result, spectra=_fitted_spectra(result.fitted_model(), axes))
+
+
+def check_noise_region(axis_ppm, region, where: str = "measurement", axis: str = "F2 axis",
+                       option: str = "noise_region") -> None:
+    """Refuse a noise region that holds fewer than ``MIN_NOISE_POINTS`` points of a data axis.
+
+    Parameters
+    ----------
+    axis_ppm : array_like
+        The axis (F2 of 2D data).
+    region : (ppm_hi, ppm_lo)
+    where : str, optional
+        The measurement's name.
+    axis : str, optional
+        The axis's name in the message.
+    option : str, optional
+        How the message names the setting (``"--noise-region"`` on the command line).
+
+    Raises
+    ------
+    powderspin.fitting.data.FitError
+        Naming the option, the points found and the axis's range.
+
+    Examples
+    --------
+    >>> check_noise_region(np.linspace(30.0, -30.0, 64), (25.0, 15.0))
+    """
+    f2 = np.asarray(axis_ppm, dtype=float)
+    k = int(((f2 <= region[0]) & (f2 >= region[1])).sum())
+    if k < MIN_NOISE_POINTS:
+        raise FitError(f"{where}: {option} [{region[0]:g}, {region[1]:g}] ppm holds {k} point(s) of the data's "
+                       f"{axis}; it needs at least {MIN_NOISE_POINTS} (the {axis} covers {f2.max():.6g} to "
+                       f"{f2.min():.6g} ppm)")
+
+
+def noise_from_region_2d(y, f2_ppm, region, where: str = "measurement") -> float:
+    """Noise level from a signal-free F2 range: every row's straight line removed, the variances pooled.
+
+    For 1D data (one row) this is :func:`powderspin.fitting.data.noise_from_region`.
+
+    Parameters
+    ----------
+    y : numpy.ndarray, (n1, n2) or (n2,)
+        The data.
+    f2_ppm : numpy.ndarray (n2,)
+        The F2 (or 1D) axis.
+    region : (ppm_hi, ppm_lo)
+    where : str, optional
+        The measurement's name for the message.
+
+    Returns
+    -------
+    float
+
+    Raises
+    ------
+    powderspin.fitting.data.FitError
+        Fewer than ``MIN_NOISE_POINTS`` points of the axis in the region
+        (the message names the option and the data's axis range).
+
+    Examples
+    --------
+    >>> rows = np.random.default_rng(3).normal(0.0, 0.5, (40, 200)) + np.linspace(0, 1, 200)
+    >>> round(noise_from_region_2d(rows, np.linspace(100.0, -100.0, 200), (100.0, 0.0)), 1)
+    0.5
+    """
+    y = np.atleast_2d(np.asarray(y, dtype=float))
+    f2 = np.asarray(f2_ppm, dtype=float)
+    check_noise_region(f2, region, where, "F2 axis" if y.shape[0] > 1 else "axis")
+    # each row's scatter about its own straight line (noise_from_region), pooled over the rows (equal counts)
+    var = [noise_from_region(row, f2, region) ** 2 for row in y]
+    return float(math.sqrt(float(np.mean(var))))
 
 
 def _fitted_spectra(model: Model, axes) -> tuple:

@@ -531,8 +531,6 @@ def write_result_2d(result, path, *, header: str = "", force: bool = False, prot
     --------
     fit_2d_csv_text, write_result
     """
-    from ..model.modelfile import model_to_toml
-
     p = output_path(path, "result file")
     csvs = csv_paths(p, len(result.spectra))
     protect = list(protect)
@@ -540,7 +538,13 @@ def write_result_2d(result, path, *, header: str = "", force: bool = False, prot
         protect.append(result.model.source)
     protect += [d.source for d in result.data if getattr(d, "source", None)]
     check_outputs([(p, "result file")] + [(c, "fit CSV") for c in csvs], force=force, protect=protect)
-    texts = [(p, model_to_toml(result.fitted_model(), header=header), "result file")]
+    import tomli_w
+
+    head = header or "# powderspin 2D fit result: a model file with the fitted values\n"
+    if not head.endswith("\n"):
+        head += "\n"
+    # the fitted model plus [fit.result]: statistics and, as a 1D result file, minima, curvature and posterior
+    texts = [(p, head + tomli_w.dumps(result.to_dict()), "result file")]
     texts += [(c, fit_2d_csv_text(result, j), "fit CSV") for j, c in enumerate(csvs)]
     written: list[Path] = []
     try:

@@ -182,3 +182,62 @@ def test_bad_2d_input_one_line_status_2_nothing_written(tmp_path, capsys, kind, 
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and words in err[0], err
     assert not out.exists() and not (tmp_path / "res.csv").exists()
+
+
+# ---------------------------------------------------------------------------
+# --global, --posterior and --noise-region with a 2D measurement: the bundled example (SYNTHETIC data)
+# ---------------------------------------------------------------------------
+def _example(tmp_path):
+    import shutil
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[2] / "examples"
+    for name in ("silicate_fit.toml", "silicate_23na_3qmas.npz", "silicate_23na_mas.csv"):
+        shutil.copy(root / name, tmp_path / name)
+    return tmp_path / "silicate_fit.toml"
+
+
+@pytest.mark.slow
+def test_global_posterior_and_noise_region_on_the_2d_example(tmp_path, capsys):
+    """The three options together on the joint 3QMAS + MAS example; the result file carries the minima, the
+    posterior (summary and each parameter's interval) and the curvature check, as a 1D result file does.  The
+    chain is kept tiny (the test is of the plumbing, so its shortness is warned about); F2 above 20 ppm holds no
+    signal of the example (examples/make_silicate_data.py)."""
+    import tomllib
+
+    model = _example(tmp_path)
+    out = tmp_path / "res.toml"
+    assert main(["fit", str(model), "-o", str(out), "-q", "--noise-region", "30:20", "--global", "--starts", "1",
+                 "--posterior", "--walkers", "18", "--steps", "10", "--max-steps", "10", "--profile", "none"]) == 0
+    captured = capsys.readouterr()
+    assert "noise from the noise region" in captured.out and "posterior median" in captured.out
+    assert "global search: the start only" in captured.out
+    assert "posterior chain is too short" in captured.out
+    for name in ("res.toml", "res-m1.csv", "res-m2.csv", "res-corner.png"):
+        assert f"wrote {tmp_path / name}" in captured.err
+    d = tomllib.loads(out.read_text())
+    res = d["fit"]["result"]
+    assert res["noise_source"] == "noise region" and len(res["noise"]) == 2
+    assert len(res["minima"]) == 1 and set(res["minima"][0]["values"]) == set(res["parameters"])
+    assert res["posterior"]["walkers"] == 18 and res["quadratic_check"]
+    assert all(len(s["interval"]["cq_mhz"]) == 2 for s in d["site"])
+    from powderspin.model.modelfile import load_model
+
+    assert len(load_model(out).sites) == 3  # the result file is a model file
+
+
+@pytest.mark.parametrize("flags,words", [
+    (["--noise-region", "500:400"], "--noise-region [500, 400] ppm holds 0 point(s) of the data's F2 axis; it needs "
+                                    "at least 8 (the F2 axis covers"),
+    (["--global", "--starts", "0"], "--starts 0 is outside the allowed range"),
+    (["--posterior", "--walkers", "3"], "--walkers 3 must be at least twice the number of free parameters (9)"),
+    (["--posterior", "--steps", "5"], "--steps 5 must be at least 10"),
+    (["--noise-region", "30"], "--noise-region"),
+])
+def test_bad_global_posterior_noise_values_with_2d_data(tmp_path, capsys, flags, words):
+    model = _example(tmp_path)
+    out = tmp_path / "res.toml"
+    assert main(["fit", str(model), "-o", str(out), "-q", *flags]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and words in err[0], err
+    assert not out.exists() and not list(tmp_path.glob("res*"))
