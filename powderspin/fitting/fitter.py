@@ -537,7 +537,8 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
     for j, m in enumerate(model.measurements):
         if m.is_two_dimensional:
             raise FitError(f"{where(j)}: experiment = {m.experiment!r}: 2D data are fitted with "
-                           "powderspin.fit_two_dimensional (Python) for now; this fit takes 1D spectra only")
+                           "powderspin.fit_two_dimensional (its result holds the 2D spectra; the command line "
+                           "chooses it by itself); this fit takes 1D spectra only")
     free, notes = _free_parameters(model)
     check_sampler_memory(len(free), walkers if posterior else None, steps if posterior else None,
                          starts if global_search else None)
