@@ -45,6 +45,7 @@ __all__ = [
     "OutputTransaction",
     "output_transaction",
     "output_path",
+    "folder_write_error",
 ]
 
 #: the output name that means standard output (text outputs only)
@@ -222,12 +223,47 @@ def check_outputs(outputs: Iterable, *, force: bool = False, protect: Iterable =
             probe = probe.parent
         if not probe.is_dir():
             raise OutputPathError(f"{role} {text!r}: {str(probe)!r} is not a directory")
-        try:  # the only sure test of a folder is to make (and remove) a file in it
-            fd, trial = tempfile.mkstemp(prefix=".powderspin-check-", dir=str(probe))
-            os.close(fd)
-            os.unlink(trial)
-        except OSError as e:
-            raise OutputPathError(f"{role} {text!r} cannot be written: {e.strerror or e}") from None
+        e = folder_write_error(probe)  # the only sure test of a folder is to make (and remove) a file in it
+        if e is not None:
+            raise OutputPathError(f"{role} {text!r} cannot be written: {e.strerror or e}")
+
+
+def folder_write_error(folder) -> OSError | None:
+    """Make a file in ``folder`` and remove it: the error when that fails, else None.
+
+    The command line's signal handlers hold Ctrl-C and SIGTERM back while this
+    runs (:data:`UNINTERRUPTED_CODE`), so an interrupt never leaves the trial
+    file behind.
+
+    Parameters
+    ----------
+    folder : str or pathlib.Path
+
+    Returns
+    -------
+    OSError or None
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     print(folder_write_error(d))
+    None
+    """
+    try:
+        fd, trial = tempfile.mkstemp(prefix=".powderspin-check-", dir=str(folder))
+    except OSError as e:
+        return e
+    closed = None
+    try:
+        os.close(fd)
+    except OSError as e:
+        closed = e
+    try:
+        os.unlink(trial)
+    except OSError as e:
+        return e
+    return closed
 
 
 @contextlib.contextmanager
@@ -554,3 +590,10 @@ def output_transaction(on_commit: Callable[[], None] | None = None) -> Iterator[
         transaction.discard()
         raise
     transaction.commit()
+
+
+#: code during which the command line's signal handlers defer Ctrl-C and SIGTERM: short steps that would leave a
+#: file behind if cut (the writability probe; making, finishing or removing a temporary output, whose frame is on
+#: the stack only then, not while the caller writes into it; moving staged files into place)
+UNINTERRUPTED_CODE = frozenset({folder_write_error.__code__, atomic_output.__wrapped__.__code__,
+                                OutputTransaction.commit.__code__})

@@ -115,23 +115,20 @@ def _library_source(args) -> tuple[str | None, str]:
 def _writable_folder(p: Path) -> str | None:
     """Why the folder ``p`` (or the folder that would hold it) cannot be written, else None."""
     import errno
-    import os
-    import tempfile
+
+    from ..files import folder_write_error
 
     probe = p
     while not probe.exists() and probe != probe.parent:
         probe = probe.parent
     if not probe.is_dir():
         return f"{str(probe)!r} is not a folder"
-    try:
-        fd, trial = tempfile.mkstemp(prefix=".powderspin-check-", dir=str(probe))
-        os.close(fd)
-        os.unlink(trial)
-    except OSError as e:
-        if e.errno == errno.EROFS:
-            return "it is on a read-only file system"
-        return f"it cannot be written ({e.strerror or e})"
-    return None
+    e = folder_write_error(probe)
+    if e is None:
+        return None
+    if e.errno == errno.EROFS:
+        return "it is on a read-only file system"
+    return f"it cannot be written ({e.strerror or e})"
 
 
 def library(args, *, must_write: bool = False):
@@ -332,11 +329,15 @@ def _in_finaliser(frame) -> bool:
     That is a finaliser (``__del__``), or Python code that C calls back through
     ctypes: the compiler's object-cache hooks in llvmlite run while numba
     compiles a kernel, and an exception there is "ignored" (a traceback on
-    stderr, and the command goes on as if Ctrl-C had not been pressed).
+    stderr, and the command goes on as if Ctrl-C had not been pressed).  Also
+    the short steps of :data:`powderspin.files.UNINTERRUPTED_CODE`, which
+    would leave a trial file behind if cut.
     """
+    from ..files import UNINTERRUPTED_CODE
+
     while frame is not None:
         code = frame.f_code
-        if code.co_name == "__del__" or "llvmlite" in code.co_filename:
+        if code.co_name == "__del__" or "llvmlite" in code.co_filename or code in UNINTERRUPTED_CODE:
             return True
         frame = frame.f_back
     return False
