@@ -38,14 +38,21 @@ def test_each_number_key_is_refused_just_outside_its_range(spec):
         table.update(span_ppm=10.0, skew=0.0)
     if spec.name in ("aniso_ppm", "eta_cs"):
         table.update(aniso_ppm=10.0, eta_cs=0.0)
-    bad = spec.high * 1.5 + 1.0 if math.isfinite(spec.high) else None
-    if bad is None:
-        pytest.skip("no upper limit")
-    table[spec.name] = bad
-    with pytest.raises(ValueError) as e:
-        parse_model(base)
-    assert spec.name in str(e.value)
-    assert "allowed" in str(e.value)
+    # just above the top, just below the bottom (the bottom itself when it is open); a key with no finite
+    # limit must still refuse a value that is not a number
+    bad = []
+    if math.isfinite(spec.high):
+        bad.append(spec.high * 1.5 + 1.0)
+    if math.isfinite(spec.low):
+        bad.append(spec.low if spec.low_open else spec.low - 1.0 - 0.5 * abs(spec.low))
+    if not bad:
+        bad.append(math.nan)
+    for value in bad:
+        table[spec.name] = value
+        with pytest.raises(ValueError) as e:
+            parse_model(base)
+        assert spec.name in str(e.value), value
+        assert "allowed" in str(e.value) or value != value, (value, str(e.value))
 
 
 def test_defaults_of_the_table_are_the_defaults_of_the_values():
