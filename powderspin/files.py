@@ -46,6 +46,7 @@ __all__ = [
     "output_transaction",
     "output_path",
     "folder_write_error",
+    "write_texts_together",
 ]
 
 #: the output name that means standard output (text outputs only)
@@ -591,6 +592,48 @@ def output_transaction(on_commit: Callable[[], None] | None = None) -> Iterator[
         raise
     transaction.commit()
 
+
+
+def write_texts_together(texts: Iterable, *, force: bool = False, protect: Iterable = ()) -> list[Path]:
+    """Write several text files all together or not at all.
+
+    Parameters
+    ----------
+    texts : iterable of (path, str, str)
+        Destination, text and role (for messages) of each file.
+    force : bool, optional
+        Replace existing files.
+    protect : iterable of path, optional
+        Files that must never be written (the inputs).
+
+    Returns
+    -------
+    list of pathlib.Path
+        The destinations, in order.
+
+    Notes
+    -----
+    Inside an :func:`output_transaction` the files join it (it places them,
+    or removes them on failure); otherwise they form a transaction of their
+    own.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     d = pathlib.Path(d)
+    ...     out = write_texts_together([(d / "a.txt", "one", "A"), (d / "b.txt", "two", "B")])
+    ...     print([q.name for q in out])
+    ['a.txt', 'b.txt']
+    """
+    texts = list(texts)
+    protect = list(protect)
+    if _CURRENT.get() is not None:
+        return [write_text_atomic(q, text, force=force, protect=protect, role=role) for q, text, role in texts]
+    with output_transaction() as t:
+        for q, text, role in texts:
+            write_text_atomic(q, text, force=force, protect=protect, role=role)
+    return list(t.written)
 
 #: code during which the command line's signal handlers defer Ctrl-C and SIGTERM: short steps that would leave a
 #: file behind if cut (the writability probe; making, finishing or removing a temporary output, whose frame is on

@@ -105,3 +105,20 @@ def test_check_outputs_can_refuse_a_missing_folder(tmp_path):
         check_outputs([(tmp_path / "no" / "a.csv", "output")], make_folders=False)
     check_outputs([(tmp_path / "no" / "a.csv", "output")])  # the API makes folders
     assert not (tmp_path / "no").exists()
+
+
+def test_texts_written_together_or_not_at_all(tmp_path):
+    from powderspin.files import OutputExistsError, output_transaction, write_texts_together
+
+    a, b = tmp_path / "a.txt", tmp_path / "b.txt"
+    b.write_text("the user's")
+    with pytest.raises(OutputExistsError):
+        write_texts_together([(a, "one", "A"), (b, "two", "B")])
+    assert not a.exists() and b.read_text() == "the user's"
+    assert sorted(q.name for q in tmp_path.iterdir()) == ["b.txt"]
+    # with force, an existing file replaced; inside a transaction, the files join it and appear at its end
+    with output_transaction() as t:
+        out = write_texts_together([(a, "one", "A"), (b, "two", "B")], force=True)
+        assert not a.exists() and b.read_text() == "the user's"
+    assert out == [a, b] and t.written == [a, b]
+    assert a.read_text() == "one" and b.read_text() == "two"

@@ -28,7 +28,15 @@ import numpy as np
 
 from ..engine.lineshape import baseline_values, make_axis
 from ..engine.spectrum2d import Spectrum2D
-from ..files import STDOUT, OutputPathError, check_outputs, output_path, write_text_atomic, write_via
+from ..files import (
+    STDOUT,
+    OutputPathError,
+    check_outputs,
+    output_path,
+    write_text_atomic,
+    write_texts_together,
+    write_via,
+)
 from .spectra import MeasuredSpectrum, write_jcamp
 from .spectra2d import write_spectrum_2d
 
@@ -426,19 +434,7 @@ def write_result(result, path, *, force: bool = False, protect=()) -> list[Path]
     check_outputs([(p, "result file")] + [(c, "fit CSV") for c in csvs], force=force, protect=protect)
     texts = [(p, result_to_toml(result, p), "result file")]
     texts += [(c, fit_csv_text(result, j), "fit CSV") for j, c in enumerate(csvs)]
-    written: list[Path] = []
-    try:
-        for q, text, role in texts:
-            write_text_atomic(q, text, force=force, protect=protect, role=role)
-            written.append(q)
-    except BaseException:
-        for q in written:
-            try:
-                q.unlink()
-            except OSError:
-                pass
-        raise
-    return written
+    return write_texts_together(texts, force=force, protect=protect)
 
 
 def fit_2d_csv_text(result, measurement: int = 0) -> str:
@@ -546,16 +542,4 @@ def write_result_2d(result, path, *, header: str = "", force: bool = False, prot
     # the fitted model plus [fit.result]: statistics and, as a 1D result file, minima, curvature and posterior
     texts = [(p, head + tomli_w.dumps(result.to_dict()), "result file")]
     texts += [(c, fit_2d_csv_text(result, j), "fit CSV") for j, c in enumerate(csvs)]
-    written: list[Path] = []
-    try:
-        for q, text, role in texts:
-            write_text_atomic(q, text, force=force, protect=protect, role=role)
-            written.append(q)
-    except BaseException:
-        for q in written:
-            try:
-                q.unlink()
-            except OSError:
-                pass
-        raise
-    return written
+    return write_texts_together(texts, force=force, protect=protect)
