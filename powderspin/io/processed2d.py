@@ -37,12 +37,11 @@ from __future__ import annotations
 import math
 import os
 import struct
-import warnings
 from pathlib import Path
 
 import numpy as np
 
-from .spectra import DataError
+from .spectra import DataError, read_through_nmrglue
 
 __all__ = ["is_bruker_2d", "is_pipe_file", "read_bruker_2d", "read_pipe_2d"]
 
@@ -152,18 +151,10 @@ def read_bruker_2d(source: str, d: Path):
         if not (d / name).is_file():
             raise DataError(source, f"has 2rr but no {name} file: the {role} processing parameters define the "
                                     f"{role} axis")
-    try:
-        from nmrglue.fileio import bruker
-    except ImportError as err:  # pragma: no cover - nmrglue is a declared dependency
-        raise DataError(source, f"reading Bruker data needs the nmrglue package ({err})") from None
     pdir = os.path.abspath(str(d))
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        try:
-            dic, values = bruker.read_pdata(pdir, bin_files=["2rr"])
-        except Exception as err:
-            raise DataError(source, f"the processed data could not be read ({type(err).__name__}: {err})") from None
-    notes = [" ".join(str(w.message).split()) for w in caught]
+    (dic, values), notes = read_through_nmrglue(source, "bruker", lambda m: m.read_pdata(pdir, bin_files=["2rr"]),
+                                                needs="reading Bruker data",
+                                                failure="the processed data could not be read")
     y = np.asarray(values, dtype=float)
     axes = []
     meta: dict = {"format": "Bruker processed 2D (2rr, procs, proc2s)", "bruker.directory": pdir}
@@ -216,17 +207,9 @@ def read_pipe_2d(source: str, p: Path, nu_ref_hz: float | None = None):
     powderspin.io.spectra.DataError
         Not 2D, not transformed in both dimensions, complex or transposed data.
     """
-    try:
-        from nmrglue.fileio import pipe
-    except ImportError as err:  # pragma: no cover - nmrglue is a declared dependency
-        raise DataError(source, f"reading NMRPipe data needs the nmrglue package ({err})") from None
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        try:
-            dic, data = pipe.read(str(p))
-        except Exception as err:
-            raise DataError(source, f"the NMRPipe file could not be read ({type(err).__name__}: {err})") from None
-    notes = [" ".join(str(w.message).split()) for w in caught]
+    (pipe, dic, data), notes = read_through_nmrglue(source, "pipe", lambda m: (m, *m.read(str(p))),
+                                                    needs="reading NMRPipe data",
+                                                    failure="the NMRPipe file could not be read")
     if int(dic.get("FDDIMCOUNT", 0)) != 2 or np.ndim(data) != 2:
         raise DataError(source, f"is an NMRPipe file of {int(dic.get('FDDIMCOUNT', 0))} dimension(s); a 2D "
                                 "spectrum is needed")

@@ -136,6 +136,7 @@ __all__ = [
     "MIN_POINTS",
     "UNIFORM_STEP_TOLERANCE",
     "MATCH_TOLERANCE",
+    "read_through_nmrglue",
 ]
 
 #: Fewest points a measured spectrum may have.
@@ -1025,23 +1026,63 @@ def _point_factor(source, labels: dict, key: str) -> float:
     return float(value)
 
 
+def read_through_nmrglue(source, module: str, read, *, needs: str, failure: str):
+    """Run one of nmrglue's readers: its failures as one :class:`DataError` line, its warnings as notes.
+
+    Parameters
+    ----------
+    source : str
+        The file or folder, as the user named it (for messages).
+    module : str
+        The module of ``nmrglue.fileio`` (``"bruker"``, ``"pipe"``, ``"jcampdx"``, ...).
+    read : callable
+        Called with that module; returns what the reader returns.
+    needs : str
+        What needs nmrglue, for the message when it is missing ("reading JCAMP-DX").
+    failure : str
+        The message when the reader fails; the reader's own error follows in parentheses.
+
+    Returns
+    -------
+    result
+        What ``read`` returned.
+    notes : list of str
+        The reader's warnings, one line each.
+
+    Raises
+    ------
+    DataError
+        nmrglue missing, or the reader failed.
+
+    Examples
+    --------
+    >>> out, notes = read_through_nmrglue("x", "jcampdx", lambda m: m.__name__, needs="JCAMP-DX", failure="bad")
+    >>> out, notes
+    ('nmrglue.fileio.jcampdx', [])
+    """
+    import importlib
+
+    try:
+        mod = importlib.import_module(f"nmrglue.fileio.{module}")
+    except ImportError as err:  # pragma: no cover - nmrglue is a declared dependency
+        raise DataError(source, f"{needs} needs the nmrglue package ({err})") from None
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            result = read(mod)
+        except Exception as err:
+            raise DataError(source, f"{failure} ({type(err).__name__}: {err})") from None
+    return result, [" ".join(str(w.message).split()) for w in caught]
+
+
 def _read_jcamp(source, p: Path, opts: dict, data: bytes) -> _Raw:
     _check_binary(source, data, "JCAMP-DX text")
     if not data.lstrip(b"\xef\xbb\xbf \t\r\n").startswith(b"##"):
         raise DataError(source, "not a JCAMP-DX file (it should start with a ##TITLE= line)")
     if opts["axis"] is not None:
         raise DataError(source, "option axis is for text and .npy files; a JCAMP-DX file states its own axis")
-    try:
-        from nmrglue.fileio import jcampdx
-    except ImportError as err:  # pragma: no cover - nmrglue is a declared dependency
-        raise DataError(source, f"reading JCAMP-DX needs the nmrglue package ({err})") from None
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        try:
-            dic, values = jcampdx.read(str(p))
-        except Exception as err:
-            raise DataError(source, f"not a readable JCAMP-DX spectrum ({type(err).__name__}: {err})") from None
-    notes = [" ".join(str(w.message).split()) for w in caught]
+    (dic, values), notes = read_through_nmrglue(source, "jcampdx", lambda m: m.read(str(p)),
+                                                needs="reading JCAMP-DX", failure="not a readable JCAMP-DX spectrum")
     if values is None:
         points = _jcamp_point_table(source, data)
         if points is not None:
@@ -1162,18 +1203,10 @@ def _read_bruker_dir(source, d: Path, opts: dict) -> _Raw:
         raise DataError(source, "has 1r but no procs file; the processing parameters define the axis")
     if opts["axis"] is not None:
         raise DataError(source, "option axis is for text and .npy files; Bruker processed data state their axis")
-    try:
-        from nmrglue.fileio import bruker
-    except ImportError as err:  # pragma: no cover - nmrglue is a declared dependency
-        raise DataError(source, f"reading Bruker data needs the nmrglue package ({err})") from None
     pdir = os.path.abspath(str(d))
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        try:
-            dic, values = bruker.read_pdata(pdir, all_components=True)
-        except Exception as err:
-            raise DataError(source, f"the processed data could not be read ({type(err).__name__}: {err})") from None
-    notes = [" ".join(str(w.message).split()) for w in caught]
+    (dic, values), notes = read_through_nmrglue(source, "bruker", lambda m: m.read_pdata(pdir, all_components=True),
+                                                needs="reading Bruker data",
+                                                failure="the processed data could not be read")
     if isinstance(values, list):
         real, imag = np.asarray(values[0], dtype=float), np.asarray(values[1], dtype=float)
     else:
