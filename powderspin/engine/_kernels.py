@@ -470,19 +470,25 @@ def _tent_kink_points(buf, kfrom, kto, v1, tau, jump, a, d, up, down):
 
 
 @njit(cache=True)
-def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
-    """Add one triangular density (vertices f1, f2, f3 in Hz, any order, area w) to the axis points.
-
-    Sorts the vertices, turns them into point units and calls ``_add_tent_points``.
-    """
+def _tent_vertices(f1, f2, f3, x0, inv):
+    """Three tent vertices (Hz, any order) sorted and in point units (point k at x0 + (k + 0.5) / inv)."""
     if f1 > f2:
         f1, f2 = f2, f1
     if f2 > f3:
         f2, f3 = f3, f2
     if f1 > f2:
         f1, f2 = f2, f1
-    inv = 1.0 / dx
-    _add_tent_points(buf, (f1 - x0) * inv - 0.5, (f2 - x0) * inv - 0.5, (f3 - x0) * inv - 0.5, w, nb)
+    return (f1 - x0) * inv - 0.5, (f2 - x0) * inv - 0.5, (f3 - x0) * inv - 0.5
+
+
+@njit(cache=True)
+def _add_tent(buf, f1, f2, f3, w, x0, dx, nb):
+    """Add one triangular density (vertices f1, f2, f3 in Hz, any order, area w) to the axis points.
+
+    Sorts the vertices, turns them into point units and calls ``_add_tent_points``.
+    """
+    u1, u2, u3 = _tent_vertices(f1, f2, f3, x0, 1.0 / dx)
+    _add_tent_points(buf, u1, u2, u3, w, nb)
 
 
 @njit(cache=True)
@@ -607,18 +613,7 @@ def _bin_tent(mean, amp, weights_t, ext, tris, tri_w, rate_hz, x0, dx, nb, cutof
         d = tris[q, 2]
         for t in range(nt):
             # vertex order and point coordinates once per line; bands only shift them
-            f1 = mean[a, t]
-            f2 = mean[b, t]
-            f3 = mean[d, t]
-            if f1 > f2:
-                f1, f2 = f2, f1
-            if f2 > f3:
-                f2, f3 = f3, f2
-            if f1 > f2:
-                f1, f2 = f2, f1
-            u1 = (f1 - x0) * inv - 0.5
-            u2 = (f2 - x0) * inv - 0.5
-            u3 = (f3 - x0) * inv - 0.5
+            u1, u2, u3 = _tent_vertices(mean[a, t], mean[b, t], mean[d, t], x0, inv)
             e = max(ext[a, t], max(ext[b, t], ext[d, t]))
             for q2 in range(min(p, 2 * e + 1)):
                 # bands 0, 1, -1, 2, -2, ... out to the vertices' extent
@@ -1538,18 +1533,7 @@ def _bin_tent_2d(mean, amp, weights, f1, w1, tris, tri_w, rate_hz, x0, dx, nb, y
             a = tris[q, 0]
             b = tris[q, 1]
             d = tris[q, 2]
-            f_1 = mean[a]
-            f_2 = mean[b]
-            f_3 = mean[d]
-            if f_1 > f_2:
-                f_1, f_2 = f_2, f_1
-            if f_2 > f_3:
-                f_2, f_3 = f_3, f_2
-            if f_1 > f_2:
-                f_1, f_2 = f_2, f_1
-            u1 = (f_1 - x0) * inv - 0.5
-            u2 = (f_2 - x0) * inv - 0.5
-            u3 = (f_3 - x0) * inv - 0.5
+            u1, u2, u3 = _tent_vertices(mean[a], mean[b], mean[d], x0, inv)
             for t in range(nt1):
                 r = ((f1[a, t] + f1[b, t] + f1[d, t]) / 3.0 - y0) * inv1 - 0.5
                 if r <= -1.0 or r >= nb1:
@@ -1601,18 +1585,7 @@ def _bin_tent_2d_pairs(mean, f1, amp, d2, d1, weights, w1, tris, tri_w, x0, dx, 
             a = tris[q, 0]
             b = tris[q, 1]
             d = tris[q, 2]
-            f_1 = mean[a]
-            f_2 = mean[b]
-            f_3 = mean[d]
-            if f_1 > f_2:
-                f_1, f_2 = f_2, f_1
-            if f_2 > f_3:
-                f_2, f_3 = f_3, f_2
-            if f_1 > f_2:
-                f_1, f_2 = f_2, f_1
-            u1 = (f_1 - x0) * inv - 0.5
-            u2 = (f_2 - x0) * inv - 0.5
-            u3 = (f_3 - x0) * inv - 0.5
+            u1, u2, u3 = _tent_vertices(mean[a], mean[b], mean[d], x0, inv)
             for t in range(nt1):
                 fc = (f1[a, t] + f1[b, t] + f1[d, t]) / 3.0
                 for s in range(q_n):
