@@ -236,6 +236,31 @@ def _schema_span(p: FreeParameter) -> float:
     return s.high - s.low
 
 
+def solve(problem: FitProblem, x0, global_search: bool, starts, seed: int, max_evaluations, kernel_store=None,
+          map_starts=None):
+    """The least-squares solution of a fit's problem: one local run, or the global search.
+
+    Parameters
+    ----------
+    problem : FitProblem
+    x0 : numpy.ndarray
+        The user's start.
+    global_search : bool
+    starts, seed, max_evaluations, kernel_store, map_starts
+        As for :func:`run_global_search`.
+
+    Returns
+    -------
+    tuple
+        ``(solution, search, starts, starts_at_best, warnings)``: the scipy solution, the search outcome (None
+        for a local run), the number of starts and how many reached the best, the search's warnings.
+    """
+    if not global_search:
+        return _least_squares(problem, x0, max_evaluations), None, 1, 1, []
+    search, warns = run_global_search(problem, x0, starts, seed, max_evaluations, kernel_store, map_starts)
+    return search.best, search, search.starts, search.starts_at_best, warns
+
+
 def run_global_search(problem: FitProblem, x0, starts, seed: int, max_evaluations, kernel_store=None,
                       map_starts=None):
     """The global search of a fit (1D, 2D or joint) on its problem: the warning on unbounded ranges, then the search.
@@ -641,15 +666,9 @@ def _fit(model, data, regions, noise_region, baseline_order, axis, global_search
                          phase_free=phase_free)
     x0 = np.array([p.start for p in free], dtype=float)
     # -- least squares (local or multi-start)
-    n_starts, at_best = 1, 1
-    search = None
-    if global_search:
-        search, search_warns = run_global_search(problem, x0, starts, seed, max_evaluations, kernel_store, map_starts)
-        warns += search_warns
-        sol = search.best
-        n_starts, at_best = search.starts, search.starts_at_best
-    else:
-        sol = _least_squares(problem, x0, max_evaluations)
+    sol, search, n_starts, at_best, search_warns = solve(problem, x0, global_search, starts, seed, max_evaluations,
+                                                         kernel_store, map_starts)
+    warns += search_warns
     x = sol.x
     success, message = _verdict(sol, max_evaluations)
     # -- without a noise region: sigma from the residual, measurements re-weighted

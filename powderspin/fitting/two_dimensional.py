@@ -355,11 +355,10 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
     from .fitter import (
         _check_arguments,
         _free_parameters,
-        _least_squares,
         _profile_local,
         _verdict,
         check_sampler_memory,
-        run_global_search,
+        solve,
     )
 
     if profile not in ("auto", "all", "none"):
@@ -447,14 +446,9 @@ def fit_two_dimensional(model, data: Mapping, *, noise: Mapping | None = None,
                        "linear parameters; widen the regions or choose more slices")
     problem = FitProblem(model, params, axes, ys, masks, sigmas, None, None, progress)
     x0 = np.clip([p.start for p in params], problem.lo, problem.hi)
-    n_starts, at_best, search = 1, 1, None
-    if global_search:
-        search, search_warns = run_global_search(problem, x0, starts, seed, max_evaluations, None, map_starts)
-        warnings += search_warns
-        sol = search.best
-        n_starts, at_best = search.starts, search.starts_at_best
-    else:
-        sol = _least_squares(problem, x0, max_evaluations)
+    sol, search, n_starts, at_best, search_warns = solve(problem, x0, global_search, starts, seed, max_evaluations,
+                                                         None, map_starts)
+    warnings += search_warns
     success, message = _verdict(sol, max_evaluations)
     x, fold_notes = fold_vector(params, sol.x, problem.lo, problem.hi, problem.model)
     notes.extend(fold_notes)
